@@ -1,0 +1,7 @@
+"""``python -m stagewise`` runs the command line."""
+
+import sys
+
+from stagewise.cli import main
+
+sys.exit(main())

@@ -1,0 +1,127 @@
+"""The command line (DESIGN section 6: a contract that tests and scripts rely on).
+
+``stagewise [FILE]`` opens the desktop program; the subcommands run headless. Errors go to
+stderr as one sentence, without a traceback, with exit status 2. Each subcommand lives in its
+own module under :mod:`stagewise.commands` and is imported only when it runs, so that
+``stagewise --help`` and the GUI start fast.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from stagewise import __version__
+
+__all__ = ["CommandError", "build_parser", "main"]
+
+EXIT_OK = 0
+EXIT_FAILED = 1
+EXIT_ERROR = 2
+
+SUBCOMMANDS = ("gui", "analyze", "response", "check", "packet", "verify", "diff", "import-cards")
+
+
+class CommandError(Exception):
+    """An error to report as one sentence on stderr, exit status 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors in one sentence with exit status 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        sys.stderr.write(f"stagewise: {message}; see 'stagewise --help'.\n")
+        raise SystemExit(EXIT_ERROR)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser with every subcommand of DESIGN section 6."""
+    parser = _Parser(
+        prog="stagewise",
+        description="Design review of analog signal chains. With no command, opens the desktop "
+        "program on FILE (the bundled demo when no FILE is given).",
+        epilog="Small-signal linear analysis only; it does not assess electrical safety. "
+        "See the README's cautions.",
+    )
+    parser.add_argument("--version", action="version", version=f"stagewise {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    gui = commands.add_parser("gui", help="open the desktop program on FILE")
+    gui.add_argument("file", metavar="FILE", nargs="?", help="project file (.stagewise.json)")
+    gui.add_argument("--screenshot", metavar="PNG", help="render the main window offscreen to PNG and exit")
+    gui.add_argument("--size", metavar="WxH", default="1440x900", help="window size for --screenshot (default 1440x900)")
+
+    analyze = commands.add_parser("analyze", help="all metrics, per stage and for the chain")
+    analyze.add_argument("file", metavar="FILE")
+    analyze.add_argument("--json", action="store_true", help="print JSON (the only format for now)")
+
+    response = commands.add_parser("response", help="frequency response at chosen frequencies")
+    response.add_argument("file", metavar="FILE")
+    response.add_argument("--stage", metavar="ID", help="one stage, isolated (default: the whole chain)")
+    response.add_argument("--in-chain", action="store_true", help="with --stage: V_out/V_in where the stage sits")
+    response.add_argument("--freqs", metavar="LIST", required=True, help="comma-separated frequencies, e.g. 10,1k,20k")
+    response.add_argument("--json", action="store_true", help="print JSON")
+
+    check = commands.add_parser("check", help="checklist status (exit 0 all met or waived, 1 otherwise)")
+    check.add_argument("file", metavar="FILE")
+    check.add_argument("--json", action="store_true", help="print JSON instead of a table")
+
+    packet = commands.add_parser("packet", help="print the PDF review packet")
+    packet.add_argument("file", metavar="FILE")
+    packet.add_argument("-o", "--output", metavar="OUT.pdf", required=True)
+    packet.add_argument("--by", metavar="NAME", help="who printed it (recorded in the audit trail)")
+
+    verify = commands.add_parser("verify", help="audit-trail integrity (exit 0 intact, 1 broken)")
+    verify.add_argument("file", metavar="FILE")
+
+    diff = commands.add_parser("diff", help="what changed, part by part, and which sign-offs it stales")
+    diff.add_argument("old", metavar="OLD")
+    diff.add_argument("new", metavar="NEW")
+
+    cards = commands.add_parser("import-cards", help="append a stage built from element-card text")
+    cards.add_argument("file", metavar="FILE")
+    cards.add_argument("cards", metavar="CARDS", help="element-card text file, one part per line")
+    cards.add_argument("--name", required=True, help="name of the new stage")
+    cards.add_argument("--in", dest="in_node", metavar="NODE", default="in", help="input port node (default in)")
+    cards.add_argument("--out", dest="out_node", metavar="NODE", default="out", help="output port node (default out)")
+    cards.add_argument("--id", dest="stage_id", metavar="ID", help="id of the new stage (default: from the name)")
+    cards.add_argument("--by", metavar="NAME", help="who imported it (recorded in the audit trail)")
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the exit status."""
+    arguments = list(sys.argv[1:] if argv is None else argv)
+    # `stagewise FILE` (no subcommand) opens the GUI on FILE.
+    if arguments and not arguments[0].startswith("-") and arguments[0] not in SUBCOMMANDS:
+        arguments = ["gui", *arguments]
+    if not arguments:
+        arguments = ["gui"]
+    parser = build_parser()
+    args = parser.parse_args(arguments)
+    module_name = "stagewise.commands." + str(args.command).replace("-", "_")
+    try:
+        module = importlib.import_module(module_name)
+        return int(module.run(args))
+    except CommandError as error:
+        _report(str(error))
+        return EXIT_ERROR
+    except ValueError as error:  # ProjectFileError, CircuitError, ValueSyntaxError
+        _report(str(error))
+        return EXIT_ERROR
+    except OSError as error:
+        where = f"{error.filename}: " if error.filename else ""
+        _report(f"{where}{error.strerror or error}")
+        return EXIT_ERROR
+    except KeyboardInterrupt:
+        _report("interrupted")
+        return EXIT_ERROR
+
+
+def _report(message: str) -> None:
+    text = " ".join(message.split())
+    if not text.endswith((".", "?", "!")):
+        text += "."
+    sys.stderr.write(f"stagewise: {text}\n")

@@ -1,0 +1,678 @@
+"""JSON <-> model for project files (format version 1, DESIGN section 5).
+
+``decode`` reads a parsed JSON document into a :class:`~stagewise.model.project.Project`,
+collecting *every* problem with its JSON path (``stages[2].parts[4].value: "4k7x" is not a
+value``) instead of stopping at the first. ``encode`` writes the model back with keys in a fixed
+order, so that a canonical file round-trips byte for byte.
+
+Values are parsed with :func:`stagewise.model.values.parse_value` only; nothing from a file is
+ever evaluated.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from typing import Any, TypeVar
+
+from stagewise.model.project import (
+    BLOCK_KIND,
+    CIRCUIT_KIND,
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    AuditEvent,
+    Check,
+    Comment,
+    Converter,
+    InputDrive,
+    Load,
+    ManualAnswer,
+    OpampModel,
+    Part,
+    Project,
+    Settings,
+    Signoff,
+    Stage,
+    Waiver,
+)
+from stagewise.model.values import Quantity, ValueSyntaxError
+
+__all__ = ["ProjectFileError", "decode", "dumps", "encode"]
+
+T = TypeVar("T")
+
+
+class ProjectFileError(ValueError):
+    """A project document that cannot be read. ``problems`` lists each with its JSON path."""
+
+    def __init__(self, problems: list[str], source: str = "") -> None:
+        self.problems = list(problems)
+        self.source = source
+        where = f"{source}: " if source else ""
+        if len(problems) == 1:
+            message = f"{where}{problems[0]}"
+        else:
+            message = f"{where}{len(problems)} problems: " + "; ".join(problems)
+        super().__init__(message)
+
+
+class _Reader:
+    """Walks a JSON document, collecting problems with their paths."""
+
+    def __init__(self) -> None:
+        self.problems: list[str] = []
+        self._path: list[str] = []
+
+    @property
+    def path(self) -> str:
+        text = ""
+        for piece in self._path:
+            text += piece if piece.startswith("[") or not text else f".{piece}"
+        return text or "(document)"
+
+    @contextmanager
+    def at(self, piece: str | int) -> Iterator[None]:
+        self._path.append(f"[{piece}]" if isinstance(piece, int) else piece)
+        try:
+            yield
+        finally:
+            self._path.pop()
+
+    def problem(self, message: str) -> None:
+        self.problems.append(f"{self.path}: {message}")
+
+    def object(self, data: object, allowed: tuple[str, ...], required: tuple[str, ...] = ()) -> dict[str, Any] | None:
+        if not isinstance(data, dict):
+            self.problem(f"expected an object, found {_describe(data)}")
+            return None
+        for key in data:
+            if key not in allowed:
+                self.problem(f'unknown key "{key}"; allowed here: {", ".join(allowed)}')
+        for key in required:
+            if key not in data:
+                self.problem(f'missing key "{key}"')
+        return data
+
+    def field(self, data: dict[str, Any], key: str, read: Callable[[object], T], default: T) -> T:
+        if key not in data:
+            return default
+        with self.at(key):
+            try:
+                return read(data[key])
+            except (ValueError, TypeError) as error:
+                self.problem(str(error))
+                return default
+
+    def items(self, data: dict[str, Any], key: str) -> Iterator[tuple[int, Any]]:
+        if key not in data or data[key] is None:
+            return
+        with self.at(key):
+            value = data[key]
+            if not isinstance(value, list):
+                self.problem(f"expected a list, found {_describe(value)}")
+                return
+        for index, item in enumerate(value):
+            with self.at(key), self.at(index):
+                yield index, item
+
+
+def _describe(value: object) -> str:
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        shown = value if len(value) <= 40 else value[:37] + "…"
+        return f'"{shown}"'
+    if isinstance(value, list):
+        return "a list"
+    if isinstance(value, dict):
+        return "an object"
+    return repr(value)
+
+
+# -- field readers: each raises ValueError with a sentence (the path is added by _Reader) -----
+
+
+def _quantity(value: object) -> Quantity:
+    try:
+        return Quantity.of(value)
+    except ValueSyntaxError as error:
+        if isinstance(value, str | int | float) and not isinstance(value, bool):
+            raise ValueError(f"{_describe(value)} is not a value; expected a JSON number or "
+                             f"text such as 4k7, 2.2u, 10nF or 1Meg") from error
+        raise ValueError(f"{_describe(value)} is not a value") from error
+
+
+def _optional_quantity(value: object) -> Quantity | None:
+    return None if value is None else _quantity(value)
+
+
+def _positive(value: object) -> Quantity:
+    quantity = _quantity(value)
+    if not quantity.si > 0:
+        raise ValueError(f"{_describe(value)} must be greater than zero")
+    return quantity
+
+
+def _optional_positive(value: object) -> Quantity | None:
+    return None if value is None else _positive(value)
+
+
+def _nonnegative(value: object) -> Quantity:
+    quantity = _quantity(value)
+    if quantity.si < 0:
+        raise ValueError(f"{_describe(value)} must not be negative")
+    return quantity
+
+
+def _optional_nonnegative(value: object) -> Quantity | None:
+    return None if value is None else _nonnegative(value)
+
+
+def _tolerance(value: object) -> Quantity | None:
+    if value is None:
+        return None
+    quantity = _quantity(value)
+    if not 0 <= quantity.si < 1:
+        raise ValueError(f"{_describe(value)} is not a tolerance; give a fraction below 1 or a percentage such as 1%")
+    return quantity
+
+
+def _text(value: object) -> str:
+    if not isinstance(value, str):
+        raise ValueError(f"expected text, found {_describe(value)}")
+    return value
+
+
+def _name(value: object) -> str:
+    text = _text(value)
+    if not text.strip():
+        raise ValueError("must not be empty")
+    if len(text) > 200:
+        raise ValueError("is longer than 200 characters")
+    return text
+
+
+def _optional_text(value: object) -> str | None:
+    return None if value is None else _text(value)
+
+
+def _boolean(value: object) -> bool:
+    if not isinstance(value, bool):
+        raise ValueError(f"expected true or false, found {_describe(value)}")
+    return value
+
+
+def _integer(value: object) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise ValueError(f"expected a whole number, found {_describe(value)}")
+    return value
+
+
+def _choice(*choices: str) -> Callable[[object], str]:
+    def read(value: object) -> str:
+        if value not in choices:
+            raise ValueError(f"{_describe(value)} is not one of {', '.join(choices)}")
+        return str(value)
+
+    return read
+
+
+def _pair(read: Callable[[object], T]) -> Callable[[object], tuple[T, T]]:
+    def read_pair(value: object) -> tuple[T, T]:
+        if not isinstance(value, list) or len(value) != 2:
+            raise ValueError(f"expected a list of two values, found {_describe(value)}")
+        return read(value[0]), read(value[1])
+
+    return read_pair
+
+
+def _nodes(value: object) -> list[str]:
+    if not isinstance(value, list) or not value:
+        raise ValueError(f"expected a list of node names, found {_describe(value)}")
+    nodes: list[str] = []
+    for index, node in enumerate(value):
+        if isinstance(node, int) and not isinstance(node, bool):
+            node = str(node)
+        if not isinstance(node, str) or not node.strip():
+            raise ValueError(f"node {index + 1} is {_describe(node)}, not a node name")
+        nodes.append(node)
+    return nodes
+
+
+def _root(value: object) -> Quantity | tuple[Quantity, Quantity]:
+    if isinstance(value, list):
+        if len(value) != 2:
+            raise ValueError(f"expected a frequency or a pair [f0_hz, Q], found a list of {len(value)}")
+        frequency, quality = _positive(value[0]), _positive(value[1])
+        return frequency, quality
+    return _quantity(value)
+
+
+# -- decode ----------------------------------------------------------------------------------
+
+_TOP_KEYS = ("format", "version", "title", "revision", "settings", "input", "converter", "load",
+             "opamp_models", "stages", "audit")
+_SETTINGS_KEYS = ("f_min_hz", "f_max_hz", "points_per_decade", "temperature_c", "ref_hz",
+                  "noise_band_hz", "seed", "mc_samples", "mc_distribution")
+_OPAMP_KEYS = ("description", "a0_db", "gbw_hz", "p2_hz", "rout_ohm", "rin_ohm", "cin_diff_f",
+               "cin_cm_f", "en_v_rthz", "en_corner_hz", "in_a_rthz", "in_corner_hz", "swing_v",
+               "slew_v_per_s")
+_STAGE_KEYS = ("id", "name", "kind", "drive", "bypass", "ports", "parts", "gain", "zeros_hz",
+               "poles_hz", "zin", "zout_ohm", "checks", "signoffs", "comments", "notes")
+_PART_KEYS = ("ref", "type", "nodes", "value", "tol", "control", "model")
+_CHECK_KEYS = ("id", "text", "metric", "where", "at_hz", "min", "max", "answer", "waiver")
+_SIGNOFF_KEYS = ("name", "role", "verdict", "note", "time", "fingerprint")
+_COMMENT_KEYS = ("author", "time", "text", "check", "resolved")
+_EVENT_KEYS = ("seq", "time", "who", "what", "detail", "prev", "hash")
+
+
+def decode(document: object, source: str = "") -> Project:
+    """Build a project from a parsed JSON document (already migrated to the current version).
+
+    Raises
+    ------
+    ProjectFileError
+        Listing every problem found, each with its JSON path.
+    """
+    reader = _Reader()
+    data = reader.object(document, _TOP_KEYS, ("format", "version", "title", "stages"))
+    if data is None:
+        raise ProjectFileError(reader.problems, source)
+    if "format" in data and data["format"] != FORMAT_NAME:
+        with reader.at("format"):
+            reader.problem(f'{_describe(data["format"])} is not a Stagewise project (expected "{FORMAT_NAME}")')
+    if "version" in data and data["version"] != FORMAT_VERSION:
+        with reader.at("version"):
+            reader.problem(f"{_describe(data['version'])} is not version {FORMAT_VERSION}")
+    project = Project(title=reader.field(data, "title", _name, ""))
+    project.revision = reader.field(data, "revision", _text, "")
+    with reader.at("settings"):
+        project.settings = _decode_settings(reader, data.get("settings", {}))
+    with reader.at("input"):
+        project.input = _decode_input(reader, data.get("input", {}))
+    with reader.at("converter"):
+        project.converter = _decode_converter(reader, data.get("converter", {}))
+    with reader.at("load"):
+        project.load = _decode_load(reader, data.get("load", {}))
+    models = data.get("opamp_models", {})
+    with reader.at("opamp_models"):
+        if reader.object(models, tuple(models) if isinstance(models, dict) else ()) is not None:
+            for name, model in models.items():
+                with reader.at(name):
+                    decoded = _decode_opamp(reader, model)
+                    if decoded is not None:
+                        project.opamp_models[name] = decoded
+    for _, stage_data in reader.items(data, "stages"):
+        stage = _decode_stage(reader, stage_data)
+        if stage is not None:
+            project.stages.append(stage)
+    for _, event_data in reader.items(data, "audit"):
+        event = _decode_event(reader, event_data)
+        if event is not None:
+            project.audit.append(event)
+    if reader.problems:
+        raise ProjectFileError(reader.problems, source)
+    return project
+
+
+def _decode_settings(reader: _Reader, data: object) -> Settings:
+    settings = Settings()
+    fields = reader.object(data, _SETTINGS_KEYS)
+    if fields is None:
+        return settings
+    settings.f_min_hz = reader.field(fields, "f_min_hz", _positive, settings.f_min_hz)
+    settings.f_max_hz = reader.field(fields, "f_max_hz", _positive, settings.f_max_hz)
+    settings.points_per_decade = reader.field(fields, "points_per_decade", _integer, settings.points_per_decade)
+    settings.temperature_c = reader.field(fields, "temperature_c", _quantity, settings.temperature_c)
+    settings.ref_hz = reader.field(fields, "ref_hz", _optional_positive, None)
+    band = reader.field(fields, "noise_band_hz", lambda v: None if v is None else _pair(_positive)(v), None)
+    settings.noise_band_hz = band
+    settings.seed = reader.field(fields, "seed", _integer, settings.seed)
+    settings.mc_samples = reader.field(fields, "mc_samples", _integer, settings.mc_samples)
+    settings.mc_distribution = reader.field(fields, "mc_distribution", _choice("uniform", "normal"),
+                                            settings.mc_distribution)
+    return settings
+
+
+def _decode_input(reader: _Reader, data: object) -> InputDrive:
+    drive = InputDrive()
+    fields = reader.object(data, ("drive", "amplitude"))
+    if fields is None:
+        return drive
+    drive.drive = reader.field(fields, "drive", _choice("voltage", "current"), drive.drive)
+    drive.amplitude = reader.field(fields, "amplitude", _optional_positive, None)
+    return drive
+
+
+def _decode_converter(reader: _Reader, data: object) -> Converter:
+    converter = Converter()
+    fields = reader.object(data, ("fs_hz", "bits", "full_scale_vpp"))
+    if fields is None:
+        return converter
+    converter.fs_hz = reader.field(fields, "fs_hz", _optional_positive, None)
+    converter.bits = reader.field(fields, "bits", lambda v: None if v is None else _integer(v), None)
+    converter.full_scale_vpp = reader.field(fields, "full_scale_vpp", _optional_positive, None)
+    return converter
+
+
+def _decode_load(reader: _Reader, data: object) -> Load:
+    load = Load()
+    fields = reader.object(data, ("r_ohm", "c_f"))
+    if fields is None:
+        return load
+    load.r_ohm = reader.field(fields, "r_ohm", _optional_positive, None)
+    load.c_f = reader.field(fields, "c_f", _optional_nonnegative, None)
+    return load
+
+
+def _decode_opamp(reader: _Reader, data: object) -> OpampModel | None:
+    fields = reader.object(data, _OPAMP_KEYS, ("a0_db", "gbw_hz"))
+    if fields is None or "a0_db" not in fields or "gbw_hz" not in fields:
+        return None
+    model = OpampModel(
+        a0_db=reader.field(fields, "a0_db", _positive, Quantity(100, 100.0)),
+        gbw_hz=reader.field(fields, "gbw_hz", _positive, Quantity(1, 1.0)),
+    )
+    model.description = reader.field(fields, "description", _text, "")
+    for key in ("p2_hz", "rin_ohm", "en_corner_hz", "in_corner_hz", "slew_v_per_s"):
+        setattr(model, key, reader.field(fields, key, _optional_positive, None))
+    for key in ("rout_ohm", "cin_diff_f", "cin_cm_f", "en_v_rthz", "in_a_rthz"):
+        setattr(model, key, reader.field(fields, key, _optional_nonnegative, None))
+    model.swing_v = reader.field(fields, "swing_v", lambda v: None if v is None else _pair(_quantity)(v), None)
+    return model
+
+
+def _decode_stage(reader: _Reader, data: object) -> Stage | None:
+    fields = reader.object(data, _STAGE_KEYS, ("id", "name"))
+    if fields is None:
+        return None
+    stage = Stage(id=reader.field(fields, "id", _name, ""), name=reader.field(fields, "name", _name, ""))
+    stage.kind = reader.field(fields, "kind", _choice(CIRCUIT_KIND, BLOCK_KIND), CIRCUIT_KIND)
+    stage.drive = reader.field(fields, "drive", _choice("voltage", "current"), "voltage")
+    stage.bypass = reader.field(fields, "bypass", _boolean, False)
+    stage.notes = reader.field(fields, "notes", _text, "")
+    if "ports" in fields:
+        with reader.at("ports"):
+            ports = reader.object(fields["ports"], ("in", "out"), ("in", "out"))
+            if ports is not None:
+                stage.ports = {
+                    "in": reader.field(ports, "in", _name, "in"),
+                    "out": reader.field(ports, "out", _name, "out"),
+                }
+    for _, part_data in reader.items(fields, "parts"):
+        part = _decode_part(reader, part_data)
+        if part is not None:
+            stage.parts.append(part)
+    stage.gain = reader.field(fields, "gain", _optional_quantity, None)
+    for key in ("zeros_hz", "poles_hz"):
+        roots = getattr(stage, key)
+        for _, root in reader.items(fields, key):
+            try:
+                roots.append(_root(root))
+            except ValueError as error:
+                reader.problem(str(error))
+    if "zin" in fields and fields["zin"] is not None:
+        with reader.at("zin"):
+            zin = reader.object(fields["zin"], ("r_ohm", "c_f"))
+            if zin is not None:
+                stage.zin_r_ohm = reader.field(zin, "r_ohm", _optional_positive, None)
+                stage.zin_c_f = reader.field(zin, "c_f", _optional_nonnegative, None)
+    stage.zout_ohm = reader.field(fields, "zout_ohm", _optional_nonnegative, None)
+    for _, check_data in reader.items(fields, "checks"):
+        check = _decode_check(reader, check_data)
+        if check is not None:
+            stage.checks.append(check)
+    for _, signoff_data in reader.items(fields, "signoffs"):
+        signoff_fields = reader.object(signoff_data, _SIGNOFF_KEYS, ("name", "verdict", "time", "fingerprint"))
+        if signoff_fields is not None:
+            stage.signoffs.append(Signoff(
+                name=reader.field(signoff_fields, "name", _name, ""),
+                role=reader.field(signoff_fields, "role", _text, ""),
+                verdict=reader.field(signoff_fields, "verdict", _choice("approve", "changes"), "changes"),
+                time=reader.field(signoff_fields, "time", _text, ""),
+                fingerprint=reader.field(signoff_fields, "fingerprint", _text, ""),
+                note=reader.field(signoff_fields, "note", _text, ""),
+            ))
+    for _, comment_data in reader.items(fields, "comments"):
+        comment_fields = reader.object(comment_data, _COMMENT_KEYS, ("author", "time", "text"))
+        if comment_fields is not None:
+            stage.comments.append(Comment(
+                author=reader.field(comment_fields, "author", _name, ""),
+                time=reader.field(comment_fields, "time", _text, ""),
+                text=reader.field(comment_fields, "text", _text, ""),
+                resolved=reader.field(comment_fields, "resolved", _boolean, False),
+                check=reader.field(comment_fields, "check", _optional_text, None),
+            ))
+    return stage
+
+
+def _decode_part(reader: _Reader, data: object) -> Part | None:
+    fields = reader.object(data, _PART_KEYS, ("ref", "type", "nodes"))
+    if fields is None:
+        return None
+    part = Part(
+        ref=reader.field(fields, "ref", _name, ""),
+        type=reader.field(fields, "type", _text, ""),
+        nodes=reader.field(fields, "nodes", _nodes, []),
+    )
+    part.value = reader.field(fields, "value", _optional_quantity, None)
+    part.tol = reader.field(fields, "tol", _tolerance, None)
+    part.control = reader.field(fields, "control", _optional_text, None)
+    part.model = reader.field(fields, "model", _optional_text, None)
+    return part
+
+
+def _decode_check(reader: _Reader, data: object) -> Check | None:
+    fields = reader.object(data, _CHECK_KEYS, ("id", "text"))
+    if fields is None:
+        return None
+    check = Check(id=reader.field(fields, "id", _name, ""), text=reader.field(fields, "text", _text, ""))
+    check.metric = reader.field(fields, "metric", _optional_text, None)
+    check.where = reader.field(fields, "where", _choice("isolated", "in_chain", "chain"), "in_chain")
+    check.at_hz = reader.field(fields, "at_hz", _optional_positive, None)
+    check.min = reader.field(fields, "min", _optional_quantity, None)
+    check.max = reader.field(fields, "max", _optional_quantity, None)
+    if fields.get("answer") is not None:
+        with reader.at("answer"):
+            answer = reader.object(fields["answer"], ("answer", "by", "time", "note"), ("answer", "by", "time"))
+            if answer is not None:
+                check.answer = ManualAnswer(
+                    answer=reader.field(answer, "answer", _choice("yes", "no", "n/a"), "no"),
+                    by=reader.field(answer, "by", _name, ""),
+                    time=reader.field(answer, "time", _text, ""),
+                    note=reader.field(answer, "note", _text, ""),
+                )
+    if fields.get("waiver") is not None:
+        with reader.at("waiver"):
+            waiver = reader.object(fields["waiver"], ("by", "role", "time", "justification"),
+                                   ("by", "time", "justification"))
+            if waiver is not None:
+                check.waiver = Waiver(
+                    by=reader.field(waiver, "by", _name, ""),
+                    role=reader.field(waiver, "role", _text, ""),
+                    time=reader.field(waiver, "time", _text, ""),
+                    justification=reader.field(waiver, "justification", _name, ""),
+                )
+    return check
+
+
+def _decode_event(reader: _Reader, data: object) -> AuditEvent | None:
+    fields = reader.object(data, _EVENT_KEYS, _EVENT_KEYS)
+    if fields is None:
+        return None
+
+    def detail(value: object) -> dict[str, Any]:
+        if not isinstance(value, dict):
+            raise ValueError(f"expected an object, found {_describe(value)}")
+        return value
+
+    return AuditEvent(
+        seq=reader.field(fields, "seq", _integer, 0),
+        time=reader.field(fields, "time", _text, ""),
+        who=reader.field(fields, "who", _text, ""),
+        what=reader.field(fields, "what", _text, ""),
+        detail=reader.field(fields, "detail", detail, {}),
+        prev=reader.field(fields, "prev", _text, ""),
+        hash=reader.field(fields, "hash", _text, ""),
+    )
+
+
+# -- encode ----------------------------------------------------------------------------------
+
+
+def _raw(quantity: Quantity | None) -> str | int | float | None:
+    return None if quantity is None else quantity.raw
+
+
+def encode(project: Project) -> dict[str, Any]:
+    """The project as a JSON-ready dict with keys in the canonical order.
+
+    Optional records that are empty (no sign-offs, no notes, not bypassed, ...) are left out, so
+    that a minimal file stays minimal.
+    """
+    settings = project.settings
+    settings_out: dict[str, Any] = {
+        "f_min_hz": settings.f_min_hz.raw,
+        "f_max_hz": settings.f_max_hz.raw,
+        "points_per_decade": settings.points_per_decade,
+        "temperature_c": settings.temperature_c.raw,
+        "ref_hz": _raw(settings.ref_hz),
+        "noise_band_hz": None if settings.noise_band_hz is None else [q.raw for q in settings.noise_band_hz],
+        "seed": settings.seed,
+    }
+    if settings.mc_samples != Settings().mc_samples:
+        settings_out["mc_samples"] = settings.mc_samples
+    if settings.mc_distribution != Settings().mc_distribution:
+        settings_out["mc_distribution"] = settings.mc_distribution
+    document: dict[str, Any] = {
+        "format": FORMAT_NAME,
+        "version": FORMAT_VERSION,
+        "title": project.title,
+        "revision": project.revision,
+        "settings": settings_out,
+        "input": {"drive": project.input.drive, "amplitude": _raw(project.input.amplitude)},
+        "converter": {
+            "fs_hz": _raw(project.converter.fs_hz),
+            "bits": project.converter.bits,
+            "full_scale_vpp": _raw(project.converter.full_scale_vpp),
+        },
+        "load": {"r_ohm": _raw(project.load.r_ohm), "c_f": _raw(project.load.c_f)},
+        "opamp_models": {name: encode_opamp(model) for name, model in project.opamp_models.items()},
+        "stages": [encode_stage(stage) for stage in project.stages],
+        "audit": [encode_event(event) for event in project.audit],
+    }
+    return document
+
+
+def encode_opamp(model: OpampModel) -> dict[str, Any]:
+    """An op-amp model as a JSON-ready dict (absent parameters left out)."""
+    out: dict[str, Any] = {}
+    if model.description:
+        out["description"] = model.description
+    for key in _OPAMP_KEYS[1:]:
+        value = getattr(model, key)
+        if value is None:
+            continue
+        out[key] = [q.raw for q in value] if key == "swing_v" else value.raw
+    return out
+
+
+def _encode_root(root: Quantity | tuple[Quantity, Quantity]) -> Any:
+    if isinstance(root, tuple):
+        return [root[0].raw, root[1].raw]
+    return root.raw
+
+
+def encode_part(part: Part) -> dict[str, Any]:
+    """A part as a JSON-ready dict (absent fields left out)."""
+    out: dict[str, Any] = {"ref": part.ref, "type": part.type, "nodes": list(part.nodes)}
+    if part.value is not None:
+        out["value"] = part.value.raw
+    if part.tol is not None:
+        out["tol"] = part.tol.raw
+    if part.control is not None:
+        out["control"] = part.control
+    if part.model is not None:
+        out["model"] = part.model
+    return out
+
+
+def encode_check(check: Check) -> dict[str, Any]:
+    """A check as a JSON-ready dict (absent fields left out)."""
+    out: dict[str, Any] = {"id": check.id, "text": check.text}
+    if check.metric is not None:
+        out["metric"] = check.metric
+        out["where"] = check.where
+        if check.at_hz is not None:
+            out["at_hz"] = check.at_hz.raw
+        if check.min is not None:
+            out["min"] = check.min.raw
+        if check.max is not None:
+            out["max"] = check.max.raw
+    if check.answer is not None:
+        answer: dict[str, Any] = {"answer": check.answer.answer, "by": check.answer.by, "time": check.answer.time}
+        if check.answer.note:
+            answer["note"] = check.answer.note
+        out["answer"] = answer
+    if check.waiver is not None:
+        waiver: dict[str, Any] = {"by": check.waiver.by}
+        if check.waiver.role:
+            waiver["role"] = check.waiver.role
+        waiver["time"] = check.waiver.time
+        waiver["justification"] = check.waiver.justification
+        out["waiver"] = waiver
+    return out
+
+
+def encode_stage(stage: Stage) -> dict[str, Any]:
+    """A stage as a JSON-ready dict in canonical key order."""
+    out: dict[str, Any] = {"id": stage.id, "name": stage.name}
+    if stage.kind != CIRCUIT_KIND:
+        out["kind"] = stage.kind
+    if stage.drive != "voltage" or not stage.is_block:
+        out["drive"] = stage.drive
+    if stage.bypass:
+        out["bypass"] = True
+    if stage.is_block:
+        out["zeros_hz"] = [_encode_root(root) for root in stage.zeros_hz]
+        out["poles_hz"] = [_encode_root(root) for root in stage.poles_hz]
+        out["gain"] = _raw(stage.gain)
+        out["zin"] = {"r_ohm": _raw(stage.zin_r_ohm), "c_f": _raw(stage.zin_c_f)}
+        out["zout_ohm"] = _raw(stage.zout_ohm)
+    else:
+        out["ports"] = {"in": stage.ports["in"], "out": stage.ports["out"]}
+        out["parts"] = [encode_part(part) for part in stage.parts]
+    if not stage.is_block or stage.checks:
+        out["checks"] = [encode_check(check) for check in stage.checks]
+    if not stage.is_block or stage.signoffs:
+        out["signoffs"] = [
+            {"name": s.name, "role": s.role, "verdict": s.verdict, "note": s.note, "time": s.time,
+             "fingerprint": s.fingerprint}
+            for s in stage.signoffs
+        ]
+    if not stage.is_block or stage.comments:
+        comments = []
+        for comment in stage.comments:
+            item: dict[str, Any] = {"author": comment.author, "time": comment.time, "text": comment.text}
+            if comment.check is not None:
+                item["check"] = comment.check
+            item["resolved"] = comment.resolved
+            comments.append(item)
+        out["comments"] = comments
+    if not stage.is_block or stage.notes:
+        out["notes"] = stage.notes
+    return out
+
+
+def encode_event(event: AuditEvent) -> dict[str, Any]:
+    """An audit event as a JSON-ready dict (the key order that its hash is computed over)."""
+    return {"seq": event.seq, "time": event.time, "who": event.who, "what": event.what,
+            "detail": event.detail, "prev": event.prev, "hash": event.hash}
+
+
+def dumps(project: Project) -> str:
+    """The canonical file text: UTF-8 JSON, 2-space indent, keys in fixed order, final newline."""
+    return json.dumps(encode(project), indent=2, ensure_ascii=False) + "\n"

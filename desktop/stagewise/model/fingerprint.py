@@ -1,0 +1,74 @@
+"""Stage fingerprints: SHA-256 of the canonical JSON of what decides a stage's behaviour.
+
+Parts (type, nodes, values by what they mean, tolerances, control, model), ports, drive, the
+parameters of the op-amp models the stage uses, and the limits of its numeric checks. Not
+names, notes, comments, manual answers or waivers, and not how a value was typed: ``"4k7"`` and
+``4700`` are the same resistor. Sign-offs store this fingerprint and turn stale when it changes;
+the engine keys its caches on it.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from typing import Any
+
+from stagewise.model.project import IDEAL_OPAMP, OpampModel, Project, Stage
+from stagewise.model.values import Quantity
+
+__all__ = ["behaviour_document", "stage_fingerprint"]
+
+
+def _si(quantity: Quantity | tuple[Quantity, Quantity] | None) -> Any:
+    if quantity is None:
+        return None
+    if isinstance(quantity, tuple):
+        return [quantity[0].si, quantity[1].si]
+    return quantity.si
+
+
+_MODEL_FIELDS = ("a0_db", "gbw_hz", "p2_hz", "rout_ohm", "rin_ohm", "cin_diff_f", "cin_cm_f", "en_v_rthz",
+                 "en_corner_hz", "in_a_rthz", "in_corner_hz", "swing_v", "slew_v_per_s")
+
+
+def _model_document(model: OpampModel) -> dict[str, Any]:
+    return {name: _si(getattr(model, name)) for name in _MODEL_FIELDS}
+
+
+def behaviour_document(stage: Stage, project: Project | None) -> dict[str, Any]:
+    """What decides a stage's behaviour, as plain JSON data in SI values."""
+    document: dict[str, Any] = {"kind": stage.kind, "drive": stage.drive}
+    if stage.is_block:
+        document["block"] = {
+            "gain": _si(stage.gain),
+            "zeros_hz": [_si(root) for root in stage.zeros_hz],
+            "poles_hz": [_si(root) for root in stage.poles_hz],
+            "zin": [_si(stage.zin_r_ohm), _si(stage.zin_c_f)],
+            "zout_ohm": _si(stage.zout_ohm),
+        }
+    else:
+        document["ports"] = [stage.ports.get("in"), stage.ports.get("out")]
+        document["parts"] = [
+            {"ref": part.ref, "type": part.type, "nodes": list(part.nodes), "value": _si(part.value),
+             "tol": _si(part.tol), "control": part.control, "model": part.model}
+            for part in stage.parts
+        ]
+        if project is not None:
+            used = sorted({part.model for part in stage.parts
+                           if part.type == "opamp" and part.model not in (None, IDEAL_OPAMP)})
+            document["opamp_models"] = {
+                name: _model_document(project.opamp_models[name]) for name in used if name in project.opamp_models
+            }
+    document["checks"] = [
+        {"id": check.id, "metric": check.metric, "where": check.where, "at_hz": _si(check.at_hz),
+         "min": _si(check.min), "max": _si(check.max)}
+        for check in stage.checks
+        if check.metric is not None
+    ]
+    return document
+
+
+def stage_fingerprint(stage: Stage, project: Project | None) -> str:
+    """SHA-256 (hex) of the canonical JSON (sorted keys, no spaces) of :func:`behaviour_document`."""
+    text = json.dumps(behaviour_document(stage, project), sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()

@@ -1,0 +1,182 @@
+"""Semantic validation of a project: every problem with its JSON path.
+
+The file decoder checks types and syntax; this module checks meaning: part types and their
+node counts, duplicate references, controlled sources naming missing parts, ports that name no
+node, stages with no path to node 0, op-amp models that do not exist, settings out of range.
+"""
+
+from __future__ import annotations
+
+from stagewise.model.project import (
+    CURRENT_CONTROLLED_TYPES,
+    GROUND,
+    IDEAL_OPAMP,
+    PART_TYPES,
+    VALUED_TYPES,
+    Project,
+    Stage,
+)
+
+__all__ = ["KNOWN_METRICS_HOOK", "validate", "validate_stage"]
+
+ABSOLUTE_ZERO_C = -273.15
+
+# The review layer registers the table of metric keys here so that the model can check names
+# without importing it (keeps the model free of the layers above it).
+KNOWN_METRICS_HOOK: list[frozenset[str]] = []
+
+
+def validate(project: Project) -> list[str]:
+    """Every semantic problem of ``project``, each as ``"json.path: sentence"``."""
+    problems: list[str] = []
+    settings = project.settings
+    if settings.f_min_hz.si >= settings.f_max_hz.si:
+        problems.append(f"settings.f_min_hz: {settings.f_min_hz.raw} must be below f_max_hz ({settings.f_max_hz.raw})")
+    if not 1 <= settings.points_per_decade <= 10000:
+        problems.append(f"settings.points_per_decade: {settings.points_per_decade} must be between 1 and 10000")
+    if settings.temperature_c.si < ABSOLUTE_ZERO_C:
+        problems.append(f"settings.temperature_c: {settings.temperature_c.raw} °C is below absolute zero (−273.15 °C)")
+    if settings.noise_band_hz is not None and settings.noise_band_hz[0].si >= settings.noise_band_hz[1].si:
+        problems.append("settings.noise_band_hz: the lower edge must be below the upper edge")
+    if not 1 <= settings.mc_samples <= 1_000_000:
+        problems.append(f"settings.mc_samples: {settings.mc_samples} must be between 1 and 1000000")
+    if settings.seed < 0:
+        problems.append(f"settings.seed: {settings.seed} must not be negative")
+    converter = project.converter
+    if converter.bits is not None and not 1 <= converter.bits <= 32:
+        problems.append(f"converter.bits: {converter.bits} must be between 1 and 32")
+    for name, model in project.opamp_models.items():
+        if model.a0_db.si > 300:
+            problems.append(f"opamp_models.{name}.a0_db: {model.a0_db.raw} dB is beyond any amplifier; use \"ideal\"")
+        if model.swing_v is not None and model.swing_v[0].si >= model.swing_v[1].si:
+            problems.append(f"opamp_models.{name}.swing_v: the low limit must be below the high limit")
+    seen_ids: set[str] = set()
+    for index, stage in enumerate(project.stages):
+        if stage.id in seen_ids:
+            problems.append(f'stages[{index}].id: "{stage.id}" is used by another stage')
+        seen_ids.add(stage.id)
+        problems.extend(validate_stage(stage, project, f"stages[{index}]"))
+    return problems
+
+
+def validate_stage(stage: Stage, project: Project, path: str) -> list[str]:
+    """Problems of one stage; ``path`` is its JSON path (``stages[2]``)."""
+    problems: list[str] = []
+    known_metrics = KNOWN_METRICS_HOOK[0] if KNOWN_METRICS_HOOK else None
+    check_ids: set[str] = set()
+    for index, check in enumerate(stage.checks):
+        where = f"{path}.checks[{index}]"
+        if check.id in check_ids:
+            problems.append(f'{where}.id: "{check.id}" is used by another check of this stage')
+        check_ids.add(check.id)
+        if check.metric is not None:
+            if known_metrics is not None and check.metric not in known_metrics:
+                problems.append(f'{where}.metric: "{check.metric}" is not a metric Stagewise computes')
+            if check.min is None and check.max is None:
+                problems.append(f"{where}: a numeric check needs min, max or both")
+            if check.min is not None and check.max is not None and check.min.si > check.max.si:
+                problems.append(f"{where}.min: {check.min.raw} is above max ({check.max.raw})")
+    for index, comment in enumerate(stage.comments):
+        if comment.check is not None and comment.check not in check_ids:
+            problems.append(f'{path}.comments[{index}].check: "{comment.check}" names no check of this stage')
+    if stage.is_block:
+        if stage.gain is None:
+            problems.append(f"{path}.gain: a block stage needs a gain")
+        if stage.parts:
+            problems.append(f"{path}.parts: a block stage has no parts; use kind \"circuit\"")
+        return problems
+    nodes: set[str] = set()
+    refs: dict[str, int] = {}
+    for index, part in enumerate(stage.parts):
+        where = f"{path}.parts[{index}]"
+        if part.ref in refs:
+            problems.append(f'{where}.ref: "{part.ref}" is used by parts[{refs[part.ref]}] too')
+        else:
+            refs[part.ref] = index
+        if part.type not in PART_TYPES:
+            problems.append(f'{where}.type: "{part.type}" is not a part type; use one of {", ".join(PART_TYPES)}')
+            continue
+        roles = PART_TYPES[part.type][0]
+        if len(part.nodes) != len(roles):
+            problems.append(f"{where}.nodes: a {part.type} has {len(roles)} nodes ({', '.join(roles)}), "
+                            f"found {len(part.nodes)}")
+        nodes.update(part.nodes)
+        if part.type in VALUED_TYPES:
+            if part.value is None:
+                problems.append(f"{where}.value: a {part.type} needs a value ({PART_TYPES[part.type][1]})")
+            elif part.type in ("R", "C", "L") and not part.value.si > 0:
+                problems.append(f"{where}.value: {part.value.raw} must be greater than zero")
+        elif part.value is not None:
+            problems.append(f"{where}.value: an op-amp takes a model, not a value")
+        if part.type == "opamp":
+            if part.model is None:
+                problems.append(f'{where}.model: an op-amp needs a model ("ideal" or one of opamp_models)')
+            elif part.model != IDEAL_OPAMP and part.model not in project.opamp_models:
+                problems.append(f'{where}.model: "{part.model}" is not an op-amp model of this project')
+        elif part.model is not None:
+            problems.append(f"{where}.model: only op-amps take a model")
+        if part.type in CURRENT_CONTROLLED_TYPES:
+            if part.control is None:
+                problems.append(f"{where}.control: a {part.type} needs the ref of the part whose current controls it")
+        elif part.control is not None:
+            problems.append(f"{where}.control: only ccvs and cccs take a control")
+    for index, part in enumerate(stage.parts):
+        if part.type in CURRENT_CONTROLLED_TYPES and part.control is not None:
+            target = stage.part(part.control)
+            if target is None:
+                problems.append(f'{path}.parts[{index}].control: "{part.control}" is not a part of this stage')
+            elif target.type not in ("R", "C", "L", "vcvs", "ccvs"):
+                problems.append(f'{path}.parts[{index}].control: the current of "{part.control}" '
+                                f"({target.type}) cannot control a source; use an R, C, L or voltage source")
+    for port in ("in", "out"):
+        node = stage.ports.get(port, "")
+        if node != GROUND and node not in nodes:
+            problems.append(f'{path}.ports.{port}: "{node}" is not a node of any part')
+    if stage.ports.get("in") == GROUND or stage.ports.get("out") == GROUND:
+        problems.append(f"{path}.ports: a port cannot be node 0 (the common reference)")
+    if stage.parts and GROUND not in nodes:
+        problems.append(f"{path}.parts: no part connects to node 0, the common reference")
+    elif stage.parts:
+        unreached = _nodes_without_path_to_ground(stage)
+        if unreached:
+            names = ", ".join(f'"{node}"' for node in sorted(unreached))
+            problems.append(f"{path}.parts: node{'s' if len(unreached) > 1 else ''} {names} "
+                            f"{'have' if len(unreached) > 1 else 'has'} no path to node 0")
+    return problems
+
+
+def _nodes_without_path_to_ground(stage: Stage) -> set[str]:
+    """Nodes not connected to node 0 through any part (controlled-source inputs do not connect)."""
+    parent: dict[str, str] = {}
+
+    def find(node: str) -> str:
+        parent.setdefault(node, node)
+        while parent[node] != node:
+            parent[node] = parent[parent[node]]
+            node = parent[node]
+        return node
+
+    def join(a: str, b: str) -> None:
+        parent[find(a)] = find(b)
+
+    all_nodes: set[str] = set()
+    # The isolated drive (voltage or current source) ties the input port to node 0.
+    join(stage.ports.get("in", GROUND), GROUND)
+    for part in stage.parts:
+        all_nodes.update(part.nodes)
+        if part.type not in PART_TYPES or len(part.nodes) != len(PART_TYPES[part.type][0]):
+            continue
+        if part.type in ("R", "C", "L", "ccvs", "cccs"):
+            join(part.nodes[0], part.nodes[1])
+        elif part.type in ("vcvs", "vccs"):
+            join(part.nodes[0], part.nodes[1])
+            find(part.nodes[2])
+            find(part.nodes[3])
+        elif part.type == "opamp":
+            # The output is driven against node 0; the inputs connect through input impedance
+            # only in finite models, so they must find their own path.
+            join(part.nodes[2], GROUND)
+            find(part.nodes[0])
+            find(part.nodes[1])
+    ground = find(GROUND)
+    return {node for node in all_nodes if find(node) != ground}
