@@ -33,6 +33,7 @@ __all__ = [
     "BLOCK_IN",
     "BLOCK_OUT",
     "CircuitError",
+    "ElementStamp",
     "OpampStates",
     "StageSystem",
     "assemble",
@@ -67,6 +68,23 @@ class OpampStates:
 
 
 @dataclass(frozen=True, slots=True)
+class ElementStamp:
+    """Where a valued part sits in the matrix, for noise and tolerance analyses.
+
+    ``nodes`` are unknown indices (-1 for node 0) in the order of the part's nodes; ``row`` is
+    the part's branch unknown (inductors, voltage-output sources) or -1. ``value`` is in SI
+    units, ``tol`` a fraction or ``None``.
+    """
+
+    ref: str
+    type: str
+    nodes: tuple[int, ...]
+    value: float
+    tol: float | None
+    row: int = -1
+
+
+@dataclass(frozen=True, slots=True)
 class StageSystem:
     """The assembled pencil of one stage, without any drive.
 
@@ -83,7 +101,9 @@ class StageSystem:
     input_index, output_index : int
         Unknown indices of the input and output port nodes.
     opamps : tuple of OpampStates
-        Finite op-amps, for loop-gain analysis.
+        Finite op-amps, for loop-gain and noise analyses.
+    elements : tuple of ElementStamp
+        Every R, C, L and controlled source with its matrix position (noise, tolerances).
     ideal_opamps : tuple of str
         Refs of ideal op-amps (nullors).
     """
@@ -96,6 +116,7 @@ class StageSystem:
     output_index: int
     opamps: tuple[OpampStates, ...] = ()
     ideal_opamps: tuple[str, ...] = ()
+    elements: tuple[ElementStamp, ...] = ()
     fingerprint: str = ""
 
     @property
@@ -188,8 +209,18 @@ def assemble(stage: Stage, project: Project) -> StageSystem:
             branch[part.ref] = builder.add_unknown(f"i({part.ref})")
     opamps: list[OpampStates] = []
     ideal: list[str] = []
+    elements: list[ElementStamp] = []
     for part in stage.parts:
         _stamp(builder, part, stage, project, branch, opamps, ideal)
+        if part.type != "opamp":
+            elements.append(ElementStamp(
+                ref=part.ref,
+                type=part.type,
+                nodes=tuple(builder.node(name) for name in part.nodes),
+                value=_si(part.value),
+                tol=None if part.tol is None else part.tol.si,
+                row=branch.get(part.ref, -1),
+            ))
     g, c = builder.matrices()
     return StageSystem(
         g=g,
@@ -200,6 +231,7 @@ def assemble(stage: Stage, project: Project) -> StageSystem:
         output_index=output_index,
         opamps=tuple(opamps),
         ideal_opamps=tuple(ideal),
+        elements=tuple(elements),
         fingerprint=stage_fingerprint(stage, project),
     )
 
