@@ -19,6 +19,7 @@ from stagewise.files.codec import ProjectFileError, decode, dumps
 from stagewise.files.migrate import migrate
 from stagewise.model.project import FORMAT_VERSION, Project
 from stagewise.model.validate import validate
+from stagewise.review.metrics import register_known_metrics
 
 __all__ = ["MAX_FILE_BYTES", "ProjectFileError", "file_sha256", "load_project", "loads_project", "save_project"]
 
@@ -59,6 +60,10 @@ def loads_project(text: str | bytes, source: str = "") -> Project:
     if problems:
         raise ProjectFileError(problems, source)
     return project
+
+
+# Loading validates metric names against the review layer's table: make sure it is registered.
+register_known_metrics()
 
 
 def _refuse_constant(name: str) -> Any:

@@ -1,0 +1,144 @@
+"""The table of metric keys that numeric checks name: one source for the GUI, the packet and the CLI.
+
+Each metric has a key (as written in project files), the label and unit shown to users, whether
+it is read at a frequency (``at_hz``), the places it can be taken (``isolated``: the stage alone,
+ideally driven and unloaded; ``in_chain``: the stage where it sits, loaded by the next one;
+``chain``: the whole chain from its drive to its last output) and one line saying what it is.
+
+Importing this module registers the key set with :data:`stagewise.model.validate.KNOWN_METRICS_HOOK`,
+so that loading a file whose check names an unknown metric fails validation.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Final, Literal
+
+from stagewise.model.validate import KNOWN_METRICS_HOOK
+
+__all__ = [
+    "METRICS",
+    "WHERE_VALUES",
+    "Metric",
+    "metric",
+    "metric_unit",
+    "register_known_metrics",
+]
+
+WHERE_VALUES: Final = ("isolated", "in_chain", "chain")
+
+AtHzRule = Literal["required", "reference", "unused"]
+
+_ALL: Final = WHERE_VALUES
+_STAGE: Final = ("isolated", "in_chain")
+_CHAIN_ONLY: Final = ("chain",)
+
+
+@dataclass(frozen=True, slots=True)
+class Metric:
+    """One metric a numeric check can name.
+
+    ``at_hz`` says how a check's frequency is used: ``"required"`` (the check must give one),
+    ``"reference"`` (optional; the project's ``settings.ref_hz`` when absent) or ``"unused"``.
+    """
+
+    key: str
+    label: str
+    unit: str
+    at_hz: AtHzRule
+    where: tuple[str, ...]
+    description: str
+
+    @property
+    def needs_hz(self) -> bool:
+        """True when a check on this metric must name a frequency."""
+        return self.at_hz == "required"
+
+
+_TABLE: Final[tuple[Metric, ...]] = (
+    Metric("gain_db", "Gain", "dB", "reference", _ALL,
+           "Magnitude of the voltage (or transimpedance) gain at the frequency, in decibels."),
+    Metric("phase_deg", "Phase", "°", "required", _ALL,
+           "Phase of the response at the frequency, unwrapped from the low end of the sweep."),
+    Metric("peak_gain_db", "Peak gain", "dB", "unused", _ALL,
+           "Largest gain anywhere in the analysed band."),
+    Metric("peaking_db", "Peaking", "dB", "unused", _ALL,
+           "How far the peak gain rises above the reference gain (0 dB when it does not)."),
+    Metric("f_low_3db_hz", "Lower −3 dB corner", "Hz", "unused", _ALL,
+           "Lowest frequency where the gain is 3 dB below the reference gain."),
+    Metric("f_high_3db_hz", "Upper −3 dB corner", "Hz", "unused", _ALL,
+           "Highest frequency where the gain is 3 dB below the reference gain."),
+    Metric("attenuation_db", "Attenuation", "dB", "required", _ALL,
+           "Reference gain minus the gain at the frequency; positive when the signal is reduced."),
+    Metric("group_delay_s", "Group delay", "s", "required", _ALL,
+           "Minus the derivative of phase with respect to angular frequency, at the frequency."),
+    Metric("rise_s", "Rise time (10–90 %)", "s", "unused", _ALL,
+           "Time the step response takes from 10 % to 90 % of its final value."),
+    Metric("overshoot_pct", "Overshoot", "%", "unused", _ALL,
+           "How far the step response rises past its final value, as a percentage of it."),
+    Metric("settle_1pct_s", "Settling time (1 %)", "s", "unused", _ALL,
+           "Time after which the step response stays within 1 % of its final value."),
+    Metric("settle_01pct_s", "Settling time (0.1 %)", "s", "unused", _ALL,
+           "Time after which the step response stays within 0.1 % of its final value."),
+    Metric("phase_margin_deg", "Phase margin", "°", "unused", _STAGE,
+           "Smallest phase margin among the loops of the stage's finite op-amps."),
+    Metric("gain_margin_db", "Gain margin", "dB", "unused", _STAGE,
+           "Smallest gain margin among the loops of the stage's finite op-amps."),
+    Metric("crossover_hz", "Loop crossover", "Hz", "unused", _STAGE,
+           "Frequency where the loop gain of the stage's op-amp falls through 0 dB (lowest if several)."),
+    Metric("loading_error_db_max", "Largest loading error", "dB", "unused", ("in_chain",),
+           "Largest difference over the band between the stage's gain in chain and isolated."),
+    Metric("zin_ohm", "Input impedance", "Ω", "reference", _STAGE,
+           "Magnitude of the impedance seen into the stage's input (in chain: into the rest of the chain)."),
+    Metric("zout_ohm", "Output impedance", "Ω", "reference", _STAGE,
+           "Magnitude of the impedance seen back into the stage's output (in chain: with the chain before it)."),
+    Metric("noise_out_rms_v", "Output noise (RMS)", "V", "unused", _CHAIN_ONLY,
+           "Integrated noise at the chain's output over the project's noise band."),
+    Metric("noise_in_rms", "Input-referred noise (RMS)", "V", "unused", _CHAIN_ONLY,
+           "Output noise divided by the gain at the reference frequency; in amperes for a current drive."),
+    Metric("snr_db", "Signal-to-noise ratio", "dB", "unused", _CHAIN_ONLY,
+           "Converter full-scale sine (RMS) against the chain's output noise plus the converter's ideal noise."),
+    Metric("alias_attenuation_db", "Alias attenuation", "dB", "unused", _CHAIN_ONLY,
+           "Attenuation of the chain at fs minus the upper pass-band edge, where signals fold into the band."),
+    Metric("headroom_v", "Smallest headroom", "V", "unused", ("in_chain", "chain"),
+           "Smallest distance between an op-amp output's peak and its swing limit at the declared input."),
+    Metric("slew_margin", "Slew margin", "", "unused", ("in_chain", "chain"),
+           "Smallest ratio of an op-amp's slew rate to the 2πf·V_peak its output needs across the band."),
+    Metric("yield_pct", "Yield over tolerances", "%", "unused", _CHAIN_ONLY,
+           "Share of tolerance samples that meet every numeric check of the project."),
+)
+
+METRICS: Final[dict[str, Metric]] = {entry.key: entry for entry in _TABLE}
+
+
+def metric(key: str) -> Metric:
+    """The table entry for ``key``.
+
+    Raises
+    ------
+    KeyError
+        With a sentence naming the unknown key.
+    """
+    try:
+        return METRICS[key]
+    except KeyError:
+        raise KeyError(f'"{key}" is not a metric Stagewise computes') from None
+
+
+def metric_unit(key: str, drive: str = "voltage") -> str:
+    """The unit of ``key``'s value; input-referred noise is in amperes when the chain is current-driven."""
+    if key == "noise_in_rms" and drive == "current":
+        return "A"
+    return metric(key).unit
+
+
+def register_known_metrics() -> None:
+    """Give the model's validator the key set (idempotent)."""
+    keys = frozenset(METRICS)
+    if KNOWN_METRICS_HOOK:
+        KNOWN_METRICS_HOOK[0] = keys
+    else:
+        KNOWN_METRICS_HOOK.append(keys)
+
+
+register_known_metrics()
