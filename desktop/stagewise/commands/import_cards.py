@@ -1,11 +1,74 @@
-"""`stagewise import-cards`: not built yet."""
+"""`stagewise import-cards FILE CARDS --name NAME [--in NODE] [--out NODE] [--id ID] [--by NAME]`.
+
+Appends a stage built from element-card text (format in :mod:`stagewise.files.cards`), records
+an audit event ``import`` ("stage imported") with the stage id and the SHA-256 of the cards file,
+validates the whole project and saves it atomically. On any error the project file is left
+byte for byte as it was and the command exits with status 2 and one sentence.
+"""
 
 from __future__ import annotations
 
 import argparse
+import getpass
+import hashlib
+from pathlib import Path
 
 from stagewise.cli import CommandError
+from stagewise.commands.common import load
+from stagewise.files.cards import CardError, stage_from_cards
+from stagewise.files.project_file import save_project
+from stagewise.model.validate import validate
+from stagewise.review.audit import append_event
+
+MAX_CARDS_BYTES = 2 * 1024 * 1024
+
+
+def _who(args: argparse.Namespace) -> str:
+    if args.by and str(args.by).strip():
+        return str(args.by).strip()
+    try:
+        return getpass.getuser()
+    except (OSError, KeyError):
+        return "unknown user"
 
 
 def run(args: argparse.Namespace) -> int:
-    raise CommandError("'import-cards' is not available yet in this build")
+    project = load(args.file)
+    cards_path = Path(args.cards)
+    try:
+        size = cards_path.stat().st_size
+        if size > MAX_CARDS_BYTES:
+            raise CommandError(f"{cards_path}: {size} bytes is too large for an element-card file")
+        data = cards_path.read_bytes()
+    except FileNotFoundError as error:
+        raise CommandError(f"{cards_path}: no such file") from error
+    except IsADirectoryError as error:
+        raise CommandError(f"{cards_path}: this is a folder, not an element-card file") from error
+    except OSError as error:
+        raise CommandError(f"{cards_path}: cannot be read ({error.strerror})") from error
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as error:
+        raise CommandError(f"{cards_path}: not UTF-8 text (byte {error.start})") from error
+    try:
+        stage = stage_from_cards(text, args.name, args.in_node, args.out_node, project, args.stage_id)
+    except CardError as error:
+        raise CommandError(f"{cards_path}: {error}") from error
+    project.stages.append(stage)
+    detail = {
+        "stage": stage.id,
+        "name": stage.name,
+        "parts": len(stage.parts),
+        "cards_file": cards_path.name,
+        "cards_sha256": hashlib.sha256(data).hexdigest(),
+    }
+    try:
+        append_event(project, _who(args), "import", detail)
+    except ValueError as error:
+        raise CommandError(f"the audit event could not be recorded: {error}") from error
+    problems = validate(project)
+    if problems:
+        raise CommandError(f"{args.file}: after the import the project is not valid: " + "; ".join(problems))
+    save_project(args.file, project)
+    print(f"Imported stage \"{stage.id}\" ({len(stage.parts)} parts) into {args.file}.")
+    return 0
