@@ -1,0 +1,275 @@
+"""Loop gain of every finite op-amp, by breaking the loop at its internal gain state.
+
+A finite op-amp's gain-state row reads ``x/A0 + s·x/ω_gbw − (v+ − v−) = 0`` (``mna``). The loop
+is broken there: the ``v+ − v−`` entries of that row are removed and a test signal ``u`` takes
+their place on the right-hand side, so the state follows ``x = A(s)·u``. The circuit carries it
+round and returns ``d = v+ − v−``. Closing the loop sets ``u = d``, so the characteristic
+equation is ``1 − d/u = 0``; the loop gain is ``T = −d/u``, the usual ``A(s)·β`` of a negative
+feedback loop, with every loading effect of the real circuit included (source and load
+impedances, output resistance, input capacitances, the next stage in a merged chain).
+
+The drive is zeroed: a voltage drive becomes a short at the input, a current drive an open
+input.
+
+Crossover is where ``|T| = 1`` (the highest downward crossing), refined by bisection in log f on
+exact solves; phase margin is ``180° + ∠T`` there, with the phase unwrapped from the lowest
+frequency of the grid. Gain margin is ``−20·log10|T|`` where the unwrapped phase crosses
+``−180°`` (an odd multiple of 180°); when several, the smallest margin is reported.
+
+References
+----------
+H. W. Bode, *Network Analysis and Feedback Amplifier Design*, Van Nostrand, 1945 (return ratio,
+gain and phase margins).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.engine.mna import CircuitError, OpampStates, StageSystem, assemble
+from stagewise.engine.sweep import drive
+from stagewise.model.project import Project, Stage
+
+__all__ = [
+    "IDEAL_WHY",
+    "LoopResult",
+    "chain_loops",
+    "loop_gain",
+    "loop_gains",
+    "loops_to_json",
+    "stage_loops",
+]
+
+TWO_PI = 2.0 * math.pi
+IDEAL_WHY = "ideal op-amp: infinite gain, no loop to measure"
+POINTS_PER_DECADE = 60
+BISECTION_STEPS = 60
+
+
+@dataclass(frozen=True, slots=True)
+class LoopResult:
+    """Loop gain of one op-amp and its margins; ``None`` values carry a ``*_why``.
+
+    ``f_hz`` and ``loop_gain`` hold the swept T(j2πf) (empty for an ideal op-amp), for plots.
+    """
+
+    ref: str
+    crossover_hz: float | None
+    phase_margin_deg: float | None
+    gain_margin_db: float | None
+    phase_crossover_hz: float | None
+    crossover_why: str | None
+    phase_margin_why: str | None
+    gain_margin_why: str | None
+    f_hz: NDArray[np.float64]
+    loop_gain: NDArray[np.complex128]
+
+
+def _broken(g: NDArray[np.float64], opamp: OpampStates) -> NDArray[np.float64]:
+    """G with the ``−(v+ − v−)`` entries of the op-amp's state row removed."""
+    opened = g.copy()
+    if opamp.in_plus >= 0:
+        opened[opamp.state_row, opamp.in_plus] += 1.0
+    if opamp.in_minus >= 0:
+        opened[opamp.state_row, opamp.in_minus] -= 1.0
+    return opened
+
+
+def _evaluate(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates,
+              f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+    """T(j2πf) = −(v+ − v−)/u for an injection u in the state row."""
+    s = 1j * TWO_PI * np.asarray(f_hz, dtype=float)
+    matrices = g[None, :, :] + s[:, None, None] * c[None, :, :]
+    rhs = np.zeros((s.size, g.shape[0], 1), dtype=complex)
+    rhs[:, opamp.state_row, 0] = 1.0
+    try:
+        x = np.linalg.solve(matrices, rhs)[:, :, 0]
+    except np.linalg.LinAlgError as error:
+        raise CircuitError(f"{opamp.ref}: the circuit with its loop broken cannot be solved "
+                           "(a floating node once the op-amp's input dependence is removed)") from error
+    returned = np.zeros(s.size, dtype=complex)
+    if opamp.in_plus >= 0:
+        returned += x[:, opamp.in_plus]
+    if opamp.in_minus >= 0:
+        returned -= x[:, opamp.in_minus]
+    result: NDArray[np.complex128] = -returned
+    return result
+
+
+def _default_grid(c: NDArray[np.float64], opamps: tuple[OpampStates, ...]) -> NDArray[np.float64]:
+    """From 1/100 of the lowest dominant pole to 1000 × the highest gain-bandwidth."""
+    gbw_hz = [1.0 / (TWO_PI * c[o.state_row, o.state_row]) for o in opamps]
+    low = min(g / o.a0 for g, o in zip(gbw_hz, opamps, strict=True)) / 100.0
+    high = max(gbw_hz) * 1000.0
+    count = int(math.ceil(math.log10(high / low) * POINTS_PER_DECADE)) + 1
+    return np.logspace(math.log10(low), math.log10(high), count)
+
+
+def _bisect(function: Any, low: float, high: float) -> float:
+    """Root of ``function`` (sign change between low and high) by bisection in log f."""
+    f_low = function(low)
+    for _ in range(BISECTION_STEPS):
+        middle = math.sqrt(low * high)
+        f_middle = function(middle)
+        if (f_middle > 0) == (f_low > 0):
+            low, f_low = middle, f_middle
+        else:
+            high = middle
+    return math.sqrt(low * high)
+
+
+def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates,
+              f_hz: NDArray[np.float64]) -> LoopResult:
+    """Loop gain and margins of one op-amp of a drive-zeroed pencil (G, C).
+
+    Parameters
+    ----------
+    g, c : ndarray, shape (n, n)
+        The pencil with the drive zeroed (``sweep.drive(system, current).g``/``.c``).
+    opamp : OpampStates
+        The op-amp whose loop is broken.
+    f_hz : ndarray
+        Log-spaced search grid in hertz, ascending.
+    """
+    opened = _broken(g, opamp)
+    values = _evaluate(opened, c, opamp, f_hz)
+    magnitude = np.abs(values)
+    phase = np.unwrap(np.angle(values))
+
+    def exact(frequency: float) -> complex:
+        return complex(_evaluate(opened, c, opamp, np.array([frequency]))[0])
+
+    def near_branch(value: complex, reference: float) -> float:
+        angle = math.atan2(value.imag, value.real)
+        return angle + TWO_PI * round((reference - angle) / TWO_PI)
+
+    crossover = margin = None
+    crossover_why = margin_why = None
+    above = magnitude >= 1.0
+    downward = np.flatnonzero(above[:-1] & ~above[1:])
+    if not above.any():
+        crossover_why = (f"|T| stays below 1 from {f_hz[0]:.3g} to {f_hz[-1]:.3g} Hz "
+                         f"(at most {20 * math.log10(float(magnitude.max())):.1f} dB): no crossover")
+    elif above[-1]:
+        crossover_why = f"|T| is still above 1 at {f_hz[-1]:.3g} Hz, the top of the search"
+    elif downward.size == 0:
+        crossover_why = "|T| never falls through 1 on the search grid"
+    else:
+        top = int(downward[-1])
+        crossover = _bisect(lambda f: abs(exact(f)) - 1.0, float(f_hz[top]), float(f_hz[top + 1]))
+        phase_deg = math.degrees(near_branch(exact(crossover), float(phase[top])))
+        margin = 180.0 + phase_deg
+    if crossover is None:
+        margin_why = "no crossover: " + (crossover_why or "")
+    # Phase crossings through odd multiples of 180°.
+    turns = np.floor((phase + math.pi) / TWO_PI)  # changes where phase passes −180° + k·360°
+    crossings = np.flatnonzero(turns[1:] != turns[:-1])
+    gain_margin = phase_crossover = None
+    gain_margin_why = None
+    if crossings.size == 0:
+        lowest = math.degrees(float(phase.min()))
+        gain_margin_why = (f"the phase never reaches −180° up to {f_hz[-1]:.3g} Hz (lowest {lowest:.1f}°): "
+                           "the gain margin is unbounded")
+    else:
+        best: tuple[float, float] | None = None
+        for crossing in crossings:
+            index = int(crossing)
+            target = math.pi * (2.0 * float(max(turns[index], turns[index + 1])) - 1.0)
+            reference = float(phase[index])
+
+            def offset(f: float, target: float = target, reference: float = reference) -> float:
+                return near_branch(exact(f), reference) - target
+
+            where = _bisect(offset, float(f_hz[index]), float(f_hz[index + 1]))
+            margin_db = -20.0 * math.log10(abs(exact(where)))
+            if best is None or margin_db < best[0]:
+                best = (margin_db, where)
+        assert best is not None
+        gain_margin, phase_crossover = best
+    return LoopResult(
+        ref=opamp.ref,
+        crossover_hz=crossover,
+        phase_margin_deg=margin,
+        gain_margin_db=gain_margin,
+        phase_crossover_hz=phase_crossover,
+        crossover_why=crossover_why,
+        phase_margin_why=margin_why,
+        gain_margin_why=gain_margin_why,
+        f_hz=np.asarray(f_hz, dtype=float),
+        loop_gain=values,
+    )
+
+
+def _ideal(ref: str) -> LoopResult:
+    empty_f: NDArray[np.float64] = np.zeros(0)
+    empty_t: NDArray[np.complex128] = np.zeros(0, dtype=complex)
+    return LoopResult(ref, None, None, None, None, IDEAL_WHY, IDEAL_WHY, IDEAL_WHY, empty_f, empty_t)
+
+
+def loop_gains(system: StageSystem, *, current_drive: bool,
+               f_hz: NDArray[np.float64] | None = None) -> tuple[LoopResult, ...]:
+    """Loop gain and margins of every op-amp of a system, drive zeroed.
+
+    Parameters
+    ----------
+    system : StageSystem
+        A stage (isolated) or the merged chain (every op-amp in chain).
+    current_drive : bool
+        The drive that is zeroed: voltage (input shorted) or current (input open).
+    f_hz : ndarray, optional
+        Search grid; by default from 1/100 of the lowest dominant pole (gbw/A0) to
+        1000 × the highest gain-bandwidth, 60 points per decade.
+
+    Returns
+    -------
+    tuple of LoopResult
+        Finite op-amps in matrix order, then the ideal ones (null margins with the reason).
+    """
+    results: list[LoopResult] = []
+    if system.opamps:
+        driven = drive(system, current_drive)
+        grid = _default_grid(system.c, system.opamps) if f_hz is None else np.asarray(f_hz, dtype=float)
+        results.extend(loop_gain(driven.g, driven.c, opamp, grid) for opamp in system.opamps)
+    results.extend(_ideal(ref) for ref in system.ideal_opamps)
+    return tuple(results)
+
+
+def stage_loops(stage: Stage, project: Project) -> tuple[LoopResult, ...]:
+    """Loops of a stage isolated (its own drive zeroed, output unloaded)."""
+    return loop_gains(assemble(stage, project), current_drive=stage.drive == "current")
+
+
+def chain_loops(project: Project) -> tuple[LoopResult, ...]:
+    """Loops of every op-amp in the merged chain (refs ``stage_id:ref``), the chain drive zeroed."""
+    from stagewise.engine.chain import merged_system  # the composition layer, imported when used
+
+    merged = merged_system(project)
+    return loop_gains(merged.system, current_drive=project.input.drive == "current")
+
+
+def loops_to_json(results: tuple[LoopResult, ...] | list[LoopResult]) -> list[dict[str, Any]]:
+    """The DESIGN section 6 ``loops`` list: ``ref``, ``crossover_hz``, ``phase_margin_deg``,
+    ``gain_margin_db`` (and ``phase_crossover_hz``), each null with a ``*_why`` beside it."""
+    document: list[dict[str, Any]] = []
+    for result in results:
+        entry: dict[str, Any] = {
+            "ref": result.ref,
+            "crossover_hz": result.crossover_hz,
+            "phase_margin_deg": result.phase_margin_deg,
+            "gain_margin_db": result.gain_margin_db,
+            "phase_crossover_hz": result.phase_crossover_hz,
+        }
+        if result.crossover_hz is None:
+            entry["crossover_hz_why"] = result.crossover_why
+        if result.phase_margin_deg is None:
+            entry["phase_margin_deg_why"] = result.phase_margin_why
+        if result.gain_margin_db is None:
+            entry["gain_margin_db_why"] = result.gain_margin_why
+            entry["phase_crossover_hz_why"] = result.gain_margin_why
+        document.append(entry)
+    return document
