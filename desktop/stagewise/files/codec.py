@@ -82,7 +82,7 @@ class _Reader:
     def problem(self, message: str) -> None:
         self.problems.append(f"{self.path}: {message}")
 
-    def object(self, data: object, allowed: tuple[str, ...], required: tuple[str, ...] = ()) -> dict[str, Any] | None:
+    def mapping(self, data: object, allowed: tuple[str, ...], required: tuple[str, ...] = ()) -> dict[str, Any] | None:
         if not isinstance(data, dict):
             self.problem(f"expected an object, found {_describe(data)}")
             return None
@@ -115,6 +115,10 @@ class _Reader:
         for index, item in enumerate(value):
             with self.at(key), self.at(index):
                 yield index, item
+
+    # The first name of ``mapping``, still used by other readers (templates); defined last so
+    # that ``object`` in the annotations above means the builtin.
+    object = mapping
 
 
 def _describe(value: object) -> str:
@@ -278,7 +282,7 @@ def decode(document: object, source: str = "") -> Project:
         Listing every problem found, each with its JSON path.
     """
     reader = _Reader()
-    data = reader.object(document, _TOP_KEYS, ("format", "version", "title", "stages"))
+    data = reader.mapping(document, _TOP_KEYS, ("format", "version", "title", "stages"))
     if data is None:
         raise ProjectFileError(reader.problems, source)
     if "format" in data and data["format"] != FORMAT_NAME:
@@ -299,7 +303,7 @@ def decode(document: object, source: str = "") -> Project:
         project.load = _decode_load(reader, data.get("load", {}))
     models = data.get("opamp_models", {})
     with reader.at("opamp_models"):
-        if reader.object(models, tuple(models) if isinstance(models, dict) else ()) is not None:
+        if reader.mapping(models, tuple(models) if isinstance(models, dict) else ()) is not None:
             for name, model in models.items():
                 with reader.at(name):
                     decoded = _decode_opamp(reader, model)
@@ -320,7 +324,7 @@ def decode(document: object, source: str = "") -> Project:
 
 def _decode_settings(reader: _Reader, data: object) -> Settings:
     settings = Settings()
-    fields = reader.object(data, _SETTINGS_KEYS)
+    fields = reader.mapping(data, _SETTINGS_KEYS)
     if fields is None:
         return settings
     settings.f_min_hz = reader.field(fields, "f_min_hz", _positive, settings.f_min_hz)
@@ -339,7 +343,7 @@ def _decode_settings(reader: _Reader, data: object) -> Settings:
 
 def _decode_input(reader: _Reader, data: object) -> InputDrive:
     drive = InputDrive()
-    fields = reader.object(data, ("drive", "amplitude"))
+    fields = reader.mapping(data, ("drive", "amplitude"))
     if fields is None:
         return drive
     drive.drive = reader.field(fields, "drive", _choice("voltage", "current"), drive.drive)
@@ -349,7 +353,7 @@ def _decode_input(reader: _Reader, data: object) -> InputDrive:
 
 def _decode_converter(reader: _Reader, data: object) -> Converter:
     converter = Converter()
-    fields = reader.object(data, ("fs_hz", "bits", "full_scale_vpp"))
+    fields = reader.mapping(data, ("fs_hz", "bits", "full_scale_vpp"))
     if fields is None:
         return converter
     converter.fs_hz = reader.field(fields, "fs_hz", _optional_positive, None)
@@ -360,7 +364,7 @@ def _decode_converter(reader: _Reader, data: object) -> Converter:
 
 def _decode_load(reader: _Reader, data: object) -> Load:
     load = Load()
-    fields = reader.object(data, ("r_ohm", "c_f"))
+    fields = reader.mapping(data, ("r_ohm", "c_f"))
     if fields is None:
         return load
     load.r_ohm = reader.field(fields, "r_ohm", _optional_positive, None)
@@ -369,7 +373,7 @@ def _decode_load(reader: _Reader, data: object) -> Load:
 
 
 def _decode_opamp(reader: _Reader, data: object) -> OpampModel | None:
-    fields = reader.object(data, _OPAMP_KEYS, ("a0_db", "gbw_hz"))
+    fields = reader.mapping(data, _OPAMP_KEYS, ("a0_db", "gbw_hz"))
     if fields is None or "a0_db" not in fields or "gbw_hz" not in fields:
         return None
     model = OpampModel(
@@ -386,7 +390,7 @@ def _decode_opamp(reader: _Reader, data: object) -> OpampModel | None:
 
 
 def _decode_stage(reader: _Reader, data: object) -> Stage | None:
-    fields = reader.object(data, _STAGE_KEYS, ("id", "name"))
+    fields = reader.mapping(data, _STAGE_KEYS, ("id", "name"))
     if fields is None:
         return None
     stage = Stage(id=reader.field(fields, "id", _name, ""), name=reader.field(fields, "name", _name, ""))
@@ -396,7 +400,7 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
     stage.notes = reader.field(fields, "notes", _text, "")
     if "ports" in fields:
         with reader.at("ports"):
-            ports = reader.object(fields["ports"], ("in", "out"), ("in", "out"))
+            ports = reader.mapping(fields["ports"], ("in", "out"), ("in", "out"))
             if ports is not None:
                 stage.ports = {
                     "in": reader.field(ports, "in", _name, "in"),
@@ -416,7 +420,7 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
                 reader.problem(str(error))
     if "zin" in fields and fields["zin"] is not None:
         with reader.at("zin"):
-            zin = reader.object(fields["zin"], ("r_ohm", "c_f"))
+            zin = reader.mapping(fields["zin"], ("r_ohm", "c_f"))
             if zin is not None:
                 stage.zin_r_ohm = reader.field(zin, "r_ohm", _optional_positive, None)
                 stage.zin_c_f = reader.field(zin, "c_f", _optional_nonnegative, None)
@@ -426,7 +430,7 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
         if check is not None:
             stage.checks.append(check)
     for _, signoff_data in reader.items(fields, "signoffs"):
-        signoff_fields = reader.object(signoff_data, _SIGNOFF_KEYS, ("name", "verdict", "time", "fingerprint"))
+        signoff_fields = reader.mapping(signoff_data, _SIGNOFF_KEYS, ("name", "verdict", "time", "fingerprint"))
         if signoff_fields is not None:
             stage.signoffs.append(Signoff(
                 name=reader.field(signoff_fields, "name", _name, ""),
@@ -437,7 +441,7 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
                 note=reader.field(signoff_fields, "note", _text, ""),
             ))
     for _, comment_data in reader.items(fields, "comments"):
-        comment_fields = reader.object(comment_data, _COMMENT_KEYS, ("author", "time", "text"))
+        comment_fields = reader.mapping(comment_data, _COMMENT_KEYS, ("author", "time", "text"))
         if comment_fields is not None:
             stage.comments.append(Comment(
                 author=reader.field(comment_fields, "author", _name, ""),
@@ -450,7 +454,7 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
 
 
 def _decode_part(reader: _Reader, data: object) -> Part | None:
-    fields = reader.object(data, _PART_KEYS, ("ref", "type", "nodes"))
+    fields = reader.mapping(data, _PART_KEYS, ("ref", "type", "nodes"))
     if fields is None:
         return None
     part = Part(
@@ -466,7 +470,7 @@ def _decode_part(reader: _Reader, data: object) -> Part | None:
 
 
 def _decode_check(reader: _Reader, data: object) -> Check | None:
-    fields = reader.object(data, _CHECK_KEYS, ("id", "text"))
+    fields = reader.mapping(data, _CHECK_KEYS, ("id", "text"))
     if fields is None:
         return None
     check = Check(id=reader.field(fields, "id", _name, ""), text=reader.field(fields, "text", _text, ""))
@@ -477,7 +481,7 @@ def _decode_check(reader: _Reader, data: object) -> Check | None:
     check.max = reader.field(fields, "max", _optional_quantity, None)
     if fields.get("answer") is not None:
         with reader.at("answer"):
-            answer = reader.object(fields["answer"], ("answer", "by", "time", "note"), ("answer", "by", "time"))
+            answer = reader.mapping(fields["answer"], ("answer", "by", "time", "note"), ("answer", "by", "time"))
             if answer is not None:
                 check.answer = ManualAnswer(
                     answer=reader.field(answer, "answer", _choice("yes", "no", "n/a"), "no"),
@@ -487,7 +491,7 @@ def _decode_check(reader: _Reader, data: object) -> Check | None:
                 )
     if fields.get("waiver") is not None:
         with reader.at("waiver"):
-            waiver = reader.object(fields["waiver"], ("by", "role", "time", "justification"),
+            waiver = reader.mapping(fields["waiver"], ("by", "role", "time", "justification"),
                                    ("by", "time", "justification"))
             if waiver is not None:
                 check.waiver = Waiver(
@@ -500,7 +504,7 @@ def _decode_check(reader: _Reader, data: object) -> Check | None:
 
 
 def _decode_event(reader: _Reader, data: object) -> AuditEvent | None:
-    fields = reader.object(data, _EVENT_KEYS, _EVENT_KEYS)
+    fields = reader.mapping(data, _EVENT_KEYS, _EVENT_KEYS)
     if fields is None:
         return None
 

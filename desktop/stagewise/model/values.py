@@ -52,6 +52,10 @@ SI_PREFIXES: Final[dict[str, float]] = {
     "G": 1e9,
 }
 
+_PREFIX_EXPONENTS: Final[dict[str, int]] = {
+    prefix: round(math.log10(scale)) for prefix, scale in SI_PREFIXES.items()
+}
+
 # Units that may follow a value. They are checked for spelling and otherwise ignored: the field
 # that holds the value decides its unit.
 UNIT_WORDS: Final[tuple[str, ...]] = (
@@ -60,6 +64,7 @@ UNIT_WORDS: Final[tuple[str, ...]] = (
     "Ω",
     "Ω",  # U+2126 OHM SIGN
     "Hz",
+    "dB",
     "V/s",
     "F",
     "H",
@@ -77,16 +82,37 @@ ACCEPTED_FORMS: Final[str] = (
 _PREFIX_PATTERN = "Meg|MEG|meg|[fpnuµμmkKMG]"
 _UNIT_PATTERN = "|".join(re.escape(word) for word in UNIT_WORDS)
 
-# 4.7k, 10nF, 3.3e-9, 1 MΩ, 1%
+# 4.7k, 10nF, 3.3e-9, 1 MΩ, 1%. Digits are ASCII only ([0-9], not \d, which would also take
+# other scripts' digits), and an exponent never combines with a prefix ("1e3k" is refused).
 _DECIMAL = re.compile(
-    rf"(?P<number>[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?)"
-    rf"\s*(?:(?P<percent>%)|(?P<prefix>{_PREFIX_PATTERN})?\s*(?P<unit>{_UNIT_PATTERN})?)"
+    rf"(?P<number>[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+))(?P<exponent>[eE][+-]?[0-9]{{1,3}})?"
+    rf"[ \u00a0\u202f]?(?:(?P<percent>%)|(?P<prefix>{_PREFIX_PATTERN})?[ \u00a0\u202f]?(?P<unit>{_UNIT_PATTERN})?)"
 )
 # 4k7, 2R2, R47, 1M5 (IEC 60062: the prefix letter stands where the decimal marker would)
 _LETTER_DIGIT = re.compile(
-    rf"(?P<sign>[+-]?)(?P<whole>\d*)(?P<letter>R|r|{_PREFIX_PATTERN})(?P<fraction>\d+)"
-    rf"\s*(?P<unit>{_UNIT_PATTERN})?"
+    rf"(?P<sign>[+-]?)(?P<whole>[0-9]*)(?P<letter>[Rr]|[fpnuµμmkKMG])(?P<fraction>[0-9]+)"
+    rf"[ \u00a0\u202f]?(?P<unit>{_UNIT_PATTERN})?"
 )
+
+
+def _shown(value: object) -> str:
+    """A short, printable quotation of ``value`` for an error message."""
+    if isinstance(value, str):
+        text = "".join(character if character.isprintable() else " " for character in value)
+        if len(text) > 40:
+            text = text[:37] + "…"
+        return f'"{text}"'
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int) and abs(value) > 10**30:
+        return "an integer too large for a value"
+    if value is None:
+        return "null"
+    if isinstance(value, list):
+        return "a list"
+    if isinstance(value, dict):
+        return "an object"
+    return repr(value)
 
 
 def parse_value(value: object) -> float:
@@ -115,31 +141,39 @@ def parse_value(value: object) -> float:
     1e-08
     """
     if isinstance(value, bool):
-        raise ValueSyntaxError(f"{value!r} is not a value; expected {ACCEPTED_FORMS}")
+        raise ValueSyntaxError(f"{_shown(value)} is not a value; expected {ACCEPTED_FORMS}")
     if isinstance(value, int | float):
-        number = float(value)
+        try:
+            number = float(value)
+        except OverflowError:  # an integer beyond the range of a float
+            number = math.inf
         if not math.isfinite(number):
-            raise ValueSyntaxError(f"{value!r} is not a finite value")
+            raise ValueSyntaxError(f"{_shown(value)} is not a finite value")
         return number
     if not isinstance(value, str):
-        raise ValueSyntaxError(f"{value!r} is not a value; expected {ACCEPTED_FORMS}")
+        raise ValueSyntaxError(f"{_shown(value)} is not a value; expected {ACCEPTED_FORMS}")
     text = value.strip()
     if len(text) > 64:
-        raise ValueSyntaxError(f'"{text[:40]}…" is not a value; expected {ACCEPTED_FORMS}')
+        raise ValueSyntaxError(f"{_shown(text)} is not a value; expected {ACCEPTED_FORMS}")
     match = _DECIMAL.fullmatch(text)
     if match is not None:
-        number = float(match["number"])
+        if match["exponent"] and (match["prefix"] or match["percent"]):
+            raise ValueSyntaxError(f'"{text}" mixes an exponent with a prefix or %; write 3.3e-9 or 3.3n, not both')
+        # Scale by shifting the decimal exponent, not by multiplying, so that "4.7n" is the
+        # float nearest to 4.7e-9 (4.7 * 1e-9 is not).
         if match["percent"]:
-            number /= 100.0
+            number = float(match["number"] + "e-2")
         elif match["prefix"]:
-            number *= SI_PREFIXES[match["prefix"]]
+            number = float(f"{match['number']}e{_PREFIX_EXPONENTS[match['prefix']]}")
+        else:
+            number = float(match["number"] + (match["exponent"] or ""))
     else:
         match = _LETTER_DIGIT.fullmatch(text)
         if match is None or not (match["whole"] or match["letter"] in "Rr"):
-            raise ValueSyntaxError(f'"{text}" is not a value; expected {ACCEPTED_FORMS}')
+            raise ValueSyntaxError(f"{_shown(text)} is not a value; expected {ACCEPTED_FORMS}")
         letter = match["letter"]
-        scale = 1.0 if letter in "Rr" else SI_PREFIXES[letter]
-        number = float(f"{match['whole'] or '0'}.{match['fraction']}") * scale
+        exponent = 0 if letter in "Rr" else _PREFIX_EXPONENTS[letter]
+        number = float(f"{match['whole'] or '0'}.{match['fraction']}e{exponent}")
         if match["sign"] == "-":
             number = -number
     if not math.isfinite(number):
@@ -187,11 +221,11 @@ def format_value(value: float, unit: str = "", digits: int = 4) -> str:
     if value == 0:
         return f"0 {unit}".rstrip()
     magnitude = abs(value)
-    for scale, prefix in _FORMAT_PREFIXES:
-        if magnitude >= scale * (1 - 0.5 * 10.0 ** (1 - digits)):
+    scale, prefix = _FORMAT_PREFIXES[-1]
+    for candidate_scale, candidate_prefix in _FORMAT_PREFIXES:
+        if magnitude >= candidate_scale * (1 - 0.5 * 10.0 ** (1 - digits)):
+            scale, prefix = candidate_scale, candidate_prefix
             break
-    else:
-        scale, prefix = 1e-15, "f"
     scaled = value / scale
     if abs(scaled) >= 1000 - 0.5 * 10.0 ** (4 - digits) and prefix != "G":
         # Rounding carried into the next prefix (999.96 k -> 1 M).
