@@ -1,11 +1,137 @@
-"""`stagewise check`: not built yet."""
+"""`stagewise check FILE [--json]`: every check's state as an aligned table (or JSON).
+
+Exit 0 when every check is met, waived or answered n/a; 1 when any is not met, has no value or
+is a manual check still open (or answered no); 2 when the file cannot be read. Values come from
+the analysis engine (``stagewise.engine.analysis.metric_provider``); when that is not part of
+the build, numeric checks show "no value" with that reason: nothing is made up.
+"""
 
 from __future__ import annotations
 
 import argparse
+import importlib
+import math
+from typing import Any
 
-from stagewise.cli import CommandError
+from stagewise.commands.common import print_json
+from stagewise.files.project_file import file_sha256, load_project
+from stagewise.model.project import Project
+from stagewise.review.checks import CheckResult, MetricProvider, UnavailableProvider, evaluate_project, totals
+from stagewise.review.metrics import METRICS
+from stagewise.review.signoff import signoff_states
+from stagewise.review.words import WHERE_WORDS
+
+ENGINE_MODULE = "stagewise.engine.analysis"
+NO_ENGINE = "the analysis engine is not available in this build"
+TEXT_WIDTH = 44
+
+
+def metric_provider_for(project: Project) -> MetricProvider:
+    """The engine's metric provider, or one that says why there are no values."""
+    try:
+        module = importlib.import_module(ENGINE_MODULE)
+    except ModuleNotFoundError as error:
+        if error.name in (ENGINE_MODULE, "stagewise.engine"):
+            return UnavailableProvider(NO_ENGINE)
+        raise
+    factory = getattr(module, "metric_provider", None)
+    if factory is None:
+        return UnavailableProvider(NO_ENGINE)
+    try:
+        provider: MetricProvider = factory(project)
+    except (ValueError, ArithmeticError) as error:
+        return UnavailableProvider(f"the analysis of the project failed: {error}")
+    return provider
+
+
+def _metric_text(result: CheckResult) -> str:
+    if result.metric is None:
+        return "manual"
+    label = METRICS[result.metric].label if result.metric in METRICS else result.metric
+    where = WHERE_WORDS.get(result.where or "", result.where or "")
+    at = ""
+    if result.at_hz is not None:
+        from stagewise.model.values import format_value
+
+        at = f" @ {format_value(result.at_hz, 'Hz')}"
+    return f"{label}, {where}{at}"
+
+
+def _short(text: str, width: int) -> str:
+    text = " ".join(text.split())
+    return text if len(text) <= width else text[: width - 1] + "…"
+
+
+def _table(results: list[CheckResult]) -> list[str]:
+    header = ("STAGE", "CHECK", "STATE", "VALUE", "LIMITS", "METRIC", "TEXT")
+    rows = [(r.stage_id, r.check_id, str(r.state), r.value_text() if r.metric else "", r.limits,
+             _metric_text(r), _short(r.text, TEXT_WIDTH)) for r in results]
+    widths = [max(len(row[i]) for row in [header, *rows]) for i in range(len(header))]
+    lines = []
+    for row in [header, *rows]:
+        cells = [cell.rjust(widths[i]) if i == 3 else cell.ljust(widths[i]) for i, cell in enumerate(row)]
+        lines.append("  ".join(cells).rstrip())
+    return lines
+
+
+def _reasons(results: list[CheckResult]) -> list[str]:
+    """Why each check holds the list back; one line per reason shared by several checks."""
+    groups: dict[tuple[str, str], list[str]] = {}
+    for r in results:
+        if r.why and not r.passing:
+            groups.setdefault((str(r.state), r.why), []).append(f"{r.stage_id}/{r.check_id}")
+    lines = []
+    for (state, why), names in groups.items():
+        if len(names) <= 3:
+            lines.append(f"{', '.join(names)} {state}: {why}")
+        else:
+            lines.append(f"{len(names)} checks {state}: {why}")
+    return lines
+
+
+def _json(path: str, project: Project, results: list[CheckResult]) -> dict[str, Any]:
+    def number(value: float | None) -> float | None:
+        return value if value is not None and math.isfinite(value) else None
+
+    counted = totals(results)
+    return {
+        "file": path,
+        "sha256": file_sha256(path),
+        "checks": [
+            {"stage": r.stage_id, "id": r.check_id, "text": r.text, "metric": r.metric, "where": r.where,
+             "at_hz": r.at_hz, "value": number(r.value), "unit": r.unit, "limits": r.limits,
+             "state": str(r.state), "why": r.why}
+            for r in results
+        ],
+        "totals": {"met": counted.met, "not_met": counted.not_met, "waived": counted.waived,
+                   "open": counted.open, "no_value": counted.no_value, "n/a": counted.not_applicable,
+                   "total": counted.total},
+        "signoffs": {stage_id: str(state.state) for stage_id, state in signoff_states(project).items()},
+    }
 
 
 def run(args: argparse.Namespace) -> int:
-    raise CommandError("'check' is not available yet in this build")
+    path = str(args.file)
+    project = load_project(path)
+    results = evaluate_project(project, metric_provider_for(project))
+    counted = totals(results)
+    if getattr(args, "json", False):
+        print_json(_json(path, project, results))
+        return 0 if counted.all_passing else 1
+    print(f"{project.title} (revision {project.revision or '—'}): {path}")
+    print()
+    if results:
+        for line in _table(results):
+            print(line)
+    else:
+        print("no checks in this project")
+    reasons = _reasons(results)
+    if reasons:
+        print()
+        for line in reasons:
+            print(line)
+    print()
+    print(counted.sentence())
+    states = signoff_states(project)
+    print("sign-offs: " + ", ".join(f"{stage_id} {state.state}" for stage_id, state in states.items()))
+    return 0 if counted.all_passing else 1

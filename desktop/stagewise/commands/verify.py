@@ -1,11 +1,27 @@
-"""`stagewise verify`: not built yet."""
+"""`stagewise verify FILE`: audit-trail integrity.
+
+Recomputes the hash chain and names the first broken event (its position, seq and why), then
+checks that every sign-off, waiver, manual answer and comment in the stages has its audit event.
+Exit 0 intact, 1 broken, 2 the file cannot be read. What this proves is stated in DEVELOPERS.md:
+it reveals edits made outside the program; it is not a signature.
+"""
 
 from __future__ import annotations
 
 import argparse
 
-from stagewise.cli import CommandError
+from stagewise.commands.common import load
+from stagewise.review.audit import unrecorded_decisions, verify_trail
 
 
 def run(args: argparse.Namespace) -> int:
-    raise CommandError("'verify' is not available yet in this build")
+    project = load(args.file)
+    result = verify_trail(project.audit)
+    print(f"{args.file}: {result.sentence()}.")
+    problems = unrecorded_decisions(project)
+    for problem in problems:
+        print(f"{args.file}: {problem}.")
+    if problems:
+        print(f"{args.file}: {len(problems)} review record{'s' if len(problems) != 1 else ''} without an audit "
+              f"event: written outside the program, or their events were removed.")
+    return 0 if result.intact and not problems else 1

@@ -36,6 +36,7 @@ __all__ = [
     "canonical_json",
     "event_hash",
     "now_utc",
+    "unrecorded_decisions",
     "verify_trail",
 ]
 
@@ -206,3 +207,51 @@ def verify_trail(events: Sequence[AuditEvent]) -> VerifyResult:
 
 def _short(text: str) -> str:
     return text if len(text) <= 20 else text[:17] + "…"
+
+
+def _matches(event: AuditEvent, what: str, who: str, time: str, **fields: Any) -> bool:
+    return (event.what == what and event.who == who and event.time == time
+            and all(event.detail.get(key) == value for key, value in fields.items()))
+
+
+def unrecorded_decisions(project: Project) -> list[str]:
+    """Review records in the stages that no audit event accounts for, each as one sentence.
+
+    Every sign-off, waiver, manual answer, comment and resolved flag the program records comes
+    with an event holding the same stage, person, time and content. A record without its event
+    was written into the file by something else (for example a sign-off pasted by hand, or a
+    stale sign-off whose fingerprint was edited to look current), or its event was cut from the
+    end of the trail.
+    """
+    problems: list[str] = []
+    events = list(project.audit)
+
+    def found(what: str, who: str, time: str, **fields: Any) -> bool:
+        return any(_matches(event, what, who, time, **fields) for event in events)
+
+    for stage in project.stages:
+        for index, signoff in enumerate(stage.signoffs):
+            if not found("signoff", signoff.name, signoff.time, stage=stage.id, verdict=signoff.verdict,
+                         fingerprint=signoff.fingerprint):
+                problems.append(f'stage "{stage.id}", sign-off {index + 1} ({signoff.verdict} by {signoff.name}) '
+                                f"has no matching audit event")
+        for check in stage.checks:
+            if check.waiver is not None and not found("waiver", check.waiver.by, check.waiver.time, stage=stage.id,
+                                                      check=check.id, justification=check.waiver.justification):
+                problems.append(f'stage "{stage.id}", check "{check.id}": the waiver by {check.waiver.by} '
+                                f"has no matching audit event")
+            if check.answer is not None and not found("answer", check.answer.by, check.answer.time, stage=stage.id,
+                                                      check=check.id, answer=check.answer.answer):
+                problems.append(f'stage "{stage.id}", check "{check.id}": the answer by {check.answer.by} '
+                                f"has no matching audit event")
+        for index, comment in enumerate(stage.comments):
+            if not found("comment", comment.author, comment.time, stage=stage.id, text=comment.text):
+                problems.append(f'stage "{stage.id}", comment {index + 1} by {comment.author} '
+                                f"has no matching audit event")
+            if comment.resolved and not any(
+                event.what == "comment resolved" and event.detail.get("stage") == stage.id
+                and event.detail.get("author") == comment.author and event.detail.get("text") == comment.text
+                for event in events
+            ):
+                problems.append(f'stage "{stage.id}", comment {index + 1} is marked resolved without an audit event')
+    return problems
