@@ -1,0 +1,426 @@
+"""Poles and zeros of a linear system from its matrix pencil, and the minimal pole/zero model.
+
+A driven stage (or a merged chain) is ``(G + sC)·x = b·u`` with output ``y = x[output]``. Its
+poles are the finite eigenvalues of the pencil ``G + sC`` (values of s where the matrix is
+singular); its zeros are the finite eigenvalues of the Rosenbrock system pencil
+
+    [[G + sC, −b],
+     [e_outᵀ,  0]]
+
+Both pencils usually have infinite eigenvalues (algebraic unknowns, ideal sources, nullors),
+sometimes in Jordan chains (a capacitor across a voltage source, index 2): a plain QZ solve then
+scatters rounding errors of size eps^(1/k) around infinity, which a threshold cannot sort from
+real poles far from the band. So the infinite part is deflated exactly first, by orthogonal
+reductions of the pencil (rank decisions on equilibrated matrices), and only the remaining
+regular pencil, whose eigenvalues are all finite, goes to QZ.
+
+Poles and zeros that coincide within a relative tolerance are removed in pairs (they are
+uncontrollable or unobservable modes, e.g. a balanced bridge) and reported. The gain constant K
+of ``H(s) = K·∏(s − z)/∏(s − p)`` is fixed by one exact evaluation of the response.
+
+Public API
+----------
+``pole_zero_model(g, c, b, output, cancel_rtol=1e-6) -> PoleZeroModel``
+    The minimal model of any driven pencil (used by the stage and by the chain composition).
+``finite_eigenvalues(a, e) -> ndarray``
+    Finite values of s with det(a + s·e) = 0 (raises :class:`SingularPencilError`).
+``transfer_at(g, c, b, output, s) -> ndarray``
+    The exact response at complex frequencies s (rad/s), one batched solve.
+``root_table(roots) -> list[dict]``
+    Each root as ``{"re", "im", "f_hz", "q"}`` for reports (one entry per conjugate pair member).
+
+References
+----------
+P. Van Dooren, "The computation of Kronecker's canonical form of a singular pencil", Linear
+Algebra and its Applications, vol. 27, pp. 103-140, 1979 (deflation of the infinite structure).
+H. H. Rosenbrock, *State-space and Multivariable Theory*, Nelson, 1970 (the system matrix and
+its zeros).
+C. B. Moler and G. W. Stewart, "An algorithm for generalized matrix eigenvalue problems", SIAM J.
+Numer. Anal., vol. 10, pp. 241-256, 1973 (QZ).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import scipy.linalg
+from numpy.typing import NDArray
+
+__all__ = [
+    "PoleZeroModel",
+    "SingularPencilError",
+    "finite_eigenvalues",
+    "pole_zero_model",
+    "root_table",
+    "transfer_at",
+]
+
+TWO_PI = 2.0 * math.pi
+# Rank decisions on equilibrated matrices: a singular value below this fraction of the pencil's
+# norm is a structural zero (rounding of an exact zero is ~1e-16 of the norm).
+RANK_RTOL = 1e-11
+# A computed root whose imaginary part is below this fraction of its magnitude is real: a double
+# real pole splits into a pair with imaginary part ~sqrt(eps)·|p| under rounding.
+REAL_RTOL = 1e-7
+
+
+class SingularPencilError(ValueError):
+    """The pencil's determinant vanishes for every s: the system has no unique solution."""
+
+
+@dataclass(frozen=True, slots=True)
+class PoleZeroModel:
+    """The minimal pole/zero model ``H(s) = gain·∏(s − z)/∏(s − p)``, s in rad/s.
+
+    Attributes
+    ----------
+    poles_rad_s, zeros_rad_s : ndarray of complex
+        Roots left after cancellation, conjugate pairs adjacent (positive imaginary part first),
+        sorted by magnitude.
+    gain : float
+        K, the leading coefficient ratio (unit of the response: V/V, or Ω for a current drive,
+        times (rad/s)^(poles − zeros)).
+    cancelled : tuple of (pole, zero)
+        Pairs removed because they coincide within ``cancel_rtol``.
+    scale_rad_s : float
+        The pencil's natural frequency scale (norm of G over norm of C), a good place to look.
+    """
+
+    poles_rad_s: NDArray[np.complex128]
+    zeros_rad_s: NDArray[np.complex128]
+    gain: float
+    cancelled: tuple[tuple[complex, complex], ...] = ()
+    scale_rad_s: float = 1.0
+
+    def evaluate(self, s: NDArray[np.complex128] | complex) -> NDArray[np.complex128]:
+        """H(s) from the roots (s in rad/s)."""
+        points = np.atleast_1d(np.asarray(s, dtype=complex))
+        numerator = np.prod(points[:, None] - self.zeros_rad_s[None, :], axis=1)
+        denominator = np.prod(points[:, None] - self.poles_rad_s[None, :], axis=1)
+        return np.asarray(self.gain * numerator / denominator, dtype=complex)
+
+    @property
+    def dc_gain(self) -> float | None:
+        """H(0), or ``None`` when a pole sits at s = 0 (the gain grows without bound)."""
+        if np.any(self.poles_rad_s == 0):
+            return None
+        if np.any(self.zeros_rad_s == 0):
+            return 0.0
+        return float(np.real(self.evaluate(0.0)[0]))
+
+    @property
+    def relative_degree(self) -> int:
+        """Number of poles minus number of zeros (negative: the gain grows with frequency)."""
+        return len(self.poles_rad_s) - len(self.zeros_rad_s)
+
+
+# -- equilibration ---------------------------------------------------------------------------
+
+
+def _frequency_scale(g: NDArray[np.float64], c: NDArray[np.float64]) -> float:
+    g_norm = float(np.linalg.norm(g))
+    c_norm = float(np.linalg.norm(c))
+    if c_norm == 0.0 or g_norm == 0.0:
+        return 1.0
+    return g_norm / c_norm
+
+
+def _equilibrate(
+    a: NDArray[np.float64], e: NDArray[np.float64]
+) -> tuple[NDArray[np.float64], NDArray[np.float64], float]:
+    """Scale s, rows and columns (powers of two, exact) so that |a| + |e| has rows and columns near 1.
+
+    Returns the scaled pencil and the frequency scale ω_s: the eigenvalues of the scaled pencil
+    are s/ω_s. Row and column scaling leave the eigenvalues unchanged.
+    """
+    scale = _frequency_scale(a, e)
+    a = a.copy()
+    e = e * scale
+    for _ in range(8):
+        magnitude = np.abs(a) + np.abs(e)
+        rows = magnitude.max(axis=1)
+        rows[rows == 0] = 1.0
+        row_factor = np.exp2(-np.round(np.log2(rows)))
+        a *= row_factor[:, None]
+        e *= row_factor[:, None]
+        magnitude = np.abs(a) + np.abs(e)
+        columns = magnitude.max(axis=0)
+        columns[columns == 0] = 1.0
+        column_factor = np.exp2(-np.round(np.log2(columns)))
+        a *= column_factor[None, :]
+        e *= column_factor[None, :]
+        if np.all(row_factor == 1.0) and np.all(column_factor == 1.0):
+            break
+    # Re-balance the two halves after the diagonal scaling.
+    extra = _frequency_scale(a, e)
+    return a, e * extra, scale * extra
+
+
+def _rank(singular_values: NDArray[np.float64], reference: float) -> int:
+    return int(np.sum(singular_values > RANK_RTOL * max(reference, 1e-300)))
+
+
+def _orthonormal_complement(matrix: NDArray[np.float64], reference: float) -> tuple[NDArray[np.float64], int]:
+    """Orthonormal basis of the null space of ``matrix`` (columns), and the matrix's rank."""
+    u, singular, vt = np.linalg.svd(matrix, full_matrices=True)
+    rank = _rank(singular, reference)
+    return vt[rank:].T, rank
+
+
+# -- finite eigenvalues ----------------------------------------------------------------------
+
+
+def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64]) -> NDArray[np.complex128]:
+    """The finite values of s where ``a + s·e`` is singular.
+
+    The infinite eigenvalues are deflated exactly before QZ: with ``e = U·diag(Σ, 0)·Vᵀ`` the
+    algebraic part of the pencil is eliminated (Schur complement); where it is itself singular
+    (higher index), its constraints restrict the differential unknowns and the unknowns it
+    leaves free are projected out, and the reduction repeats on the smaller pencil.
+
+    Parameters
+    ----------
+    a, e : ndarray, shape (n, n)
+        Real matrices of the pencil ``a + s·e``.
+
+    Returns
+    -------
+    ndarray of complex
+        Finite eigenvalues in the units of s (rad/s for circuit pencils), unsorted.
+
+    Raises
+    ------
+    SingularPencilError
+        When det(a + s·e) is zero for every s.
+    """
+    a = np.asarray(a, dtype=float)
+    e = np.asarray(e, dtype=float)
+    if a.shape[0] == 0:
+        return np.zeros(0, dtype=complex)
+    a, e, scale = _equilibrate(a, e)
+    reference = max(float(np.linalg.norm(a, 2)), float(np.linalg.norm(e, 2)), 1e-300)
+    while True:
+        n = a.shape[0]
+        if n == 0:
+            return np.zeros(0, dtype=complex)
+        u, sigma, vt = np.linalg.svd(e)
+        rank_e = _rank(sigma, reference)
+        if rank_e == n:
+            values = scipy.linalg.eigvals(a, -e)
+            return np.asarray(values * scale, dtype=complex)
+        if rank_e == 0:
+            if _rank(np.asarray(np.linalg.svd(a, compute_uv=False), dtype=float), reference) < n:
+                raise SingularPencilError("the pencil is singular for every s")
+            return np.zeros(0, dtype=complex)
+        v = vt.T
+        a_t = u.T @ a @ v
+        r = rank_e
+        a11, a12 = a_t[:r, :r], a_t[:r, r:]
+        a21, a22 = a_t[r:, :r], a_t[r:, r:]
+        sigma1 = np.diag(sigma[:r])
+        p, s22, qt = np.linalg.svd(a22)
+        q_rank = _rank(s22, reference)
+        a21_p = p.T @ a21
+        a12_q = a12 @ qt.T
+        # Middle block: x2' = −S1⁻¹·A21'·x1 (algebraic unknowns fixed by the differential ones).
+        inverse = 1.0 / s22[:q_rank]
+        a11_reduced = a11 - a12_q[:, :q_rank] @ (inverse[:, None] * a21_p[:q_rank])
+        constraints = a21_p[q_rank:]  # B·x1 = 0
+        free = a12_q[:, q_rank:]  # unknowns that appear only in the differential rows
+        k = constraints.shape[0]
+        if k == 0:
+            a, e = a11_reduced, sigma1
+            continue
+        null_b, rank_b = _orthonormal_complement(constraints, reference)
+        left, rank_f = _orthonormal_complement(free.T, reference)
+        if rank_b < k or rank_f < k:
+            raise SingularPencilError("the pencil is singular for every s")
+        a = left.T @ a11_reduced @ null_b
+        e = left.T @ sigma1 @ null_b
+
+
+# -- roots: tidy, cancel, tabulate -----------------------------------------------------------
+
+
+def _tidy(roots: NDArray[np.complex128]) -> NDArray[np.complex128]:
+    """Make real roots exactly real, pair conjugates exactly, sort by magnitude then imag."""
+    roots = np.asarray(roots, dtype=complex)
+    real_mask = np.abs(roots.imag) <= REAL_RTOL * np.abs(roots)
+    reals = np.sort(roots[real_mask].real)[::-1]  # slowest (closest to 0 from the left) first
+    upper = roots[~real_mask & (roots.imag > 0)]
+    lower = roots[~real_mask & (roots.imag < 0)]
+    pairs: list[complex] = []
+    remaining = list(lower)
+    for root in upper:
+        if remaining:
+            conjugates = np.conj(np.array(remaining))
+            index = int(np.argmin(np.abs(conjugates - root)))
+            partner = remaining.pop(index)
+            root = 0.5 * (root + np.conj(partner))
+        pairs.append(complex(root))
+    for orphan in remaining:  # not expected for real matrices; keep it honest, not dropped
+        pairs.append(complex(np.conj(orphan)))
+    ordered: list[tuple[float, float, list[complex]]] = []
+    for value in reals:
+        ordered.append((abs(float(value)), 0.0, [complex(float(value), 0.0)]))
+    for root in pairs:
+        ordered.append((abs(root), abs(root.imag), [root, root.conjugate()]))
+    ordered.sort(key=lambda item: (item[0], item[1]))
+    result = [root for _, _, group in ordered for root in group]
+    return np.array(result, dtype=complex)
+
+
+def _cancel(
+    poles: NDArray[np.complex128], zeros: NDArray[np.complex128], rtol: float, atol: float
+) -> tuple[NDArray[np.complex128], NDArray[np.complex128], list[tuple[complex, complex]]]:
+    """Remove pole-zero pairs with |p − z| ≤ rtol·max(|p|, |z|) + atol (greedy, nearest first)."""
+    pole_list = list(poles)
+    zero_list = list(zeros)
+    cancelled: list[tuple[complex, complex]] = []
+    candidates: list[tuple[float, int, int]] = []
+    for i, pole in enumerate(pole_list):
+        for j, zero in enumerate(zero_list):
+            distance = abs(pole - zero)
+            if distance <= rtol * max(abs(pole), abs(zero)) + atol:
+                candidates.append((distance, i, j))
+    candidates.sort()
+    used_poles: set[int] = set()
+    used_zeros: set[int] = set()
+    for _, i, j in candidates:
+        if i in used_poles or j in used_zeros:
+            continue
+        used_poles.add(i)
+        used_zeros.add(j)
+        cancelled.append((complex(pole_list[i]), complex(zero_list[j])))
+    kept_poles = np.array([p for i, p in enumerate(pole_list) if i not in used_poles], dtype=complex)
+    kept_zeros = np.array([z for j, z in enumerate(zero_list) if j not in used_zeros], dtype=complex)
+    return kept_poles, kept_zeros, cancelled
+
+
+def root_table(roots: NDArray[np.complex128]) -> list[dict[str, float | None]]:
+    """Roots as report rows ``{"re", "im", "f_hz", "q"}`` (re, im in rad/s).
+
+    ``f_hz`` is the natural frequency |s|/(2π); ``q`` = |s|/(−2·Re s) for a complex root (negative
+    for a right-half-plane pair) and ``None`` for a real root or a root on the imaginary axis
+    (no damping: Q is infinite, and JSON has no infinity).
+
+    References
+    ----------
+    Standard second-order section s² + (ω0/Q)·s + ω0², e.g. Ogata, *Modern Control Engineering*,
+    ch. 5.
+    """
+    rows: list[dict[str, float | None]] = []
+    for root in roots:
+        magnitude = abs(root)
+        q: float | None = None
+        if root.imag != 0.0 and root.real != 0.0:
+            q = float(magnitude / (-2.0 * root.real))
+        rows.append({"re": float(root.real), "im": float(root.imag),
+                     "f_hz": float(magnitude / TWO_PI), "q": q})
+    return rows
+
+
+# -- the exact response ----------------------------------------------------------------------
+
+
+def transfer_at(
+    g: NDArray[np.float64],
+    c: NDArray[np.float64],
+    b: NDArray[np.float64],
+    output: int,
+    s: NDArray[np.complexfloating[Any, Any]] | complex,
+) -> NDArray[np.complex128]:
+    """The response ``x[output]`` of ``(G + sC)·x = b`` at every s (rad/s), one batched solve."""
+    points = np.atleast_1d(np.asarray(s, dtype=complex))
+    matrices = g[None, :, :] + points[:, None, None] * c[None, :, :]
+    right = np.broadcast_to(b.astype(complex)[None, :, None], (len(points), len(b), 1))
+    return np.asarray(np.linalg.solve(matrices, right)[:, output, 0], dtype=complex)
+
+
+def _gain_point(roots: NDArray[np.complex128], scale: float) -> complex:
+    """A point on the jω axis well away from every root, near the roots' geometric centre."""
+    magnitudes = np.abs(roots[roots != 0])
+    centre = float(np.exp(np.mean(np.log(magnitudes)))) if len(magnitudes) else scale
+    best = 1j * centre
+    best_distance = -1.0
+    for factor in (1.0, 1.618, 0.618, 2.718, 0.368, 7.39, 0.135):
+        candidate = 1j * centre * factor
+        if len(roots) == 0:
+            return candidate
+        distance = float(np.min(np.abs(candidate - roots)) / abs(candidate))
+        if distance > best_distance:
+            best, best_distance = candidate, distance
+    return complex(best)
+
+
+def pole_zero_model(
+    g: NDArray[np.float64],
+    c: NDArray[np.float64],
+    b: NDArray[np.float64],
+    output: int,
+    cancel_rtol: float = 1e-6,
+) -> PoleZeroModel:
+    """The minimal pole/zero model of ``(G + sC)·x = b·u``, ``y = x[output]``.
+
+    Parameters
+    ----------
+    g, c : ndarray, shape (n, n)
+        The pencil (SI units; s in rad/s).
+    b : ndarray, shape (n,)
+        Input vector of the drive.
+    output : int
+        Index of the output unknown.
+    cancel_rtol : float
+        Relative distance under which a pole and a zero cancel.
+
+    Returns
+    -------
+    PoleZeroModel
+
+    Raises
+    ------
+    SingularPencilError
+        When ``G + sC`` is singular for every s (the stage has no unique solution), or the
+        output does not respond to the input at all (the response is identically zero).
+    """
+    g = np.asarray(g, dtype=float)
+    c = np.asarray(c, dtype=float)
+    b = np.asarray(b, dtype=float)
+    n = g.shape[0]
+    poles = finite_eigenvalues(g, c)
+    system_a = np.zeros((n + 1, n + 1))
+    system_e = np.zeros((n + 1, n + 1))
+    system_a[:n, :n] = g
+    system_a[:n, n] = -b
+    system_a[n, output] = 1.0
+    system_e[:n, :n] = c
+    scale = _frequency_scale(g, c)
+    try:
+        zeros = finite_eigenvalues(system_a, system_e)
+    except SingularPencilError as error:
+        raise SingularPencilError("the output does not respond to the input (the response is zero at every "
+                                  "frequency)") from error
+    poles, zeros = _tidy(poles), _tidy(zeros)
+    everything = np.concatenate([poles, zeros])
+    nonzero = np.abs(everything[everything != 0])
+    typical = float(np.max(nonzero)) if len(nonzero) else scale
+    kept_poles, kept_zeros, cancelled = _cancel(poles, zeros, cancel_rtol, 1e-12 * typical)
+    kept_poles, kept_zeros = _tidy(kept_poles), _tidy(kept_zeros)
+    point = _gain_point(np.concatenate([poles, zeros]), scale)
+    value = complex(transfer_at(g, c, b, output, point)[0])
+    if value == 0:
+        raise SingularPencilError("the output does not respond to the input (the response is zero at every "
+                                  "frequency)")
+    # K = H(s0)·∏(s0 − p)/∏(s0 − z); products in log form would not help: factors are O(|s0|).
+    ratio = np.prod(point - kept_poles) / np.prod(point - kept_zeros)
+    gain_complex = value * ratio
+    return PoleZeroModel(
+        poles_rad_s=kept_poles,
+        zeros_rad_s=kept_zeros,
+        gain=float(gain_complex.real),
+        cancelled=tuple(cancelled),
+        scale_rad_s=scale,
+    )

@@ -1,0 +1,220 @@
+"""The isolated analysis of one stage: response, poles, zeros and gain constant.
+
+A stage is driven at its input port by an ideal voltage source (response in V/V) or, where the
+stage says ``"drive": "current"``, by an ideal current source (response in Ω, a
+transimpedance); its output port is unloaded (DESIGN 3.3). Nothing here raises for a stage that
+cannot be solved: the analysis carries ``why`` instead, and its numeric fields are ``None``.
+
+Public API
+----------
+``analyze_stage(stage, project, f_hz=None) -> StageAnalysis``
+    The whole isolated analysis; ``f_hz`` defaults to the project's frequency grid.
+``analyze_system(driven, f_hz, unit="V/V", label="") -> StageAnalysis``
+    The same for any driven pencil (the merged chain uses it).
+``response_at(analysis, f_hz) -> ndarray``
+    The exact response at any frequencies (an extra batched solve, not interpolation).
+``isolated_system(stage, project) -> DrivenSystem``
+    The assembled and driven pencil (raises :class:`~stagewise.engine.mna.CircuitError`).
+
+Example
+-------
+>>> analysis = analyze_stage(project.stages[0], project)        # doctest: +SKIP
+>>> analysis.ok, analysis.unit, analysis.poles_rad_s            # doctest: +SKIP
+(True, 'V/V', array([-6283.18...+0.j]))
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.engine.diagnostics import diagnose
+from stagewise.engine.mna import CircuitError, StageSystem, assemble
+from stagewise.engine.poles import PoleZeroModel, SingularPencilError, pole_zero_model, transfer_at
+from stagewise.engine.sweep import DrivenSystem, drive, frequency_grid
+from stagewise.model.project import Project, Stage
+
+__all__ = [
+    "StageAnalysis",
+    "analyze_stage",
+    "analyze_system",
+    "isolated_system",
+    "response_at",
+]
+
+TWO_PI = 2.0 * math.pi
+VOLTAGE_UNIT = "V/V"
+CURRENT_UNIT = "Ω"
+
+
+@dataclass(frozen=True, slots=True)
+class StageAnalysis:
+    """The isolated analysis of a stage (or of any driven pencil).
+
+    Attributes
+    ----------
+    f_hz : ndarray
+        Analysis frequencies in hertz.
+    response : ndarray of complex or None
+        Output over input at ``f_hz`` (V/V, or Ω for a current drive); ``None`` when ``why``.
+    unit : str
+        ``"V/V"`` or ``"Ω"``.
+    poles_rad_s, zeros_rad_s : ndarray of complex or None
+        Roots of the minimal model (cancelled pairs removed), s in rad/s.
+    gain_constant : float or None
+        K in H(s) = K·∏(s − z)/∏(s − p).
+    cancelled : tuple of (pole, zero)
+        Pairs removed as cancelling, rad/s.
+    why : str or None
+        Why the stage could not be analysed; ``None`` when it was.
+    label : str
+        The stage id (or what the caller named the system).
+    driven : DrivenSystem or None
+        The driven pencil, for exact evaluations at other frequencies.
+    model : PoleZeroModel or None
+        The minimal pole/zero model (time responses use it).
+    fingerprint : str
+        The stage fingerprint it was computed from ("" for other systems); a cache key.
+    """
+
+    f_hz: NDArray[np.float64]
+    response: NDArray[np.complex128] | None
+    unit: str
+    poles_rad_s: NDArray[np.complex128] | None
+    zeros_rad_s: NDArray[np.complex128] | None
+    gain_constant: float | None
+    cancelled: tuple[tuple[complex, complex], ...] = ()
+    why: str | None = None
+    label: str = ""
+    driven: DrivenSystem | None = None
+    model: PoleZeroModel | None = None
+    fingerprint: str = ""
+
+    @property
+    def ok(self) -> bool:
+        """True when the analysis has values (``why`` is ``None``)."""
+        return self.why is None
+
+
+def _failed(f_hz: NDArray[np.float64], unit: str, why: str, label: str, fingerprint: str = "",
+            driven: DrivenSystem | None = None) -> StageAnalysis:
+    return StageAnalysis(f_hz=f_hz, response=None, unit=unit, poles_rad_s=None, zeros_rad_s=None,
+                         gain_constant=None, why=why, label=label, driven=driven, fingerprint=fingerprint)
+
+
+def isolated_system(stage: Stage, project: Project) -> DrivenSystem:
+    """The stage's pencil with its isolated drive attached (output unloaded).
+
+    Raises
+    ------
+    CircuitError
+        A part the engine cannot stamp (named in the message).
+    """
+    system = assemble(stage, project)
+    return drive(system, stage.drive == "current")
+
+
+def analyze_system(
+    driven: DrivenSystem,
+    f_hz: NDArray[np.float64],
+    unit: str = VOLTAGE_UNIT,
+    label: str = "",
+    fingerprint: str = "",
+) -> StageAnalysis:
+    """Sweep a driven pencil and compute its minimal pole/zero model.
+
+    Parameters
+    ----------
+    driven : DrivenSystem
+        ``(G + sC)·x = b·u``, ``y = x[output]``.
+    f_hz : ndarray
+        Frequencies in hertz (one batched solve).
+    unit : str
+        Unit of the response, for display.
+    label : str
+        Name carried into messages and results.
+
+    Returns
+    -------
+    StageAnalysis
+        With ``why`` set (and no values) when the pencil is singular or the output does not
+        respond; never raises for those.
+    """
+    f_hz = np.asarray(f_hz, dtype=float)
+    try:
+        model = pole_zero_model(driven.g, driven.c, driven.b, driven.output)
+    except SingularPencilError as error:
+        return _failed(f_hz, unit, str(error), label, fingerprint, driven)
+    try:
+        response = transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * TWO_PI * f_hz)
+    except np.linalg.LinAlgError:
+        on_axis = [p for p in model.poles_rad_s if p.real == 0]
+        where = f" (a pole at {abs(on_axis[0]) / TWO_PI:.6g} Hz on the jω axis)" if on_axis else ""
+        return _failed(f_hz, unit, f"the response is infinite at an analysis frequency{where}", label,
+                       fingerprint, driven)
+    return StageAnalysis(
+        f_hz=f_hz,
+        response=response,
+        unit=unit,
+        poles_rad_s=model.poles_rad_s,
+        zeros_rad_s=model.zeros_rad_s,
+        gain_constant=model.gain,
+        cancelled=model.cancelled,
+        label=label,
+        driven=driven,
+        model=model,
+        fingerprint=fingerprint,
+    )
+
+
+def analyze_stage(stage: Stage, project: Project, f_hz: NDArray[np.float64] | None = None) -> StageAnalysis:
+    """The isolated analysis of ``stage`` (DESIGN 3.3).
+
+    Parameters
+    ----------
+    stage : Stage
+        A circuit or block stage of ``project``.
+    project : Project
+        Supplies op-amp models and the frequency grid.
+    f_hz : ndarray, optional
+        Frequencies in hertz; default: ``frequency_grid(project.settings)``.
+
+    Returns
+    -------
+    StageAnalysis
+        ``why`` names the node or part when the stage cannot be solved (floating node, loop of
+        voltage-defined branches, ideal op-amp without feedback, input held by a virtual ground).
+    """
+    grid = frequency_grid(project.settings) if f_hz is None else np.asarray(f_hz, dtype=float)
+    current = stage.drive == "current"
+    unit = CURRENT_UNIT if current else VOLTAGE_UNIT
+    try:
+        system: StageSystem = assemble(stage, project)
+    except CircuitError as error:
+        return _failed(grid, unit, f'stage "{stage.id}": {error}', stage.id)
+    diagnosis = diagnose(system, current)
+    if diagnosis is not None:
+        return _failed(grid, unit, f'stage "{stage.id}": {diagnosis.why}', stage.id, system.fingerprint)
+    analysis = analyze_system(drive(system, current), grid, unit, stage.id, system.fingerprint)
+    if analysis.why is not None:
+        return _failed(grid, unit, f'stage "{stage.id}": {analysis.why}', stage.id, system.fingerprint,
+                       analysis.driven)
+    return analysis
+
+
+def response_at(analysis: StageAnalysis, f_hz: NDArray[np.float64] | float) -> NDArray[np.complex128]:
+    """The exact response at ``f_hz`` (hertz) by a fresh batched solve, not by interpolation.
+
+    Raises
+    ------
+    ValueError
+        When the analysis has no driven system (it failed: see ``analysis.why``).
+    """
+    if analysis.driven is None or analysis.why is not None:
+        raise ValueError(analysis.why or "the analysis has no system to evaluate")
+    driven = analysis.driven
+    points = 1j * TWO_PI * np.atleast_1d(np.asarray(f_hz, dtype=float))
+    return transfer_at(driven.g, driven.c, driven.b, driven.output, points)
