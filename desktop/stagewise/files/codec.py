@@ -398,6 +398,14 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
     stage.drive = reader.field(fields, "drive", _choice("voltage", "current"), "voltage")
     stage.bypass = reader.field(fields, "bypass", _boolean, False)
     stage.notes = reader.field(fields, "notes", _text, "")
+    # Keys of the other kind are refused rather than silently ignored.
+    foreign = ("ports", "parts") if stage.kind == BLOCK_KIND else ("gain", "zeros_hz", "poles_hz", "zin", "zout_ohm")
+    for key in foreign:
+        if key in fields:
+            with reader.at(key):
+                reader.problem(f'a {stage.kind} stage takes no "{key}"; '
+                               + ('ports and parts belong to kind "circuit"' if stage.kind == BLOCK_KIND
+                                  else 'gain, zeros, poles, zin and zout belong to kind "block"'))
     if "ports" in fields:
         with reader.at("ports"):
             ports = reader.mapping(fields["ports"], ("in", "out"), ("in", "out"))

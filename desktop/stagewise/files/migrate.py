@@ -20,18 +20,27 @@ __all__ = ["migrate"]
 
 
 def _from_version_0(document: dict[str, Any]) -> dict[str, Any]:
+    """Version 0 -> 1: ``chain`` becomes ``stages``, the top-level ``drive`` moves into ``input``.
+
+    Anything else is carried over untouched; what does not fit version 1 is left for the
+    decoder to report with its path (a ``chain`` beside a ``stages``, an ``input`` that is not
+    an object).
+    """
     result: dict[str, Any] = {"format": FORMAT_NAME, "version": 1}
     for key, value in document.items():
-        if key in ("version", "format"):
+        if key in ("version", "format", "drive"):
             continue
-        if key == "chain":
+        if key == "chain" and "stages" not in document:
             result["stages"] = value
-        elif key == "drive":
-            result.setdefault("input", {})["drive"] = value
-        elif key == "input" and isinstance(value, dict):
-            result.setdefault("input", {}).update(value)
         else:
             result[key] = value
+    if "drive" in document:
+        section = document.get("input", {})
+        if isinstance(section, dict):
+            # An explicit input.drive (a file half-edited by hand) wins over the old key.
+            result["input"] = {"drive": document["drive"], **section}
+        else:
+            result["drive"] = document["drive"]
     return result
 
 

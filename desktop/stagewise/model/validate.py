@@ -7,6 +7,8 @@ node, stages with no path to node 0, op-amp models that do not exist, settings o
 
 from __future__ import annotations
 
+import math
+
 from stagewise.model.project import (
     CURRENT_CONTROLLED_TYPES,
     GROUND,
@@ -20,6 +22,8 @@ from stagewise.model.project import (
 __all__ = ["KNOWN_METRICS_HOOK", "validate", "validate_stage"]
 
 ABSOLUTE_ZERO_C = -273.15
+# Beyond this a sweep (and the GUI) would stall: 20 decades at 10000 points per decade.
+MAX_FREQUENCY_POINTS = 200_000
 
 # The review layer registers the table of metric keys here so that the model can check names
 # without importing it (keeps the model free of the layers above it).
@@ -34,8 +38,17 @@ def validate(project: Project) -> list[str]:
         problems.append(f"settings.f_min_hz: {settings.f_min_hz.raw} must be below f_max_hz ({settings.f_max_hz.raw})")
     if not 1 <= settings.points_per_decade <= 10000:
         problems.append(f"settings.points_per_decade: {settings.points_per_decade} must be between 1 and 10000")
-    if settings.temperature_c.si < ABSOLUTE_ZERO_C:
-        problems.append(f"settings.temperature_c: {settings.temperature_c.raw} °C is below absolute zero (−273.15 °C)")
+    if settings.temperature_c.si <= ABSOLUTE_ZERO_C:
+        problems.append(f"settings.temperature_c: {settings.temperature_c.raw} °C is at or below absolute zero "
+                        "(−273.15 °C), a negative temperature in kelvin")
+    if settings.ref_hz is not None and not (settings.f_min_hz.si <= settings.ref_hz.si <= settings.f_max_hz.si):
+        problems.append(f"settings.ref_hz: {settings.ref_hz.raw} Hz lies outside the analysed range "
+                        f"f_min_hz … f_max_hz ({settings.f_min_hz.raw} … {settings.f_max_hz.raw})")
+    if settings.f_min_hz.si < settings.f_max_hz.si and 1 <= settings.points_per_decade:
+        points = math.log10(settings.f_max_hz.si / settings.f_min_hz.si) * settings.points_per_decade
+        if points > MAX_FREQUENCY_POINTS:
+            problems.append(f"settings.points_per_decade: {points:.0f} frequency points over the range is more "
+                            f"than {MAX_FREQUENCY_POINTS}; lower points_per_decade or narrow the range")
     if settings.noise_band_hz is not None and settings.noise_band_hz[0].si >= settings.noise_band_hz[1].si:
         problems.append("settings.noise_band_hz: the lower edge must be below the upper edge")
     if not 1 <= settings.mc_samples <= 1_000_000:
@@ -46,6 +59,9 @@ def validate(project: Project) -> list[str]:
     if converter.bits is not None and not 1 <= converter.bits <= 32:
         problems.append(f"converter.bits: {converter.bits} must be between 1 and 32")
     for name, model in project.opamp_models.items():
+        if name == IDEAL_OPAMP:
+            problems.append(f'opamp_models.{name}: "{IDEAL_OPAMP}" is reserved for the ideal op-amp; '
+                            "give the model another name")
         if model.a0_db.si > 300:
             problems.append(f"opamp_models.{name}.a0_db: {model.a0_db.raw} dB is beyond any amplifier; use \"ideal\"")
         if model.swing_v is not None and model.swing_v[0].si >= model.swing_v[1].si:
@@ -84,6 +100,7 @@ def validate_stage(stage: Stage, project: Project, path: str) -> list[str]:
             problems.append(f"{path}.gain: a block stage needs a gain")
         if stage.parts:
             problems.append(f"{path}.parts: a block stage has no parts; use kind \"circuit\"")
+        problems.extend(_block_root_problems(stage, path))
         return problems
     nodes: set[str] = set()
     refs: dict[str, int] = {}
@@ -142,6 +159,25 @@ def validate_stage(stage: Stage, project: Project, path: str) -> list[str]:
             names = ", ".join(f'"{node}"' for node in sorted(unreached))
             problems.append(f"{path}.parts: node{'s' if len(unreached) > 1 else ''} {names} "
                             f"{'have' if len(unreached) > 1 else 'has'} no path to node 0")
+    return problems
+
+
+def _block_root_problems(stage: Stage, path: str) -> list[str]:
+    """Poles must lie in the left half-plane (f > 0); a block needs no more zeros than poles."""
+    problems: list[str] = []
+    order = {"zeros_hz": 0, "poles_hz": 0}
+    for key, roots in (("zeros_hz", stage.zeros_hz), ("poles_hz", stage.poles_hz)):
+        for index, root in enumerate(roots):
+            if isinstance(root, tuple):
+                order[key] += 2
+                continue
+            order[key] += 1
+            if key == "poles_hz" and not root.si > 0:
+                problems.append(f"{path}.poles_hz[{index}]: a pole at {root.raw} Hz is not stable; a block's "
+                                "poles need a frequency above 0 (a real pole at s = −2πf)")
+    if order["zeros_hz"] > order["poles_hz"]:
+        problems.append(f"{path}.zeros_hz: {order['zeros_hz']} zeros against {order['poles_hz']} poles; a block "
+                        "needs at least as many poles as zeros, or its gain grows without bound")
     return problems
 
 
