@@ -1,0 +1,9 @@
+"""The PDF review packet (DESIGN section 8): Qt's QPdfWriter/QPainter, pyqtgraph plots as vectors.
+
+Public entry points live in :mod:`stagewise.report.packet`: ``build_packet`` (PDF file) and
+``print_packet`` (QPrinter).
+"""
+
+from stagewise.report._none_guard import keep_none_alive
+
+keep_none_alive()

@@ -1,0 +1,169 @@
+"""What goes into a review packet, gathered without Qt: analysis document, curves and review states.
+
+Every number printed in the packet comes from the ``analyze --json`` document
+(:func:`stagewise.engine.analysis.analyze_project`), so the packet and the command line agree
+by construction. Curves (which that document does not hold) come from the engine's sweep
+functions. Where a piece of the analysis is missing from this build, the packet says so rather
+than showing a number it cannot stand behind.
+"""
+
+from __future__ import annotations
+
+import importlib
+import os
+import re
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.engine.mna import assemble
+from stagewise.engine.sweep import drive, frequency_grid, transfer
+from stagewise.files.project_file import file_sha256
+from stagewise.model.project import Project, Stage
+
+__all__ = ["Curve", "PacketContent", "gather", "resolve_source"]
+
+NOT_IN_BUILD = "not available in this build"
+_SHA256 = re.compile(r"[0-9a-f]{64}")
+
+
+@dataclass
+class Curve:
+    """A complex response over frequency, or the reason it could not be computed."""
+
+    f_hz: NDArray[np.float64] | None = None
+    response: NDArray[np.complex128] | None = None
+    why: str | None = None
+
+
+@dataclass
+class StageCurves:
+    isolated: Curve = field(default_factory=Curve)
+    in_chain: Curve = field(default_factory=Curve)
+
+
+@dataclass
+class PacketContent:
+    """Everything a packet shows, computed once and shared by the PDF and the printer paths."""
+
+    project: Project
+    sha256: str
+    source_name: str
+    analysis: dict[str, Any] | None
+    analysis_why: str | None
+    chain: Curve
+    stages: dict[str, StageCurves]
+    symbolic: dict[str, dict[str, Any]]
+
+    def stage_analysis(self, stage_id: str) -> dict[str, Any] | None:
+        """The ``stages[]`` entry of the analysis document for ``stage_id``, if any."""
+        if self.analysis is None:
+            return None
+        for entry in self.analysis.get("stages", []):
+            if entry.get("id") == stage_id:
+                return dict(entry)
+        return None
+
+
+def resolve_source(path_or_sha: str | os.PathLike[str]) -> tuple[str, str, str | None]:
+    """``(sha256, shown name, path or None)`` from a project file path or a 64-digit SHA-256.
+
+    The GUI passes the SHA-256 of the file as last saved when it prints; the command line passes
+    the file's path.
+    """
+    text = os.fspath(path_or_sha)
+    if _SHA256.fullmatch(text) and not Path(text).exists():
+        return text, "(not saved to a file)", None
+    return file_sha256(text), Path(text).name, text
+
+
+def _optional(module: str, name: str) -> Callable[..., Any] | None:
+    """A function of an engine module that may not be in this build yet (``None`` when absent)."""
+    try:
+        loaded = importlib.import_module(module)
+    except ImportError:
+        return None
+    found = getattr(loaded, name, None)
+    return found if callable(found) else None
+
+
+def _analysis(project: Project, path: str | None) -> tuple[dict[str, Any] | None, str | None]:
+    analyze = _optional("stagewise.engine.analysis", "analyze_project")
+    if analyze is None:
+        return None, f"the analysis engine is {NOT_IN_BUILD}"
+    try:
+        return dict(analyze(project, path)), None
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError) as error:
+        return None, f"the analysis failed: {error}"
+
+
+def _isolated_curve(stage: Stage, project: Project, f_hz: NDArray[np.float64]) -> Curve:
+    try:
+        system = assemble(stage, project)
+        response = transfer(drive(system, stage.drive == "current"), f_hz)
+    except (ValueError, np.linalg.LinAlgError) as error:
+        return Curve(why=f"the stage cannot be solved: {error}")
+    return Curve(f_hz, response)
+
+
+def _chain_curves(project: Project, f_hz: NDArray[np.float64]) -> tuple[Curve, dict[str, Curve]]:
+    """The chain's response and each active stage's response where it sits (engine/chain.py)."""
+    engine_class = _optional("stagewise.engine.chain", "ChainEngine")
+    if engine_class is None:
+        why = f"the chain engine is {NOT_IN_BUILD}"
+        return Curve(why=why), {stage.id: Curve(why=why) for stage in project.stages}
+    try:
+        result = engine_class().analyze(project, f_hz)
+    except (ValueError, np.linalg.LinAlgError) as error:
+        why = f"the chain cannot be solved: {error}"
+        return Curve(why=why), {stage.id: Curve(why=why) for stage in project.stages}
+    in_chain: dict[str, Curve] = {}
+    for stage in project.stages:
+        if stage.bypass or stage.id not in result.stage_ids:
+            in_chain[stage.id] = Curve(why="the stage is bypassed: it is not in the chain")
+            continue
+        entry = result.stage(stage.id)
+        if entry.in_chain is None:
+            in_chain[stage.id] = Curve(why=entry.in_chain_why or "no response in chain")
+        else:
+            in_chain[stage.id] = Curve(f_hz, np.asarray(entry.in_chain))
+    return Curve(f_hz, np.asarray(result.response)), in_chain
+
+
+def _symbolic(stage: Stage, project: Project) -> dict[str, Any]:
+    form = _optional("stagewise.engine.symbolic", "symbolic_form")
+    if form is None:
+        return {"why": f"the symbolic form is {NOT_IN_BUILD}"}
+    try:
+        return {"result": form(stage, project)}
+    except (ValueError, ArithmeticError, TimeoutError) as error:
+        return {"why": f"no symbolic form: {error}"}
+
+
+def gather(project: Project, path_or_sha: str | os.PathLike[str],
+           step: Callable[[str], bool] | None = None) -> PacketContent | None:
+    """Compute what the packet shows; ``None`` when ``step`` (called before each piece) says stop."""
+
+    def go_on(label: str) -> bool:
+        return step is None or step(label)
+
+    sha, name, path = resolve_source(path_or_sha)
+    if not go_on("analysing the project"):
+        return None
+    analysis, why = _analysis(project, path)
+    f_hz = frequency_grid(project.settings)
+    if not go_on("computing the chain response"):
+        return None
+    chain, in_chain = _chain_curves(project, f_hz)
+    stages: dict[str, StageCurves] = {}
+    symbolic: dict[str, dict[str, Any]] = {}
+    for stage in project.stages:
+        if not go_on(f"stage {stage.name}"):
+            return None
+        stages[stage.id] = StageCurves(_isolated_curve(stage, project, f_hz), in_chain[stage.id])
+        symbolic[stage.id] = _symbolic(stage, project) if not stage.is_block else {}
+    return PacketContent(project, sha, name, analysis, why, chain, stages, symbolic)

@@ -1,0 +1,696 @@
+"""The packet's sections, in order (DESIGN section 8), as blocks for :mod:`stagewise.report.layout`.
+
+Cover, cautions, the chain (block diagram, response, noise, converter, headroom, spread), one
+section per stage, the audit trail. Numbers come from the analysis document
+(:class:`~stagewise.report.content.PacketContent`); check states from
+:mod:`stagewise.review.checks`; sign-off states from :mod:`stagewise.review.signoff`; every word
+for a state, a metric or an event from the review layer's tables, so the GUI, the packet and the
+command line say the same thing.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Callable, Sequence
+from datetime import UTC, datetime
+from typing import Any
+
+from PySide6.QtCore import QRectF
+from PySide6.QtGui import QColor, QPainter
+
+from stagewise import __version__
+from stagewise.model.project import PART_TYPES, Project, Stage
+from stagewise.model.values import format_value
+from stagewise.report.content import NOT_IN_BUILD, Curve, PacketContent
+from stagewise.report.diagram import DiagramBox, diagram_height, draw_diagram
+from stagewise.report.layout import (
+    MUTED,
+    Block,
+    Column,
+    Figure,
+    Heading,
+    PageBreak,
+    Paragraph,
+    Spacer,
+    Table,
+)
+from stagewise.report.plots import (
+    ResponseTrace,
+    bars_plot,
+    pole_zero_plot,
+    render_plot,
+    response_plot,
+    trace_from_complex,
+)
+from stagewise.review.audit import EVENT_LABELS, verify_trail
+from stagewise.review.checks import CheckResult, CheckTotals, totals
+from stagewise.review.metrics import METRICS
+from stagewise.review.signoff import StageSignoffs
+from stagewise.review.words import SIGNOFF_STATE_MEANINGS, VERDICT_WORDS, WHERE_WORDS, CheckState
+
+__all__ = ["CAUTIONS", "build_blocks"]
+
+# DESIGN section 9, word for word: shown in the README, the About box and every packet.
+CAUTIONS = (
+    "Stagewise analyses small-signal linear models. It does not model large-signal behaviour beyond "
+    "the swing and slew checks, and it does not assess electrical safety: insulation, creepage and "
+    "clearance, leakage currents, protection against fault conditions. Front-ends that touch mains, "
+    "patients or hazardous energy must follow the applicable standards (for example IEC 61010-1 for "
+    "measurement equipment and IEC 60601-1 for medical equipment), local codes and the judgement of a "
+    "qualified, where required licensed, engineer. Verify every design on hardware."
+)
+
+AUDIT_MEANING = (
+    "Each event's hash is the SHA-256 of its content and of the hash before it. Recomputing the chain "
+    "reveals events edited, removed, inserted or reordered outside the program. It is not a signature: "
+    "anyone holding the file can rebuild a chain that verifies."
+)
+
+DASH = "—"
+
+
+def _text(value: Any, unit: str = "") -> str:
+    """A metric value for people: SI prefix for physical units, plain digits for dB, degrees and %."""
+    if value is None:
+        return DASH
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int | float):
+        number = float(value)
+        if not math.isfinite(number):
+            return DASH
+        if unit in ("dB", "%", ""):
+            return f"{number:.4g} {unit}".rstrip()
+        if unit == "°":
+            return f"{number:.4g}°"
+        return format_value(number, unit)
+    return str(value)
+
+
+def _why(document: dict[str, Any] | None, key: str) -> str | None:
+    """The reason a value is null, wherever the analysis document put it."""
+    if not document:
+        return None
+    for candidate in (f"{key}_why", "why"):
+        found = document.get(candidate)
+        if isinstance(found, str):
+            return found
+        if isinstance(found, dict) and isinstance(found.get(key), str):
+            return str(found[key])
+    inner = document.get(key)
+    if isinstance(inner, dict) and isinstance(inner.get("why"), str):
+        return str(inner["why"])
+    return None
+
+
+def _value_or_why(document: dict[str, Any] | None, key: str, unit: str) -> str:
+    if document is None:
+        return DASH
+    value = document.get(key)
+    if value is None or isinstance(value, dict | list):
+        why = _why(document, key)
+        return f"{DASH} ({why})" if why else DASH
+    return _text(value, unit)
+
+
+def _unavailable(text: str) -> Paragraph:
+    return Paragraph(text, 11.5, italic=True, color=QColor(MUTED))
+
+
+def _key_values(rows: Sequence[tuple[str, str]], size_px: float = 11.5) -> Table:
+    return Table([Column("", wrap=False), Column("")], [list(row) for row in rows], size_px=size_px, header=False)
+
+
+def _plot_figure(build: Callable[[], Any], height: float, caption: str) -> Figure:
+    def draw(painter: QPainter, rect: QRectF) -> None:
+        widget = build()
+        try:
+            render_plot(widget, painter, rect)
+        finally:
+            widget.deleteLater()
+
+    return Figure(draw, height, caption)
+
+
+def _traces(curves: Sequence[tuple[str, Curve]]) -> list[ResponseTrace]:
+    return [trace_from_complex(label, curve.f_hz, curve.response) for label, curve in curves
+            if curve.f_hz is not None and curve.response is not None]
+
+
+# --- cover -------------------------------------------------------------------------------------
+
+
+def _cover(content: PacketContent, results: list[CheckResult], states: dict[str, StageSignoffs],
+           printed_utc: str) -> list[Block]:
+    project = content.project
+    settings = project.settings
+    counts: CheckTotals = totals(results)
+    blocks: list[Block] = [
+        Paragraph("DESIGN REVIEW PACKET", 11.0, bold=True, color=QColor(MUTED), space_after=8.0),
+        Heading(project.title, 0),
+        Paragraph(f"Revision {project.revision or DASH}", 15.0, space_after=14.0),
+    ]
+    bypassed = sum(1 for stage in project.stages if stage.bypass)
+    band = (f"{format_value(settings.f_min_hz.si, 'Hz')} to {format_value(settings.f_max_hz.si, 'Hz')}, "
+            f"{settings.points_per_decade} points per decade")
+    rows = [
+        ("Project file", content.source_name),
+        ("File SHA-256", content.sha256),
+        ("Printed", printed_utc),
+        ("Printed with", f"Stagewise {__version__}"),
+        ("Stages", f"{len(project.stages)} ({bypassed} bypassed)" if bypassed else str(len(project.stages))),
+        ("Analysis band", band),
+        ("Reference frequency", format_value(settings.ref_hz.si, "Hz") if settings.ref_hz else "band maximum"),
+        ("Temperature", f"{settings.temperature_c.si:g} °C"),
+    ]
+    table = _key_values(rows)
+    table.columns[1] = Column("", mono=False)
+    blocks.append(table)
+    blocks.append(Paragraph(
+        "The SHA-256 above identifies the exact project file this packet was printed from: compute the "
+        "SHA-256 of a file to know whether it is the one reviewed here.", 10.5, italic=True, color=QColor(MUTED),
+        space_after=12.0))
+    blocks.append(Heading("Checks", 2))
+    blocks.append(Table(
+        [Column("met", "right"), Column("not met", "right"), Column("waived", "right"), Column("open", "right"),
+         Column("no value", "right"), Column("n/a", "right"), Column("total", "right")],
+        [[str(counts.met), str(counts.not_met), str(counts.waived), str(counts.open), str(counts.no_value),
+          str(counts.not_applicable), str(counts.total)]], size_px=12.0))
+    verdict = ("Every check is met, waived or not applicable." if counts.all_passing else
+               "Not every check passes: see the checks of each stage for values and reasons.")
+    blocks.append(Paragraph(verdict, 11.5, space_after=10.0))
+    blocks.append(Heading("Sign-off state of each stage", 2))
+    rows_signed = []
+    marks = []
+    for stage in project.stages:
+        state = states[stage.id]
+        latest = [view for view in state.signoffs if not view.superseded]
+        who = "; ".join(f"{view.signoff.name} ({view.word}, {view.signoff.time[:10]})" for view in latest) or DASH
+        name = stage.name + (" (bypassed)" if stage.bypass else "")
+        word = str(state.state).upper() if state.state == "stale" else str(state.state)
+        rows_signed.append([stage.id, name, word, who])
+        marks.append("bad" if state.state in ("stale", "changes needed") else "muted" if stage.bypass else "")
+    blocks.append(Table([Column("stage", wrap=False), Column("name"), Column("state", wrap=False),
+                         Column("latest sign-off of each reviewer")], rows_signed, row_marks=marks))
+    blocks.append(Paragraph("; ".join(f"{state}: {meaning}" for state, meaning in SIGNOFF_STATE_MEANINGS.items())
+                            + ".", 10.0, italic=True, color=QColor(MUTED)))
+    return blocks
+
+
+# --- cautions ----------------------------------------------------------------------------------
+
+
+def _cautions(content: PacketContent) -> list[Block]:
+    blocks: list[Block] = [PageBreak(), Heading("Cautions", 1), Paragraph(CAUTIONS, 12.5, space_after=12.0)]
+    blocks.append(Heading("How to read this packet", 2))
+    blocks.append(Paragraph(
+        "Isolated: the stage alone, driven by an ideal source, output unloaded. In chain: the stage where it "
+        "sits, driven by the stages before it and loaded by the stages after it. Check states are computed "
+        "from the analysis when the packet is printed, never stored. A sign-off is bound to the fingerprint "
+        "of the stage it approved; it is marked STALE when the stage has changed since.", 11.5))
+    if content.analysis is None:
+        blocks.append(_unavailable(
+            f"In this packet the computed figures are missing because {content.analysis_why}. The sections "
+            f"say so where a number would stand; no number has been estimated in its place."))
+    return blocks
+
+
+# --- the chain ---------------------------------------------------------------------------------
+
+
+def _stage_figures(entry: dict[str, Any] | None) -> tuple[str, ...]:
+    if entry is None or not isinstance(entry.get("isolated"), dict):
+        return ("no figures in this build",)
+    isolated = entry["isolated"]
+    lines = []
+    if isolated.get("gain_db") is not None:
+        lines.append(f"gain {_text(isolated['gain_db'], 'dB')}")
+    corners = []
+    if isolated.get("f_low_3db_hz") is not None:
+        corners.append(f"{format_value(isolated['f_low_3db_hz'], 'Hz', 3)}")
+    else:
+        corners.append("")
+    if isolated.get("f_high_3db_hz") is not None:
+        corners.append(f"{format_value(isolated['f_high_3db_hz'], 'Hz', 3)}")
+    if any(corners):
+        lines.append("−3 dB: " + " … ".join(corner or "DC" for corner in corners))
+    return tuple(lines)
+
+
+def _diagram_boxes(content: PacketContent) -> list[DiagramBox]:
+    project = content.project
+    amplitude = project.input.amplitude
+    unit = "A" if project.input.drive == "current" else "V"
+    source = DiagramBox("Source", f"{project.input.drive} drive",
+                        (f"{format_value(amplitude.si, unit)} peak",) if amplitude else (), end=True)
+    boxes = [source]
+    for stage in project.stages:
+        kind = "block" if stage.is_block else f"{len(stage.parts)} parts"
+        if stage.bypass:
+            boxes.append(DiagramBox(stage.name, f"{stage.id} · bypassed", (), bypassed=True))
+        else:
+            boxes.append(DiagramBox(stage.name, f"{stage.id} · {kind}", _stage_figures(content.stage_analysis(stage.id))))
+    converter = project.converter
+    figures = []
+    if converter.bits:
+        figures.append(f"{converter.bits} bit")
+    if converter.fs_hz:
+        figures.append(f"fs {format_value(converter.fs_hz.si, 'Hz', 3)}")
+    if converter.full_scale_vpp:
+        figures.append(f"{format_value(converter.full_scale_vpp.si, 'V', 3)} p-p full scale")
+    if project.load.r_ohm or project.load.c_f:
+        load = " ∥ ".join(text for text in (
+            format_value(project.load.r_ohm.si, "Ω", 3) if project.load.r_ohm else "",
+            format_value(project.load.c_f.si, "F", 3) if project.load.c_f else "") if text)
+        figures.append(f"load {load}")
+    boxes.append(DiagramBox("Converter" if converter.bits or converter.fs_hz else "Output", "end of chain",
+                            tuple(figures[:3]), end=True))
+    return boxes
+
+
+_CHAIN_KEYS = ("gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz")
+
+
+def _metrics_rows(documents: Sequence[dict[str, Any] | None]) -> list[list[str]]:
+    rows = []
+    for key in _CHAIN_KEYS:
+        unit = METRICS[key].unit
+        rows.append([METRICS[key].label] + [_value_or_why(document, key, unit) for document in documents])
+    step_keys = (("rise_s", "s"), ("overshoot_pct", "%"), ("settle_1pct_s", "s"))
+    for key, unit in step_keys:
+        rows.append([METRICS[key].label] + [
+            _value_or_why(document.get("step") if isinstance(document, dict) and isinstance(document.get("step"), dict)
+                          else None, key, unit) if document is not None else DASH
+            for document in documents])
+    rows.append(["Step final value"] + [
+        _value_or_why(document.get("step") if isinstance(document, dict) and isinstance(document.get("step"), dict)
+                      else None, "final", "") if document is not None else DASH for document in documents])
+    return rows
+
+
+def _chain(content: PacketContent) -> list[Block]:
+    project = content.project
+    blocks: list[Block] = [PageBreak(), Heading("The chain", 1), Heading("Block diagram", 2)]
+    boxes = _diagram_boxes(content)
+
+    def draw(painter: QPainter, rect: QRectF) -> None:
+        draw_diagram(painter, rect, boxes)
+
+    blocks.append(Figure(draw, diagram_height(len(boxes), 650.0),
+                         "Stages in chain order from the source to the converter. Figures are isolated: gain at "
+                         "the reference frequency and −3 dB corners. Dashed grey: bypassed, not in the chain."))
+    blocks.append(Heading("Response of the whole chain", 2))
+    if content.chain.response is not None:
+        traces = _traces([("chain", content.chain)])
+        blocks.append(_plot_figure(lambda: response_plot(traces), 330.0,
+                                   "Drive to the last output, every stage loaded by the next."))
+    else:
+        blocks.append(_unavailable(f"Chain response plot: {content.chain.why}."))
+    analysis = content.analysis
+    chain = analysis.get("chain") if analysis else None
+    if chain is None:
+        blocks.append(_unavailable(f"Chain figures: {content.analysis_why or NOT_IN_BUILD}."))
+        return blocks
+    blocks.append(Table([Column("figure"), Column("whole chain", "right")], _metrics_rows([chain])))
+    blocks.extend(_noise(chain, project))
+    blocks.extend(_converter(chain, project))
+    blocks.extend(_headroom(chain))
+    blocks.extend(_spread(chain))
+    return blocks
+
+
+def _noise(chain: dict[str, Any], project: Project) -> list[Block]:
+    blocks: list[Block] = [Heading("Noise budget", 2)]
+    noise = chain.get("noise")
+    if not isinstance(noise, dict):
+        blocks.append(_unavailable(f"Noise: {_why(chain, 'noise') or NOT_IN_BUILD}."))
+        return blocks
+    band = noise.get("band_hz") or [None, None]
+    in_unit = "A" if project.input.drive == "current" else "V"
+    rows = [
+        ("Noise band", f"{_text(band[0], 'Hz')} to {_text(band[1], 'Hz')}"),
+        ("Output noise (RMS)", _value_or_why(noise, "out_rms_v", "V")),
+        ("Output density at the reference frequency", _value_or_why(noise, "out_density_v_rthz_at_ref", "V/√Hz")),
+        ("Input-referred noise (RMS)", _value_or_why(noise, "in_rms", in_unit)),
+    ]
+    blocks.append(_key_values(rows))
+    sources = noise.get("top_sources") or []
+    if sources:
+        table_rows = []
+        names = []
+        values = []
+        for source in sources:
+            name = str(source.get("name") or source.get("ref") or "?")
+            table_rows.append([name, str(source.get("kind", "")),
+                               _text(source.get("out_rms_v"), "V"),
+                               _text(source.get("share_pct"), "%")])
+            names.append(name)
+            values.append(float(source.get("out_rms_v") or 0.0) * 1e6)
+        blocks.append(Heading("Top contributors", 3))
+        blocks.append(Table([Column("source"), Column("kind"), Column("output RMS", "right", wrap=False),
+                             Column("share of power", "right", wrap=False)], table_rows))
+        blocks.append(_plot_figure(lambda: bars_plot(names, values, "output noise RMS (µV)"),
+                                   max(120.0, 26.0 * len(names) + 60.0),
+                                   "Largest contributors to the output noise over the noise band."))
+    return blocks
+
+
+def _converter(chain: dict[str, Any], project: Project) -> list[Block]:
+    converter = project.converter
+    blocks: list[Block] = [Heading("Converter", 2)]
+    rows = [
+        ("Sampling rate", _text(converter.fs_hz.si if converter.fs_hz else None, "Hz")),
+        ("Resolution", f"{converter.bits} bit" if converter.bits else DASH),
+        ("Full scale", _text(converter.full_scale_vpp.si if converter.full_scale_vpp else None, "V") + " p-p"
+         if converter.full_scale_vpp else DASH),
+        ("Ideal converter SNR (6.02 N + 1.76 dB)", f"{6.02 * converter.bits + 1.76:.2f} dB" if converter.bits else DASH),
+        ("SNR of the chain with the converter", _value_or_why(chain, "snr_db", "dB")),
+        ("Attenuation at fs − pass-band edge", _value_or_why(chain, "alias_attenuation_db", "dB")),
+    ]
+    blocks.append(_key_values(rows))
+    return blocks
+
+
+def _headroom(chain: dict[str, Any]) -> list[Block]:
+    blocks: list[Block] = [Heading("Headroom and slew", 2)]
+    headroom = chain.get("headroom")
+    if isinstance(headroom, dict) and isinstance(headroom.get("outputs"), list):
+        rows = []
+        for item in headroom["outputs"]:
+            rows.append([str(item.get("stage", "")), str(item.get("ref", "")), _text(item.get("peak_v"), "V"),
+                         _text(item.get("headroom_v"), "V"), _text(item.get("slew_margin"), "")])
+        blocks.append(Table([Column("stage"), Column("op-amp"), Column("peak", "right"), Column("headroom", "right"),
+                             Column("slew margin", "right")], rows))
+    elif isinstance(headroom, dict):
+        blocks.append(_key_values([(str(key), _text(value) if not isinstance(value, dict | list) else
+                                    json.dumps(value, ensure_ascii=False)) for key, value in headroom.items()]))
+    else:
+        blocks.append(_unavailable(f"Headroom: {_why(chain, 'headroom') or NOT_IN_BUILD}."))
+    return blocks
+
+
+def _spread(chain: dict[str, Any]) -> list[Block]:
+    blocks: list[Block] = [Heading("Spread over tolerances and yield", 2)]
+    spread = chain.get("spread")
+    if not isinstance(spread, dict):
+        blocks.append(_unavailable(f"Spread: {_why(chain, 'spread') or NOT_IN_BUILD}."))
+        return blocks
+    blocks.append(_key_values([
+        ("Seed", _text(spread.get("seed"))),
+        ("Samples", _text(spread.get("samples"))),
+        ("Yield against the checks", _value_or_why(spread, "yield_pct", "%")),
+    ]))
+    percentiles = spread.get("percentiles")
+    if isinstance(percentiles, dict) and percentiles:
+        rows = []
+        for key, values in percentiles.items():
+            unit = METRICS[key].unit if key in METRICS else ""
+            label = METRICS[key].label if key in METRICS else key
+            if isinstance(values, dict):
+                rows.append([label] + [_text(values.get(name), unit) for name in ("p1", "p50", "p99", "min", "max")])
+        if rows:
+            blocks.append(Table([Column("metric"), Column("1 %", "right"), Column("median", "right"),
+                                 Column("99 %", "right"), Column("min", "right"), Column("max", "right")], rows))
+    return blocks
+
+
+# --- one section per stage ---------------------------------------------------------------------
+
+
+def _part_value(part: Any, project: Project) -> tuple[str, str]:
+    if part.type == "opamp":
+        model = part.model or "ideal"
+        if model != "ideal" and model in project.opamp_models:
+            found = project.opamp_models[model]
+            return model, f"A0 {found.a0_db.si:g} dB, GBW {format_value(found.gbw_hz.si, 'Hz', 3)}"
+        return model, "ideal (nullor)" if model == "ideal" else "model missing"
+    unit = PART_TYPES[part.type][2]
+    if part.value is None:
+        return DASH, ""
+    shown = format_value(part.value.si, unit)
+    written = str(part.value.raw)
+    return shown, f"written {written}" if written.replace(" ", "") != shown.replace(" ", "") else ""
+
+
+def _parts(stage: Stage, project: Project) -> list[Block]:
+    blocks: list[Block] = [Heading("Parts", 3)]
+    if stage.is_block:
+        gain = _text(stage.gain.si if stage.gain else None)
+        roots = []
+        for label, items in (("zeros", stage.zeros_hz), ("poles", stage.poles_hz)):
+            texts = []
+            for root in items:
+                if isinstance(root, tuple):
+                    texts.append(f"pair f0 {format_value(root[0].si, 'Hz', 3)}, Q {root[1].si:.4g}")
+                else:
+                    texts.append(format_value(root.si, "Hz", 3))
+            roots.append((label, ", ".join(texts) or "none"))
+        zin = " ∥ ".join(text for text in (
+            format_value(stage.zin_r_ohm.si, "Ω") if stage.zin_r_ohm else "",
+            format_value(stage.zin_c_f.si, "F") if stage.zin_c_f else "") if text) or "open"
+        blocks.append(_key_values([("Kind", "behavioural block"), ("Gain", gain), *roots, ("Input impedance", zin),
+                                   ("Output resistance", _text(stage.zout_ohm.si if stage.zout_ohm else 0.0, "Ω"))]))
+        return blocks
+    rows = []
+    for part in stage.parts:
+        value, note = _part_value(part, project)
+        tolerance = f"±{part.tol.si * 100:.3g} %" if part.tol is not None else DASH
+        rows.append([part.ref, part.type, " ".join(part.nodes), value, tolerance,
+                     note + (f"; controlled by {part.control}" if part.control else "")])
+    blocks.append(Table([Column("ref", wrap=False), Column("type", wrap=False), Column("nodes"),
+                         Column("value / model"), Column("tolerance", "right", wrap=False), Column("notes")], rows))
+    ports = f"input port node {stage.ports.get('in')}, output port node {stage.ports.get('out')}, reference node 0"
+    blocks.append(Paragraph(f"Ports: {ports}. Drive when isolated: ideal {stage.drive} source.", 10.5,
+                            color=QColor(MUTED)))
+    return blocks
+
+
+def _symbolic_blocks(stage: Stage, content: PacketContent) -> list[Block]:
+    blocks: list[Block] = [Heading("Transfer function", 3)]
+    found = content.symbolic.get(stage.id, {})
+    if stage.is_block:
+        blocks.append(Paragraph("A behavioural block: its transfer function is its gain, zeros and poles above.",
+                                11.5))
+        return blocks
+    result = found.get("result")
+    if result is None:
+        blocks.append(_unavailable(f"Symbolic form: {found.get('why', NOT_IN_BUILD)}."))
+        return blocks
+    text = getattr(result, "text", None) or str(result)
+    blocks.append(Paragraph(str(text), 11.5, mono=True))
+    sections = getattr(result, "sections", None) or []
+    rows = []
+    for section in sections:
+        rows.append([str(getattr(section, "name", "")), str(getattr(section, "expression", ""))])
+    if rows:
+        blocks.append(Table([Column("parameter"), Column("expression", mono=True)], rows))
+    return blocks
+
+
+def _roots_rows(roots: Sequence[dict[str, Any]]) -> list[list[str]]:
+    rows = []
+    for root in roots:
+        q = root.get("q")
+        rows.append([f"{root.get('re', 0.0):.5g}", f"{root.get('im', 0.0):.5g}", _text(root.get("f_hz"), "Hz"),
+                     DASH if q is None else f"{q:.4g}"])
+    return rows
+
+
+def _poles_zeros(entry: dict[str, Any] | None, content: PacketContent) -> list[Block]:
+    blocks: list[Block] = [Heading("Poles and zeros (isolated)", 3)]
+    isolated = entry.get("isolated") if entry else None
+    if not isinstance(isolated, dict) or not isinstance(isolated.get("poles"), list):
+        why = _why(isolated, "poles") if isinstance(isolated, dict) else None
+        blocks.append(_unavailable(f"Poles and zeros: {why or content.analysis_why or NOT_IN_BUILD}."))
+        return blocks
+    poles = isolated.get("poles") or []
+    zeros = isolated.get("zeros") or []
+    columns = [Column("re (rad/s)", "right"), Column("im (rad/s)", "right"), Column("f", "right"), Column("Q", "right")]
+    blocks.append(Paragraph(f"Poles ({len(poles)})", 11.5, bold=True, space_after=2.0))
+    blocks.append(Table(columns, _roots_rows(poles)) if poles else Paragraph("none", 11.5))
+    blocks.append(Paragraph(f"Zeros ({len(zeros)})", 11.5, bold=True, space_after=2.0))
+    blocks.append(Table(columns, _roots_rows(zeros)) if zeros else Paragraph("none (no finite zeros)", 11.5))
+    if poles or zeros:
+        pole_values = [complex(p.get("re", 0.0), p.get("im", 0.0)) for p in poles]
+        zero_values = [complex(z.get("re", 0.0), z.get("im", 0.0)) for z in zeros]
+        blocks.append(_plot_figure(lambda: pole_zero_plot(pole_values, zero_values), 250.0,
+                                   "s-plane: poles ×, zeros ○."))
+    return blocks
+
+
+def _response_blocks(stage: Stage, content: PacketContent) -> list[Block]:
+    blocks: list[Block] = [Heading("Response: isolated and in chain", 3)]
+    curves = content.stages[stage.id]
+    available = [(label, curve) for label, curve in (("isolated", curves.isolated), ("in chain", curves.in_chain))
+                 if curve.response is not None]
+    missing = [f"{label}: {curve.why}" for label, curve in (("isolated", curves.isolated),
+                                                            ("in chain", curves.in_chain)) if curve.response is None]
+    if available:
+        traces = _traces(available)
+        blocks.append(_plot_figure(lambda: response_plot(traces), 300.0,
+                                   "Isolated: ideal drive, unloaded. In chain: V_out/V_in where the stage sits."))
+    for line in missing:
+        blocks.append(_unavailable(line[0].upper() + line[1:] + "."))
+    return blocks
+
+
+def _stage_metrics(entry: dict[str, Any] | None, content: PacketContent) -> list[Block]:
+    blocks: list[Block] = [Heading("Figures", 3)]
+    if entry is None:
+        blocks.append(_unavailable(f"Figures: {content.analysis_why or NOT_IN_BUILD}."))
+        return blocks
+    isolated = entry.get("isolated") if isinstance(entry.get("isolated"), dict) else None
+    in_chain = entry.get("in_chain") if isinstance(entry.get("in_chain"), dict) else None
+    rows = _metrics_rows([isolated, in_chain])
+    rows.append(["Largest loading error", DASH, _value_or_why(entry, "loading_error_db_max", "dB")])
+    rows.append(["Input impedance at the reference frequency", DASH, _value_or_why(entry, "zin_ohm_at_ref", "Ω")])
+    rows.append(["Output impedance at the reference frequency", DASH, _value_or_why(entry, "zout_ohm_at_ref", "Ω")])
+    blocks.append(Table([Column("figure"), Column("isolated", "right"), Column("in chain", "right")], rows))
+    loops = (isolated or {}).get("loops")
+    if isinstance(loops, list) and loops:
+        loop_rows = [[str(loop.get("ref", "")), _text(loop.get("crossover_hz"), "Hz"),
+                      _text(loop.get("phase_margin_deg"), "°"), _text(loop.get("gain_margin_db"), "dB")]
+                     for loop in loops]
+        blocks.append(Table([Column("op-amp loop"), Column("crossover", "right"), Column("phase margin", "right"),
+                             Column("gain margin", "right")], loop_rows))
+    return blocks
+
+
+def _checks(stage: Stage, results: list[CheckResult]) -> list[Block]:
+    blocks: list[Block] = [Heading("Checks", 3)]
+    mine = [result for result in results if result.stage_id == stage.id]
+    if not mine:
+        blocks.append(Paragraph("No checks on this stage.", 11.5))
+        return blocks
+    rows = []
+    marks = []
+    for result in mine:
+        check = next(item for item in stage.checks if item.id == result.check_id)
+        where = WHERE_WORDS.get(result.where or "", "") if result.metric else "manual"
+        if result.metric:
+            what = METRICS[result.metric].label if result.metric in METRICS else result.metric
+            if result.at_hz is not None:
+                what += f" at {format_value(result.at_hz, 'Hz', 3)}"
+            what += f", {where}"
+        else:
+            what = "manual question"
+        reason = result.why or ""
+        if check.waiver is not None:
+            reason = (f"waived by {check.waiver.by} ({check.waiver.time[:10]}): {check.waiver.justification}"
+                      + (f"; {reason}" if reason else ""))
+        rows.append([f"{result.check_id}\n{result.text}" if result.text else result.check_id, what,
+                     result.limits or DASH, result.value_text(), str(result.state), reason])
+        marks.append("bad" if result.state in (CheckState.NOT_MET, CheckState.NO_VALUE, CheckState.OPEN)
+                     else "muted" if result.state == CheckState.WAIVED else "")
+    blocks.append(Table([Column("check"), Column("metric"), Column("limits", wrap=False),
+                         Column("value", "right", wrap=False), Column("status", wrap=False), Column("reason")],
+                        rows, size_px=10.5, row_marks=marks))
+    return blocks
+
+
+def _signoffs(stage: Stage, state: StageSignoffs) -> list[Block]:
+    blocks: list[Block] = [Heading("Sign-offs", 3)]
+    blocks.append(Paragraph(f"Stage state: {str(state.state).upper() if state.state == 'stale' else state.state}. "
+                            f"Current fingerprint {state.fingerprint[:16]}…", 11.5))
+    if not state.signoffs:
+        blocks.append(Paragraph("Nobody has signed this stage.", 11.5))
+        return blocks
+    rows = []
+    marks = []
+    for view in state.signoffs:
+        signoff = view.signoff
+        status = VERDICT_WORDS.get(signoff.verdict, signoff.verdict)
+        if view.stale:
+            status = f"STALE ({status} an earlier version)"
+        if view.superseded:
+            status += "; superseded"
+        rows.append([signoff.name, signoff.role, signoff.time, status, signoff.fingerprint[:12] + "…", signoff.note])
+        marks.append("bad" if view.stale and not view.superseded else "muted" if view.superseded else "")
+    blocks.append(Table([Column("reviewer"), Column("role"), Column("time (UTC)", wrap=False), Column("verdict"),
+                         Column("fingerprint", wrap=False, mono=True), Column("note")], rows, size_px=10.5,
+                        row_marks=marks))
+    return blocks
+
+
+def _comments(stage: Stage) -> list[Block]:
+    blocks: list[Block] = [Heading("Comments", 3)]
+    if not stage.comments:
+        blocks.append(Paragraph("No comments.", 11.5))
+        return blocks
+    rows = [[comment.author, comment.time, comment.check or DASH, "resolved" if comment.resolved else "open",
+             comment.text] for comment in stage.comments]
+    blocks.append(Table([Column("author"), Column("time (UTC)", wrap=False), Column("on check", wrap=False),
+                         Column("state", wrap=False), Column("comment")], rows, size_px=10.5))
+    return blocks
+
+
+def _stage(stage: Stage, number: int, content: PacketContent, results: list[CheckResult],
+           state: StageSignoffs) -> list[Block]:
+    entry = content.stage_analysis(stage.id)
+    title = f"Stage {number}: {stage.name}"
+    blocks: list[Block] = [PageBreak(), Heading(title, 1)]
+    facts = f"id {stage.id} · {'behavioural block' if stage.is_block else 'circuit'}"
+    if stage.bypass:
+        facts += " · BYPASSED: left out of the chain; its checks still stand"
+    blocks.append(Paragraph(facts, 11.0, color=QColor(MUTED)))
+    if stage.notes:
+        blocks.append(Paragraph(stage.notes, 11.5))
+    blocks.extend(_parts(stage, content.project))
+    blocks.extend(_symbolic_blocks(stage, content))
+    blocks.extend(_stage_metrics(entry, content))
+    blocks.extend(_response_blocks(stage, content))
+    blocks.extend(_poles_zeros(entry, content))
+    blocks.extend(_checks(stage, results))
+    blocks.extend(_signoffs(stage, state))
+    blocks.extend(_comments(stage))
+    return blocks
+
+
+# --- audit trail -------------------------------------------------------------------------------
+
+
+def _detail_text(detail: dict[str, Any]) -> str:
+    parts = []
+    for key, value in detail.items():
+        if isinstance(value, str) and len(value) == 64 and all(c in "0123456789abcdef" for c in value):
+            value = value[:16] + "…"
+        elif not isinstance(value, str):
+            value = json.dumps(value, ensure_ascii=False, separators=(", ", ": "))
+            if len(value) > 160:
+                value = value[:157] + "…"
+        parts.append(f"{key}: {value}")
+    return "; ".join(parts)
+
+
+def _audit(content: PacketContent) -> list[Block]:
+    events = content.project.audit
+    blocks: list[Block] = [PageBreak(), Heading("Audit trail", 1)]
+    verdict = verify_trail(events)
+    blocks.append(Paragraph(verdict.sentence()[0].upper() + verdict.sentence()[1:] + ".", 12.0, bold=True))
+    blocks.append(Paragraph(AUDIT_MEANING, 10.5, italic=True, color=QColor(MUTED)))
+    if not events:
+        blocks.append(Paragraph("No events recorded yet.", 11.5))
+        return blocks
+    rows = [[str(event.seq), event.time, event.who, EVENT_LABELS.get(event.what, event.what),
+             _detail_text(event.detail), event.hash[:12] + "…"] for event in events]
+    blocks.append(Table([Column("seq", "right", wrap=False), Column("time (UTC)", wrap=False), Column("who"),
+                         Column("event"), Column("detail"), Column("hash", wrap=False, mono=True)], rows,
+                        size_px=10.0))
+    blocks.append(Paragraph("Printing this packet is recorded as the next event when the project is saved.", 10.5,
+                            italic=True, color=QColor(MUTED)))
+    return blocks
+
+
+def build_blocks(content: PacketContent, results: list[CheckResult], states: dict[str, StageSignoffs],
+                 printed_utc: str | None = None) -> list[Block]:
+    """Every block of the packet, in order."""
+    printed = printed_utc or datetime.now(UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    blocks = _cover(content, results, states, printed)
+    blocks += _cautions(content)
+    blocks += _chain(content)
+    for number, stage in enumerate(content.project.stages, start=1):
+        blocks += _stage(stage, number, content, results, states[stage.id])
+    blocks += _audit(content)
+    blocks.append(Spacer(1.0))
+    return blocks
