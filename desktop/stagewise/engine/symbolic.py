@@ -1,0 +1,596 @@
+"""The stage's transfer function in its part symbols, as an engineer writes it by hand.
+
+The stage is stamped again with symbols instead of numbers (``R1``, ``C2``, ``L1``, ``E1``…;
+op-amps are nullors when ideal and numeric when they use a model), and the response is taken by
+Cramer's rule, H = det(A with the output column replaced by b) / det(A), with fraction-free
+Gaussian elimination (Bareiss) in the polynomial ring QQ[s, parts]. Resistors enter as
+conductances during elimination and are turned back into resistances exactly at the end (each
+monomial g^k becomes R^(d−k)). The result is a ratio of polynomials in s whose denominator is
+made monic, and its first- and second-order sections in standard form:
+
+    first order:   K·ω0/(s + ω0)          (low-pass)      K·s/(s + ω0)          (high-pass)
+    second order:  K·ω0²/(s² + (ω0/Q)·s + ω0²)   K·s²/(…)   K·(ω0/Q)·s/(…)  (band-pass)
+
+with ω0 = 2π·f0, ζ = 1/(2Q). sympy is imported inside the functions (it is slow to import), and
+only ever sees symbols and numbers built here: ``sympy.Symbol(ref)`` and exact rationals from the
+SI floats, never text from a file.
+
+Time limit: the elimination checks the clock between steps; past ``time_limit_s`` (5 s by
+default) the form falls back to numeric coefficients from the pole/zero model and says so.
+
+Public API
+----------
+``symbolic_form(stage, project, time_limit_s=5.0) -> SymbolicForm``
+``evaluate_symbolic(form, f_hz) -> ndarray``   (numeric check of the formula)
+``SymbolicForm.as_dict() -> dict``             (strings and values, JSON-ready)
+
+References
+----------
+E. H. Bareiss, "Sylvester's identity and multistep integer-preserving Gaussian elimination",
+Mathematics of Computation, vol. 22, pp. 565-578, 1968.
+R. P. Sallen and E. L. Key, "A practical method of designing RC active filters", IRE Trans.
+Circuit Theory, vol. 2, pp. 74-85, 1955 (standard-form parameters of second-order sections).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+from decimal import Decimal
+from fractions import Fraction
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.engine.mna import CircuitError, assemble, opamp_open_loop_gain
+from stagewise.engine.poles import PoleZeroModel, SingularPencilError, pole_zero_model
+from stagewise.engine.sweep import drive
+from stagewise.model.project import GROUND, IDEAL_OPAMP, Project, Stage
+
+__all__ = ["Section", "SymbolicForm", "evaluate_symbolic", "symbolic_form"]
+
+DEFAULT_TIME_LIMIT_S = 5.0
+TWO_PI = 2.0 * math.pi
+
+
+class _Timeout(Exception):
+    """The time limit passed."""
+
+
+@dataclass(frozen=True, slots=True)
+class Section:
+    """One first- or second-order section in standard form (sympy expressions of the parts).
+
+    ``kind`` is ``low-pass``, ``high-pass``, ``band-pass``, ``notch`` or ``general``; ``gain``
+    is K (DC gain for low-pass and general, high-frequency gain for high-pass, centre gain for
+    band-pass and notch's far gain), or ``None`` when the section comes from a factor of the
+    denominator alone.
+    """
+
+    order: int
+    kind: str
+    gain: Any
+    omega0_rad_s: Any
+    f0_hz: Any
+    q: Any = None
+    zeta: Any = None
+
+
+@dataclass(frozen=True, slots=True)
+class SymbolicForm:
+    """H(s) = Σ numerator[i]·s^(m−i) / Σ denominator[i]·s^(n−i), denominator[0] = 1.
+
+    Attributes
+    ----------
+    numerator, denominator : tuple of sympy expressions
+        Coefficients, highest power of s first; the denominator is monic.
+    transfer : sympy expression
+        The whole H(s).
+    sections : tuple of Section
+    values : dict
+        Symbol name -> SI value, to evaluate the expressions.
+    numeric : bool
+        True when the coefficients are numbers (fallback, or a behavioural block).
+    why : str or None
+        Why the form is numeric, or why there is no form at all (then the tuples are empty).
+    unit : str
+        ``"V/V"`` or ``"Ω"``.
+    """
+
+    numerator: tuple[Any, ...]
+    denominator: tuple[Any, ...]
+    transfer: Any
+    sections: tuple[Section, ...]
+    values: dict[str, float] = field(default_factory=dict)
+    numeric: bool = False
+    why: str | None = None
+    unit: str = "V/V"
+
+    @property
+    def ok(self) -> bool:
+        """True when there is a formula (symbolic or numeric)."""
+        return bool(self.denominator)
+
+    def as_dict(self) -> dict[str, Any]:
+        """Strings for display (plain and LaTeX) and the numeric value of every parameter."""
+        import sympy
+
+        def text(expression: Any) -> str | None:
+            return None if expression is None else sympy.sstr(_display(expression))
+
+        def value(expression: Any) -> float | None:
+            if expression is None:
+                return None
+            number = complex(_numeric(expression, self.values))
+            return float(number.real)
+
+        return {
+            "transfer": text(self.transfer),
+            "latex": None if self.transfer is None else sympy.latex(_display(self.transfer)),
+            "numerator": [text(c) for c in self.numerator],
+            "denominator": [text(c) for c in self.denominator],
+            "numeric": self.numeric,
+            "why": self.why,
+            "unit": self.unit,
+            "sections": [
+                {"order": section.order, "kind": section.kind,
+                 "gain": text(section.gain), "gain_value": value(section.gain),
+                 "omega0_rad_s": text(section.omega0_rad_s), "omega0_rad_s_value": value(section.omega0_rad_s),
+                 "f0_hz": text(section.f0_hz), "f0_hz_value": value(section.f0_hz),
+                 "q": text(section.q), "q_value": value(section.q),
+                 "zeta": text(section.zeta), "zeta_value": value(section.zeta)}
+                for section in self.sections
+            ],
+        }
+
+
+def _display(expression: Any) -> Any:
+    """Long exact rationals (from op-amp model numbers) shown with 6 significant digits."""
+    import sympy
+
+    if isinstance(expression, sympy.Basic) and expression.atoms(sympy.Rational):
+        large = [r for r in expression.atoms(sympy.Rational) if abs(r.q) > 10**6 or abs(r.p) > 10**9]
+        if large:
+            return expression.xreplace({r: sympy.Float(r, 6) for r in large})
+    return expression
+
+
+def _numeric(expression: Any, values: dict[str, float]) -> complex:
+    import sympy
+
+    substitutions = {symbol: sympy.Float(values[symbol.name]) for symbol in expression.free_symbols
+                     if symbol.name in values}
+    return complex(sympy.N(expression.xreplace(substitutions)))
+
+
+def _rational(value: float) -> Fraction:
+    """The float's shortest decimal form as an exact fraction (1e-9 -> 1/1000000000)."""
+    return Fraction(Decimal(repr(float(value))))
+
+
+def _check(deadline: float) -> None:
+    if time.monotonic() > deadline:
+        raise _Timeout
+
+
+# -- symbolic stamping -----------------------------------------------------------------------
+
+
+@dataclass
+class _Stamps:
+    size: int = 0
+    index: dict[str, int] = field(default_factory=dict)
+    entries: list[tuple[int, int, Any]] = field(default_factory=list)
+
+    def node(self, name: str) -> int:
+        if name == GROUND:
+            return -1
+        if name not in self.index:
+            self.index[name] = self.size
+            self.size += 1
+        return self.index[name]
+
+    def unknown(self) -> int:
+        self.size += 1
+        return self.size - 1
+
+    def add(self, row: int, column: int, value: Any) -> None:
+        if row >= 0 and column >= 0:
+            self.entries.append((row, column, value))
+
+    def admittance(self, a: int, b: int, value: Any) -> None:
+        self.add(a, a, value)
+        self.add(b, b, value)
+        self.add(a, b, -value)
+        self.add(b, a, -value)
+
+
+def _build(stage: Stage, project: Project) -> tuple[Any, list[list[Any]], list[Any], int, dict[str, Any], dict[str, Any],
+                                                      dict[str, float], Any]:
+    """The symbolic driven matrix over QQ[s, parts]; returns (ring, A, b, output, ...)."""
+    import sympy
+    from sympy import QQ
+    from sympy.polys.rings import ring
+
+    s_symbol = sympy.Symbol("s")
+    part_symbols: dict[str, Any] = {}
+    conductance_of: dict[str, Any] = {}  # resistor ref -> dummy conductance symbol
+    values: dict[str, float] = {}
+    generators: list[Any] = [s_symbol]
+    for part in stage.parts:
+        if part.type == "opamp" or part.value is None:
+            continue
+        name = part.ref if part.ref != "s" else "s_part"
+        positive = part.type in ("R", "C", "L")
+        symbol = sympy.Symbol(name, positive=True) if positive else sympy.Symbol(name, real=True)
+        part_symbols[part.ref] = symbol
+        values[name] = part.value.si
+        if part.type == "R":
+            dummy = sympy.Dummy(f"g_{name}")
+            conductance_of[part.ref] = dummy
+            generators.append(dummy)
+        else:
+            generators.append(symbol)
+    poly_ring, *gens = ring(generators, QQ)
+    s = gens[0]
+    element: dict[str, Any] = {}
+    for symbol, generator in zip(generators[1:], gens[1:], strict=True):
+        element[str(symbol)] = generator
+
+    def number(value: float) -> Any:
+        fraction = _rational(value)
+        return poly_ring(QQ(fraction.numerator, fraction.denominator))
+
+    def part_value(ref: str) -> Any:
+        if ref in conductance_of:
+            return element[str(conductance_of[ref])]
+        return element[str(part_symbols[ref])]
+
+    stamps = _Stamps()
+    input_index = stamps.node(stage.ports["in"])
+    output_index = stamps.node(stage.ports["out"])
+    for part in stage.parts:
+        for node in part.nodes:
+            stamps.node(node)
+    branch: dict[str, int] = {}
+    for part in stage.parts:
+        if part.type in ("L", "vcvs", "ccvs"):
+            branch[part.ref] = stamps.unknown()
+    one = poly_ring.one
+    for part in stage.parts:
+        nodes = [stamps.node(name) for name in part.nodes]
+        kind = part.type
+        if kind == "R":
+            stamps.admittance(nodes[0], nodes[1], part_value(part.ref))
+        elif kind == "C":
+            stamps.admittance(nodes[0], nodes[1], s * part_value(part.ref))
+        elif kind in ("L", "vcvs", "ccvs"):
+            row = branch[part.ref]
+            stamps.add(nodes[0], row, one)
+            stamps.add(nodes[1], row, -one)
+            stamps.add(row, nodes[0], one)
+            stamps.add(row, nodes[1], -one)
+            if kind == "L":
+                stamps.add(row, row, -s * part_value(part.ref))
+            elif kind == "vcvs":
+                stamps.add(row, nodes[2], -part_value(part.ref))
+                stamps.add(row, nodes[3], part_value(part.ref))
+            else:
+                for column, coefficient in _control_current(stage, part.control or "", stamps, branch, part_value, s, one):
+                    stamps.add(row, column, -part_value(part.ref) * coefficient)
+        elif kind == "vccs":
+            gm = part_value(part.ref)
+            for out_node, sign in ((nodes[0], 1), (nodes[1], -1)):
+                stamps.add(out_node, nodes[2], sign * gm)
+                stamps.add(out_node, nodes[3], -sign * gm)
+        elif kind == "cccs":
+            gain = part_value(part.ref)
+            for column, coefficient in _control_current(stage, part.control or "", stamps, branch, part_value, s, one):
+                stamps.add(nodes[0], column, gain * coefficient)
+                stamps.add(nodes[1], column, -gain * coefficient)
+        elif kind == "opamp":
+            in_plus, in_minus, out = nodes
+            if part.model in (None, IDEAL_OPAMP):
+                current = stamps.unknown()
+                stamps.add(out, current, -one)
+                stamps.add(current, in_plus, one)
+                stamps.add(current, in_minus, -one)
+                continue
+            model = project.opamp_models.get(part.model)
+            if model is None:
+                raise CircuitError(f'{part.ref}: op-amp model "{part.model}" is not in the project')
+            state = stamps.unknown()
+            stamps.add(state, state, number(1.0 / opamp_open_loop_gain(model)) + s * number(1.0 / (TWO_PI * model.gbw_hz.si)))
+            stamps.add(state, in_plus, -one)
+            stamps.add(state, in_minus, one)
+            drive_index = state
+            if model.p2_hz is not None:
+                second = stamps.unknown()
+                stamps.add(second, second, one + s * number(1.0 / (TWO_PI * model.p2_hz.si)))
+                stamps.add(second, state, -one)
+                drive_index = second
+            rout = 0.0 if model.rout_ohm is None else model.rout_ohm.si
+            if rout > 0:
+                stamps.add(out, out, number(1.0 / rout))
+                stamps.add(out, drive_index, -number(1.0 / rout))
+            else:
+                current = stamps.unknown()
+                stamps.add(out, current, -one)
+                stamps.add(current, out, one)
+                stamps.add(current, drive_index, -one)
+            if model.rin_ohm is not None:
+                stamps.admittance(in_plus, in_minus, number(1.0 / model.rin_ohm.si))
+            if model.cin_diff_f is not None:
+                stamps.admittance(in_plus, in_minus, s * number(model.cin_diff_f.si))
+            if model.cin_cm_f is not None:
+                stamps.admittance(in_plus, -1, s * number(model.cin_cm_f.si))
+                stamps.admittance(in_minus, -1, s * number(model.cin_cm_f.si))
+        else:
+            raise CircuitError(f'{part.ref}: "{kind}" is not a part type the engine can stamp')
+    current_drive = stage.drive == "current"
+    n = stamps.size + (0 if current_drive else 1)
+    matrix = [[poly_ring.zero for _ in range(n)] for _ in range(n)]
+    for row, column, value in stamps.entries:
+        matrix[row][column] += value
+    rhs = [poly_ring.zero for _ in range(n)]
+    if current_drive:
+        rhs[input_index] = one
+    else:
+        matrix[input_index][n - 1] += one
+        matrix[n - 1][input_index] += one
+        rhs[n - 1] = one
+    return poly_ring, matrix, rhs, output_index, conductance_of, part_symbols, values, s_symbol
+
+
+def _control_current(stage: Stage, ref: str, stamps: _Stamps, branch: dict[str, int], part_value: Any, s: Any,
+                     one: Any) -> list[tuple[int, Any]]:
+    """The controlling part's current (nodes[0] -> nodes[1]) as (column, coefficient) pairs."""
+    control = stage.part(ref)
+    if control is None:
+        raise CircuitError(f'the control "{ref}" is not a part of stage "{stage.id}"')
+    if control.type in ("L", "vcvs", "ccvs"):
+        return [(branch[control.ref], one)]
+    a, b = stamps.node(control.nodes[0]), stamps.node(control.nodes[1])
+    if control.type == "R":
+        value = part_value(control.ref)
+    elif control.type == "C":
+        value = s * part_value(control.ref)
+    else:
+        raise CircuitError(f"the current of {control.ref} ({control.type}) cannot control a source")
+    return [(column, coefficient) for column, coefficient in ((a, value), (b, -value)) if column >= 0]
+
+
+def _bareiss_det(matrix: list[list[Any]], zero: Any, one: Any, deadline: float) -> Any:
+    """Fraction-free determinant (Bareiss), checking the clock after every row update."""
+    m = [row[:] for row in matrix]
+    n = len(m)
+    if n == 0:
+        return one
+    sign = 1
+    previous = one
+    for k in range(n - 1):
+        candidates = [i for i in range(k, n) if m[i][k] != zero]
+        if not candidates:
+            return zero
+        pivot = min(candidates, key=lambda i: len(m[i][k]))  # the simplest pivot keeps terms few
+        if pivot != k:
+            m[k], m[pivot] = m[pivot], m[k]
+            sign = -sign
+        for i in range(k + 1, n):
+            if time.monotonic() > deadline:
+                raise _Timeout
+            for j in range(k + 1, n):
+                m[i][j] = (m[i][j] * m[k][k] - m[i][k] * m[k][j]).exquo(previous)
+            m[i][k] = zero
+        previous = m[k][k]
+    return m[n - 1][n - 1] if sign > 0 else -m[n - 1][n - 1]
+
+
+def _to_resistances(polynomials: list[Any], ring_: Any, conductance_positions: list[int]) -> list[Any]:
+    """Multiply through by R^d for each conductance g = 1/R: monomial g^k becomes R^(d−k)."""
+    degrees = {p: max((monomial[p] for poly in polynomials for monomial in poly.keys()), default=0)
+               for p in conductance_positions}
+    result = []
+    for poly in polynomials:
+        terms = {}
+        for monomial, coefficient in poly.items():
+            exponents = list(monomial)
+            for position in conductance_positions:
+                exponents[position] = degrees[position] - exponents[position]
+            terms[tuple(exponents)] = coefficient
+        result.append(ring_.from_dict(terms))
+    return result
+
+
+# -- sections --------------------------------------------------------------------------------
+
+
+def _sections_from_coefficients(numerator: list[Any], denominator: list[Any]) -> list[Section]:
+    """Standard form of a first- or second-order H (coefficients highest power first, monic den)."""
+    import sympy
+
+    order = len(denominator) - 1
+    padded = [sympy.Integer(0)] * (order + 1 - len(numerator)) + list(numerator)
+    if order == 1:
+        b1, b0 = padded
+        a0 = denominator[1]
+        omega0 = sympy.factor(a0)
+        if b1 == 0:
+            kind, gain = "low-pass", sympy.factor(b0 / a0)
+        elif b0 == 0:
+            kind, gain = "high-pass", sympy.factor(b1)
+        else:
+            kind, gain = "general", sympy.factor(b0 / a0)
+        return [Section(1, kind, gain, omega0, sympy.factor(omega0 / (2 * sympy.pi)))]
+    if order == 2:
+        b2, b1, b0 = padded
+        a1, a0 = denominator[1], denominator[2]
+        omega0 = sympy.sqrt(sympy.factor(a0))
+        if a1 == 0:
+            q = None
+            zeta = sympy.Integer(0)
+        else:
+            q = sympy.simplify(omega0 / a1)
+            zeta = sympy.simplify(a1 / (2 * omega0))
+        if b2 == 0 and b1 == 0:
+            kind, gain = "low-pass", sympy.factor(b0 / a0)
+        elif b1 == 0 and b0 == 0:
+            kind, gain = "high-pass", sympy.factor(b2)
+        elif b2 == 0 and b0 == 0 and a1 != 0:
+            kind, gain = "band-pass", sympy.factor(b1 / a1)
+        elif b1 == 0 and b2 != 0 and b0 != 0:
+            kind, gain = "notch", sympy.factor(b2)
+        else:
+            kind, gain = "general", sympy.factor(b0 / a0) if b0 != 0 else sympy.factor(b2)
+        return [Section(2, kind, gain, omega0, sympy.simplify(omega0 / (2 * sympy.pi)), q, zeta)]
+    return []
+
+
+def _sections_from_factors(denominator_poly: Any, s_symbol: Any, deadline: float) -> list[Section] | None:
+    """Sections from a factorisation of the denominator in the part symbols, or None."""
+    import sympy
+
+    if time.monotonic() > deadline:
+        raise _Timeout
+    _, factors = sympy.factor_list(denominator_poly.as_expr(), s_symbol)
+    sections: list[Section] = []
+    for factor, multiplicity in factors:
+        poly = sympy.Poly(factor, s_symbol)
+        degree = poly.degree()
+        if degree == 0:
+            continue
+        if degree > 2:
+            return None
+        coefficients = [c / poly.LC() for c in poly.all_coeffs()]
+        found = _sections_from_coefficients([sympy.Integer(1)], coefficients)
+        for section in found:
+            sections.extend([Section(section.order, "factor", None, section.omega0_rad_s, section.f0_hz,
+                                     section.q, section.zeta)] * multiplicity)
+    return sections
+
+
+def _numeric_sections(model: PoleZeroModel) -> list[Section]:
+    import sympy
+
+    sections: list[Section] = []
+    for pole in model.poles_rad_s:
+        if pole.imag < 0:
+            continue
+        omega0 = abs(pole)
+        if pole.imag == 0:
+            sections.append(Section(1, "factor", None, sympy.Float(omega0), sympy.Float(omega0 / TWO_PI)))
+        else:
+            q = omega0 / (-2.0 * pole.real) if pole.real != 0 else None
+            sections.append(Section(2, "factor", None, sympy.Float(omega0), sympy.Float(omega0 / TWO_PI),
+                                    None if q is None else sympy.Float(q),
+                                    sympy.Float(-pole.real / omega0)))
+    return sections
+
+
+def _numeric_form(model: PoleZeroModel, unit: str, why: str | None) -> SymbolicForm:
+    """Numeric coefficients from the minimal pole/zero model (monic denominator)."""
+    import sympy
+
+    s = sympy.Symbol("s")
+    numerator = [sympy.Float(float(c)) for c in model.gain * np.real(np.poly(model.zeros_rad_s))]
+    denominator = [sympy.Float(float(c)) for c in np.real(np.poly(model.poles_rad_s))]
+    transfer = sympy.Poly(numerator, s).as_expr() / sympy.Poly(denominator, s).as_expr()
+    if len(denominator) - 1 <= 2:
+        sections = _sections_from_coefficients(numerator, denominator)
+    else:
+        sections = _numeric_sections(model)
+    return SymbolicForm(tuple(numerator), tuple(denominator), transfer, tuple(sections), {}, True, why, unit)
+
+
+def _empty(why: str, unit: str) -> SymbolicForm:
+    return SymbolicForm((), (), None, (), {}, True, why, unit)
+
+
+def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_TIME_LIMIT_S) -> SymbolicForm:
+    """The stage's isolated transfer function in its part symbols (DESIGN 3.3).
+
+    Parameters
+    ----------
+    stage : Stage
+        A circuit stage (a behavioural block gets its numeric form, marked ``numeric``).
+    project : Project
+        Supplies op-amp models (their numbers enter as exact rationals).
+    time_limit_s : float
+        Past this, numeric coefficients from the pole/zero model are returned with ``why``.
+
+    Returns
+    -------
+    SymbolicForm
+        Never raises for an unsolvable stage: ``why`` says why and the tuples are empty.
+    """
+    import sympy
+
+    deadline = time.monotonic() + time_limit_s
+    unit = "Ω" if stage.drive == "current" else "V/V"
+    try:
+        system = assemble(stage, project)
+        driven = drive(system, stage.drive == "current")
+        model = pole_zero_model(driven.g, driven.c, driven.b, driven.output)
+    except (CircuitError, SingularPencilError, np.linalg.LinAlgError) as error:
+        return _empty(f'stage "{stage.id}" has no transfer function: {error}', unit)
+    if stage.is_block:
+        return _numeric_form(model, unit, "a behavioural block is given by numbers; its coefficients are numeric")
+    try:
+        poly_ring, matrix, rhs, output, conductance_of, part_symbols, values, s_symbol = _build(stage, project)
+        zero, one = poly_ring.zero, poly_ring.one
+        denominator_poly = _bareiss_det(matrix, zero, one, deadline)
+        replaced = [row[:] for row in matrix]
+        for row_index, row in enumerate(replaced):
+            row[output] = rhs[row_index]
+        numerator_poly = _bareiss_det(replaced, zero, one, deadline)
+        if denominator_poly == zero or numerator_poly == zero:
+            return _empty(f'stage "{stage.id}" has no transfer function (its symbolic determinant vanishes)', unit)
+        positions = [poly_ring.symbols.index(dummy) for dummy in conductance_of.values()]
+        numerator_poly, denominator_poly = _to_resistances([numerator_poly, denominator_poly], poly_ring, positions)
+        _check(deadline)
+        _, numerator_poly, denominator_poly = numerator_poly.cofactors(denominator_poly)
+        back = {dummy: part_symbols[ref] for ref, dummy in conductance_of.items()}
+        numerator_expr = numerator_poly.as_expr().xreplace(back)
+        denominator_expr = denominator_poly.as_expr().xreplace(back)
+        numerator_s = sympy.Poly(numerator_expr, s_symbol)
+        denominator_s = sympy.Poly(denominator_expr, s_symbol)
+        lead = denominator_s.LC()
+        numerator = [sympy.factor(c / lead) for c in numerator_s.all_coeffs()]
+        denominator = [sympy.factor(c / lead) for c in denominator_s.all_coeffs()]
+        _check(deadline)
+        transfer = (sympy.Add(*[c * s_symbol**k for k, c in enumerate(reversed(numerator))])
+                    / sympy.Add(*[c * s_symbol**k for k, c in enumerate(reversed(denominator))]))
+        order = len(denominator) - 1
+        if order <= 2:
+            sections = _sections_from_coefficients(numerator, denominator)
+            why = None
+        else:
+            factored = _sections_from_factors(denominator_s, s_symbol, deadline)
+            if factored is None:
+                sections = _numeric_sections(model)
+                why = (f"the denominator of order {order} has no factors of order 1 or 2 in the part symbols; "
+                       "its sections are given numerically")
+            else:
+                sections, why = factored, None
+        return SymbolicForm(tuple(numerator), tuple(denominator), transfer, tuple(sections), values, False, why, unit)
+    except _Timeout:
+        return _numeric_form(model, unit, f"the symbolic form took longer than {time_limit_s:g} s; "
+                                          "numeric coefficients are shown instead")
+
+
+def evaluate_symbolic(form: SymbolicForm, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+    """H(j·2πf) from the form's coefficients with the parts' values substituted.
+
+    Raises
+    ------
+    ValueError
+        When the form is empty (``form.why`` says why).
+    """
+    if not form.ok:
+        raise ValueError(form.why or "no transfer function")
+    numerator = np.array([_numeric(sympy_expr, form.values) for sympy_expr in form.numerator], dtype=complex)
+    denominator = np.array([_numeric(sympy_expr, form.values) for sympy_expr in form.denominator], dtype=complex)
+    s = 1j * TWO_PI * np.asarray(f_hz, dtype=float)
+    return np.asarray(np.polyval(numerator, s) / np.polyval(denominator, s), dtype=complex)
