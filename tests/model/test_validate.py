@@ -1,0 +1,271 @@
+"""Every validation rule, each through the loader, each naming its JSON path.
+
+The base document is the example of DESIGN section 5 (which must load as it is); each case
+breaks it in one place and expects a problem that starts with that place's JSON path.
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+from collections.abc import Callable
+from typing import Any
+
+import pytest
+
+from stagewise.files.project_file import ProjectFileError, loads_project
+from stagewise.model.project import Part, Project, Stage
+from stagewise.model.validate import validate
+from stagewise.model.values import Quantity
+
+
+def design_example() -> dict[str, Any]:
+    """The example file of DESIGN section 5, key for key."""
+    return {
+        "format": "stagewise-project",
+        "version": 1,
+        "title": "Example chain",
+        "revision": "A",
+        "settings": {"f_min_hz": 1, "f_max_hz": 1e6, "points_per_decade": 100,
+                     "temperature_c": 25, "ref_hz": 1000, "noise_band_hz": [10, 20000],
+                     "seed": 1},
+        "input": {"drive": "voltage", "amplitude": "10m"},
+        "converter": {"fs_hz": 96000, "bits": 16, "full_scale_vpp": 5},
+        "load": {"r_ohm": None, "c_f": None},
+        "opamp_models": {"generic-10M": {"a0_db": 110, "gbw_hz": "10M", "rout_ohm": 50}},
+        "stages": [
+            {"id": "buf", "name": "Input buffer", "drive": "voltage",
+             "ports": {"in": "in", "out": "out"},
+             "parts": [
+                 {"ref": "R1", "type": "R", "nodes": ["in", "0"], "value": "1M", "tol": "1%"},
+                 {"ref": "U1", "type": "opamp", "nodes": ["in", "out", "out"], "model": "generic-10M"},
+             ],
+             "checks": [
+                 {"id": "gain", "text": "Unity gain at 1 kHz", "metric": "gain_db", "where": "in_chain",
+                  "at_hz": 1000, "min": -0.1, "max": 0.1},
+             ],
+             "signoffs": [], "comments": [], "notes": ""},
+            {"id": "adc", "name": "Converter input", "kind": "block",
+             "zeros_hz": [], "poles_hz": [1.2e6], "gain": 1,
+             "zin": {"r_ohm": "1k", "c_f": "20p"}, "zout_ohm": 0},
+        ],
+        "audit": [],
+    }
+
+
+def problems_of(document: dict[str, Any]) -> list[str]:
+    try:
+        loads_project(json.dumps(document), "test.stagewise.json")
+    except ProjectFileError as error:
+        return error.problems
+    return []
+
+
+def test_design_example_loads() -> None:
+    # Source: DESIGN.md section 5: "A file with exactly the keys of this example must load".
+    project = loads_project(json.dumps(design_example()))
+    assert [stage.id for stage in project.stages] == ["buf", "adc"]
+    assert project.stages[0].parts[0].value is not None
+    assert project.stages[0].parts[0].value.si == 1e6
+    assert project.stages[1].is_block
+
+
+def _set(path: tuple[Any, ...], value: Any) -> Callable[[dict[str, Any]], None]:
+    def apply(document: dict[str, Any]) -> None:
+        node: Any = document
+        for piece in path[:-1]:
+            node = node[piece]
+        node[path[-1]] = value
+
+    return apply
+
+
+def _delete(path: tuple[Any, ...]) -> Callable[[dict[str, Any]], None]:
+    def apply(document: dict[str, Any]) -> None:
+        node: Any = document
+        for piece in path[:-1]:
+            node = node[piece]
+        del node[path[-1]]
+
+    return apply
+
+
+def _append_part(part: dict[str, Any]) -> Callable[[dict[str, Any]], None]:
+    def apply(document: dict[str, Any]) -> None:
+        document["stages"][0]["parts"].append(part)
+
+    return apply
+
+
+def _both(*steps: Callable[[dict[str, Any]], None]) -> Callable[[dict[str, Any]], None]:
+    def apply(document: dict[str, Any]) -> None:
+        for step in steps:
+            step(document)
+
+    return apply
+
+
+S0 = ("stages", 0)
+P0 = (*S0, "parts", 0)
+P1 = (*S0, "parts", 1)
+ADC = ("stages", 1)
+
+# (case id, how to break the example, the JSON path the problem must name, a word it must say)
+# Common practice, no source: each is a rule of DESIGN section 3.2, 5 or the issue's list.
+CASES: list[tuple[str, Callable[[dict[str, Any]], None], str, str]] = [
+    ("unknown part type", _set((*P0, "type"), "resistor"), "stages[0].parts[0].type", "not a part type"),
+    ("bad value", _set((*P0, "value"), "4k7x"), "stages[0].parts[0].value", '"4k7x" is not a value'),
+    ("value that holds code", _set((*P0, "value"), "__import__('os').system('x')"),
+     "stages[0].parts[0].value", "is not a value"),
+    ("zero resistance", _set((*P0, "value"), 0), "stages[0].parts[0].value", "greater than zero"),
+    ("negative capacitance", _append_part({"ref": "C1", "type": "C", "nodes": ["in", "0"], "value": "-1n"}),
+     "stages[0].parts[2].value", "greater than zero"),
+    ("missing value", _delete((*P0, "value")), "stages[0].parts[0].value", "needs a value"),
+    ("tolerance of 100 %", _set((*P0, "tol"), "100%"), "stages[0].parts[0].tol", "tolerance"),
+    ("duplicate ref", _set((*P1, "ref"), "R1"), "stages[0].parts[1].ref", "R1"),
+    ("wrong node count", _set((*P0, "nodes"), ["in"]), "stages[0].parts[0].nodes", "2 nodes"),
+    ("empty node name", _set((*P0, "nodes"), ["in", " "]), "stages[0].parts[0].nodes", "node 2"),
+    ("controlled source naming a missing part",
+     _append_part({"ref": "F1", "type": "cccs", "nodes": ["out", "0"], "value": 2, "control": "R9"}),
+     "stages[0].parts[2].control", '"R9" is not a part'),
+    ("controlled source without control",
+     _append_part({"ref": "H1", "type": "ccvs", "nodes": ["out", "0"], "value": 2}),
+     "stages[0].parts[2].control", "needs the ref"),
+    ("control by a current source",
+     _both(_append_part({"ref": "G1", "type": "vccs", "nodes": ["out", "0", "in", "0"], "value": "1m"}),
+           _append_part({"ref": "F1", "type": "cccs", "nodes": ["out", "0"], "value": 2, "control": "G1"})),
+     "stages[0].parts[3].control", "cannot control"),
+    ("control on a resistor", _set((*P0, "control"), "U1"), "stages[0].parts[0].control", "only ccvs and cccs"),
+    ("model on a resistor", _set((*P0, "model"), "generic-10M"), "stages[0].parts[0].model", "only op-amps"),
+    ("op-amp model that does not exist", _set((*P1, "model"), "super-99G"), "stages[0].parts[1].model",
+     '"super-99G" is not an op-amp model'),
+    ("op-amp without model", _delete((*P1, "model")), "stages[0].parts[1].model", "needs a model"),
+    ("op-amp with a value", _set((*P1, "value"), 5), "stages[0].parts[1].value", "model, not a value"),
+    ("port naming no node", _set((*S0, "ports", "out"), "vout"), "stages[0].ports.out", '"vout" is not a node'),
+    ("port on node 0", _set((*S0, "ports", "in"), "0"), "stages[0].ports", "node 0"),
+    ("stage with no path to node 0",
+     _append_part({"ref": "R2", "type": "R", "nodes": ["x", "y"], "value": "1k"}),
+     "stages[0].parts", "no path to node 0"),
+    ("stage with no part on node 0",
+     _set((*S0, "parts"), [{"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": "1k"}]),
+     "stages[0].parts", "node 0"),
+    ("duplicate stage id", _set((*ADC, "id"), "buf"), "stages[1].id", '"buf" is used by another stage'),
+    ("f_min >= f_max", _set(("settings", "f_min_hz"), "2M"), "settings.f_min_hz", "below f_max_hz"),
+    ("f_min = f_max", _set(("settings", "f_min_hz"), 1e6), "settings.f_min_hz", "below f_max_hz"),
+    ("negative frequency", _set(("settings", "f_max_hz"), -5), "settings.f_max_hz", "greater than zero"),
+    ("negative temperature in kelvin", _set(("settings", "temperature_c"), -300), "settings.temperature_c",
+     "absolute zero"),
+    ("zero kelvin", _set(("settings", "temperature_c"), -273.15), "settings.temperature_c", "absolute zero"),
+    ("reversed noise band", _set(("settings", "noise_band_hz"), [20000, 10]), "settings.noise_band_hz",
+     "lower edge"),
+    ("noise band of one value", _set(("settings", "noise_band_hz"), [10]), "settings.noise_band_hz",
+     "two values"),
+    ("no points", _set(("settings", "points_per_decade"), 0), "settings.points_per_decade", "between 1"),
+    ("points not whole", _set(("settings", "points_per_decade"), 10.5), "settings.points_per_decade",
+     "whole number"),
+    ("too many points", _both(_set(("settings", "f_min_hz"), "1f"), _set(("settings", "points_per_decade"), 10000)),
+     "settings.points_per_decade", "frequency points"),
+    ("ref_hz outside the sweep", _set(("settings", "ref_hz"), "2M"), "settings.ref_hz", "outside"),
+    ("negative seed", _set(("settings", "seed"), -1), "settings.seed", "negative"),
+    ("no Monte Carlo samples", _set(("settings", "mc_samples"), 0), "settings.mc_samples", "between 1"),
+    ("unknown distribution", _set(("settings", "mc_distribution"), "cauchy"), "settings.mc_distribution",
+     "uniform"),
+    ("converter bits", _set(("converter", "bits"), 0), "converter.bits", "between 1 and 32"),
+    ("converter rate", _set(("converter", "fs_hz"), 0), "converter.fs_hz", "greater than zero"),
+    ("unknown drive", _set(("input", "drive"), "charge"), "input.drive", "voltage"),
+    ("negative load", _set(("load", "r_ohm"), "-1k"), "load.r_ohm", "greater than zero"),
+    ("absurd open-loop gain", _set(("opamp_models", "generic-10M", "a0_db"), 400), "opamp_models.generic-10M.a0_db",
+     "ideal"),
+    ("op-amp model without gbw", _delete(("opamp_models", "generic-10M", "gbw_hz")), "opamp_models.generic-10M",
+     'missing key "gbw_hz"'),
+    ("reversed swing", _set(("opamp_models", "generic-10M", "swing_v"), [4, -4]), "opamp_models.generic-10M.swing_v",
+     "low limit"),
+    ("model named ideal", _set(("opamp_models", "ideal"), {"a0_db": 100, "gbw_hz": "1M"}), "opamp_models.ideal",
+     "reserved"),
+    ("duplicate check id",
+     _set((*S0, "checks"), [{"id": "gain", "text": "Once?"}, {"id": "gain", "text": "Again?"}]),
+     "stages[0].checks[1].id", "another check"),
+    ("unknown metric", _set((*S0, "checks", 0, "metric"), "gain_dbv"), "stages[0].checks[0].metric",
+     "not a metric"),
+    ("numeric check without limits", _both(_delete((*S0, "checks", 0, "min")), _delete((*S0, "checks", 0, "max"))),
+     "stages[0].checks[0]", "min, max or both"),
+    ("min above max", _set((*S0, "checks", 0, "min"), 1), "stages[0].checks[0].min", "above max"),
+    ("unknown where", _set((*S0, "checks", 0, "where"), "everywhere"), "stages[0].checks[0].where", "in_chain"),
+    ("comment on a missing check",
+     _set((*S0, "comments"), [{"author": "A. Reviewer", "time": "2026-01-01T00:00:00Z", "text": "?", "check": "nope",
+                               "resolved": False}]),
+     "stages[0].comments[0].check", '"nope" names no check'),
+    ("sign-off verdict", _set((*S0, "signoffs"), [{"name": "A", "role": "r", "verdict": "maybe", "note": "",
+                                                   "time": "t", "fingerprint": "f"}]),
+     "stages[0].signoffs[0].verdict", "approve"),
+    ("block without gain", _delete((*ADC, "gain")), "stages[1].gain", "needs a gain"),
+    ("block with parts", _set((*ADC, "parts"), []), "stages[1].parts", "block stage takes no"),
+    ("circuit with a gain", _set((*S0, "gain"), 2), "stages[0].gain", "circuit stage takes no"),
+    ("block pole at 0 Hz", _set((*ADC, "poles_hz"), [0]), "stages[1].poles_hz[0]", "not stable"),
+    ("block with more zeros than poles", _set((*ADC, "zeros_hz"), [10, 20]), "stages[1].zeros_hz", "as many poles"),
+    ("block pair with zero Q", _set((*ADC, "poles_hz"), [[1000, 0]]), "stages[1].poles_hz[0]", "greater than zero"),
+    ("unknown key at the top", _set(("colour",), "red"), "(document)", 'unknown key "colour"'),
+    ("unknown key in a part", _set((*P0, "colour"), "red"), "stages[0].parts[0]", 'unknown key "colour"'),
+    ("unknown key in settings", _set(("settings", "f_mid_hz"), 5), "settings", 'unknown key "f_mid_hz"'),
+    ("missing title", _delete(("title",)), "(document)", 'missing key "title"'),
+    ("empty stage name", _set((*S0, "name"), "  "), "stages[0].name", "empty"),
+    ("wrong format", _set(("format",), "other-tool"), "format", "not a Stagewise project"),
+    ("stages not a list", _set(("stages",), {"buf": {}}), "stages", "expected a list"),
+]
+
+
+@pytest.mark.parametrize(("name", "breaks", "path", "words"), CASES, ids=[case[0] for case in CASES])
+def test_rule_names_its_json_path(name: str, breaks: Callable[[dict[str, Any]], None], path: str, words: str) -> None:
+    document = design_example()
+    breaks(document)
+    problems = problems_of(document)
+    assert problems, f"{name}: the broken file loaded"
+    matching = [problem for problem in problems if problem.startswith(f"{path}:") or problem.startswith(f"{path}.")]
+    assert matching, f"{name}: no problem names {path}: {problems}"
+    assert any(words in problem for problem in matching), f"{name}: {matching}"
+
+
+def test_every_problem_is_listed_at_once() -> None:
+    document = design_example()
+    _set((*P0, "value"), "4k7x")(document)
+    _set((*P1, "model"), "nonexistent")(document)
+    _set(("settings", "temperature_c"), -500)(document)
+    _set(("colour",), "red")(document)
+    _set((*ADC, "zout_ohm"), "abc")(document)
+    with pytest.raises(ProjectFileError) as caught:
+        loads_project(json.dumps(document), "x.stagewise.json")
+    problems = caught.value.problems
+    # The decoder's problems (syntax, unknown keys, values) come all together; semantic ones
+    # (the missing model, the temperature) follow once the document decodes.
+    paths = [problem.split(":")[0] for problem in problems]
+    assert "stages[0].parts[0].value" in paths
+    assert "(document)" in paths
+    assert "stages[1].zout_ohm" in paths
+    assert str(caught.value).startswith("x.stagewise.json: 3 problems: ")
+
+
+def test_semantic_problems_are_listed_together() -> None:
+    document = design_example()
+    _set((*P1, "model"), "nonexistent")(document)
+    _set(("settings", "temperature_c"), -500)(document)
+    _set((*S0, "ports", "out"), "nowhere")(document)
+    problems = problems_of(document)
+    paths = {problem.split(":")[0] for problem in problems}
+    assert {"stages[0].parts[1].model", "settings.temperature_c", "stages[0].ports.out"} <= paths
+
+
+def test_validate_works_on_a_model_built_in_code() -> None:
+    # The GUI edits the model directly and validates before saving.
+    stage = Stage(id="s", name="S", parts=[Part("R1", "R", ["in", "out"], Quantity.of("1k"))])
+    project = Project(title="T", stages=[stage])
+    problems = validate(project)
+    assert any(problem.startswith("stages[0].parts:") and "node 0" in problem for problem in problems)
+    stage.parts.append(Part("R2", "R", ["out", "0"], Quantity.of("1k")))
+    assert validate(project) == []
+
+
+def test_a_broken_example_does_not_leak_between_cases() -> None:
+    first = design_example()
+    second = copy.deepcopy(first)
+    _set((*P0, "value"), "bad")(first)
+    assert problems_of(second) == []
