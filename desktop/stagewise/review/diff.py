@@ -170,7 +170,7 @@ _CHECK_FIELDS = ("text", "metric", "where", "at_hz", "min", "max")
 _BLOCK_FIELDS = ("gain", "zeros_hz", "poles_hz", "zin_r_ohm", "zin_c_f", "zout_ohm")
 
 
-def _stage_changes(old: Stage, new: Stage) -> list[Change]:
+def _stage_changes(old: Stage, new: Stage, new_print: str) -> list[Change]:
     sid = new.id
     changes = _field_changes(sid, "stage", old, new, ("name",), behaviour=False)
     changes += _field_changes(sid, "stage", old, new, ("kind", "drive", "bypass"))
@@ -211,13 +211,19 @@ def _stage_changes(old: Stage, new: Stage) -> list[Change]:
     if old.notes != new.notes:
         changes.append(Change("changed", sid, "stage", "notes", None, None, behaviour=False))
     for signoff in new.signoffs[len(old.signoffs):] if _prefix(old.signoffs, new.signoffs) else new.signoffs:
-        changes.append(Change("added", sid, "sign-off", new=f"{signoff.verdict} by {signoff.name}", behaviour=False))
+        stale = f", {SignoffState.STALE}" if signoff.fingerprint != new_print else ""
+        changes.append(Change("added", sid, "sign-off", new=f"{signoff.verdict} by {signoff.name}{stale}",
+                              behaviour=False))
     if len(new.comments) != len(old.comments) or any(a.resolved != b.resolved for a, b in zip(old.comments, new.comments,
                                                                                             strict=False)):
-        changes.append(Change("changed", sid, "comments", None, f"{len(old.comments)} comments",
-                              f"{len(new.comments)} comments, "
+        changes.append(Change("changed", sid, "comments", None, _count(len(old.comments), "comment"),
+                              f"{_count(len(new.comments), 'comment')}, "
                               f"{sum(not c.resolved for c in new.comments)} unresolved", behaviour=False))
     return changes
+
+
+def _count(number: int, noun: str) -> str:
+    return f"{number} {noun}" + ("" if number == 1 else "s")
 
 
 def _prefix(old: Sequence[Any], new: Sequence[Any]) -> bool:
@@ -300,7 +306,7 @@ def diff_projects(old: Project, new: Project) -> ProjectDiff:
         if stage.id not in kept:
             changes.append(Change("moved", stage.id, "stage", "position", f"position {old_ids.index(stage.id) + 1}",
                                   f"position {new_ids.index(stage.id) + 1}"))
-        changes += _stage_changes(before, stage)
+        changes += _stage_changes(before, stage, stage_fingerprint(stage, new))
     stale: list[StaleSignoff] = []
     for stage in new.stages:
         before = old.stage(stage.id)
