@@ -69,6 +69,17 @@ def achieved(template_id: str, v: dict[str, float]) -> dict[str, float]:
         return {"transimpedance_ohm": -v["Rf"], "corner_hz": 1 / (TWO_PI * v["Rf"] * v["Cf"])}
     if template_id == "integrator":
         return {"gain": -v["Rr"] / v["Rin"], "unity_gain_hz": 1 / (TWO_PI * v["Rin"] * v["Cf"])}
+    if template_id == "series_rlc":
+        # Source: series resonance ω0 = 1/√(LC), Q = (1/R)·√(L/C), any circuits text.
+        return {"f0_hz": 1 / (TWO_PI * math.sqrt(v["L1"] * v["C1"])), "q": math.sqrt(v["L1"] / v["C1"]) / v["R1"]}
+    if template_id == "difference_amplifier":
+        # Source: superposition with ideal op-amp rules; − leg at the reference: R4/(R3+R4)·(1 + R2/R1).
+        return {"gain": v["R4"] / (v["R3"] + v["R4"]) * (1 + v["R2"] / v["R1"])}
+    if template_id == "instrumentation_amplifier":
+        # Source: three-op-amp instrumentation amplifier, (1 + (R1a + R1b)/Rg)·(R3/R2), any op-amp
+        # text; both sides of the difference stage must match for this form.
+        assert v["R3a"] / v["R2a"] == v["R3b"] / v["R2b"]
+        return {"gain": (1 + (v["R1a"] + v["R1b"]) / v["Rg"]) * v["R3a"] / v["R2a"]}
     raise AssertionError(template_id)
 
 
@@ -84,6 +95,9 @@ CASES = {
     "mfb_bandpass": {"gain": 3.0, "f0_hz": 1700.0, "q": 6.0},
     "transimpedance": {"transimpedance_ohm": 330e3, "corner_hz": 25e3},
     "integrator": {"gain": 200.0, "unity_gain_hz": 80.0},
+    "series_rlc": {"f0_hz": 7700.0, "q": 3.2},
+    "difference_amplifier": {"gain": 2.7},
+    "instrumentation_amplifier": {"gain": 48.0},
 }
 # Steps of η each target may move by (module text of stagewise.engine.sizing), E96 resistors.
 STEPS = {("mfb_lowpass", "gain"): 2, ("mfb_lowpass", "q"): 2, ("mfb_bandpass", "gain"): 2, ("integrator", "gain"): 2}
@@ -114,7 +128,11 @@ def test_sized_template_meets_its_targets_within_the_rounding_bound(template_id:
         # Unsnapped values meet the target exactly (the design equations are exact).
         assert exact[quantity] == pytest.approx(want, rel=1e-12), quantity
         steps = STEPS.get((template_id, quantity), 1)
-        extra = eta_c if (template_id, quantity) == ("transimpedance", "corner_hz") else 0.0
+        # Computed reactive parts snap to the capacitor series: Cf in full, L under a square root.
+        extra = {("transimpedance", "corner_hz"): eta_c, ("series_rlc", "f0_hz"): eta_c / 2,
+                 ("series_rlc", "q"): eta_c / 2}.get((template_id, quantity), 0.0)
+        if (template_id, quantity) == ("series_rlc", "f0_hz"):
+            steps = 0
         bound = math.expm1(steps * ETA_E96 + extra)
         assert abs(snapped[quantity] / want - 1) <= bound * (1 + 1e-9), (quantity, snapped[quantity], want)
         # The result reports the same numbers.

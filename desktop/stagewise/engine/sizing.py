@@ -18,7 +18,9 @@ rounded, so their steps are uneven: the widest E96 step is 1.33 → 1.37, so η 
 a corner 1/(2πRC) or a gain ratio moves by at most one η; ω0 = 1/√(R_a·R_b·C_a·C_b) by at most
 η; Q of a Sallen-Key or band-pass section by at most η, Q of a multiple-feedback low-pass by at
 most 2η (three resistors enter its damping term); the multiple-feedback band-pass centre gain
-by at most 2η. :meth:`SizedStage.bound` gives these bounds (as relative errors e^kη − 1).
+by at most 2η. A computed inductor (series RLC) or capacitor (transimpedance Cf) is snapped to
+the capacitor series and adds its own η (half of it where a square root takes it).
+:meth:`SizedStage.bound` gives these bounds (as relative errors e^kη − 1).
 
 Filter prototypes come from ``scipy.signal`` (``buttap``, ``besselap``, ``cheb1ap``), imported
 lazily; poles are paired into second-order sections (conjugate pairs) and a first-order section
@@ -85,12 +87,15 @@ SIZING_TARGETS: Final[dict[str, tuple[str, ...]]] = {
     "mfb_bandpass": ("gain", "f0_hz", "q"),
     "transimpedance": ("transimpedance_ohm", "corner_hz"),
     "integrator": ("gain", "unity_gain_hz"),
+    "series_rlc": ("f0_hz", "q"),
+    "difference_amplifier": ("gain",),
+    "instrumentation_amplifier": ("gain",),
 }
 
 # How far each target may move when values are snapped, as (steps of the resistor series' η,
 # steps of the capacitor series' η); see the module text. Capacitors chosen from their series
 # do not move; a computed capacitor (the transimpedance stage's Cf) does.
-_BOUND_STEPS: Final[dict[str, dict[str, tuple[int, int]]]] = {
+_BOUND_STEPS: Final[dict[str, dict[str, tuple[float, float]]]] = {
     "rc_lowpass": {"corner_hz": (1, 0)},
     "rc_highpass": {"corner_hz": (1, 0)},
     "inverting": {"gain": (1, 0)},
@@ -101,6 +106,10 @@ _BOUND_STEPS: Final[dict[str, dict[str, tuple[int, int]]]] = {
     "mfb_bandpass": {"gain": (2, 0), "f0_hz": (1, 0), "q": (1, 0)},
     "transimpedance": {"transimpedance_ohm": (1, 0), "corner_hz": (1, 1)},
     "integrator": {"gain": (2, 0), "unity_gain_hz": (1, 0)},
+    # The inductor is computed and snapped (to the capacitor series): ω0 ∝ 1/√L, Q ∝ √L/R.
+    "series_rlc": {"f0_hz": (0, 0.5), "q": (1, 0.5)},
+    "difference_amplifier": {"gain": (1, 0)},
+    "instrumentation_amplifier": {"gain": (1, 0)},
 }
 
 
@@ -112,8 +121,9 @@ class SizingError(ValueError):
 class SizedPart:
     """One part value: what the design equation asked for and the preferred value chosen.
 
-    ``unit`` is ``"Ω"`` or ``"F"``; ``exact_si`` and ``snapped_si`` are in that unit. For a
-    capacitor chosen from the series both are the same.
+    ``unit`` is ``"Ω"``, ``"F"`` or ``"H"``; ``exact_si`` and ``snapped_si`` are in that unit.
+    For a value chosen from the series (most capacitors, reference resistors) both are the same.
+    Inductors are snapped to the capacitor series (both come in coarse series).
     """
 
     ref: str
@@ -289,6 +299,15 @@ def _formulas(template_id: str, v: Mapping[str, float]) -> dict[str, float]:
     if template_id == "integrator":
         # H = −(Rr/Rin)/(1 + sRrCf): unity gain where 1/(ωRinCf) = 1.
         return {"gain": -v["Rr"] / v["Rin"], "unity_gain_hz": 1.0 / (TWO_PI * v["Rin"] * v["Cf"])}
+    if template_id == "series_rlc":
+        # H = sRC/(s²LC + sRC + 1): ω0 = 1/√(LC), Q = √(L/C)/R.
+        return {"f0_hz": 1.0 / (TWO_PI * math.sqrt(v["L1"] * v["C1"])), "q": math.sqrt(v["L1"] / v["C1"]) / v["R1"]}
+    if template_id == "difference_amplifier":
+        # + leg driven, − leg at the reference: v_out/v_in = R4/(R3 + R4)·(1 + R2/R1).
+        return {"gain": v["R4"] / (v["R3"] + v["R4"]) * (1.0 + v["R2"] / v["R1"])}
+    if template_id == "instrumentation_amplifier":
+        # (1 + (R1a + R1b)/Rg)·(R3/R2), with the difference stage's ratios matched (a and b sides).
+        return {"gain": (1.0 + (v["R1a"] + v["R1b"]) / v["Rg"]) * v["R3a"] / v["R2a"]}
     raise SizingError(f'template "{template_id}" has no sizing; sizable templates: {", ".join(SIZING_TARGETS)}')
 
 
@@ -349,13 +368,13 @@ def size_template(
     c_series = _check_series(capacitor_series)
     level = _positive("impedance_ohm", impedance_ohm)
     exact: dict[str, float] = {}
-    chosen_caps: set[str] = set()
+    chosen: set[str] = set()
     notes: list[str] = []
 
     def capacitor(ref: str, target_f: float) -> float:
         value = snap_to_series(target_f, c_series)
         exact[ref] = value
-        chosen_caps.add(ref)
+        chosen.add(ref)
         return value
 
     asked: dict[str, float]
@@ -382,7 +401,7 @@ def size_template(
         c2 = capacitor("C2", 1.0 / (omega * level))
         # R1 + R2 = 1/(ω0·Q·C2) and R1·R2 = 1/(ω0²·C1·C2): real roots need C1/C2 ≥ 4Q².
         c1 = exact["C1"] = _at_least(4.0 * quality**2 * c2, c_series)
-        chosen_caps.add("C1")
+        chosen.add("C1")
         total, product = 1.0 / (omega * quality * c2), 1.0 / (omega**2 * c1 * c2)
         spread = math.sqrt(max(total**2 - 4.0 * product, 0.0))
         exact["R1"], exact["R2"] = (total + spread) / 2.0, (total - spread) / 2.0
@@ -392,7 +411,7 @@ def size_template(
         omega = TWO_PI * f0
         c = capacitor("C1", 1.0 / (omega * level))
         exact["C2"] = c
-        chosen_caps.add("C2")
+        chosen.add("C2")
         # Equal capacitors: Q = ½·√(R2/R1) and ω0 = 1/(C·√(R1·R2)).
         exact["R1"] = 1.0 / (2.0 * quality * omega * c)
         exact["R2"] = 2.0 * quality / (omega * c)
@@ -404,7 +423,7 @@ def size_template(
         # With a = R2 and b = R3·(1 + K): a + b = 1/(ω0·Q·C2), a·b = (1 + K)/(ω0²·C1·C2);
         # real roots need C1/C2 ≥ 4Q²(1 + K).
         c1 = exact["C1"] = _at_least(4.0 * quality**2 * (1.0 + gain) * c2, c_series)
-        chosen_caps.add("C1")
+        chosen.add("C1")
         total, product = 1.0 / (omega * quality * c2), (1.0 + gain) / (omega**2 * c1 * c2)
         spread = math.sqrt(max(total**2 - 4.0 * product, 0.0))
         exact["R2"] = (total + spread) / 2.0
@@ -419,7 +438,7 @@ def size_template(
         omega = TWO_PI * f0
         c = capacitor("C1", 1.0 / (omega * level))
         exact["C2"] = c
-        chosen_caps.add("C2")
+        chosen.add("C2")
         # Equal capacitors: R3 = 2Q/(ω0C), R1 = Q/(ω0·C·K), 1/R2 = ω0·C·(2Q − K/Q).
         exact["R3"] = 2.0 * quality / (omega * c)
         exact["R1"] = quality / (omega * c * gain)
@@ -432,6 +451,33 @@ def size_template(
         notes.append("Cf sets the corner with an ideal op-amp; whether the loop is stable with the "
                      "sensor capacitance Cd depends on the op-amp model: confirm with the engine.")
         asked = {"transimpedance_ohm": -gain, "corner_hz": corner}
+    elif template_id == "series_rlc":
+        f0, quality = _target(targets, "f0_hz"), _target(targets, "q")
+        omega = TWO_PI * f0
+        # C from the series so that √(L/C) = impedance_ohm; L computed (and snapped to the
+        # capacitor series, as inductors come in the same coarse series); R = √(L/C)/Q.
+        c = capacitor("C1", 1.0 / (omega * level))
+        exact["L1"] = 1.0 / (omega**2 * c)
+        exact["R1"] = math.sqrt(exact["L1"] / c) / quality
+        asked = {"f0_hz": f0, "q": quality}
+    elif template_id == "difference_amplifier":
+        gain = _target(targets, "gain")
+        exact["R1"] = exact["R3"] = snap_to_series(level, r_series)
+        chosen.update({"R1", "R3"})
+        # R2 = R4 = G·R1: both snap to the same value, so the ratios stay matched.
+        exact["R2"] = exact["R4"] = gain * exact["R1"]
+        asked = {"gain": gain}
+    elif template_id == "instrumentation_amplifier":
+        gain = _target(targets, "gain")
+        if not gain > 1.0:
+            raise SizingError(f"a three-op-amp instrumentation amplifier here has a gain above 1 (asked {gain:g})")
+        unit_r = snap_to_series(level, r_series)
+        for ref in ("R1a", "R1b", "R2a", "R3a", "R2b", "R3b"):
+            exact[ref] = unit_r
+            chosen.add(ref)
+        # Difference stage at unit gain; the input stage gives 1 + 2·R1/Rg = G.
+        exact["Rg"] = 2.0 * unit_r / (gain - 1.0)
+        asked = {"gain": gain}
     else:  # integrator
         gain, unity = _target(targets, "gain"), _target(targets, "unity_gain_hz")
         cf = capacitor("Cf", 1.0 / (TWO_PI * unity * level))
@@ -441,14 +487,11 @@ def size_template(
 
     parts: list[SizedPart] = []
     for ref, value in exact.items():
-        is_capacitor = ref.startswith("C")
-        if ref in chosen_caps:
-            snapped, series = value, c_series
-        else:
-            series = c_series if is_capacitor else r_series
-            snapped = snap_to_series(value, series)
-        parts.append(SizedPart(ref=ref, unit="F" if is_capacitor else "Ω", exact_si=value,
-                               snapped_si=snapped, series=series))
+        # Template refs name their kind: C… capacitors, L… inductors, R… resistors.
+        unit = {"C": "F", "L": "H"}.get(ref[0], "Ω")
+        series = r_series if unit == "Ω" else c_series
+        snapped = value if ref in chosen else snap_to_series(value, series)
+        parts.append(SizedPart(ref=ref, unit=unit, exact_si=value, snapped_si=snapped, series=series))
     exact_values = {part.ref: part.exact_si for part in parts}
     snapped_values = {part.ref: part.snapped_si for part in parts}
     by_exact = _formulas(template_id, exact_values)
@@ -474,6 +517,9 @@ _FORMS: Final[dict[str, tuple[int, int]]] = {
     "mfb_bandpass": (2, 1),
     "transimpedance": (1, 0),
     "integrator": (1, 0),
+    "series_rlc": (2, 1),
+    "difference_amplifier": (0, 0),
+    "instrumentation_amplifier": (0, 0),
 }
 
 

@@ -23,7 +23,7 @@ from pathlib import Path
 from typing import Any
 
 import stagewise
-from stagewise.files.codec import _decode_opamp, _decode_stage, _Reader, encode_opamp
+from stagewise.files.codec import _decode_opamp, _decode_stage, _Reader, encode_opamp, encode_stage
 from stagewise.model.project import IDEAL_OPAMP, PART_TYPES, OpampModel, Project, Stage
 from stagewise.model.validate import validate_stage
 from stagewise.model.values import Quantity, format_value
@@ -269,8 +269,6 @@ def instantiate_template(
 
 def template_document(template: Template) -> dict[str, Any]:
     """A template as a JSON-ready dict (for writing a user's own template next to the shipped ones)."""
-    from stagewise.files.codec import encode_stage
-
     return {
         "name": template.name,
         "description": template.description,
