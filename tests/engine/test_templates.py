@@ -11,6 +11,7 @@ from __future__ import annotations
 import copy
 import json
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -281,3 +282,29 @@ def test_instantiate_with_sized_values_and_refusals(templates: dict[str, Templat
     with pytest.raises(TemplateError, match="not a template id"):
         load_template("../opamps")
     assert len(project.stages) == 1
+
+
+def test_template_document_round_trips_and_bad_templates_are_refused(templates: dict[str, Template], tmp_path: Path) -> None:
+    # Common practice, no source: what is written reads back the same; bad files name the problem.
+    from stagewise.files.codec import encode_stage
+    from stagewise.files.templates import template_document
+
+    original = templates["mfb_bandpass"]
+    (tmp_path / "mine.json").write_text(json.dumps(template_document(original)), encoding="utf-8")
+    again = load_template("mine", tmp_path)
+    assert encode_stage(again.stage) == encode_stage(original.stage)
+    assert again.description == original.description
+    broken = template_document(original)
+    broken["stage"]["parts"][0]["value"] = "15kk"
+    broken["opamp_models"]["spare model"] = {"a0_db": 100, "gbw_hz": "1M"}
+    (tmp_path / "broken.json").write_text(json.dumps(broken), encoding="utf-8")
+    with pytest.raises(TemplateError) as caught:
+        load_template("broken", tmp_path)
+    assert 'stage.parts[0].value: "15kk" is not a value' in str(caught.value)
+    (tmp_path / "unused.json").write_text(json.dumps({**template_document(original), "opamp_models": {
+        **template_document(original)["opamp_models"], "spare model": {"a0_db": 100, "gbw_hz": "1M"}}}), encoding="utf-8")
+    with pytest.raises(TemplateError, match='"spare model" is not used'):
+        load_template("unused", tmp_path)
+    (tmp_path / "extra.json").write_text(json.dumps({**template_document(original), "sizing": {}}), encoding="utf-8")
+    with pytest.raises(TemplateError, match='unknown key "sizing"'):
+        load_template("extra", tmp_path)
