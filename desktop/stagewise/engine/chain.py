@@ -27,18 +27,34 @@ import json
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import NDArray
 
+from stagewise.engine.cache import ComputeCache, grid_key
 from stagewise.engine.mna import CircuitError, ElementStamp, OpampStates, StageSystem, assemble
-from stagewise.engine.sweep import DrivenSystem, drive
+from stagewise.engine.ports import I_IN, V_IN, PortRelation, forced_zero, reduce_stage
+from stagewise.engine.sweep import DrivenSystem, drive, frequency_grid, transfer
+from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Stage
 
 __all__ = [
+    "CURRENT_UNIT",
     "LOAD_PREFIX",
+    "VOLTAGE_UNIT",
+    "CascadeSolution",
+    "ChainEngine",
+    "ChainResult",
+    "IsolatedResponse",
     "MergedChain",
+    "StageInChain",
     "active_systems",
+    "analyze_chain",
+    "cascade",
+    "isolated_from_system",
+    "isolated_response",
     "load_admittance",
-    "merged_system",
     "merge_systems",
+    "merged_system",
+    "stage_port_relation",
 ]
 
 # Refs of the load's elements in the merged circuit: "load:R" and "load:C".
@@ -270,3 +286,593 @@ def merge_systems(
         load_c_f=load_c_f,
     )
 
+
+
+# -- the cascade of port relations -----------------------------------------------------------
+
+
+@dataclass(frozen=True, slots=True)
+class CascadeSolution:
+    """The stacked port relations solved at every frequency (per unit of drive).
+
+    Interface ``j`` is the chain input (``j = 0``), the node after stage ``j``, ..., the chain
+    output (``j = K``). ``current_a`` is the current crossing interface ``j`` towards the
+    output (into stage ``j + 1``, or into the load at ``j = K``).
+
+    Attributes
+    ----------
+    voltage : ndarray, shape (F, K + 1), complex
+        Interface voltages per unit drive (V/V for a voltage drive, V/A = Ω for a current drive).
+    current : ndarray, shape (F, K + 1), complex
+        Interface currents per unit drive (A/V or A/A).
+    z_out_ohm : ndarray, shape (F, K + 1), complex
+        Impedance looking back from interface ``j`` into the chain up to stage ``j``, the drive
+        zeroed (a voltage source shorted, a current source opened); ``inf`` where it is open.
+    z_in_ohm : ndarray, shape (F, K + 1), complex
+        Impedance looking forward from interface ``j`` into stages ``j + 1 ... K`` and the
+        load; ``inf`` where it is open (the last entry is the load itself).
+    """
+
+    voltage: NDArray[np.complex128]
+    current: NDArray[np.complex128]
+    z_out_ohm: NDArray[np.complex128]
+    z_in_ohm: NDArray[np.complex128]
+
+
+def _cross(u: tuple[NDArray[np.complex128], ...], v: tuple[NDArray[np.complex128], ...]) -> tuple[
+        NDArray[np.complex128], NDArray[np.complex128], NDArray[np.complex128]]:
+    # λ = u × v is the row combination that cancels the two eliminated unknowns, whose
+    # coefficients in three equations are u and v: λ·u = λ·v = 0 (bilinear, no conjugation).
+    return (u[1] * v[2] - u[2] * v[1], u[2] * v[0] - u[0] * v[2], u[0] * v[1] - u[1] * v[0])
+
+
+def _normalise(*terms: NDArray[np.complex128]) -> tuple[NDArray[np.complex128], ...]:
+    # A relation keeps its meaning when scaled; scaling to unit size at each frequency keeps
+    # ten stages of products from overflowing. The first two terms are the coefficients.
+    scale = np.maximum(np.abs(terms[0]), np.abs(terms[1]))
+    scale = np.where(scale > 0, scale, 1.0)
+    return tuple(term / scale for term in terms)
+
+
+def _impedance(numerator: NDArray[np.complex128], denominator: NDArray[np.complex128]) -> NDArray[np.complex128]:
+    result = np.full(numerator.shape, complex(np.inf, 0.0))
+    finite = denominator != 0
+    result[finite] = numerator[finite] / denominator[finite]
+    return result
+
+
+def cascade(
+    relations: list[NDArray[np.complex128]],
+    *,
+    current_drive: bool,
+    load_admittance_s: NDArray[np.complex128],
+    f_hz: NDArray[np.float64],
+    stage_ids: tuple[str, ...] = (),
+) -> CascadeSolution:
+    """Solve the chain of port relations with the drive at the input and the load at the output.
+
+    The stacked system (two rows per stage, ``V_out(k) = V_in(k+1)`` and
+    ``I_out(k) = −I_in(k+1)``, one drive row, one load row) is block-bidiagonal. It is solved
+    by eliminating it from both ends at once, as the sweeps of a banded solver do: from the
+    drive, every interface gets the relation ``α·V + β·J = γ`` of everything before it; from
+    the load, the relation ``a·V + b·J = 0`` of everything after it. Each interface then
+    solves its own 2 x 2 system, and the same relations give Z_out = β/α (drive zeroed) and
+    Z_in = −b/a. All frequencies at once; the loop runs over the stages only.
+
+    Parameters
+    ----------
+    relations : list of ndarray, each shape (F, 2, 4)
+        Port relations of the stages in chain order (see :mod:`stagewise.engine.ports`).
+    current_drive : bool
+        An ideal current source (True) or voltage source (False) at the chain input.
+    load_admittance_s : ndarray, shape (F,), complex
+        The load's admittance 1/R + j2πf·C in siemens (zeros for no load).
+    f_hz : ndarray, shape (F,)
+        The frequencies, for error messages.
+    stage_ids : tuple of str
+        The stage ids, for error messages.
+
+    Returns
+    -------
+    CascadeSolution
+
+    Raises
+    ------
+    CircuitError
+        Where the chain has no unique solution (for instance a voltage source into an input at
+        a virtual ground, or an ideal output into a short), naming the interface and frequency.
+
+    References
+    ----------
+    G. H. Golub and C. F. Van Loan, *Matrix Computations*, 4th ed., Johns Hopkins, 2013,
+    sec. 4.3 (banded systems) and sec. 4.5.1 (block tridiagonal elimination).
+    """
+    frequencies = len(f_hz)
+    ones = np.ones(frequencies, dtype=complex)
+    zeros = np.zeros(frequencies, dtype=complex)
+    # From the drive: α·V0 + β·J0 = γ.
+    alpha, beta, gamma = (zeros.copy(), ones.copy(), ones.copy()) if current_drive else (ones.copy(), zeros.copy(), ones.copy())
+    back = [(alpha, beta, gamma)]
+    for p in relations:
+        lam = _cross((alpha, p[:, 0, 0], p[:, 1, 0]), (beta, p[:, 0, 1], p[:, 1, 1]))
+        new_alpha = lam[1] * p[:, 0, 2] + lam[2] * p[:, 1, 2]
+        new_beta = -(lam[1] * p[:, 0, 3] + lam[2] * p[:, 1, 3])
+        alpha, beta, gamma = _normalise(new_alpha, new_beta, lam[0] * gamma)
+        back.append((alpha, beta, gamma))
+    # From the load: a·VK + b·JK = 0 with JK = Y_load·VK.
+    a, b = _normalise(np.asarray(load_admittance_s, dtype=complex), -ones)
+    forward = [(a, b)]
+    for p in reversed(relations):
+        lam = _cross((a, p[:, 0, 2], p[:, 1, 2]), (b, -p[:, 0, 3], -p[:, 1, 3]))
+        a, b = _normalise(lam[1] * p[:, 0, 0] + lam[2] * p[:, 1, 0], lam[1] * p[:, 0, 1] + lam[2] * p[:, 1, 1])
+        forward.append((a, b))
+    forward.reverse()
+
+    back_alpha = np.stack([item[0] for item in back], axis=1)
+    back_beta = np.stack([item[1] for item in back], axis=1)
+    back_gamma = np.stack([item[2] for item in back], axis=1)
+    front_a = np.stack([item[0] for item in forward], axis=1)
+    front_b = np.stack([item[1] for item in forward], axis=1)
+    determinant = back_alpha * front_b - back_beta * front_a
+    size = np.abs(back_alpha * front_b) + np.abs(back_beta * front_a)
+    singular = ~(np.abs(determinant) > 1e-13 * size)
+    if np.any(singular):
+        row, interface = (int(index[0]) for index in np.nonzero(singular))
+        raise CircuitError(
+            f"the chain cannot be solved at {f_hz[row]:.6g} Hz: at the {_interface_words(interface, stage_ids)} "
+            "a source meets a constraint it cannot satisfy (for example a voltage drive into an input at a "
+            "virtual ground, or an ideal output into a short)"
+        )
+    voltage = back_gamma * front_b / determinant
+    current = -back_gamma * front_a / determinant
+    return CascadeSolution(
+        voltage=voltage,
+        current=current,
+        z_out_ohm=_impedance(back_beta, back_alpha),
+        z_in_ohm=_impedance(-front_b, front_a),
+    )
+
+
+def _interface_words(interface: int, stage_ids: tuple[str, ...]) -> str:
+    if interface == 0:
+        return "chain input"
+    if stage_ids and interface <= len(stage_ids):
+        return f'output of stage "{stage_ids[interface - 1]}"'
+    return f"interface {interface}"
+
+
+# -- results ---------------------------------------------------------------------------------
+
+VOLTAGE_UNIT = "V/V"
+CURRENT_UNIT = "Ω"
+_WHY_VIRTUAL_GROUND = "its input sits at a virtual ground, so V_in ≡ 0 and V_out/V_in is undefined"
+_WHY_NO_INPUT_CURRENT = "no current can enter its input (I_in ≡ 0), so V_out/I_in is undefined"
+
+
+@dataclass(frozen=True, slots=True)
+class IsolatedResponse:
+    """A stage alone: its own drive (``stage.drive``) at the input, output unloaded.
+
+    Attributes
+    ----------
+    f_hz : ndarray, shape (F,)
+    response : ndarray, shape (F,), complex, or None
+        V_out/V_in (V/V) for a voltage drive, V_out/I_in (Ω) for a current drive; ``None``
+        when ``why`` says why it cannot be computed.
+    unit : str
+        ``"V/V"`` or ``"Ω"``.
+    why : str or None
+    """
+
+    f_hz: NDArray[np.float64]
+    response: NDArray[np.complex128] | None
+    unit: str
+    why: str | None
+
+
+@dataclass(frozen=True, slots=True)
+class StageInChain:
+    """One stage as it sits in the chain, against the same stage isolated.
+
+    Attributes
+    ----------
+    stage_id : str
+    position : int
+        1 for the first active stage; the stage sits between interfaces ``position - 1`` and
+        ``position``.
+    unit : str
+        Unit of ``isolated`` and ``in_chain``: ``"V/V"`` for a voltage-driven stage,
+        ``"Ω"`` for a current-driven one (its own transfer is then V_out/I_in).
+    isolated, isolated_why :
+        The isolated response (see :class:`IsolatedResponse`), or ``None`` and the reason.
+    in_chain_v_per_v, in_chain_v_per_v_why :
+        V_out/V_in where it sits (F,), or ``None`` and the reason (its input at a virtual
+        ground: V_in ≡ 0).
+    in_chain_ohm, in_chain_ohm_why :
+        V_out/I_in where it sits (Ω), I_in the current entering its input from the stage
+        before (or the drive), or ``None`` and the reason.
+    loading_error_db, loading_error_deg : ndarray (F,) or None
+        20·log10|in chain / isolated| and the phase of that ratio in degrees (in (−180, 180]),
+        comparing the stage's own transfer (``unit``) in chain against isolated.
+    loading_error_db_max : float or None
+        The largest |loading_error_db| over the frequencies.
+    loading_error_why : str or None
+    z_in_ohm : ndarray (F,), complex
+        Looking into this stage's input: the stage, the rest of the chain and the load.
+    z_out_ohm : ndarray (F,), complex
+        Looking back into this stage's output: the stage and everything before it, drive zeroed.
+    """
+
+    stage_id: str
+    position: int
+    unit: str
+    isolated: NDArray[np.complex128] | None
+    isolated_why: str | None
+    in_chain_v_per_v: NDArray[np.complex128] | None
+    in_chain_v_per_v_why: str | None
+    in_chain_ohm: NDArray[np.complex128] | None
+    in_chain_ohm_why: str | None
+    loading_error_db: NDArray[np.float64] | None
+    loading_error_deg: NDArray[np.float64] | None
+    loading_error_db_max: float | None
+    loading_error_why: str | None
+    z_in_ohm: NDArray[np.complex128]
+    z_out_ohm: NDArray[np.complex128]
+
+    @property
+    def in_chain(self) -> NDArray[np.complex128] | None:
+        """The stage's own transfer where it sits, in ``unit`` (compare with ``isolated``)."""
+        return self.in_chain_ohm if self.unit == CURRENT_UNIT else self.in_chain_v_per_v
+
+    @property
+    def in_chain_why(self) -> str | None:
+        return self.in_chain_ohm_why if self.unit == CURRENT_UNIT else self.in_chain_v_per_v_why
+
+
+@dataclass(frozen=True, slots=True)
+class ChainResult:
+    """The chain with loading at the frequencies ``f_hz``.
+
+    Attributes
+    ----------
+    f_hz : ndarray, shape (F,)
+    stage_ids : tuple of str
+        Active stages in chain order (bypassed stages are not in the chain).
+    unit : str
+        Unit of the interface responses: ``"V/V"`` (voltage drive) or ``"Ω"`` (current drive).
+    interface_response : ndarray, shape (F, K + 1), complex
+        Voltage at every interface per unit drive: chain input, after stage 1, ..., output.
+    interface_current : ndarray, shape (F, K + 1), complex
+        Current crossing every interface towards the output, per unit drive (A/V or A/A).
+    z_out_ohm, z_in_ohm : ndarray, shape (F, K + 1), complex
+        At every interface: looking back into the chain up to it (drive zeroed: a voltage
+        source shorted, a current source open) and looking forward into the rest with the
+        load. ``inf`` marks an open circuit (for instance Z_out at a current-driven input).
+    stages : tuple of StageInChain
+    """
+
+    f_hz: NDArray[np.float64]
+    stage_ids: tuple[str, ...]
+    unit: str
+    interface_response: NDArray[np.complex128]
+    interface_current: NDArray[np.complex128]
+    z_out_ohm: NDArray[np.complex128]
+    z_in_ohm: NDArray[np.complex128]
+    stages: tuple[StageInChain, ...]
+
+    @property
+    def response(self) -> NDArray[np.complex128]:
+        """Drive → chain output (F,), in ``unit``."""
+        return self.interface_response[:, -1]
+
+    def stage(self, stage_id: str) -> StageInChain:
+        """The stage ``stage_id`` in chain.
+
+        Raises
+        ------
+        KeyError
+            When it is not in the chain (unknown, or bypassed), with a one-sentence message.
+        """
+        for entry in self.stages:
+            if entry.stage_id == stage_id:
+                return entry
+        raise KeyError(f'stage "{stage_id}" is not in the chain (it is bypassed or does not exist)')
+
+
+def _loading_error(in_chain: NDArray[np.complex128], isolated: NDArray[np.complex128]) -> tuple[
+        NDArray[np.float64], NDArray[np.float64]]:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = in_chain / isolated
+        error_db = 20.0 * np.log10(np.abs(ratio))
+    return error_db, np.degrees(np.angle(ratio))
+
+
+def _ratio(numerator: NDArray[np.complex128], denominator: NDArray[np.complex128]) -> NDArray[np.complex128]:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        result: NDArray[np.complex128] = numerator / denominator
+    return result
+
+
+def isolated_from_system(system: StageSystem, relation: NDArray[np.complex128], current_drive: bool,
+                         f_hz: NDArray[np.float64]) -> IsolatedResponse:
+    """The isolated response of an assembled stage (``sweep.drive`` + ``sweep.transfer``).
+
+    ``relation`` (the stage's port relation at ``f_hz``) tells, before solving, whether the
+    drive can be applied at all: a voltage source cannot drive an input held at a virtual
+    ground, a current source cannot drive an input that takes no current.
+    """
+    unit = CURRENT_UNIT if current_drive else VOLTAGE_UNIT
+    if current_drive and np.all(forced_zero(relation, I_IN)):
+        return IsolatedResponse(f_hz, None, unit, "no current can enter its input (I_in ≡ 0), so a current "
+                                "drive cannot be applied; give the stage a voltage drive")
+    if not current_drive and np.all(forced_zero(relation, V_IN)):
+        return IsolatedResponse(f_hz, None, unit, "its input sits at a virtual ground (V_in ≡ 0), so a voltage "
+                                "drive cannot be applied; give the stage a current drive")
+    try:
+        response = transfer(drive(system, current=current_drive), f_hz)
+    except np.linalg.LinAlgError:
+        return IsolatedResponse(f_hz, None, unit, "with its own drive and the output unloaded its equations are "
+                                "singular at an analysis frequency")
+    if not np.all(np.isfinite(response)):
+        return IsolatedResponse(f_hz, None, unit, "its response is infinite at an analysis frequency")
+    return IsolatedResponse(f_hz, response, unit, None)
+
+
+# -- the engine with its caches --------------------------------------------------------------
+
+
+def _frequencies(project: Project, f_hz: NDArray[np.float64] | list[float] | float | None) -> NDArray[np.float64]:
+    if f_hz is None:
+        return frequency_grid(project.settings)
+    values = np.atleast_1d(np.asarray(f_hz, dtype=float))
+    if values.ndim != 1 or values.size == 0:
+        raise ValueError(f"f_hz must be a non-empty list of frequencies in hertz, got shape {values.shape}")
+    if not np.all(np.isfinite(values)) or np.any(values < 0):
+        raise ValueError(f"f_hz must hold finite frequencies of 0 Hz or more, got {values.tolist()}")
+    return values
+
+
+class ChainEngine:
+    """The chain analysis with its per-stage caches (one per document; not global).
+
+    Port relations, isolated responses and assembled stages are cached by stage fingerprint
+    (:func:`stagewise.model.fingerprint.stage_fingerprint`) and frequency grid, so after an
+    edit only the edited stage is re-reduced; the cascade itself is cheap and always re-run.
+    Safe to call from a background worker thread.
+
+    Parameters
+    ----------
+    max_entries : int
+        Entries kept per cache (least recently used dropped first).
+
+    Examples
+    --------
+    >>> engine = ChainEngine()                                         # doctest: +SKIP
+    >>> result = engine.analyze(project)             # the project's frequency grid
+    >>> result.response, result.stage("buf").loading_error_db_max
+    >>> engine.analyze(project, [10, 1e3, 2e4])      # any frequencies (hertz)
+    >>> engine.reductions                            # port relations computed so far
+    """
+
+    def __init__(self, max_entries: int = 512) -> None:
+        self._systems: ComputeCache[StageSystem] = ComputeCache(max_entries)
+        self._relations: ComputeCache[PortRelation] = ComputeCache(max_entries)
+        self._isolated: ComputeCache[IsolatedResponse] = ComputeCache(max_entries)
+
+    @property
+    def reductions(self) -> int:
+        """How many stage port relations were computed (cache misses)."""
+        return self._relations.computed
+
+    @property
+    def isolated_solves(self) -> int:
+        """How many isolated stage responses were computed (cache misses)."""
+        return self._isolated.computed
+
+    @property
+    def assemblies(self) -> int:
+        """How many stages were assembled (cache misses)."""
+        return self._systems.computed
+
+    def clear(self) -> None:
+        """Forget every cached result (counters are kept)."""
+        self._systems.clear()
+        self._relations.clear()
+        self._isolated.clear()
+
+    def system(self, stage: Stage, project: Project) -> StageSystem:
+        """The stage's assembled pencil, cached by fingerprint."""
+        fingerprint = stage_fingerprint(stage, project)
+        return self._system(stage, project, fingerprint)
+
+    def _system(self, stage: Stage, project: Project, fingerprint: str) -> StageSystem:
+        def build() -> StageSystem:
+            try:
+                return assemble(stage, project)
+            except CircuitError as error:
+                raise CircuitError(f'stage "{stage.id}": {error}') from error
+        return self._systems.get_or_compute(fingerprint, build)
+
+    def port_relation(self, stage: Stage, project: Project, f_hz: NDArray[np.float64] | list[float] | None = None
+                      ) -> PortRelation:
+        """The stage's port relation at ``f_hz`` (default: the project grid), cached."""
+        grid = _frequencies(project, f_hz)
+        fingerprint = stage_fingerprint(stage, project)
+        return self._relation(stage, project, fingerprint, grid, grid_key(grid))
+
+    def _relation(self, stage: Stage, project: Project, fingerprint: str, grid: NDArray[np.float64],
+                  key: str) -> PortRelation:
+        return self._relations.get_or_compute(
+            (fingerprint, key),
+            lambda: reduce_stage(self._system(stage, project, fingerprint), grid, stage_id=stage.id),
+        )
+
+    def isolated(self, stage: Stage, project: Project, f_hz: NDArray[np.float64] | list[float] | None = None
+                 ) -> IsolatedResponse:
+        """The stage alone (its own drive, output unloaded) at ``f_hz``, cached.
+
+        Works for bypassed stages too. Never raises for a stage that assembles but cannot be
+        driven: ``why`` says why. Raises :class:`CircuitError` when the stage cannot be
+        assembled or is not a well-posed two-port.
+        """
+        grid = _frequencies(project, f_hz)
+        fingerprint = stage_fingerprint(stage, project)
+        key = grid_key(grid)
+        return self._isolated_response(stage, project, fingerprint, grid, key)
+
+    def _isolated_response(self, stage: Stage, project: Project, fingerprint: str, grid: NDArray[np.float64],
+                           key: str) -> IsolatedResponse:
+        def compute() -> IsolatedResponse:
+            relation = self._relation(stage, project, fingerprint, grid, key)
+            system = self._system(stage, project, fingerprint)
+            return isolated_from_system(system, relation.p, stage.drive == "current", grid)
+        return self._isolated.get_or_compute((fingerprint, key), compute)
+
+    def merged(self, project: Project) -> MergedChain:
+        """The merged whole-chain circuit (see :func:`merged_system`), from cached stage pencils."""
+        stages = project.active_stages
+        if not stages:
+            raise CircuitError("the chain has no active stage: every stage is bypassed or there is none")
+        r_ohm, c_f = load_admittance(project)
+        return merge_systems([stage.id for stage in stages], [self.system(stage, project) for stage in stages],
+                             current_drive=project.input.drive == "current", load_r_ohm=r_ohm, load_c_f=c_f)
+
+    def analyze(self, project: Project, f_hz: NDArray[np.float64] | list[float] | float | None = None
+                ) -> ChainResult:
+        """The chain with loading: chain response, every stage in chain and isolated, impedances.
+
+        Parameters
+        ----------
+        project : Project
+            Its active stages, ``input.drive`` and ``load`` are used.
+        f_hz : array_like, optional
+            Frequencies in hertz (any, for instance ``[10, 1e3, 2e4]``); default: the
+            project's frequency grid (:func:`stagewise.engine.sweep.frequency_grid`).
+
+        Returns
+        -------
+        ChainResult
+
+        Raises
+        ------
+        CircuitError
+            No active stage, a stage that cannot be assembled or is not a well-posed two-port,
+            or a chain without a unique solution (the message names the stage or interface).
+        ValueError
+            Frequencies that are not finite and non-negative.
+        """
+        grid = _frequencies(project, f_hz)
+        key = grid_key(grid)
+        stages = project.active_stages
+        if not stages:
+            raise CircuitError("the chain has no active stage: every stage is bypassed or there is none")
+        fingerprints = [stage_fingerprint(stage, project) for stage in stages]
+        relations = [self._relation(stage, project, fingerprint, grid, key)
+                     for stage, fingerprint in zip(stages, fingerprints, strict=True)]
+        isolated = [self._isolated_response(stage, project, fingerprint, grid, key)
+                    for stage, fingerprint in zip(stages, fingerprints, strict=True)]
+        r_ohm, c_f = load_admittance(project)
+        load_y = np.zeros(len(grid), dtype=complex)
+        if r_ohm is not None:
+            load_y += 1.0 / r_ohm
+        if c_f is not None:
+            load_y += 2j * np.pi * grid * c_f
+        stage_ids = tuple(stage.id for stage in stages)
+        current_drive = project.input.drive == "current"
+        solution = cascade([relation.p for relation in relations], current_drive=current_drive,
+                           load_admittance_s=load_y, f_hz=grid, stage_ids=stage_ids)
+        held_at_zero = [bool(np.all(forced_zero(relation.p, V_IN))) for relation in relations[1:]] + [False]
+        entries = tuple(
+            _stage_in_chain(position, stage, relation.p, alone, solution, held_at_zero[position - 1])
+            for position, (stage, relation, alone) in enumerate(zip(stages, relations, isolated, strict=True),
+                                                                start=1)
+        )
+        return ChainResult(
+            f_hz=grid,
+            stage_ids=stage_ids,
+            unit=CURRENT_UNIT if current_drive else VOLTAGE_UNIT,
+            interface_response=solution.voltage,
+            interface_current=solution.current,
+            z_out_ohm=solution.z_out_ohm,
+            z_in_ohm=solution.z_in_ohm,
+            stages=entries,
+        )
+
+
+def _stage_in_chain(position: int, stage: Stage, relation: NDArray[np.complex128], alone: IsolatedResponse,
+                    solution: CascadeSolution, output_held_at_zero: bool) -> StageInChain:
+    v_in, v_out = solution.voltage[:, position - 1], solution.voltage[:, position]
+    if output_held_at_zero:
+        # The next stage's input is a virtual ground: V_out ≡ 0 exactly; what the solve
+        # leaves there is rounding, not a signal.
+        v_out = np.zeros_like(v_out)
+    i_in = solution.current[:, position - 1]
+    per_volt: NDArray[np.complex128] | None = None
+    per_volt_why: str | None = None
+    if np.all(forced_zero(relation, V_IN)):
+        per_volt_why = _WHY_VIRTUAL_GROUND
+    else:
+        per_volt = _ratio(v_out, v_in)
+    per_amp: NDArray[np.complex128] | None = None
+    per_amp_why: str | None = None
+    if np.all(forced_zero(relation, I_IN)):
+        per_amp_why = _WHY_NO_INPUT_CURRENT
+    else:
+        per_amp = _ratio(v_out, i_in)
+    unit = alone.unit
+    own, own_why = (per_amp, per_amp_why) if unit == CURRENT_UNIT else (per_volt, per_volt_why)
+    error_db: NDArray[np.float64] | None = None
+    error_deg: NDArray[np.float64] | None = None
+    error_max: float | None = None
+    error_why: str | None = None
+    if alone.response is None:
+        error_why = f"the isolated response cannot be computed: {alone.why}"
+    elif own is None:
+        error_why = f"the response in chain is undefined: {own_why}"
+    elif output_held_at_zero:
+        error_why = ("in chain its output is held at 0 V by the next stage's virtual-ground input, so the "
+                     "loading error is unbounded (−∞ dB)")
+    else:
+        error_db, error_deg = _loading_error(own, alone.response)
+        finite = np.isfinite(error_db)
+        if np.any(finite):
+            error_max = float(np.max(np.abs(error_db[finite])))
+        else:
+            error_why = "the ratio of in-chain to isolated response is not finite at any frequency"
+    return StageInChain(
+        stage_id=stage.id,
+        position=position,
+        unit=unit,
+        isolated=alone.response,
+        isolated_why=alone.why,
+        in_chain_v_per_v=per_volt,
+        in_chain_v_per_v_why=per_volt_why,
+        in_chain_ohm=per_amp,
+        in_chain_ohm_why=per_amp_why,
+        loading_error_db=error_db,
+        loading_error_deg=error_deg,
+        loading_error_db_max=error_max,
+        loading_error_why=error_why,
+        z_in_ohm=solution.z_in_ohm[:, position - 1],
+        z_out_ohm=solution.z_out_ohm[:, position],
+    )
+
+
+# -- plain functions for one-off use ---------------------------------------------------------
+
+
+def analyze_chain(project: Project, f_hz: NDArray[np.float64] | list[float] | float | None = None) -> ChainResult:
+    """:meth:`ChainEngine.analyze` without keeping a cache (one-off use, command line)."""
+    return ChainEngine().analyze(project, f_hz)
+
+
+def isolated_response(stage: Stage, project: Project,
+                      f_hz: NDArray[np.float64] | list[float] | float | None = None) -> IsolatedResponse:
+    """:meth:`ChainEngine.isolated` without keeping a cache."""
+    return ChainEngine().isolated(stage, project, _frequencies(project, f_hz))
+
+
+def stage_port_relation(stage: Stage, project: Project,
+                        f_hz: NDArray[np.float64] | list[float] | float | None = None) -> PortRelation:
+    """:meth:`ChainEngine.port_relation` without keeping a cache."""
+    return ChainEngine().port_relation(stage, project, _frequencies(project, f_hz))

@@ -1,0 +1,331 @@
+"""Port relations: each stage reduced, at every frequency, to two equations in its port variables.
+
+A stage is a two-port between its input node, its output node and node ``0``. Its port
+variables are ``w = (V_in, I_in, V_out, I_out)``, both currents flowing *into* the stage. With
+the internal unknowns eliminated, every well-posed stage satisfies exactly two independent
+linear equations ``P(s)·w = 0`` (``P`` is 2 x 4). Unlike impedance, admittance or chain (ABCD)
+parameters, this form exists for every well-posed stage: an ideal op-amp output (``V_out``
+fixed by ``V_in``, any ``I_out``), an input at a virtual ground (``V_in ≡ 0``), or a stage whose
+input and output are the same node (a shunt sensor model: ``V_in = V_out``).
+
+How the two equations are found
+-------------------------------
+The stage's MNA rows with the two port currents injected, ``(G + sC)·x − e_in·I_in −
+e_out·I_out = 0``, are ``n`` equations in ``n + 2`` unknowns: a two-dimensional solution space.
+Two terminating rows ``V_in + R0·I_in = t1`` and ``V_out + R0·I_out = t2`` (a source and a load
+of resistance ``R0``) make the system square; solving it once for ``t = (1, 0)`` and once for
+``t = (0, 1)`` gives the port currents as ``I = Y0·t`` with ``t = V + R0·I``, that is::
+
+    Y0·V + (R0·Y0 − 1)·I = 0        (two rows: the port relation)
+
+which holds whatever the terminations were, so ``P`` does not depend on ``R0``; ``R0`` only
+keeps the square system regular (it is the geometric mean of the stage's resistors, so its
+scale matches the stage). All frequencies are solved in one stacked LAPACK call per stage.
+
+References
+----------
+C.-W. Ho, A. E. Ruehli and P. A. Brennan, "The modified nodal approach to network analysis",
+IEEE Trans. Circuits and Systems, vol. 22, no. 6, pp. 504-509, 1975.
+V. Belevitch, *Classical Network Theory*, Holden-Day, 1968, ch. 1 (n-ports described by an
+implicit linear relation between port voltages and currents, which exists where immittance
+matrices do not).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.engine.mna import CircuitError, StageSystem
+
+__all__ = [
+    "V_IN",
+    "I_IN",
+    "V_OUT",
+    "I_OUT",
+    "PortRelation",
+    "forced_zero",
+    "TERMINATIONS",
+    "reduce_stage",
+    "reference_resistance",
+    "termination_scores",
+]
+
+TWO_PI = 2.0 * math.pi
+# Column order of the port variables in a relation P·w = 0.
+V_IN, I_IN, V_OUT, I_OUT = 0, 1, 2, 3
+DEFAULT_R0_OHM = 1e3
+# Retries with other terminations when a stage terminated in R0 is singular at a frequency
+# (it would take a negative resistance equal to -R0 somewhere in the stage).
+_R0_FACTORS = (1.0, 3.7, 0.29)
+
+
+@dataclass(frozen=True, slots=True)
+class PortRelation:
+    """A stage's port relation ``P(j2πf)·(V_in, I_in, V_out, I_out) = 0`` at every frequency.
+
+    Attributes
+    ----------
+    f_hz : ndarray, shape (F,)
+        Frequencies in hertz.
+    p : ndarray, shape (F, 2, 4), complex
+        The two equations per frequency; columns in the order ``V_in`` (V), ``I_in`` (A),
+        ``V_out`` (V), ``I_out`` (A), both currents flowing into the stage. Each row is scaled
+        to unit largest magnitude.
+    fingerprint : str
+        The stage fingerprint the relation was computed from (the cache key).
+    r0_ohm : float
+        The reference resistance of the stage (its resistors' geometric mean, else 1 kΩ).
+    imposed : tuple of two int, or None
+        The two port variables the relation was solved for (``(V_IN, I_OUT)`` for most
+        stages); ``None`` when it came from the R0-terminated form.
+    """
+
+    f_hz: NDArray[np.float64]
+    p: NDArray[np.complex128]
+    fingerprint: str
+    r0_ohm: float
+    imposed: tuple[int, int] | None = None
+
+
+def reference_resistance(system: StageSystem) -> float:
+    """The terminating resistance R0 (Ω): the geometric mean of the stage's resistors, else 1 kΩ."""
+    values = [element.value for element in system.elements if element.type == "R" and element.value > 0]
+    if not values:
+        return DEFAULT_R0_OHM
+    return float(math.exp(sum(math.log(value) for value in values) / len(values)))
+
+
+# The pairs of port variables that can be imposed by the terminations, in order of preference:
+# voltage in / current out (the isolated drive with the output open), both currents, both
+# voltages, current in / voltage out, the input pair, the output pair.
+TERMINATIONS: tuple[tuple[int, int], ...] = (
+    (V_IN, I_OUT), (I_IN, I_OUT), (V_IN, V_OUT), (I_IN, V_OUT), (V_IN, I_IN), (V_OUT, I_OUT),
+)
+# A termination is accepted, in the order of preference, unless it is singular by the stage's
+# structure (an input at a virtual ground cannot take a voltage): on the R0 scale its
+# complementary 2 x 2 block keeps at least this fraction of the largest possible minor. The
+# preferred explicit forms carry the stage's exact structure (a shunt stage's V_out = V_in,
+# an ideal output's zero output impedance), so they stay accurate whatever impedance level
+# the neighbouring stages present; a better-scored but less structured form would not (the
+# impedance form of a 1 GΩ shunt next to a 1 Ω virtual ground loses nine digits).
+_GOOD_TERMINATION = 1e-9
+_SAMPLES = 9
+
+
+def _terminated_solve(system: StageSystem, s: NDArray[np.complex128], imposed: tuple[int, int] | None,
+                      r0_ohm: float) -> NDArray[np.complex128]:
+    """Solve the stage with two terminating rows, for t = e1 and t = e2.
+
+    ``imposed`` names the two port variables set to ``t`` (a voltage row ``v(port) = t`` or a
+    current row ``I_port = t``); ``None`` terminates both ports in R0 (``V + R0·I = t``).
+    Returns the four port variables, shape (F, 4, 2): column j for t = e_j.
+    """
+    n = system.size
+    size = n + 2
+    g = np.zeros((size, size))
+    c = np.zeros((size, size))
+    g[:n, :n] = system.g
+    c[:n, :n] = system.c
+    port_in, port_out = system.input_index, system.output_index
+    # The injected port currents enter their node's current balance (rows: currents leaving).
+    g[port_in, n] -= 1.0
+    g[port_out, n + 1] -= 1.0
+    column_of = {V_IN: port_in, I_IN: n, V_OUT: port_out, I_OUT: n + 1}
+    if imposed is None:
+        # V_in + R0·I_in = t1, V_out + R0·I_out = t2.
+        g[n, port_in], g[n, n] = 1.0, r0_ohm
+        g[n + 1, port_out], g[n + 1, n + 1] = 1.0, r0_ohm
+    else:
+        g[n, column_of[imposed[0]]] = 1.0
+        g[n + 1, column_of[imposed[1]]] = 1.0
+    matrices = g[None, :, :] + s[:, None, None] * c[None, :, :]
+    right = np.zeros((len(s), size, 2), dtype=complex)
+    right[:, n, 0] = 1.0
+    right[:, n + 1, 1] = 1.0
+    solution = np.linalg.solve(matrices, right)
+    ports = solution[:, [port_in, n, port_out, n + 1], :]
+    return ports.astype(np.complex128, copy=False)
+
+
+def _r0_relation(ports: NDArray[np.complex128], r0_ohm: float) -> NDArray[np.complex128]:
+    # With t = V + R0·I imposed, I = Y0·t, so Y0·V + (R0·Y0 − 1)·I = 0 (one row per current).
+    currents = ports[:, [I_IN, I_OUT], :]
+    relation = np.empty((ports.shape[0], 2, 4), dtype=complex)
+    relation[:, :, V_IN] = currents[:, :, 0]
+    relation[:, :, V_OUT] = currents[:, :, 1]
+    relation[:, :, I_IN] = r0_ohm * currents[:, :, 0]
+    relation[:, :, I_OUT] = r0_ohm * currents[:, :, 1]
+    relation[:, 0, I_IN] -= 1.0
+    relation[:, 1, I_OUT] -= 1.0
+    return relation
+
+
+def _explicit_relation(ports: NDArray[np.complex128], imposed: tuple[int, int]) -> NDArray[np.complex128]:
+    # Each of the two free variables as an explicit combination of the two imposed ones:
+    # free_r − Σ_j W[r, j]·imposed_j = 0. Its coefficients are transfer functions of a regular
+    # system, each accurate to its own size whatever the impedance level of the ports.
+    free = [index for index in range(4) if index not in imposed]
+    relation = np.zeros((ports.shape[0], 2, 4), dtype=complex)
+    for row, variable in enumerate(free):
+        relation[:, row, variable] = 1.0
+        for column, source in enumerate(imposed):
+            relation[:, row, source] = -ports[:, variable, column]
+    return relation
+
+
+def termination_scores(relation: NDArray[np.complex128], r0_ohm: float) -> NDArray[np.float64]:
+    """How well each pair of :data:`TERMINATIONS` determines the other two variables.
+
+    For each frequency and pair: |minor of the complementary columns| over the square root of
+    the sum of all six squared minors (Cauchy-Binet), with currents measured as R0·I so that
+    volts and amperes weigh alike. 1 is ideal, 0 means the pair cannot be imposed.
+
+    Returns
+    -------
+    ndarray, shape (F, 6)
+    """
+    scaled = relation.copy()
+    scaled[:, :, [I_IN, I_OUT]] /= r0_ohm
+
+    def minor(a: int, b: int) -> NDArray[np.complex128]:
+        return scaled[:, 0, a] * scaled[:, 1, b] - scaled[:, 0, b] * scaled[:, 1, a]
+
+    pairs = [(a, b) for a in range(4) for b in range(a + 1, 4)]
+    total = np.sqrt(sum(np.abs(minor(a, b)) ** 2 for a, b in pairs))
+    total = np.where(total > 0, total, 1.0)
+    scores = []
+    for imposed in TERMINATIONS:
+        a, b = (index for index in range(4) if index not in imposed)
+        scores.append(np.abs(minor(a, b)) / total)
+    result: NDArray[np.float64] = np.stack(scores, axis=1)
+    return result
+
+
+def _sample(frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
+    if len(frequencies) <= _SAMPLES:
+        return frequencies
+    picks = np.unique(np.linspace(0, len(frequencies) - 1, _SAMPLES).round().astype(int))
+    sampled: NDArray[np.float64] = frequencies[picks]
+    return sampled
+
+
+def _robust_r0(system: StageSystem, s: NDArray[np.complex128], base: float) -> tuple[
+        NDArray[np.complex128], float] | None:
+    for factor in _R0_FACTORS:
+        r0_ohm = base * factor
+        try:
+            ports = _terminated_solve(system, s, None, r0_ohm)
+        except np.linalg.LinAlgError:
+            continue
+        if np.all(np.isfinite(ports)):
+            return _r0_relation(ports, r0_ohm), r0_ohm
+    return None
+
+
+def reduce_stage(system: StageSystem, f_hz: NDArray[np.float64], *, stage_id: str = "") -> PortRelation:
+    """Reduce an assembled stage to its port relation at the frequencies ``f_hz``.
+
+    First the stage terminated in R0 at both ports (regular for every well-posed stage) is
+    solved at a few of the frequencies, to learn which two port variables can be imposed
+    (:func:`termination_scores`): for most stages the input voltage and output current, for an
+    input at a virtual ground the two currents, and so on. Then one batched solve over all
+    frequencies with those two variables imposed gives the other two explicitly; that explicit
+    form keeps full accuracy at any impedance level of the neighbouring stages.
+
+    Parameters
+    ----------
+    system : StageSystem
+        The stage's pencil (from :func:`stagewise.engine.mna.assemble`).
+    f_hz : array_like, shape (F,)
+        Frequencies in hertz.
+    stage_id : str
+        Used in error messages only.
+
+    Returns
+    -------
+    PortRelation
+
+    Raises
+    ------
+    CircuitError
+        When the stage is not a well-posed two-port (a port at node 0, a floating node, a loop
+        of voltage sources, an op-amp without feedback), naming the stage.
+
+    Examples
+    --------
+    >>> relation = reduce_stage(assemble(stage, project), frequency_grid(project.settings))  # doctest: +SKIP
+    >>> relation.p.shape, relation.imposed                                                   # doctest: +SKIP
+    ((601, 2, 4), (0, 3))
+    """
+    name = f'stage "{stage_id}"' if stage_id else "the stage"
+    if system.input_index < 0 or system.output_index < 0:
+        raise CircuitError(f"{name}: a port cannot be node 0")
+    frequencies = np.asarray(f_hz, dtype=float)
+    s = np.asarray(1j * TWO_PI * frequencies, dtype=np.complex128)
+    base = reference_resistance(system)
+    sampled = _robust_r0(system, np.asarray(1j * TWO_PI * _sample(frequencies), dtype=np.complex128), base)
+    if sampled is None:
+        raise CircuitError(f"{name} is not a well-posed two-port: with its ports terminated its equations "
+                           "are singular (a floating node, a loop of voltage sources or an op-amp without "
+                           "feedback)")
+    sample_relation, r0_ohm = sampled
+    worst = np.min(termination_scores(sample_relation, r0_ohm), axis=0)
+    order = [index for index in range(len(TERMINATIONS)) if worst[index] >= _GOOD_TERMINATION]
+    order += [index for index in np.argsort(-worst) if index not in order and worst[index] > 0]
+    relation: NDArray[np.complex128] | None = None
+    imposed: tuple[int, int] | None = None
+    for index in order:
+        candidate = TERMINATIONS[int(index)]
+        try:
+            ports = _terminated_solve(system, s, candidate, r0_ohm)
+        except np.linalg.LinAlgError:
+            continue
+        if np.all(np.isfinite(ports)):
+            relation, imposed = _explicit_relation(ports, candidate), candidate
+            break
+    if relation is None:
+        # No pair can be imposed at every frequency: the R0 form is regular wherever the stage is.
+        full = _robust_r0(system, s, base)
+        if full is None:
+            raise CircuitError(f"{name} is not a well-posed two-port at every analysis frequency")
+        relation, r0_ohm = full
+    scale = np.max(np.abs(relation), axis=2, keepdims=True)
+    relation = relation / np.where(scale > 0, scale, 1.0)
+    return PortRelation(f_hz=frequencies, p=relation, fingerprint=system.fingerprint, r0_ohm=r0_ohm,
+                        imposed=imposed)
+
+
+def forced_zero(relation: NDArray[np.complex128], column: int, tolerance: float = 1e-9) -> NDArray[np.bool_]:
+    """Where the relation by itself forces the port variable ``column`` to zero.
+
+    ``V_in ≡ 0`` (an input at a virtual ground) holds when a combination of the two rows
+    involves ``V_in`` alone, that is when the 2 x 3 block of the other three columns has rank
+    one: all its 2 x 2 minors vanish against the product of the rows' norms.
+
+    Parameters
+    ----------
+    relation : ndarray, shape (F, 2, 4)
+    column : int
+        One of ``V_IN``, ``I_IN``, ``V_OUT``, ``I_OUT``.
+    tolerance : float
+        Relative size below which a minor counts as zero.
+
+    Returns
+    -------
+    ndarray of bool, shape (F,)
+    """
+    others = [index for index in range(4) if index != column]
+    block = relation[:, :, others]
+    minors = np.stack([
+        block[:, 0, a] * block[:, 1, b] - block[:, 0, b] * block[:, 1, a]
+        for a, b in ((0, 1), (0, 2), (1, 2))
+    ], axis=1)
+    norms = np.linalg.norm(relation[:, 0, :], axis=1) * np.linalg.norm(relation[:, 1, :], axis=1)
+    rank_one = np.max(np.abs(minors), axis=1) <= tolerance * norms
+    involved = np.max(np.abs(relation[:, :, column]), axis=1) > tolerance * np.sqrt(norms)
+    result: NDArray[np.bool_] = rank_one & involved
+    return result
