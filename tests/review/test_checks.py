@@ -103,6 +103,7 @@ def test_waived_counts_as_waived_even_when_not_met() -> None:
     assert result.state is CheckState.WAIVED
     assert result.value is not None  # the value is still shown
     assert "the next stage limits the band anyway" in (result.why or "")
+    assert "without the waiver: not met" in (result.why or "")
     assert totals([result]).waived == 1 and totals([result]).met == 0
 
 

@@ -124,7 +124,9 @@ def evaluate_check(check: Check, stage: Stage, project: Project, provider: Metri
     def result(state: CheckState, value: float | None, why: str | None, at_hz: float | None) -> CheckResult:
         if waiver is not None:
             who = f"{waiver.by} ({waiver.role})" if waiver.role else waiver.by
-            why = f"waived by {who}: {waiver.justification}"
+            # Keep what the check would say without the waiver: a waiver hides nothing.
+            unwaived = f"{state}: {why}" if why else str(state)
+            why = f"waived by {who}: {waiver.justification} (without the waiver: {unwaived})"
             state = CheckState.WAIVED
         return CheckResult(stage.id, check.id, check.text, check.metric, check.where, at_hz, value, unit,
                            limits, state, why)
