@@ -16,6 +16,7 @@ import pytest
 from stagewise.cli import main
 from stagewise.engine.mna import assemble
 from stagewise.engine.sweep import drive, transfer
+from stagewise.files.lock import acquire_lock, lock_path
 from stagewise.files.project_file import load_project
 from stagewise.review.audit import verify_trail
 
@@ -128,3 +129,21 @@ def test_other_refusals_leave_the_file_untouched(project_file: Path, tmp_path: P
     assert main(["import-cards", str(project_file), str(tmp_path / "binary.cards"), "--name", "X"]) == 2
     assert "not UTF-8" in capsys.readouterr().err
     assert _snapshot(project_file) == before
+
+
+def test_a_project_open_for_editing_elsewhere_is_refused(project_file: Path, tmp_path: Path,
+                                                         capsys: pytest.CaptureFixture[str]) -> None:
+    # Common practice, no source: never write under a file someone else holds open for editing.
+    cards = tmp_path / "ok.cards"
+    cards.write_text(GOOD_CARDS, encoding="utf-8")
+    lock = acquire_lock(project_file, "Someone Else")
+    try:
+        before = _snapshot(project_file)
+        status = main(["import-cards", str(project_file), str(cards), "--name", "X", "--in", "vi", "--out", "vo"])
+        assert status == 2
+        assert "open for editing" in capsys.readouterr().err
+        assert _snapshot(project_file) == before
+    finally:
+        lock.release()
+    assert main(["import-cards", str(project_file), str(cards), "--name", "X", "--in", "vi", "--out", "vo"]) == 0
+    assert not lock_path(project_file).exists()  # the command released its own lock

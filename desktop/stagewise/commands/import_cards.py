@@ -3,7 +3,8 @@
 Appends a stage built from element-card text (format in :mod:`stagewise.files.cards`), records
 an audit event ``import`` ("stage imported") with the stage id and the SHA-256 of the cards file,
 validates the whole project and saves it atomically. On any error the project file is left
-byte for byte as it was and the command exits with status 2 and one sentence.
+byte for byte as it was and the command exits with status 2 and one sentence. The project's
+edit lock is held during the import; a project open for editing elsewhere is refused.
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ from pathlib import Path
 from stagewise.cli import CommandError
 from stagewise.commands.common import load
 from stagewise.files.cards import CardError, stage_from_cards
+from stagewise.files.lock import LockError, acquire_lock
 from stagewise.files.project_file import save_project
 from stagewise.model.validate import validate
 from stagewise.review.audit import append_event
@@ -33,6 +35,22 @@ def _who(args: argparse.Namespace) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    # Hold the edit lock while reading and writing, so an import never lands under a project
+    # someone has open in the desktop program (their next save would drop it).
+    load(args.file)  # a missing or invalid project is reported before any lock file is made
+    try:
+        lock = acquire_lock(args.file, _who(args), take_stale=False)
+    except LockError as error:
+        if error.state is None:
+            raise CommandError(str(error)) from error
+        raise CommandError(f"{error}; close it there, or import the cards in the program") from error
+    try:
+        return _import(args)
+    finally:
+        lock.release()
+
+
+def _import(args: argparse.Namespace) -> int:
     project = load(args.file)
     cards_path = Path(args.cards)
     try:
