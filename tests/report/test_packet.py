@@ -1,0 +1,223 @@
+"""The PDF review packet, read back with pypdf (an independent PDF reader).
+
+Each demo project is given review records of our own (sign-offs, one made stale by a later part
+change, a waiver, an answer, comments), saved to a temporary folder and printed once with
+``stagewise packet``; the tests then read what the PDF says.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+import shutil
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+pypdf = pytest.importorskip("pypdf")
+
+from stagewise.cli import main  # noqa: E402
+from stagewise.files.project_file import file_sha256, load_project, save_project  # noqa: E402
+from stagewise.model.values import Quantity  # noqa: E402
+from stagewise.review import actions  # noqa: E402
+from stagewise.review.audit import EVENT_LABELS, verify_trail  # noqa: E402
+from stagewise.review.checks import CheckResult  # noqa: E402
+from stagewise.review.signoff import signoff_states  # noqa: E402
+from stagewise.review.words import CheckState  # noqa: E402
+
+PROJECTS = Path(__file__).resolve().parents[2] / "projects"
+CAUTION_PHRASES = (
+    # DESIGN section 9: the cautions every packet must carry.
+    "does not assess electrical safety",
+    "IEC 61010-1",
+    "IEC 60601-1",
+    "Verify every design on hardware.",
+)
+TIME = "2026-11-30T09:00:00Z"
+
+
+def _normal(text: str) -> str:
+    """Whitespace as single spaces (pypdf writes word gaps as tabs and lines as newlines).
+
+    Qt writes a Greek letter (Ω, µ) as its own text run, and pypdf reads the run change as a
+    gap; such gaps are removed on both sides of every comparison.
+    """
+    return re.sub(r"\s+([Ωµ])", r"\1", re.sub(r"\s+", " ", text))
+
+
+def _review(project_path: Path) -> dict[str, Any]:
+    """Give the project review records; returns what the tests expect to find."""
+    project = load_project(project_path)
+    first, second = project.stages[0], project.stages[1]
+    actions.sign(project, first.id, "Ada Reviewer", "analog lead", "approve", "looked fine", time=TIME)
+    actions.sign(project, second.id, "Ben Checker", "test engineer", "approve", "bench-checked", time=TIME)
+    actions.comment(project, second.id, "Ben Checker", "Bench result attached to the ticket.", time=TIME)
+    manual = next((check for stage in project.stages for check in stage.checks if check.metric is None), None)
+    if manual is not None:
+        stage = next(stage for stage in project.stages if manual in stage.checks)
+        actions.answer(project, stage.id, manual.id, "yes", "Ada Reviewer", "measured", time=TIME)
+    numeric = next(check for check in project.stages[-1].checks if check.metric is not None)
+    actions.waive(project, project.stages[-1].id, numeric.id, "Ada Reviewer", "analog lead",
+                  "accepted for the prototype build", time=TIME)
+    # A later part change makes the first stage's sign-off stale.
+    part = next(part for part in first.parts if part.type in ("R", "C")) if first.parts else None
+    if part is not None and part.value is not None:
+        part.value = Quantity(part.value.si * 1.1, part.value.si * 1.1)
+    save_project(project_path, project)
+    return {"stale_stage": first.id if part is not None else None, "current_stage": second.id}
+
+
+@pytest.fixture(scope="module", params=["hydrophone", "greenhouse"])
+def printed(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
+    folder = tmp_path_factory.mktemp(request.param)
+    path = folder / f"{request.param}.stagewise.json"
+    shutil.copyfile(PROJECTS / f"{request.param}.stagewise.json", path)
+    expected = _review(path)
+    sha_before = file_sha256(path)
+    project_before = load_project(path)
+    output = folder / "packet.pdf"
+    status = main(["packet", str(path), "-o", str(output), "--by", "Quality Office"])
+    assert status == 0
+    reader = pypdf.PdfReader(str(output))
+    pages = [page.extract_text() for page in reader.pages]
+    return {"path": path, "output": output, "reader": reader, "pages": pages, "text": _normal(" ".join(pages)),
+            "sha_before": sha_before, "project": project_before, **expected}
+
+
+def _section(printed: dict[str, Any], start: str, end: str | None) -> str:
+    text = printed["text"]
+    begin = text.index(start)
+    finish = text.index(end, begin) if end is not None else len(text)
+    return text[begin:finish]
+
+
+def _stage_heading(number: int, name: str) -> str:
+    return f"Stage {number}: {name}"
+
+
+def test_every_stage_has_its_section(printed: dict[str, Any]) -> None:
+    # Common practice, no source: a review packet covers every stage of the chain.
+    for number, stage in enumerate(printed["project"].stages, start=1):
+        assert _normal(_stage_heading(number, stage.name)) in printed["text"]
+
+
+def test_cover_names_the_full_sha256_of_the_file_it_was_printed_from(printed: dict[str, Any]) -> None:
+    # Reference library: hashlib (Python standard library), sha256 of the file's bytes before printing.
+    cover = _normal(printed["pages"][0])
+    assert printed["sha_before"] in cover
+    assert printed["project"].title.split()[0] in cover
+
+
+def test_every_page_says_page_n_of_m(printed: dict[str, Any]) -> None:
+    total = len(printed["pages"])
+    assert total > 3
+    for number, text in enumerate(printed["pages"], start=1):
+        assert f"page {number} of {total}" in _normal(text)
+
+
+def test_cautions_are_present(printed: dict[str, Any]) -> None:
+    # Source: DESIGN.md section 9 (the cautions every packet carries).
+    for phrase in CAUTION_PHRASES:
+        assert _normal(phrase) in printed["text"]
+
+
+def test_plots_are_vectors_without_embedded_images(printed: dict[str, Any]) -> None:
+    # Source: ISO 32000-1:2008 (PDF 1.7), 8.8 and 8.10: raster images are Image XObjects, also inside Forms.
+    def images_in(resources: Any) -> int:
+        count = 0
+        xobjects = resources.get("/XObject") if resources is not None else None
+        if xobjects is None:
+            return 0
+        for item in xobjects.get_object().values():
+            obj = item.get_object()
+            if obj.get("/Subtype") == "/Image":
+                count += 1
+            elif obj.get("/Subtype") == "/Form":
+                count += images_in(obj.get("/Resources"))
+        return count
+
+    for page in printed["reader"].pages:
+        assert images_in(page.get("/Resources")) == 0
+    # The response plots are there as drawn paths with their axis text.
+    assert "frequency (Hz)" in printed["text"]
+    contents = printed["reader"].pages[2].get_contents().get_data()
+    assert contents.count(b" l\n") + contents.count(b" c\n") > 200
+
+
+def test_stale_signoff_is_marked(printed: dict[str, Any]) -> None:
+    project = printed["project"]
+    stages = project.stages
+    numbers = {stage.id: index for index, stage in enumerate(stages, start=1)}
+
+    def stage_text(stage_id: str) -> str:
+        number = numbers[stage_id]
+        stage = stages[number - 1]
+        following = _normal(_stage_heading(number + 1, stages[number].name)) if number < len(stages) else "Audit trail"
+        return _section(printed, _normal(_stage_heading(number, stage.name)), following)
+
+    # By construction: Ada signed the first stage and a part changed afterwards (stale); Ben
+    # signed the second stage as it is (current).
+    if printed["stale_stage"] is not None:
+        stale = stage_text(printed["stale_stage"])
+        assert f"Ada Reviewer analog lead {TIME} STALE" in stale
+    current = stage_text(printed["current_stage"])
+    assert f"Ben Checker test engineer {TIME} approved" in current
+    assert "Bench result attached to the ticket." in current
+    # Every other sign-off in the demo file: marked exactly when the review layer calls it stale.
+    for stage_id, state in signoff_states(project).items():
+        text = stage_text(stage_id)
+        for view in state.signoffs:
+            signoff = view.signoff
+            row_start = _normal(f"{signoff.name} {signoff.role} {signoff.time} ")
+            assert row_start in text
+            following = text[text.index(row_start) + len(row_start):]
+            assert following.startswith("STALE") == view.stale, (stage_id, signoff.name)
+
+
+def test_check_values_and_states_match_the_check_command(printed: dict[str, Any],
+                                                         capsys: pytest.CaptureFixture[str]) -> None:
+    # The packet and `stagewise check --json` must say the same for every check (DESIGN 6 and 8).
+    path = printed["path"]
+    main(["check", str(path), "--json"])
+    document = json.loads(capsys.readouterr().out)
+    stages = printed["project"].stages
+    for number, stage in enumerate(stages, start=1):
+        following = _normal(_stage_heading(number + 1, stages[number].name)) if number < len(stages) else "Audit trail"
+        section = _section(printed, _normal(_stage_heading(number, stage.name)), following)
+        checks_at = section.index("Checks check metric limits value status reason")
+        mine = [item for item in document["checks"] if item["stage"] == stage.id]
+        position = checks_at
+        for index, item in enumerate(mine):
+            start = section.index(item["id"], position)
+            end = section.index(mine[index + 1]["id"], start + len(item["id"])) if index + 1 < len(mine) else len(section)
+            row = section[start:end]
+            shown = CheckResult(stage.id, item["id"], item["text"], item["metric"], item["where"], item["at_hz"],
+                                item["value"], item["unit"], item["limits"], CheckState(item["state"]),
+                                item["why"]).value_text()
+            expected = " ".join(part for part in (item["limits"] or "—", shown, item["state"]) if part)
+            assert _normal(expected) in row, (item["id"], row)
+            position = start + len(item["id"])
+
+
+def test_audit_events_are_listed(printed: dict[str, Any]) -> None:
+    trail = _section(printed, "Audit trail", None)
+    events = printed["project"].audit
+    assert events, "the fixture records events"
+    for event in events:
+        assert f"{event.seq} {event.time}" in trail
+        assert _normal(EVENT_LABELS.get(event.what, event.what)) in trail
+    assert "audit trail intact" in trail.lower()
+
+
+def test_printing_is_recorded_with_the_packets_own_sha256(printed: dict[str, Any]) -> None:
+    # Reference library: hashlib (Python standard library), sha256 of the PDF's bytes.
+    project = load_project(printed["path"])
+    last = project.audit[-1]
+    assert last.what == "packet"
+    assert last.who == "Quality Office"
+    assert last.detail["packet_sha256"] == hashlib.sha256(printed["output"].read_bytes()).hexdigest()
+    assert last.detail["file_sha256"] == printed["sha_before"]
+    assert verify_trail(project.audit).intact
+    assert len(project.audit) == len(printed["project"].audit) + 1
