@@ -749,6 +749,8 @@ def design_filter(
         else:
             template_id = "sallen_key_lowpass" if kind == "lowpass" else "sallen_key_highpass"
         sized.append(size_template(template_id, second, resistor_series, capacitor_series, impedance_ohm))
+    if topology == "mfb" and sum(1 for section in sections if section.order == 2) % 2 == 1:
+        notes.append("Each multiple-feedback section inverts; with an odd number of them the filter inverts.")
     if response == "chebyshev" and order % 2 == 0:
         notes.append("Even-order Chebyshev from unit-gain sections: the ripple lies above 0 dB, not below.")
     return FilterDesign(response=response, kind=kind, order=order, cutoff_hz=float(cutoff_hz),

@@ -229,8 +229,9 @@ def instantiate_template(
     name : str, optional
         The new stage's name; the template's name by default.
     values : mapping of str to float, optional
-        Part values in SI units by ref (for instance from a sizing result), replacing the
-        template's defaults. Every ref must be a valued part of the template.
+        Part values in SI units by ref (for instance ``SizedStage.values_si()``), replacing the
+        template's defaults; written as engineering text with 4 significant digits (preferred
+        values are exact). Every ref must be a valued part of the template.
 
     Raises
     ------
