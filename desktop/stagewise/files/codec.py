@@ -38,7 +38,7 @@ from stagewise.model.project import (
 )
 from stagewise.model.values import Quantity, ValueSyntaxError
 
-__all__ = ["ProjectFileError", "decode", "dumps", "encode"]
+__all__ = ["JsonObject", "ProjectFileError", "decode", "dumps", "encode"]
 
 T = TypeVar("T")
 
@@ -55,6 +55,29 @@ class ProjectFileError(ValueError):
         else:
             message = f"{where}{len(problems)} problems: " + "; ".join(problems)
         super().__init__(message)
+
+
+class JsonObject(dict[str, Any]):
+    """A JSON object that remembers keys written more than once (``json`` keeps the last).
+
+    The loader parses with :meth:`from_pairs` as ``object_pairs_hook``; the decoder reports
+    each repeated key with its path instead of silently dropping a value.
+    """
+
+    duplicate_keys: tuple[str, ...] = ()
+
+    @classmethod
+    def from_pairs(cls, pairs: list[tuple[str, Any]]) -> JsonObject:
+        result = cls(pairs)
+        if len(result) != len(pairs):
+            seen: set[str] = set()
+            repeated: list[str] = []
+            for key, _ in pairs:
+                if key in seen and key not in repeated:
+                    repeated.append(key)
+                seen.add(key)
+            result.duplicate_keys = tuple(repeated)
+        return result
 
 
 class _Reader:
@@ -86,6 +109,8 @@ class _Reader:
         if not isinstance(data, dict):
             self.problem(f"expected an object, found {_describe(data)}")
             return None
+        for key in getattr(data, "duplicate_keys", ()):
+            self.problem(f'the key "{key}" is written more than once; keep one')
         for key in data:
             if key not in allowed:
                 self.problem(f'unknown key "{key}"; allowed here: {", ".join(allowed)}')

@@ -11,11 +11,12 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import stat
 import tempfile
 from pathlib import Path
 from typing import Any
 
-from stagewise.files.codec import ProjectFileError, decode, dumps
+from stagewise.files.codec import JsonObject, ProjectFileError, decode, dumps
 from stagewise.files.migrate import migrate
 from stagewise.model.project import FORMAT_VERSION, Project
 from stagewise.model.validate import validate
@@ -40,13 +41,18 @@ def loads_project(text: str | bytes, source: str = "") -> Project:
     ProjectFileError
         With every problem found, each naming its JSON path.
     """
+    if len(text) > MAX_FILE_BYTES:
+        raise ProjectFileError([f"the document is over {MAX_FILE_BYTES // (1024 * 1024)} MB; project files over "
+                                f"{MAX_FILE_BYTES // (1024 * 1024)} MB are refused"], source)
     if isinstance(text, bytes):
         try:
-            text = text.decode("utf-8")
+            # A byte-order mark (some editors write one) is accepted and dropped.
+            text = text.decode("utf-8-sig")
         except UnicodeDecodeError as error:
             raise ProjectFileError([f"the file is not UTF-8 text (byte {error.start})"], source) from error
     try:
-        document: Any = json.loads(text, parse_constant=_refuse_constant)
+        document: Any = json.loads(text.removeprefix("\ufeff"), parse_constant=_refuse_constant,
+                                   object_pairs_hook=JsonObject.from_pairs)
     except json.JSONDecodeError as error:
         raise ProjectFileError([f"not valid JSON at line {error.lineno}, column {error.colno}: {error.msg}"],
                                source) from error
@@ -81,50 +87,106 @@ def load_project(path: str | os.PathLike[str]) -> Project:
     """
     path = Path(path)
     source = str(path)
+    data = _read_bounded(path, source)
+    return loads_project(data, source)
+
+
+def _read_bounded(path: Path, source: str) -> bytes:
+    """The bytes of a regular file no larger than :data:`MAX_FILE_BYTES`."""
     try:
-        size = path.stat().st_size
-        if size > MAX_FILE_BYTES:
-            raise ProjectFileError([f"the file is {size / 1e6:.1f} MB; project files over "
-                                    f"{MAX_FILE_BYTES // (1024 * 1024)} MB are refused"], source)
-        data = path.read_bytes()
+        status = path.stat()
     except FileNotFoundError as error:
         raise ProjectFileError(["no such file"], source) from error
-    except IsADirectoryError as error:
-        raise ProjectFileError(["this is a folder, not a project file"], source) from error
     except PermissionError as error:
         raise ProjectFileError(["permission denied"], source) from error
     except OSError as error:
         raise ProjectFileError([f"cannot be read ({error.strerror})"], source) from error
-    return loads_project(data, source)
+    if stat.S_ISDIR(status.st_mode):
+        raise ProjectFileError(["this is a folder, not a project file"], source)
+    if not stat.S_ISREG(status.st_mode):
+        raise ProjectFileError(["not a regular file (a device, a pipe or a socket)"], source)
+    if status.st_size > MAX_FILE_BYTES:
+        raise ProjectFileError([f"the file is {status.st_size / 1e6:.1f} MB; project files over "
+                                f"{MAX_FILE_BYTES // (1024 * 1024)} MB are refused"], source)
+    try:
+        with path.open("rb") as stream:
+            # Read one byte past the limit: a file that grew since stat() is still refused.
+            data = stream.read(MAX_FILE_BYTES + 1)
+    except PermissionError as error:
+        raise ProjectFileError(["permission denied"], source) from error
+    except OSError as error:
+        raise ProjectFileError([f"cannot be read ({error.strerror})"], source) from error
+    if len(data) > MAX_FILE_BYTES:
+        raise ProjectFileError([f"the file is over {MAX_FILE_BYTES // (1024 * 1024)} MB; project files over "
+                                f"{MAX_FILE_BYTES // (1024 * 1024)} MB are refused"], source)
+    return data
 
 
 def save_project(path: str | os.PathLike[str], project: Project) -> None:
     """Save atomically, keeping the previous file as ``NAME.stagewise.json.bak``.
 
-    The text is written to a temporary file in the same folder, flushed and fsynced, and only
-    then renamed over the target; a failure at any point leaves the old file as it was.
+    The text is written to a temporary file in the same folder, flushed and fsynced; the
+    previous file is copied to the ``.bak`` the same way (temporary file, fsync, rename); only
+    then is the temporary file renamed over the target. A failure at any point leaves the old
+    file as it was (and the previous ``.bak`` intact or replaced whole). The new file keeps the
+    old one's permission bits. The project is not validated here: callers that must not write
+    an invalid project call :func:`stagewise.model.validate.validate` first.
+
+    Raises
+    ------
+    OSError
+        The folder is missing or not writable, the disk is full, ...; nothing was replaced.
     """
     path = Path(path)
     text = dumps(project)
     folder = path.parent if str(path.parent) else Path(".")
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    mode = _mode_for(path)
+    temporary = _write_temporary(folder, path.name, text.encode("utf-8"), mode)
     try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
-            stream.write(text)
-            stream.flush()
-            os.fsync(stream.fileno())
         if path.exists():
             backup = path.with_name(path.name + ".bak")
-            data = path.read_bytes()
-            backup.write_bytes(data)
+            backup_temporary = _write_temporary(folder, backup.name, path.read_bytes(), mode)
+            try:
+                os.replace(backup_temporary, backup)
+            except BaseException:
+                _remove(backup_temporary)
+                raise
         os.replace(temporary, path)
     except BaseException:
-        try:
-            os.unlink(temporary)
-        except FileNotFoundError:
-            pass
+        _remove(temporary)
         raise
     _fsync_folder(folder)
+
+
+def _mode_for(path: Path) -> int:
+    """The permission bits for the saved file: the old file's, else the umask's default."""
+    try:
+        return stat.S_IMODE(path.stat().st_mode)
+    except OSError:
+        umask = os.umask(0)
+        os.umask(umask)
+        return 0o666 & ~umask
+
+
+def _write_temporary(folder: Path, name: str, data: bytes, mode: int) -> str:
+    handle, temporary = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=folder)
+    try:
+        with os.fdopen(handle, "wb") as stream:
+            stream.write(data)
+            stream.flush()
+            os.fsync(stream.fileno())
+        os.chmod(temporary, mode)
+    except BaseException:
+        _remove(temporary)
+        raise
+    return temporary
+
+
+def _remove(temporary: str) -> None:
+    try:
+        os.unlink(temporary)
+    except FileNotFoundError:
+        pass
 
 
 def _fsync_folder(folder: Path) -> None:
