@@ -7,6 +7,8 @@ import dataclasses
 import hashlib
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from review_helpers import base_project
 
 from stagewise.model.project import AuditEvent, Project
@@ -179,3 +181,47 @@ def test_what_the_chain_cannot_detect() -> None:
     assert verify_trail(rebuilt).intact
     # 3. Events cut from the end leave a shorter chain that verifies.
     assert verify_trail(copy.deepcopy(original)[:3]).intact
+
+
+# Property tests: for any trail and any single tampering, verify names the tampered position.
+
+_details = st.dictionaries(st.text(max_size=8), st.one_of(st.integers(), st.text(max_size=12), st.booleans(),
+                                                           st.floats(allow_nan=False, allow_infinity=False)),
+                           max_size=4)
+
+
+@st.composite
+def _trails(draw: st.DrawFn) -> list[AuditEvent]:
+    project = base_project()
+    for _ in range(draw(st.integers(min_value=2, max_value=8))):
+        append_event(project, draw(st.sampled_from(["Ana", "Ben", "Émile"])),
+                     draw(st.sampled_from(["signoff", "waiver", "comment"])), draw(_details),
+                     time="2026-11-05T12:00:00Z")
+    return project.audit
+
+
+@settings(max_examples=60, deadline=None)
+@given(_trails(), st.data())
+def test_any_single_field_edit_is_named_at_its_event(events: list[AuditEvent], data: st.DataObject) -> None:
+    index = data.draw(st.integers(min_value=0, max_value=len(events) - 1))
+    field = data.draw(st.sampled_from(["seq", "time", "who", "what", "detail", "prev"]))
+    event = events[index]
+    replacement: object = {
+        "seq": event.seq + 7, "time": "2027-01-01T00:00:00Z", "who": event.who + "x", "what": event.what + "x",
+        "detail": {**event.detail, "tampered": True}, "prev": "e" * 64,
+    }[field]
+    setattr(event, field, replacement)
+    result = verify_trail(events)
+    assert (result.intact, result.broken_index) == (False, index)
+
+
+@settings(max_examples=60, deadline=None)
+@given(_trails(), st.data())
+def test_any_deletion_before_the_end_or_any_swap_is_named(events: list[AuditEvent], data: st.DataObject) -> None:
+    first = data.draw(st.integers(min_value=0, max_value=len(events) - 2))
+    second = data.draw(st.integers(min_value=first + 1, max_value=len(events) - 1))
+    swapped = list(events)
+    swapped[first], swapped[second] = swapped[second], swapped[first]
+    assert (verify_trail(swapped).intact, verify_trail(swapped).broken_index) == (False, first)
+    shortened = events[:first] + events[first + 1:]
+    assert (verify_trail(shortened).intact, verify_trail(shortened).broken_index) == (False, first)

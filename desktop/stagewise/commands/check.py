@@ -16,6 +16,7 @@ from typing import Any
 from stagewise.commands.common import print_json
 from stagewise.files.project_file import file_sha256, load_project
 from stagewise.model.project import Project
+from stagewise.model.values import format_value
 from stagewise.review.checks import CheckResult, MetricProvider, UnavailableProvider, evaluate_project, totals
 from stagewise.review.metrics import METRICS
 from stagewise.review.signoff import signoff_states
@@ -49,11 +50,7 @@ def _metric_text(result: CheckResult) -> str:
         return "manual"
     label = METRICS[result.metric].label if result.metric in METRICS else result.metric
     where = WHERE_WORDS.get(result.where or "", result.where or "")
-    at = ""
-    if result.at_hz is not None:
-        from stagewise.model.values import format_value
-
-        at = f" @ {format_value(result.at_hz, 'Hz')}"
+    at = "" if result.at_hz is None else f" @ {format_value(result.at_hz, 'Hz')}"
     return f"{label}, {where}{at}"
 
 
