@@ -222,3 +222,12 @@ def test_commands_run_as_a_program(tmp_path: Path) -> None:
                                capture_output=True, text=True, timeout=60, check=False)
     assert completed.returncode == 0, completed.stderr
     assert "intact" in completed.stdout
+
+
+def test_verify_is_blind_to_reformatting(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # The hash is over the canonical form of the parsed event, not over the file's bytes.
+    path = _reviewed(tmp_path)
+    document = json.loads(path.read_text(encoding="utf-8"))
+    path.write_text(json.dumps(document, indent=5, sort_keys=True, ensure_ascii=True), encoding="utf-8")
+    status, out, _ = _run(capsys, "verify", str(path))
+    assert status == 0 and "intact" in out
