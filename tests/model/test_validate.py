@@ -9,6 +9,7 @@ from __future__ import annotations
 import copy
 import json
 from collections.abc import Callable
+from pathlib import Path
 from typing import Any
 
 import pytest
@@ -18,39 +19,13 @@ from stagewise.model.project import Part, Project, Stage
 from stagewise.model.validate import validate
 from stagewise.model.values import Quantity
 
+DESIGN_EXAMPLE = Path(__file__).resolve().parents[1] / "files" / "data" / "design_example.json"
+
 
 def design_example() -> dict[str, Any]:
-    """The example file of DESIGN section 5, key for key."""
-    return {
-        "format": "stagewise-project",
-        "version": 1,
-        "title": "Example chain",
-        "revision": "A",
-        "settings": {"f_min_hz": 1, "f_max_hz": 1e6, "points_per_decade": 100,
-                     "temperature_c": 25, "ref_hz": 1000, "noise_band_hz": [10, 20000],
-                     "seed": 1},
-        "input": {"drive": "voltage", "amplitude": "10m"},
-        "converter": {"fs_hz": 96000, "bits": 16, "full_scale_vpp": 5},
-        "load": {"r_ohm": None, "c_f": None},
-        "opamp_models": {"generic-10M": {"a0_db": 110, "gbw_hz": "10M", "rout_ohm": 50}},
-        "stages": [
-            {"id": "buf", "name": "Input buffer", "drive": "voltage",
-             "ports": {"in": "in", "out": "out"},
-             "parts": [
-                 {"ref": "R1", "type": "R", "nodes": ["in", "0"], "value": "1M", "tol": "1%"},
-                 {"ref": "U1", "type": "opamp", "nodes": ["in", "out", "out"], "model": "generic-10M"},
-             ],
-             "checks": [
-                 {"id": "gain", "text": "Unity gain at 1 kHz", "metric": "gain_db", "where": "in_chain",
-                  "at_hz": 1000, "min": -0.1, "max": 0.1},
-             ],
-             "signoffs": [], "comments": [], "notes": ""},
-            {"id": "adc", "name": "Converter input", "kind": "block",
-             "zeros_hz": [], "poles_hz": [1.2e6], "gain": 1,
-             "zin": {"r_ohm": "1k", "c_f": "20p"}, "zout_ohm": 0},
-        ],
-        "audit": [],
-    }
+    """The example file of DESIGN section 5, key for key (copied into tests/files/data)."""
+    document: dict[str, Any] = json.loads(DESIGN_EXAMPLE.read_text(encoding="utf-8"))
+    return document
 
 
 def problems_of(document: dict[str, Any]) -> list[str]:
