@@ -62,6 +62,9 @@ TWO_PI = 2.0 * math.pi
 # Rank decisions on equilibrated matrices: a singular value below this fraction of the pencil's
 # norm is a structural zero (rounding of an exact zero is ~1e-16 of the norm).
 RANK_RTOL = 1e-11
+# A root of the equilibrated pencil below this magnitude (in units of the pencil's own frequency
+# scale) is a root at s = 0 blurred by rounding.
+ZERO_RTOL = 1e-12
 # A computed root whose imaginary part is below this fraction of its magnitude is real: a double
 # real pole splits into a pair with imaginary part ~sqrt(eps)·|p| under rounding.
 REAL_RTOL = 1e-7
@@ -209,7 +212,10 @@ def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64]) -> NDArra
         u, sigma, vt = np.linalg.svd(e)
         rank_e = _rank(sigma, reference)
         if rank_e == n:
-            values = scipy.linalg.eigvals(a, -e)
+            values = np.asarray(scipy.linalg.eigvals(a, -e), dtype=complex)
+            # A root at s = 0 (integrator, DC-blocking zero) comes out as rounding noise of
+            # the scaled pencil's size; make it exactly 0 so DC behaviour is decided exactly.
+            values[np.abs(values) < ZERO_RTOL] = 0.0
             return np.asarray(values * scale, dtype=complex)
         if rank_e == 0:
             if _rank(np.asarray(np.linalg.svd(a, compute_uv=False), dtype=float), reference) < n:
