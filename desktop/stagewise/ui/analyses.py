@@ -1,0 +1,416 @@
+"""What the worker computes for the views: thin adapters from engine results to view data.
+
+Every function here takes model objects (and a :class:`Context` with the frequency grid and
+caches), calls the engine, and returns a small frozen record the views draw. No numerics of our
+own: conversions are the engine's. Engine modules are imported inside the functions, so this
+module costs nothing at start-up and sympy or scipy.signal load only in the worker thread.
+
+Two registries say what runs for each stage and for the whole chain, and in which phase
+(1: quick, shown at once; 2: slower, shown when ready). A view looks its results up by name.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.model.project import Project, Stage
+
+__all__ = [
+    "CHAIN_ANALYSES",
+    "STAGE_ANALYSES",
+    "Context",
+    "NotAvailable",
+    "ResponseTrace",
+    "explain",
+    "stage_formula",
+    "stage_key",
+]
+
+
+class NotAvailable(Exception):  # noqa: N818 - it reads as "not available: why"
+    """An analysis that does not apply here; the message says why in one sentence."""
+
+
+@dataclass(frozen=True, slots=True)
+class ResponseTrace:
+    """A frequency response ready to draw: frequencies (Hz), magnitude (dB), phase (degrees)."""
+
+    f_hz: NDArray[np.float64]
+    mag_db: NDArray[np.float64]
+    phase_deg: NDArray[np.float64]
+    unit: str = "V/V"
+
+
+class Context:
+    """Per-worker state: the analysis grid of the current snapshot and caches by fingerprint.
+
+    Only one thread uses a context at a time (each worker pool has its own).
+    """
+
+    def __init__(self) -> None:
+        self.f_hz: NDArray[np.float64] = np.zeros(0)
+        self.baseline: Project | None = None
+        self._cache: dict[tuple[str, ...], Any] = {}
+        self._grid_key: tuple[float, float, int] = (0.0, 0.0, 0)
+        self.chain_state: dict[str, Any] = {}
+
+    def begin(self, project: Project, baseline: Project | None) -> None:
+        """Start work on a snapshot: new grid when the settings changed, keep valid caches."""
+        from stagewise.engine.sweep import frequency_grid
+
+        settings = project.settings
+        key = (settings.f_min_hz.si, settings.f_max_hz.si, settings.points_per_decade)
+        if key != self._grid_key:
+            self._grid_key = key
+            self.f_hz = frequency_grid(settings)
+            self._cache.clear()
+        self.baseline = baseline
+        self.chain_state = {}
+        # Keep the cache small: a long session of edits must not grow it without end.
+        if len(self._cache) > 400:
+            self._cache.clear()
+
+    def cached(self, key: tuple[str, ...], compute: Any) -> Any:
+        if key not in self._cache:
+            self._cache[key] = compute()
+        return self._cache[key]
+
+
+def stage_key(stage: Stage, project: Project) -> str:
+    """The stage's fingerprint: caches and formula requests are keyed by it."""
+    from stagewise.model.fingerprint import stage_fingerprint
+
+    return stage_fingerprint(stage, project)
+
+
+def explain(error: BaseException) -> str:
+    """One sentence for an analysis that failed."""
+    text = " ".join(str(error).split()) or type(error).__name__
+    if isinstance(error, np.linalg.LinAlgError):
+        return "the circuit cannot be solved (its matrix is singular): check for floating nodes or loops of sources"
+    return text
+
+
+def _problems(stage: Stage, project: Project) -> None:
+    from stagewise.model.validate import validate_stage
+
+    index = project.stages.index(stage) if stage in project.stages else 0
+    problems = validate_stage(stage, project, f"stages[{index}]")
+    if problems:
+        raise NotAvailable(problems[0].partition(": ")[2] or problems[0])
+
+
+def _trace(f_hz: NDArray[np.float64], response: NDArray[np.complex128], unit: str) -> ResponseTrace:
+    # Decibels of a magnitude ratio and the phase unwrapped along the sweep: presentation of
+    # the engine's complex response, as the engine's own metrics define them.
+    magnitude = np.abs(response)
+    with np.errstate(divide="ignore"):
+        mag_db = 20.0 * np.log10(magnitude)
+    phase_deg = np.degrees(np.unwrap(np.angle(response)))
+    return ResponseTrace(f_hz, mag_db, phase_deg, unit)
+
+
+@dataclass(frozen=True, slots=True)
+class RootSet:
+    """Poles and zeros (rad/s) of a minimal model, and the pairs that cancelled."""
+
+    poles_rad_s: NDArray[np.complex128]
+    zeros_rad_s: NDArray[np.complex128]
+    cancelled: tuple[tuple[complex, complex], ...] = ()
+
+
+@dataclass(frozen=True, slots=True)
+class NoiseTrace:
+    """Output noise density (V/√Hz): total and the largest contributions, plus a summary line."""
+
+    f_hz: NDArray[np.float64]
+    total: NDArray[np.float64]
+    contributions: tuple[tuple[str, NDArray[np.float64]], ...]
+    summary: str
+
+
+def _stage_analysis(stage: Stage, project: Project, context: Context) -> Any:
+    from stagewise.engine.stage import analyze_stage
+
+    _problems(stage, project)
+    return context.cached(("stage", stage_key(stage, project)),
+                          lambda: analyze_stage(stage, project, context.f_hz))
+
+
+def _usable(analysis: Any) -> Any:
+    if analysis.why is not None:
+        raise NotAvailable(analysis.why)
+    return analysis
+
+
+def _analysis_trace(analysis: Any) -> ResponseTrace:
+    """Magnitude and phase as the engine defines them (engine/metrics.py, phase anchored at DC)."""
+    from stagewise.engine.metrics import frequency_response
+
+    response = frequency_response(analysis)
+    return ResponseTrace(response.f_hz, response.mag_db, response.phase_deg, analysis.unit)
+
+
+def isolated_response(stage: Stage, project: Project, context: Context) -> ResponseTrace:
+    """The stage alone: ideal drive at its input, output unloaded."""
+    analysis = _usable(_stage_analysis(stage, project, context))
+    return _analysis_trace(analysis)
+
+
+@dataclass(frozen=True, slots=True)
+class StepTrace:
+    """A unit-step response: time (s), output, final value and the step metrics' summary."""
+
+    t_s: NDArray[np.float64]
+    y: NDArray[np.float64]
+    final: float | None
+    summary: str
+
+
+def _step(analysis: Any) -> StepTrace:
+    from stagewise.engine.timeresp import step_response
+    from stagewise.model.values import format_value
+
+    if analysis.model is None:
+        raise NotAvailable(analysis.why or "no pole/zero model")
+    step = step_response(analysis.model)
+    words = []
+    if step.rise_s is not None:
+        words.append(f"rise {format_value(step.rise_s, 's')}")
+    if step.overshoot_pct is not None:
+        words.append(f"overshoot {step.overshoot_pct:.3g} %")
+    settle = getattr(step, "settle_1pct_s", None)
+    if settle is not None:
+        words.append(f"settles to 1 % in {format_value(settle, 's')}")
+    return StepTrace(step.t_s, step.y, step.final, ", ".join(words))
+
+
+def isolated_step(stage: Stage, project: Project, context: Context) -> StepTrace:
+    """Unit-step response of the stage alone (engine/timeresp.py, from its pole/zero model)."""
+    analysis = _usable(_stage_analysis(stage, project, context))
+    return context.cached(("step", stage_key(stage, project)), lambda: _step(analysis))  # type: ignore[no-any-return]
+
+
+def isolated_roots(stage: Stage, project: Project, context: Context) -> RootSet:
+    """Poles and zeros of the stage alone (from the pencil, engine/poles.py)."""
+    analysis = _usable(_stage_analysis(stage, project, context))
+    return RootSet(analysis.poles_rad_s, analysis.zeros_rad_s, analysis.cancelled)
+
+
+def _merged(project: Project, context: Context) -> Any:
+    """The merged whole-chain circuit of this snapshot (computed once per snapshot)."""
+    from stagewise.engine.chain import merged_system
+
+    key = "merged" if project is not context.baseline else "baseline_merged"
+    if key not in context.chain_state:
+        try:
+            context.chain_state[key] = merged_system(project)
+        except ValueError as error:
+            context.chain_state[key] = error
+    merged = context.chain_state[key]
+    if isinstance(merged, Exception):
+        raise NotAvailable(explain(merged))
+    return merged
+
+
+def _chain_solution(project: Project, context: Context) -> Any:
+    """Every unknown of the driven merged chain at every frequency (one batched solve)."""
+    from stagewise.engine.sweep import solve_batched
+
+    key = "solution" if project is not context.baseline else "baseline_solution"
+    if key not in context.chain_state:
+        merged = _merged(project, context)
+        driven = merged.driven()
+        s = 1j * 2.0 * math.pi * context.f_hz
+        context.chain_state[key] = solve_batched(driven.g, driven.c, driven.b.astype(complex), s)
+    return context.chain_state[key]
+
+
+def in_chain_response(stage: Stage, project: Project, context: Context) -> ResponseTrace:
+    """V_out/V_in of the stage where it sits in the chain, loaded by the next stage."""
+    if stage.bypass:
+        raise NotAvailable("the stage is bypassed: it is not in the chain")
+    merged = _merged(project, context)
+    index = merged.stage_ids.index(stage.id)
+    solution = _chain_solution(project, context)
+    v_in = solution[:, merged.interface_indices[index]]
+    v_out = solution[:, merged.interface_indices[index + 1]]
+    if index == 0 and merged.current_drive:
+        raise NotAvailable("the first stage is current-driven; its in-chain response is the chain's (V/A)")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = v_out / v_in
+    return _trace(context.f_hz, ratio, "V/V")
+
+
+def in_chain_roots(stage: Stage, project: Project, context: Context) -> RootSet:
+    raise NotAvailable("poles and zeros are shown for stages alone and for the whole chain")
+
+
+@dataclass(frozen=True, slots=True)
+class ReviewSummary:
+    """The evaluated checks of a stage (``stagewise.review.checks``) and a one-line summary."""
+
+    results: tuple[Any, ...]
+    check_states: dict[str, str]
+    summary: str
+    summary_tip: str
+
+
+def _metric_provider(project: Project, context: Context) -> Any:
+    """The integrator's metric provider over the analysis, or one that says why there is none."""
+    from stagewise.review.checks import UnavailableProvider
+
+    if "provider" not in context.chain_state:
+        try:
+            from stagewise.engine import analysis as full_analysis
+        except ImportError:
+            context.chain_state["provider"] = UnavailableProvider(
+                "numeric checks need the analysis provider (engine/analysis.py), not in this build yet")
+        else:
+            context.chain_state["provider"] = full_analysis.metric_provider(project)
+    return context.chain_state["provider"]
+
+
+def stage_review(stage: Stage, project: Project, context: Context) -> ReviewSummary:
+    """Evaluate the stage's checks against the analysis of this snapshot."""
+    from stagewise.review.checks import evaluate_stage, totals
+
+    results = tuple(evaluate_stage(stage, project, _metric_provider(project, context)))
+    counts = totals(results)
+    states = {result.check_id: str(result.state) for result in results}
+    if not results:
+        return ReviewSummary(results, states, "no checks", "This stage has no checks.")
+    passing = sum(1 for result in results if result.passing)
+    return ReviewSummary(results, states, f"{passing}/{len(results)} pass", counts.sentence())
+
+
+STAGE_ANALYSES: list[tuple[str, int, Any]] = [
+    ("response", 1, isolated_response),
+    ("poles", 1, isolated_roots),
+    ("step", 1, isolated_step),
+    ("review", 2, stage_review),
+    ("in_chain_response", 1, in_chain_response),
+]
+
+
+# ----------------------------------------------------------------------------- chain analyses
+def _chain_analysis(project: Project, context: Context) -> Any:
+    from stagewise.engine.stage import analyze_system
+
+    key = "analysis" if project is not context.baseline else "baseline_analysis"
+    if key not in context.chain_state:
+        merged = _merged(project, context)
+        unit = "Ω" if merged.current_drive else "V/V"
+        context.chain_state[key] = analyze_system(merged.driven(), context.f_hz, unit, "chain",
+                                                  merged.system.fingerprint)
+    return _usable(context.chain_state[key])
+
+
+def chain_response(project: Project, context: Context) -> ResponseTrace:
+    """Drive → last output of the whole chain, with loading (the merged circuit)."""
+    return _analysis_trace(_chain_analysis(project, context))
+
+
+def chain_step(project: Project, context: Context) -> StepTrace:
+    """Unit-step response of the whole chain."""
+    return _step(_chain_analysis(project, context))
+
+
+@dataclass(frozen=True, slots=True)
+class SpreadTrace:
+    """Envelopes of the chain's magnitude over part tolerances (Monte Carlo, engine/spread.py)."""
+
+    f_hz: NDArray[np.float64]
+    nominal_db: NDArray[np.float64]
+    min_db: NDArray[np.float64]
+    max_db: NDArray[np.float64]
+    low_db: NDArray[np.float64]
+    high_db: NDArray[np.float64]
+    low_pct: float
+    high_pct: float
+    samples: int
+    summary: str
+
+
+def chain_spread(project: Project, context: Context) -> SpreadTrace:
+    """Monte Carlo over the tolerances of the whole chain (seeded by the project)."""
+    from stagewise.engine.spread import monte_carlo
+    from stagewise.model.values import format_value
+
+    merged = _merged(project, context)
+    result = monte_carlo(merged.system, project, current_drive=merged.current_drive, worst_case=False,
+                         phase_margins=False)
+    levels = result.percentile_levels
+    low_index, high_index = 0, len(levels) - 1
+    words = [f"{result.samples} samples, seed {result.seed}, {result.distribution} within each tolerance."]
+    corner = result.metrics.get("f_high_3db_hz")
+    if corner is not None and getattr(corner, "minimum", None) is not None:
+        words.append(f"Upper corner {format_value(corner.minimum, 'Hz')} to {format_value(corner.maximum, 'Hz')}.")
+    if result.yield_pct is not None:
+        words.append(f"Yield {result.yield_pct:.1f} %.")
+    words.extend(result.notes)
+    return SpreadTrace(result.f_hz, result.nominal_mag_db, result.mag_db_min, result.mag_db_max,
+                       result.mag_db_percentiles[low_index], result.mag_db_percentiles[high_index],
+                       levels[low_index], levels[high_index], result.samples, " ".join(words))
+
+
+def chain_roots(project: Project, context: Context) -> RootSet:
+    analysis = _chain_analysis(project, context)
+    return RootSet(analysis.poles_rad_s, analysis.zeros_rad_s, analysis.cancelled)
+
+
+def baseline_chain(project: Project, context: Context) -> ResponseTrace:
+    """The whole chain of the baseline revision, on the current grid."""
+    if context.baseline is None:
+        raise NotAvailable("no baseline loaded")
+    return chain_response(context.baseline, context)
+
+
+def chain_noise(project: Project, context: Context) -> NoiseTrace:
+    """Output noise of the whole chain: total density and the largest sources (engine/noise.py)."""
+    from stagewise.engine.noise import analyze_noise
+    from stagewise.model.values import format_value
+
+    merged = _merged(project, context)
+    result = analyze_noise(merged.system, project, current_drive=merged.current_drive)
+    top = tuple((source.name, source.out_density_v_rthz) for source in result.sources[:6])
+    summary = (f"Output noise {format_value(result.out_rms_v, 'V')} rms over "
+               f"{format_value(result.band_hz[0], 'Hz')}–{format_value(result.band_hz[1], 'Hz')}; "
+               f"{format_value(result.out_density_v_rthz_at_ref, 'V/√Hz')} at "
+               f"{format_value(result.ref_hz, 'Hz')}.")
+    if result.in_rms is not None:
+        summary += f" Input-referred {format_value(result.in_rms, result.in_unit)} rms."
+    if result.sources:
+        leader = result.sources[0]
+        summary += f" Largest source: {leader.name} ({leader.share_pct:.0f} % of the power)."
+    if result.notes:
+        summary += " " + " ".join(result.notes)
+    return NoiseTrace(result.f_hz, result.out_density_v_rthz, top, summary)
+
+
+CHAIN_ANALYSES: list[tuple[str, int, Any]] = [
+    ("response", 1, chain_response),
+    ("poles", 1, chain_roots),
+    ("step", 1, chain_step),
+    ("baseline_response", 1, baseline_chain),
+    ("noise", 2, chain_noise),
+    ("spread", 2, chain_spread),
+]
+
+
+# ----------------------------------------------------------------------------- formula
+def stage_formula(stage: Stage, project: Project, context: Context) -> Any:
+    """The symbolic transfer function of a stage (sympy, loaded here in the worker thread)."""
+    raise NotAvailable("the formula needs the symbolic engine (engine/symbolic.py), not in this build yet")
+
+
+def finite(values: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Values with ±inf (a magnitude of exactly zero in dB) replaced by NaN, so plots skip them."""
+    out = np.asarray(values, dtype=float).copy()
+    out[~np.isfinite(out)] = math.nan
+    return out

@@ -1,0 +1,71 @@
+"""Trace colours and line styles that stay distinguishable without colour.
+
+The colours are the eight-colour palette for colour-blind readers of Okabe & Ito; each trace
+also gets one of four line styles, so two traces never differ by colour alone.
+
+References
+----------
+M. Okabe and K. Ito, "Color Universal Design (CUD): How to make figures and presentations that
+are friendly to colorblind people", J*FLY, 2008.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from PySide6.QtCore import Qt
+from PySide6.QtGui import QColor
+
+__all__ = ["LINE_STYLES", "OKABE_ITO", "TraceStyle", "limit_brush_colour", "trace_style"]
+
+# Okabe & Ito (2008), in their order, black first; yellow is left to the end because it is
+# faint on white.
+OKABE_ITO: tuple[tuple[str, str], ...] = (
+    ("black", "#000000"),
+    ("blue", "#0072B2"),
+    ("vermillion", "#D55E00"),
+    ("bluish green", "#009E73"),
+    ("orange", "#E69F00"),
+    ("reddish purple", "#CC79A7"),
+    ("sky blue", "#56B4E9"),
+    ("yellow", "#F0E442"),
+)
+
+LINE_STYLES: tuple[tuple[str, Qt.PenStyle], ...] = (
+    ("solid", Qt.PenStyle.SolidLine),
+    ("dash", Qt.PenStyle.DashLine),
+    ("dot", Qt.PenStyle.DotLine),
+    ("dash-dot", Qt.PenStyle.DashDotLine),
+)
+
+
+@dataclass(frozen=True, slots=True)
+class TraceStyle:
+    """Colour and line style of one trace, with their names for the legend and tests."""
+
+    colour: str
+    colour_name: str
+    line: Qt.PenStyle
+    line_name: str
+    width: float
+
+    def qcolor(self) -> QColor:
+        return QColor(self.colour)
+
+
+def trace_style(index: int, width: float = 2.0) -> TraceStyle:
+    """The style of the ``index``-th trace.
+
+    Trace k uses colour k mod 8 and line style (k + k div 8) mod 4: neighbours differ in both,
+    and the first 32 traces never share both colour and style.
+    """
+    colour_name, colour = OKABE_ITO[index % len(OKABE_ITO)]
+    line_name, line = LINE_STYLES[(index + index // len(OKABE_ITO)) % len(LINE_STYLES)]
+    return TraceStyle(colour, colour_name, line, line_name, width)
+
+
+def limit_brush_colour(alpha: int = 50) -> QColor:
+    """Fill colour of shaded check limits: the palette's sky blue, translucent."""
+    colour = QColor(OKABE_ITO[6][1])
+    colour.setAlpha(alpha)
+    return colour

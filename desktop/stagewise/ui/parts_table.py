@@ -1,0 +1,276 @@
+"""The parts of the selected stage, edited in place, and the stage's formula.
+
+Values are typed in engineering notation (``4k7``, ``10n``, ``2.2u``); a text that is not a
+value, or that would make the stage invalid, is refused with a sentence and the cell goes back
+to the old value. Every accepted edit is an undoable command of the document.
+"""
+
+from __future__ import annotations
+
+from PySide6.QtCore import Qt, Signal
+from PySide6.QtGui import QBrush, QColor
+from PySide6.QtWidgets import (
+    QAbstractItemView,
+    QHeaderView,
+    QLabel,
+    QTableWidget,
+    QTableWidgetItem,
+    QTextBrowser,
+    QVBoxLayout,
+    QWidget,
+)
+
+from stagewise.model.project import PART_TYPES, Stage
+from stagewise.model.values import format_value
+from stagewise.ui.document import BLOCK_FIELDS, Document, EditRefused
+from stagewise.ui.worker import Computed, ComputeWorker
+
+__all__ = ["FormulaView", "PartsTable"]
+
+COLUMNS = ("Part", "Type", "Nodes", "Value", "Tolerance", "Model / meaning")
+EDITABLE = {2: "nodes", 3: "value", 4: "tol", 5: "model"}
+ROLE_REF = Qt.ItemDataRole.UserRole
+
+
+def _root_text(root: object) -> str:
+    if isinstance(root, tuple):
+        return f"pair at {root[0].raw} Hz, Q {root[1].raw}"
+    return f"{root.raw} Hz"  # type: ignore[attr-defined]
+
+
+class PartsTable(QWidget):
+    """Table of the current stage's parts (or a block's parameters); emits ``message`` on refusals."""
+
+    message = Signal(str)
+
+    def __init__(self, document: Document, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.document = document
+        self.table = QTableWidget(0, len(COLUMNS), self)
+        self.table.setHorizontalHeaderLabels(COLUMNS)
+        self.table.verticalHeader().setVisible(False)
+        self.table.setSelectionBehavior(QAbstractItemView.SelectionBehavior.SelectRows)
+        self.table.setSelectionMode(QAbstractItemView.SelectionMode.SingleSelection)
+        self.table.setEditTriggers(QAbstractItemView.EditTrigger.DoubleClicked
+                                   | QAbstractItemView.EditTrigger.EditKeyPressed
+                                   | QAbstractItemView.EditTrigger.AnyKeyPressed)
+        header = self.table.horizontalHeader()
+        header.setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
+        header.setStretchLastSection(True)
+        self.caption = QLabel(self)
+        self.caption.setTextFormat(Qt.TextFormat.PlainText)
+        self.caption.setWordWrap(True)
+        self.feedback = QLabel(self)
+        self.feedback.setWordWrap(True)
+        self.feedback.setTextFormat(Qt.TextFormat.PlainText)
+        self.feedback.setObjectName("editFeedback")
+        self.feedback.setStyleSheet("color: #9a2a00;")
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(4, 2, 4, 2)
+        layout.addWidget(self.caption)
+        layout.addWidget(self.table, 1)
+        layout.addWidget(self.feedback)
+        self._stage_id = ""
+        self._is_block = False
+        self.table.itemChanged.connect(self._item_changed)
+        self._connections = [
+            (document.currentStageChanged, self._stage_selected),
+            (document.stageChanged, self._stage_changed),
+            (document.projectReplaced, self.reload),
+            (document.chainChanged, self.reload),
+        ]
+        for signal, slot in self._connections:
+            signal.connect(slot)
+        self.reload()
+
+    def disconnect_all(self) -> None:
+        for signal, slot in self._connections:
+            try:
+                signal.disconnect(slot)
+            except (RuntimeError, TypeError):
+                pass
+        self._connections = []
+
+    @property
+    def stage_id(self) -> str:
+        return self._stage_id
+
+    def selected_ref(self) -> str:
+        """The ref of the selected part row ("" when none)."""
+        row = self.table.currentRow()
+        item = self.table.item(row, 0) if row >= 0 else None
+        return str(item.data(ROLE_REF) or "") if item is not None else ""
+
+    # ----------------------------------------------------------------- model → widget
+    def _stage_selected(self, _stage_id: str) -> None:
+        self.feedback.clear()
+        self.reload()
+
+    def _stage_changed(self, stage_id: str) -> None:
+        if stage_id == self._stage_id:
+            self.reload()
+
+    def reload(self, *_: object) -> None:
+        stage = self.document.current_stage
+        self._stage_id = stage.id if stage is not None else ""
+        was_blocked = self.table.blockSignals(True)
+        try:
+            self.table.setRowCount(0)
+            if stage is None:
+                self.caption.setText("No stage selected.")
+                return
+            self._is_block = stage.is_block
+            if stage.is_block:
+                self._fill_block(stage)
+            else:
+                self._fill_parts(stage)
+        finally:
+            self.table.blockSignals(was_blocked)
+
+    def _fill_parts(self, stage: Stage) -> None:
+        self.caption.setText(f"{stage.name}: {len(stage.parts)} parts. Double-click a cell to edit "
+                             "(values such as 4k7, 10n, 2.2u; tolerance such as 1%).")
+        self.table.setRowCount(len(stage.parts))
+        for row, part in enumerate(stage.parts):
+            meaning = PART_TYPES.get(part.type, ((), "", ""))[1]
+            cells = [
+                part.ref,
+                part.type,
+                " ".join(part.nodes),
+                "" if part.value is None else str(part.value.raw),
+                "" if part.tol is None else str(part.tol.raw),
+                part.model if part.type == "opamp" else meaning,
+            ]
+            for column, text in enumerate(cells):
+                item = QTableWidgetItem(text)
+                item.setData(ROLE_REF, part.ref)
+                editable = column in EDITABLE and not (
+                    (column == 3 and part.type == "opamp") or (column == 5 and part.type != "opamp")
+                    or (column == 4 and part.type == "opamp"))
+                if not editable:
+                    item.setFlags(item.flags() & ~Qt.ItemFlag.ItemIsEditable)
+                    if column >= 2:
+                        item.setForeground(QBrush(QColor("#606060")))
+                if column == 3 and part.value is not None:
+                    unit = PART_TYPES[part.type][2]
+                    item.setToolTip(f"{part.ref} = {format_value(part.value.si, unit)}")
+                self.table.setItem(row, column, item)
+
+    def _fill_block(self, stage: Stage) -> None:
+        self.caption.setText(f"{stage.name}: behavioural block. Gain and impedances are editable.")
+        rows: list[tuple[str, str, str, bool]] = []
+        for field, label in BLOCK_FIELDS.items():
+            quantity = getattr(stage, field)
+            rows.append((field, label, "" if quantity is None else str(quantity.raw), True))
+        for index, root in enumerate(stage.poles_hz, start=1):
+            rows.append(("", f"pole {index}", _root_text(root), False))
+        for index, root in enumerate(stage.zeros_hz, start=1):
+            rows.append(("", f"zero {index}", _root_text(root), False))
+        self.table.setRowCount(len(rows))
+        for row, (field, label, text, editable) in enumerate(rows):
+            for column, cell in enumerate([label, "block", "", text, "", ""]):
+                item = QTableWidgetItem(cell)
+                item.setData(ROLE_REF, field)
+                if not (editable and column == 3):
+                    item.setFlags(item.flags() & ~Qt.ItemFlag.ItemIsEditable)
+                self.table.setItem(row, column, item)
+
+    # ----------------------------------------------------------------- widget → model
+    def _item_changed(self, item: QTableWidgetItem) -> None:
+        key = str(item.data(ROLE_REF) or "")
+        column = item.column()
+        try:
+            if self._is_block:
+                self.document.set_block_field(self._stage_id, key, item.text())
+            elif column in EDITABLE:
+                self.document.set_part_field(self._stage_id, key, EDITABLE[column], item.text())
+            self.feedback.clear()
+        except EditRefused as error:
+            text = f"Not changed: {error}"
+            self.feedback.setText(text)
+            self.message.emit(text)
+            self.reload()
+
+    def edit_cell(self, ref: str, field: str, text: str) -> None:
+        """Type ``text`` into the cell of ``ref``'s ``field`` as a user would (tests, scripts)."""
+        column = {name: col for col, name in EDITABLE.items()}[field]
+        for row in range(self.table.rowCount()):
+            item = self.table.item(row, 0)
+            if item is not None and item.data(ROLE_REF) == ref:
+                self.table.item(row, column).setText(text)
+                return
+        raise KeyError(ref)
+
+    def cell_text(self, ref: str, field: str) -> str:
+        column = {name: col for col, name in EDITABLE.items()}[field]
+        for row in range(self.table.rowCount()):
+            item = self.table.item(row, 0)
+            if item is not None and item.data(ROLE_REF) == ref:
+                return self.table.item(row, column).text()
+        raise KeyError(ref)
+
+
+class FormulaView(QTextBrowser):
+    """The selected stage's transfer function in its part symbols, with standard-form parameters.
+
+    Computed in the worker's formula thread (sympy loads there, never at start-up).
+    """
+
+    def __init__(self, document: Document, worker: ComputeWorker, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.document = document
+        self.worker = worker
+        self.setOpenLinks(False)
+        self._key = ""
+        self._connections = [
+            (document.currentStageChanged, self._request),
+            (document.stageChanged, self._stage_changed),
+            (document.projectReplaced, self._request),
+            (worker.formulaReady, self._ready),
+        ]
+        for signal, slot in self._connections:
+            signal.connect(slot)
+        self._request()
+
+    def disconnect_all(self) -> None:
+        for signal, slot in self._connections:
+            try:
+                signal.disconnect(slot)
+            except (RuntimeError, TypeError):
+                pass
+        self._connections = []
+
+    def _stage_changed(self, stage_id: str) -> None:
+        if stage_id == self.document.current_stage_id:
+            self._request()
+
+    def _request(self, *_: object) -> None:
+        from stagewise.ui.analyses import stage_key
+
+        stage = self.document.current_stage
+        if stage is None:
+            self.setHtml("<p>No stage selected.</p>")
+            self._key = ""
+            return
+        self._key = stage_key(stage, self.document.project)
+        cached = self.worker.request_formula(stage.id)
+        if cached is None:
+            self.setHtml(f"<p><i>Deriving the transfer function of {_escape(stage.name)}…</i></p>")
+        else:
+            self._show(cached)
+
+    def _ready(self, key: str, computed: Computed) -> None:
+        if key == self._key:
+            self._show(computed)
+
+    def _show(self, computed: Computed) -> None:
+        stage = self.document.current_stage
+        name = _escape(stage.name) if stage is not None else ""
+        if computed.ok:
+            self.setHtml(computed.value.html)
+        else:
+            self.setHtml(f"<p><b>{name}</b>: no formula — {_escape(computed.why)}</p>")
+
+
+def _escape(text: str) -> str:
+    return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")

@@ -1,0 +1,566 @@
+"""The plot views: response (magnitude and phase), step, poles and zeros, noise, spread.
+
+Each view owns its pyqtgraph items, created once per trace and updated with ``setData``; it
+draws result records from :mod:`stagewise.ui.analyses` and never computes anything itself.
+A header line says whether the results are current, still being recomputed, or could not be
+computed (with the reason).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable
+from typing import Any
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6.QtCore import QPointF, QRectF, Qt, Signal
+from PySide6.QtGui import QBrush, QColor, QPen
+from PySide6.QtWidgets import QGraphicsRectItem, QLabel, QVBoxLayout, QWidget
+
+from stagewise.model.project import Check, Project
+from stagewise.model.values import format_value
+from stagewise.ui.analyses import ResponseTrace, finite
+from stagewise.ui.document import Document
+from stagewise.ui.overlays import BASELINE, CHAIN, IN_CHAIN, ISOLATED, OverlaySelection, TraceSpec
+from stagewise.ui.palette import OKABE_ITO, limit_brush_colour
+from stagewise.ui.worker import Computed, ComputeWorker, Outcome
+
+__all__ = ["NoiseView", "PlotView", "PoleZeroView", "ResponseView", "SpreadView", "StepView", "limit_shapes"]
+
+pg.setConfigOptions(antialias=True, background="w", foreground="#202020")
+
+STALE_TEXT = "Recomputing… the traces show the previous results."
+
+
+def _pen(spec: TraceSpec) -> QPen:
+    pen = pg.mkPen(color=spec.style.colour, width=spec.style.width)
+    pen.setStyle(spec.style.line)
+    pen.setCosmetic(True)
+    return pen
+
+
+def _log_axis(plot: pg.PlotItem) -> None:
+    plot.setLogMode(x=True, y=False)
+    # Without this a log axis reads "10⁻⁶ … 1 (MHz)" instead of plain hertz.
+    plot.getAxis("bottom").enableAutoSIPrefix(False)
+
+
+def result_for(outcome: Outcome | None, spec: TraceSpec, kind: str) -> Computed:
+    """The result a trace shows for ``kind`` (``response``, ``step``, ``poles``).
+
+    The chain and stages alone use ``kind``; stages in chain ``in_chain_<kind>``; the baseline
+    ``baseline_<kind>`` (chain results of the baseline project).
+    """
+    if outcome is None:
+        return Computed(None, "not computed yet")
+    name = {CHAIN: kind, ISOLATED: kind, IN_CHAIN: f"in_chain_{kind}", BASELINE: f"baseline_{kind}"}[spec.view]
+    if spec.view in (CHAIN, BASELINE):
+        return outcome.of_chain(name)
+    return outcome.of_stage(spec.stage_id, name)
+
+
+class PlotView(QWidget):
+    """Base of the plot views: header line, stale marking, subscriptions and clean-up."""
+
+    updated = Signal()
+
+    def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.document = document
+        self.worker = worker
+        self.overlays = overlays
+        self.outcome: Outcome | None = worker.latest
+        self.header = QLabel(self)
+        self.header.setWordWrap(True)
+        self.header.setTextFormat(Qt.TextFormat.PlainText)
+        self.header.setObjectName("plotHeader")
+        self.graphics = pg.GraphicsLayoutWidget(self)
+        self.graphics.setMinimumSize(150, 130)
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(4, 2, 4, 2)
+        layout.setSpacing(2)
+        layout.addWidget(self.header)
+        layout.addWidget(self.graphics, 1)
+        self._problems: list[str] = []
+        self._connections = [
+            (worker.outcomeReady, self._on_outcome),
+            (worker.busyChanged, self._on_busy),
+            (overlays.changed, self.refresh),
+            (document.currentStageChanged, self._on_selection),
+            (document.projectReplaced, self.refresh),
+            (document.chainChanged, self.refresh),
+        ]
+        for signal, slot in self._connections:
+            signal.connect(slot)
+
+    def disconnect_all(self) -> None:
+        """Stop listening (the window calls this when it closes)."""
+        for signal, slot in self._connections:
+            try:
+                signal.disconnect(slot)
+            except (RuntimeError, TypeError):
+                pass
+        self._connections = []
+
+    def _on_outcome(self, outcome: Outcome) -> None:
+        self.outcome = outcome
+        self.refresh()
+
+    def _on_selection(self, _stage_id: str) -> None:
+        self.refresh()
+
+    def _on_busy(self, busy: bool) -> None:
+        self._show_header(busy)
+
+    def _show_header(self, busy: bool | None = None) -> None:
+        busy = self.worker.is_busy if busy is None else busy
+        lines = [STALE_TEXT] if busy else []
+        lines.extend(self._problems)
+        self.header.setText("\n".join(lines) if lines else "Up to date.")
+        self.header.setStyleSheet("color: #8a4b00; font-style: italic;" if busy else
+                                  ("color: #7a1f00;" if self._problems else "color: #505050;"))
+        self.header.setProperty("stale", busy)
+
+    def specs(self) -> list[TraceSpec]:
+        return self.overlays.traces(self.document.project, self.document.baseline is not None)
+
+    def refresh(self) -> None:
+        """Redraw from the latest outcome and the current overlay selection."""
+        self._problems = []
+        self.draw()
+        self._show_header()
+        self.updated.emit()
+
+    def draw(self) -> None:  # pragma: no cover - every view overrides it
+        raise NotImplementedError
+
+    def note(self, label: str, computed: Computed) -> None:
+        """Record why a trace is missing; shown in the header."""
+        if not computed.ok:
+            self._problems.append(f"{label}: {computed.why}")
+
+
+class _TraceItems:
+    """The plot items of one trace key in one plot, created once and reused."""
+
+    def __init__(self, plot: pg.PlotItem, legend: pg.LegendItem | None) -> None:
+        self.plot = plot
+        self.legend = legend
+        self.items: dict[str, pg.PlotDataItem] = {}
+
+    def show(self, specs: Iterable[tuple[TraceSpec, Any, Any]]) -> None:
+        """Set the data of the wanted traces, hide the others. Each tuple is (spec, x, y)."""
+        wanted = set()
+        if self.legend is not None:
+            self.legend.clear()
+        for spec, x, y in specs:
+            wanted.add(spec.key)
+            item = self.items.get(spec.key)
+            if item is None:
+                item = pg.PlotDataItem()
+                self.plot.addItem(item)
+                self.items[spec.key] = item
+            item.setPen(_pen(spec))
+            item.setData(x, y)
+            item.setVisible(True)
+            item.opts["name"] = spec.label
+            if self.legend is not None:
+                self.legend.addItem(item, spec.label)
+        for key, item in self.items.items():
+            if key not in wanted:
+                item.setVisible(False)
+                item.setData([], [])
+
+
+def limit_shapes(check: Check, project: Project) -> list[tuple[str, str, tuple[float, float], tuple[float, float]]]:
+    """Where a numeric check's limits are drawn: ``(plot, label, x_range, y_range)`` entries.
+
+    ``plot`` is ``"magnitude"``, ``"phase"`` or ``"step"``; ranges are in the plot's data units
+    (hertz, dB, degrees, seconds); an open side is ±inf. Metrics that are not a point or band on
+    one of those plots (noise totals, margins, yield, ...) are not drawn.
+    """
+    if check.metric is None or (check.min is None and check.max is None):
+        return []
+    low = -math.inf if check.min is None else check.min.si
+    high = math.inf if check.max is None else check.max.si
+    where = {"isolated": "alone", "in_chain": "in chain", "chain": "whole chain"}.get(check.where, check.where)
+    at_hz = check.at_hz.si if check.at_hz is not None else (
+        project.settings.ref_hz.si if project.settings.ref_hz is not None else None)
+    label = f"{check.id} ({where})"
+    if check.metric in ("gain_db", "phase_deg") and at_hz is not None:
+        plot = "magnitude" if check.metric == "gain_db" else "phase"
+        # A narrow gate around the frequency: the trace must pass through it.
+        return [(plot, label, (at_hz / 1.12, at_hz * 1.12), (low, high))]
+    if check.metric in ("f_low_3db_hz", "f_high_3db_hz", "crossover_hz"):
+        return [("magnitude", label, (low, high), (-math.inf, math.inf))]
+    if check.metric == "peak_gain_db":
+        return [("magnitude", label, (-math.inf, math.inf), (low, high))]
+    if check.metric in ("rise_s", "settle_1pct_s", "settle_01pct_s"):
+        return [("step", label, (low if math.isfinite(low) else 0.0, high), (-math.inf, math.inf))]
+    return []
+
+
+class _LimitLayer:
+    """Shaded check limits on one plot (items rebuilt when the checks change; few and cheap)."""
+
+    def __init__(self, plot: pg.PlotItem, log_x: bool) -> None:
+        self.plot = plot
+        self.log_x = log_x
+        self.items: list[Any] = []
+        self.labels: list[str] = []
+
+    def set_shapes(self, shapes: list[tuple[str, tuple[float, float], tuple[float, float]]]) -> None:
+        for item in self.items:
+            self.plot.removeItem(item)
+        self.items = []
+        self.labels = []
+        brush = QBrush(limit_brush_colour(60))
+        border = QPen(QColor(OKABE_ITO[1][1]), 0)
+        border.setStyle(Qt.PenStyle.DashLine)
+        border.setCosmetic(True)
+        big = 1e6
+        for number, (label, (x0, x1), (y0, y1)) in enumerate(shapes):
+            if self.log_x:
+                x0 = math.log10(x0) if x0 > 0 and math.isfinite(x0) else -big
+                x1 = math.log10(x1) if math.isfinite(x1) else big
+            else:
+                x0 = x0 if math.isfinite(x0) else -big
+                x1 = x1 if math.isfinite(x1) else big
+            y0 = y0 if math.isfinite(y0) else -big
+            y1 = y1 if math.isfinite(y1) else big
+            rect = QGraphicsRectItem(QRectF(QPointF(x0, y0), QPointF(x1, y1)).normalized())
+            rect.setBrush(brush)
+            rect.setPen(border)
+            rect.setZValue(-10)
+            rect.setToolTip(label)
+            self.plot.addItem(rect, ignoreBounds=True)
+            # Labels alternate above and below their region so that neighbours do not overlap.
+            above = number % 2 == 0
+            text = pg.TextItem(label, color=OKABE_ITO[1][1], anchor=(0, 1) if above else (0, 0))
+            font = text.textItem.font()
+            font.setPointSizeF(8)
+            text.setFont(font)
+            y_label = y1 if above else y0
+            if not -big < y_label < big:
+                y_label = y0 if -big < y0 < big else (y1 if -big < y1 < big else 0)
+            text.setPos(x0 if x0 > -big else 0, y_label)
+            self.plot.addItem(text, ignoreBounds=True)
+            self.items.extend([rect, text])
+            self.labels.append(label)
+
+
+class ResponseView(PlotView):
+    """Magnitude and phase on linked log-frequency axes, with legend, limits and a cursor."""
+
+    def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(document, worker, overlays, parent)
+        self.magnitude = self.graphics.addPlot(row=0, col=0)
+        self.phase = self.graphics.addPlot(row=1, col=0)
+        for plot in (self.magnitude, self.phase):
+            _log_axis(plot)
+            plot.showGrid(x=True, y=True, alpha=0.25)
+        self.magnitude.setLabel("left", "Magnitude", units="dB")
+        self.phase.setLabel("left", "Phase", units="°")
+        self.phase.setLabel("bottom", "Frequency (Hz)")
+        for plot in (self.magnitude, self.phase):
+            plot.getAxis("left").enableAutoSIPrefix(False)
+            plot.getAxis("left").setWidth(64)
+        self.phase.setXLink(self.magnitude)
+        self.legend = self.magnitude.addLegend(offset=(-10, 10), labelTextSize="9pt")
+        self.magnitude_traces = _TraceItems(self.magnitude, self.legend)
+        self.phase_traces = _TraceItems(self.phase, None)
+        self.magnitude_limits = _LimitLayer(self.magnitude, log_x=True)
+        self.phase_limits = _LimitLayer(self.phase, log_x=True)
+        self.cursor_lines = [pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen("#808080", width=1))
+                             for _ in (self.magnitude, self.phase)]
+        for plot, line in zip((self.magnitude, self.phase), self.cursor_lines, strict=True):
+            plot.addItem(line, ignoreBounds=True)
+            line.setVisible(False)
+        self.readout = QLabel("Point at a trace to read frequency, dB and degrees.", self)
+        self.readout.setObjectName("cursorReadout")
+        self.readout.setTextFormat(Qt.TextFormat.PlainText)
+        self.readout.setWordWrap(True)
+        self.layout().addWidget(self.readout)
+        self._shown: list[tuple[TraceSpec, ResponseTrace]] = []
+        self._mouse_proxy = pg.SignalProxy(self.graphics.scene().sigMouseMoved, rateLimit=30, slot=self._mouse_moved)
+        for signal, slot in ((document.stageChanged, self._on_stage_changed),):
+            signal.connect(slot)
+            self._connections.append((signal, slot))
+        self.refresh()
+
+    def _on_stage_changed(self, _stage_id: str) -> None:
+        self._draw_limits()
+
+    def draw(self) -> None:
+        shown: list[tuple[TraceSpec, ResponseTrace]] = []
+        for spec in self.specs():
+            computed = result_for(self.outcome, spec, "response")
+            if computed.ok:
+                shown.append((spec, computed.value))
+            elif self.outcome is not None:
+                self.note(spec.label, computed)
+        self._shown = shown
+        self.magnitude_traces.show((spec, trace.f_hz, finite(trace.mag_db)) for spec, trace in shown)
+        self.phase_traces.show((spec, trace.f_hz, finite(trace.phase_deg)) for spec, trace in shown)
+        units = {trace.unit for _, trace in shown}
+        self.magnitude.setLabel("left", "Magnitude", units="dB Ω" if units == {"V/A"} else "dB")
+        self._draw_limits()
+
+    def _draw_limits(self) -> None:
+        stage = self.document.current_stage
+        magnitude: list[tuple[str, tuple[float, float], tuple[float, float]]] = []
+        phase: list[tuple[str, tuple[float, float], tuple[float, float]]] = []
+        if stage is not None:
+            for check in stage.checks:
+                for plot, label, x_range, y_range in limit_shapes(check, self.document.project):
+                    if plot == "magnitude":
+                        magnitude.append((label, x_range, y_range))
+                    elif plot == "phase":
+                        phase.append((label, x_range, y_range))
+        self.magnitude_limits.set_shapes(magnitude)
+        self.phase_limits.set_shapes(phase)
+
+    def trace_data(self, key: str) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        """The (f_hz, mag_db, phase_deg) drawn for a trace key (tests read the plot items)."""
+        magnitude = self.magnitude_traces.items.get(key)
+        phase = self.phase_traces.items.get(key)
+        if magnitude is None or phase is None or not magnitude.isVisible():
+            return None
+        f_hz, mag_db = magnitude.getData()
+        _, phase_deg = phase.getData()
+        return f_hz, mag_db, phase_deg
+
+    def _mouse_moved(self, event: tuple[QPointF]) -> None:
+        position = event[0]
+        for plot in (self.magnitude, self.phase):
+            if plot.sceneBoundingRect().contains(position):
+                x_log = plot.vb.mapSceneToView(position).x()
+                self.show_cursor(10.0 ** x_log)
+                return
+
+    def show_cursor(self, f_hz: float) -> str:
+        """Move the cursor to ``f_hz`` and show each trace's dB and degrees there."""
+        for line in self.cursor_lines:
+            line.setPos(math.log10(f_hz))
+            line.setVisible(True)
+        parts = [f"f = {format_value(f_hz, 'Hz')}"]
+        for spec, trace in self._shown:
+            if trace.f_hz.size == 0 or not trace.f_hz[0] <= f_hz <= trace.f_hz[-1]:
+                continue
+            # The nearest computed point (no interpolation: the read-out shows computed values).
+            index = int(np.argmin(np.abs(np.log(trace.f_hz / f_hz))))
+            parts.append(f"{spec.label}: {trace.mag_db[index]:.2f} dB, {trace.phase_deg[index]:.1f}° "
+                         f"(at {format_value(float(trace.f_hz[index]), 'Hz')})")
+        text = "   |   ".join(parts)
+        self.readout.setText(text)
+        return text
+
+
+class StepView(PlotView):
+    """Step response of the selected traces (time axis linear), with settling limits."""
+
+    def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(document, worker, overlays, parent)
+        self.plot = self.graphics.addPlot()
+        self.plot.showGrid(x=True, y=True, alpha=0.25)
+        self.plot.setLabel("bottom", "Time", units="s")
+        self.plot.setLabel("left", "Output per unit step")
+        # No legend of its own: traces keep the colours and line styles of the response legend.
+        self.traces = _TraceItems(self.plot, None)
+        self.limits = _LimitLayer(self.plot, log_x=False)
+        self.summary = QLabel(self)
+        self.summary.setTextFormat(Qt.TextFormat.PlainText)
+        self.summary.setWordWrap(True)
+        self.layout().addWidget(self.summary)
+        self.refresh()
+
+    def draw(self) -> None:
+        rows = []
+        summaries = []
+        for spec in self.specs():
+            if spec.view in (BASELINE, IN_CHAIN):
+                continue  # step responses are drawn for stages alone and for the whole chain
+            computed = result_for(self.outcome, spec, "step")
+            if computed.ok:
+                rows.append((spec, computed.value.t_s, computed.value.y))
+                if computed.value.summary:
+                    summaries.append(f"{spec.label}: {computed.value.summary}")
+            elif self.outcome is not None:
+                self.note(spec.label, computed)
+        self.traces.show(rows)
+        self.summary.setText("\n".join(summaries))
+        shapes = []
+        stage = self.document.current_stage
+        if stage is not None:
+            for check in stage.checks:
+                for plot, label, x_range, y_range in limit_shapes(check, self.document.project):
+                    if plot == "step":
+                        shapes.append((label, x_range, y_range))
+        self.limits.set_shapes(shapes)
+
+
+class PoleZeroView(PlotView):
+    """Poles (×) and zeros (○) of the selected stage alone and of the chain, with hover values."""
+
+    def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(document, worker, overlays, parent)
+        self.plot = self.graphics.addPlot()
+        self.plot.showGrid(x=True, y=True, alpha=0.25)
+        self.plot.setLabel("bottom", "Real part σ/2π", units="Hz")
+        self.plot.setLabel("left", "Imaginary part ω/2π", units="Hz")
+        self.plot.addLine(x=0, pen=pg.mkPen("#a0a0a0", width=1))
+        self.plot.addLine(y=0, pen=pg.mkPen("#a0a0a0", width=1))
+        # Colours as in the response legend; × marks poles and ○ zeros (hover a mark for its value).
+        self.scatters: dict[str, pg.ScatterPlotItem] = {}
+        self.refresh()
+
+    def _scatter(self, key: str) -> pg.ScatterPlotItem:
+        item = self.scatters.get(key)
+        if item is None:
+            item = pg.ScatterPlotItem(hoverable=True, tip=self._tip, hoverSize=14)
+            self.plot.addItem(item)
+            self.scatters[key] = item
+        return item
+
+    @staticmethod
+    def _tip(x: float, y: float, data: Any) -> str:
+        return str(data)
+
+    def draw(self) -> None:
+        wanted: set[str] = set()
+        for spec in self.specs():
+            if spec.view in (BASELINE, IN_CHAIN):
+                continue
+            computed = result_for(self.outcome, spec, "poles")
+            if not computed.ok:
+                if self.outcome is not None:
+                    self.note(spec.label, computed)
+                continue
+            roots = computed.value
+            for kind, symbol, values in (("poles", "x", roots.poles_rad_s), ("zeros", "o", roots.zeros_rad_s)):
+                key = f"{spec.key}:{kind}"
+                wanted.add(key)
+                item = self._scatter(key)
+                values = np.asarray(values, dtype=complex)
+                x = values.real / (2 * math.pi)
+                y = values.imag / (2 * math.pi)
+                tips = [_root_tip(spec.label, kind[:-1], value) for value in values]
+                brush = None if symbol == "x" else pg.mkBrush(None)
+                item.setData(x=x, y=y, data=tips, symbol=symbol, size=13,
+                             pen=pg.mkPen(spec.style.colour, width=2), brush=brush or pg.mkBrush(spec.style.colour))
+                item.setVisible(True)
+        for key, item in self.scatters.items():
+            if key not in wanted:
+                item.setData(x=[], y=[])
+                item.setVisible(False)
+
+
+def _root_tip(label: str, kind: str, value: complex) -> str:
+    f_hz = abs(value) / (2 * math.pi)
+    text = f"{label}: {kind} at s = {value.real:.4g} {value.imag:+.4g}j rad/s, |s|/2π = {format_value(f_hz, 'Hz')}"
+    if abs(value.imag) > 1e-12 * abs(value) and value.real != 0:
+        # Q of a complex pair: |s| / (−2·Re s) (second-order section in standard form).
+        text += f", Q = {abs(value) / (-2 * value.real):.3g}"
+    return text
+
+
+class NoiseView(PlotView):
+    """Output noise density: the total and the largest contributions, log-log."""
+
+    def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(document, worker, overlays, parent)
+        self.plot = self.graphics.addPlot()
+        self.plot.setLogMode(x=True, y=True)
+        self.plot.getAxis("bottom").enableAutoSIPrefix(False)
+        self.plot.getAxis("left").enableAutoSIPrefix(False)
+        self.plot.showGrid(x=True, y=True, alpha=0.25)
+        self.plot.setLabel("bottom", "Frequency (Hz)")
+        self.plot.setLabel("left", "Output noise density (V/√Hz)")
+        self.legend = self.plot.addLegend(offset=(-10, 10), labelTextSize="9pt")
+        self.traces = _TraceItems(self.plot, self.legend)
+        self.summary = QLabel(self)
+        self.summary.setTextFormat(Qt.TextFormat.PlainText)
+        self.summary.setWordWrap(True)
+        self.layout().addWidget(self.summary)
+        self.refresh()
+
+    def draw(self) -> None:
+        from stagewise.ui.palette import trace_style
+
+        computed = self.outcome.of_chain("noise") if self.outcome is not None else Computed(None, "")
+        rows = []
+        if computed.ok:
+            noise = computed.value
+            rows.append((TraceSpec("total", "Total", CHAIN, "", trace_style(0, 2.5)), noise.f_hz, noise.total))
+            for index, (name, density) in enumerate(noise.contributions, start=1):
+                rows.append((TraceSpec(f"source:{name}", name, CHAIN, "", trace_style(index, 1.5)),
+                             noise.f_hz, density))
+            self.summary.setText(noise.summary)
+        else:
+            if self.outcome is not None:
+                self.note("Chain noise", computed)
+            self.summary.setText("")
+        self.traces.show(rows)
+
+
+class SpreadView(PlotView):
+    """Spread over part tolerances: min/max and percentile envelopes around the nominal."""
+
+    def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(document, worker, overlays, parent)
+        self.plot = self.graphics.addPlot()
+        _log_axis(self.plot)
+        self.plot.showGrid(x=True, y=True, alpha=0.25)
+        self.plot.setLabel("bottom", "Frequency (Hz)")
+        self.plot.setLabel("left", "Chain magnitude", units="dB")
+        self.plot.getAxis("left").enableAutoSIPrefix(False)
+        self.legend = self.plot.addLegend(offset=(-10, 10), labelTextSize="9pt")
+        self.lines = {name: pg.PlotDataItem() for name in ("min", "max", "low", "high", "nominal")}
+        for item in self.lines.values():
+            self.plot.addItem(item)
+        self.outer = pg.FillBetweenItem(self.lines["min"], self.lines["max"], brush=pg.mkBrush(86, 180, 233, 50))
+        self.inner = pg.FillBetweenItem(self.lines["low"], self.lines["high"], brush=pg.mkBrush(0, 114, 178, 70))
+        self.plot.addItem(self.outer)
+        self.plot.addItem(self.inner)
+        self.summary = QLabel(self)
+        self.summary.setTextFormat(Qt.TextFormat.PlainText)
+        self.summary.setWordWrap(True)
+        self.layout().addWidget(self.summary)
+        self.refresh()
+
+    def draw(self) -> None:
+        computed = self.outcome.of_chain("spread") if self.outcome is not None else Computed(None, "")
+        self.legend.clear()
+        if not computed.ok:
+            if self.outcome is not None:
+                self.note("Spread", computed)
+            for item in self.lines.values():
+                item.setData([], [])
+            self.summary.setText("")
+            return
+        spread = computed.value
+        styles = {
+            "min": ("#56B4E9", Qt.PenStyle.DotLine, f"min / max of {spread.samples} samples"),
+            "max": ("#56B4E9", Qt.PenStyle.DotLine, None),
+            "low": ("#0072B2", Qt.PenStyle.DashLine, f"{spread.low_pct:g}–{spread.high_pct:g} percentile"),
+            "high": ("#0072B2", Qt.PenStyle.DashLine, None),
+            "nominal": ("#000000", Qt.PenStyle.SolidLine, "nominal"),
+        }
+        data = {"min": spread.min_db, "max": spread.max_db, "low": spread.low_db, "high": spread.high_db,
+                "nominal": spread.nominal_db}
+        for name, item in self.lines.items():
+            colour, style, label = styles[name]
+            pen = pg.mkPen(colour, width=2 if name == "nominal" else 1.2)
+            pen.setStyle(style)
+            item.setPen(pen)
+            item.setData(spread.f_hz, finite(data[name]))
+            if label:
+                self.legend.addItem(item, label)
+        self.summary.setText(spread.summary)

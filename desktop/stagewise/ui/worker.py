@@ -1,0 +1,285 @@
+"""The background compute worker: engine calls off the GUI thread, newest edit wins.
+
+Each request snapshots the project (a deep copy, so the user can keep editing) and runs the
+registered analyses on a private thread pool. Results come back as an :class:`Outcome` in two
+phases: the quick ones (responses, step, poles and zeros) first, then the slower ones (noise,
+spread, check evaluation). A result that belongs to an older edit than the newest request is
+dropped, so views never flash old numbers after new ones.
+
+Scheduling is a throttle with a trailing run: a request when the worker has been idle for the
+debounce interval starts at once (one edit → plots update without waiting); requests that
+arrive while computing, or within the interval, are merged into one run afterwards, so typing
+and repeated undo never queue up work.
+
+Analyses plug in through :data:`STAGE_ANALYSES` and :data:`CHAIN_ANALYSES` (see
+:mod:`stagewise.ui.analyses`); each returns a value or raises, and a failure becomes a
+:class:`Computed` with ``value=None`` and the reason, shown in the view.
+"""
+
+from __future__ import annotations
+
+import copy
+import time
+from dataclasses import dataclass, field
+from typing import Any
+
+from PySide6.QtCore import QElapsedTimer, QObject, QRunnable, QThreadPool, QTimer, Signal
+
+from stagewise.model.project import Project
+from stagewise.ui import analyses
+from stagewise.ui.document import Document
+
+__all__ = ["Computed", "ComputeWorker", "Outcome", "compute_outcome"]
+
+
+@dataclass(frozen=True, slots=True)
+class Computed:
+    """One analysis result: ``value``, or ``None`` with ``why`` it could not be computed."""
+
+    value: Any = None
+    why: str = ""
+
+    @property
+    def ok(self) -> bool:
+        return self.value is not None
+
+
+@dataclass(slots=True)
+class Outcome:
+    """Everything the views show for one state of the project.
+
+    ``stage[stage_id][name]`` and ``chain[name]`` hold :class:`Computed` results; ``phase`` is 1
+    for the quick results and 2 when every analysis has run.
+    """
+
+    generation: int
+    phase: int
+    stage: dict[str, dict[str, Computed]] = field(default_factory=dict)
+    chain: dict[str, Computed] = field(default_factory=dict)
+    elapsed_s: float = 0.0
+
+    def of_stage(self, stage_id: str, name: str) -> Computed:
+        return self.stage.get(stage_id, {}).get(name, Computed(None, "not computed yet"))
+
+    def of_chain(self, name: str) -> Computed:
+        return self.chain.get(name, Computed(None, "not computed yet"))
+
+
+def _run(function: Any, *arguments: Any) -> Computed:
+    try:
+        value = function(*arguments)
+    except analyses.NotAvailable as reason:
+        return Computed(None, str(reason))
+    except Exception as error:  # noqa: BLE001 - an analysis failure is shown in its view, never crashes the GUI
+        return Computed(None, analyses.explain(error))
+    if value is None:
+        return Computed(None, "nothing to show")
+    return Computed(value)
+
+
+def compute_outcome(project: Project, baseline: Project | None, generation: int, phase: int,
+                    context: analyses.Context, previous: Outcome | None = None) -> Outcome:
+    """Run the analyses of one phase on a snapshot (the worker thread calls this; tests too)."""
+    start = time.perf_counter()
+    outcome = Outcome(generation, phase)
+    if previous is not None:
+        outcome.stage = {key: dict(value) for key, value in previous.stage.items()}
+        outcome.chain = dict(previous.chain)
+    context.begin(project, baseline)
+    for stage in project.stages:
+        results = outcome.stage.setdefault(stage.id, {})
+        for name, analysis_phase, function in analyses.STAGE_ANALYSES:
+            if analysis_phase == phase:
+                results[name] = _run(function, stage, project, context)
+    for name, analysis_phase, function in analyses.CHAIN_ANALYSES:
+        if analysis_phase == phase:
+            outcome.chain[name] = _run(function, project, context)
+    outcome.elapsed_s = time.perf_counter() - start
+    return outcome
+
+
+class _JobSignals(QObject):
+    done = Signal(object)
+
+
+class _Job(QRunnable):
+    def __init__(self, work: Any, signals: _JobSignals) -> None:
+        super().__init__()
+        self.setAutoDelete(False)
+        self._work = work
+        self.signals = signals
+
+    def run(self) -> None:
+        self.signals.done.emit(self._work())
+
+
+class ComputeWorker(QObject):
+    """Recomputes the document's analyses in the background.
+
+    Signals
+    -------
+    outcomeReady(Outcome) : new results (phase 1, then phase 2) for the newest request.
+    busyChanged(bool) : computing or waiting to compute; views mark their results stale.
+    formulaReady(str, object) : the symbolic formula of a stage (its fingerprint, the result).
+    """
+
+    outcomeReady = Signal(object)
+    busyChanged = Signal(bool)
+    formulaReady = Signal(str, object)
+
+    def __init__(self, document: Document, debounce_ms: int = 150, parent: QObject | None = None) -> None:
+        super().__init__(parent)
+        self._document = document
+        self._pool = QThreadPool(self)
+        self._pool.setMaxThreadCount(1)
+        self._formula_pool = QThreadPool(self)
+        self._formula_pool.setMaxThreadCount(1)
+        self._context = analyses.Context()
+        # The formula thread has its own context: the two pools run at the same time.
+        self._formula_context = analyses.Context()
+        self._generation = 0
+        self._running = False
+        self._pending = False
+        self._busy = False
+        self._latest: Outcome | None = None
+        self._jobs: list[_Job] = []
+        self._since_start = QElapsedTimer()
+        self._debounce_ms = debounce_ms
+        self._timer = QTimer(self)
+        self._timer.setSingleShot(True)
+        self._timer.timeout.connect(self._start)
+        self._formulas: dict[str, Computed] = {}
+        self._formula_running: set[str] = set()
+        self._closed = False
+        document.modelEdited.connect(self.request)
+
+    @property
+    def latest(self) -> Outcome | None:
+        """The newest complete or partial outcome delivered."""
+        return self._latest
+
+    @property
+    def is_busy(self) -> bool:
+        return self._running or self._pending or self._timer.isActive()
+
+    def formula_busy(self) -> bool:
+        return bool(self._formula_running)
+
+    def request(self) -> None:
+        """Ask for a recomputation of the document's current state."""
+        if self._closed:
+            return
+        idle_long_enough = not self._since_start.isValid() or self._since_start.elapsed() >= self._debounce_ms
+        if self._running:
+            self._pending = True
+        elif idle_long_enough and not self._timer.isActive():
+            self._start()
+        elif not self._timer.isActive():
+            self._timer.start(self._debounce_ms)
+        self._set_busy(True)
+
+    def _set_busy(self, busy: bool) -> None:
+        if busy != self._busy:
+            self._busy = busy
+            self.busyChanged.emit(busy)
+
+    def _start(self) -> None:
+        if self._closed:
+            return
+        if self._running:
+            self._pending = True
+            return
+        self._pending = False
+        self._generation += 1
+        generation = self._generation
+        project = copy.deepcopy(self._document.project)
+        baseline = self._document.baseline
+        context = self._context
+        self._running = True
+        self._since_start.start()
+
+        def work() -> list[Outcome]:
+            first = compute_outcome(project, baseline, generation, 1, context)
+            return [first]
+
+        def work_phase_two(first: Outcome) -> Outcome:
+            return compute_outcome(project, baseline, generation, 2, context, previous=first)
+
+        self._submit(work, lambda result: self._phase_one_done(result[0], work_phase_two))
+
+    def _submit(self, work: Any, on_done: Any) -> None:
+        signals = _JobSignals()
+        job = _Job(work, signals)
+        self._jobs.append(job)
+
+        def finished(result: object) -> None:
+            if job in self._jobs:
+                self._jobs.remove(job)
+            on_done(result)
+
+        signals.done.connect(finished)
+        self._pool.start(job)
+
+    def _phase_one_done(self, first: Outcome, work_phase_two: Any) -> None:
+        if self._closed:
+            return
+        if first.generation == self._generation and not self._pending:
+            self._latest = first
+            self.outcomeReady.emit(first)
+        if self._pending:
+            self._running = False
+            self._start()
+            return
+        self._submit(lambda: work_phase_two(first), self._phase_two_done)
+
+    def _phase_two_done(self, outcome: Outcome) -> None:
+        if self._closed:
+            return
+        self._running = False
+        if outcome.generation == self._generation and not self._pending:
+            self._latest = outcome
+            self.outcomeReady.emit(outcome)
+        if self._pending:
+            self._start()
+        elif not self._timer.isActive():
+            self._set_busy(False)
+
+    # ----------------------------------------------------------------- formulas
+    def request_formula(self, stage_id: str) -> Computed | None:
+        """The symbolic formula of a stage: cached result now, or ``None`` and formulaReady later."""
+        stage = self._document.project.stage(stage_id)
+        if stage is None or self._closed:
+            return None
+        key = analyses.stage_key(stage, self._document.project)
+        if key in self._formulas:
+            return self._formulas[key]
+        if key in self._formula_running:
+            return None
+        snapshot = copy.deepcopy(stage)
+        project = copy.deepcopy(self._document.project)
+        self._formula_running.add(key)
+        signals = _JobSignals()
+        formula_context = self._formula_context
+        job = _Job(lambda: _run(analyses.stage_formula, snapshot, project, formula_context), signals)
+        self._jobs.append(job)
+
+        def finished(result: object) -> None:
+            if job in self._jobs:
+                self._jobs.remove(job)
+            self._formula_running.discard(key)
+            assert isinstance(result, Computed)
+            self._formulas[key] = result
+            if not self._closed:
+                self.formulaReady.emit(key, result)
+
+        signals.done.connect(finished)
+        self._formula_pool.start(job)
+        return None
+
+    def close(self) -> None:
+        """Stop scheduling; wait for the running jobs so no thread outlives the window."""
+        self._closed = True
+        self._timer.stop()
+        self._pool.waitForDone(30000)
+        self._formula_pool.waitForDone(30000)
+        self._set_busy(False)
