@@ -1,0 +1,107 @@
+"""The hand calculations written in the demos' notes: each demo has a check that is met with the
+stage alone and not met once the stages load each other.
+
+The formulas are evaluated with numpy from the values in the demo files (so an edit to a demo
+that breaks its story fails here); the engine's own evaluation is tested with the engine.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.files.project_file import load_project
+from stagewise.model.project import Check, OpampModel, Project, Stage
+
+PROJECTS = Path(__file__).resolve().parents[2] / "projects"
+
+
+def _value(stage: Stage, ref: str) -> float:
+    part = stage.part(ref)
+    assert part is not None and part.value is not None
+    return part.value.si
+
+
+def _check(stage: Stage, check_id: str) -> Check:
+    for check in stage.checks:
+        if check.id == check_id:
+            return check
+    raise AssertionError(f"{stage.id} has no check {check_id}")
+
+
+def _stage(project: Project, stage_id: str) -> Stage:
+    stage = project.stage(stage_id)
+    assert stage is not None
+    return stage
+
+
+def test_hydrophone_20_hz_gain_is_met_alone_and_not_in_chain() -> None:
+    project = load_project(PROJECTS / "hydrophone.stagewise.json")
+    sensor, buffer = _stage(project, "sensor"), _stage(project, "buffer")
+    check = _check(sensor, "lf-20hz")
+    assert check.where == "in_chain" and check.metric == "gain_db"
+    assert check.at_hz is not None and check.min is not None
+    omega = 2 * math.pi * check.at_hz.si
+    element_c, leakage_r, cable_c = _value(sensor, "C1"), _value(sensor, "R1"), _value(sensor, "C2")
+    bias_r = _value(buffer, "R1")
+    model = project.opamp_models["low-noise-jfet-10M"]
+    assert model.cin_cm_f is not None
+    # Common practice, no source: Kirchhoff's current law at the sensor's output node, driven by
+    # the element's EMF through C1 || R1; the loads hang from that node to 0.
+    series = 1 / leakage_r + 1j * omega * element_c
+    isolated = series / (series + 1j * omega * cable_c)
+    in_chain = series / (series + 1j * omega * (cable_c + model.cin_cm_f.si) + 1 / bias_r)
+    isolated_db, in_chain_db = 20 * math.log10(abs(isolated)), 20 * math.log10(abs(in_chain))
+    assert isolated_db >= check.min.si  # met with the stage alone ...
+    assert in_chain_db < check.min.si  # ... not met once the buffer loads it
+    # The figures written in the sensor stage's notes.
+    assert round(isolated_db, 2) == -0.39 and round(in_chain_db, 2) == -3.61
+    corner_hz = 1 / (2 * math.pi * bias_r * (element_c + cable_c + model.cin_cm_f.si))
+    assert round(corner_hz, 2) == 20.95
+    assert "-3.61 dB" in sensor.notes and "20.95 Hz" in sensor.notes
+
+
+def _open_loop_gain(model: OpampModel, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+    # Source: DESIGN.md section 3.2: first pole at gbw_hz / A0, optional second pole p2_hz.
+    assert model.p2_hz is not None
+    a0 = 10 ** (model.a0_db.si / 20)
+    s = 2j * np.pi * f_hz
+    return a0 / ((1 + s * a0 / (2 * np.pi * model.gbw_hz.si)) * (1 + s / (2 * np.pi * model.p2_hz.si)))
+
+
+def _phase_margin_deg(loop: NDArray[np.complex128], f_hz: NDArray[np.float64]) -> float:
+    # Common practice, no source: phase margin = 180 deg + phase of the loop gain where |T| = 1.
+    crossing = int(np.argmax(np.abs(loop) < 1.0))
+    assert crossing > 0
+    return float(180.0 + np.degrees(np.angle(loop[crossing])))
+
+
+def test_greenhouse_tia_phase_margin_is_met_alone_and_not_in_chain() -> None:
+    project = load_project(PROJECTS / "greenhouse.stagewise.json")
+    diode, tia = _stage(project, "diode"), _stage(project, "tia")
+    check_alone, check_chain = _check(tia, "pm-iso"), _check(tia, "pm-chain")
+    assert check_alone.where == "isolated" and check_chain.where == "in_chain"
+    assert check_alone.min is not None and check_chain.min is not None
+    model = project.opamp_models["precision-cmos-10M"]
+    assert model.cin_diff_f is not None and model.cin_cm_f is not None
+    feedback_r, feedback_c = _value(tia, "R1"), _value(tia, "C1")
+    junction_c, shunt_r = _value(diode, "C1"), _value(diode, "R1")
+    f_hz = np.logspace(0, 8, 200001)
+    s = 2j * np.pi * f_hz
+    # Source: the feedback factor of an inverting stage, beta = Zd / (Zd + Zf) (Kirchhoff's laws
+    # at the inverting node; the op-amp's 50 ohm output resistance against 1 Mohm is neglected).
+    feedback_z = 1 / (1 / feedback_r + s * feedback_c)
+    own_c = model.cin_diff_f.si + model.cin_cm_f.si  # in+ sits on node 0: both go to 0
+    alone_z = 1 / (s * own_c)
+    chain_z = 1 / (1 / shunt_r + s * (own_c + junction_c))
+    gain = _open_loop_gain(model, f_hz)
+    margin_alone = _phase_margin_deg(gain * alone_z / (alone_z + feedback_z), f_hz)
+    margin_chain = _phase_margin_deg(gain * chain_z / (chain_z + feedback_z), f_hz)
+    assert margin_alone >= check_alone.min.si
+    assert margin_chain < check_chain.min.si
+    # The figures written in the stage's notes: about 79 deg alone, about 20 deg in chain.
+    assert abs(margin_alone - 79) < 2 and abs(margin_chain - 20) < 2
+    assert "about 20 deg" in tia.notes and "79 deg" in tia.notes
