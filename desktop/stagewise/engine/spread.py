@@ -1,0 +1,908 @@
+"""Spread over part tolerances: Monte Carlo and worst case, vectorized over samples.
+
+The pencil depends on each toleranced part through one fixed pattern: a resistor adds
+``(1/R)·P_ab`` to G, a capacitor ``C·P_ab`` to the s-part, an inductor ``−L`` at its branch
+row, a voltage-controlled source its gain at the control columns. So with the part multipliers
+``m_k = value_k / nominal_k`` of a sample,
+
+    G(m) = G0 + Σ_k (m_k^p_k − 1)·ΔG_k,    C(m) = C0 + Σ_k (m_k^p_k − 1)·ΔC_k
+
+(``p = −1`` for a resistor, whose conductance is stamped, ``+1`` otherwise). The patterns are
+built once from the system's :class:`~stagewise.engine.mna.ElementStamp` records; every sampled
+matrix is then one matrix product over all samples, and every sample at every frequency is one
+batched LAPACK solve (chunked to bound memory). No Python loop runs per sample or per frequency.
+
+Corner frequencies and loop crossovers are bracketed on the grid, then refined per sample by
+the Illinois variant of regula falsi in ln f, every iteration one batched solve at each sample's
+own frequency.
+
+Worst case: the sensitivity sign of each metric to each part (central finite differences at
+nominal, batched like samples) chooses the extreme vertex (every part at +tol or −tol); the
+vertex is then evaluated, and compared with the Monte Carlo extremes. A metric that is monotone
+in each part takes its extremes at such vertices; when a Monte Carlo sample goes beyond the
+vertex, the result says so (the metric is not monotone there).
+
+Distributions: ``uniform`` — each part uniform within ±tol; ``normal`` — mean nominal,
+standard deviation tol/3 (the tolerance read as 3σ).
+
+References
+----------
+M. Dowell and P. Jarratt, "A modified regula falsi method for computing the root of an
+equation", BIT 11, 168-174 (1971) (the Illinois method).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.engine.mna import CircuitError, OpampStates, StageSystem
+from stagewise.engine.sweep import drive
+from stagewise.model.project import Project
+
+__all__ = [
+    "DEFAULT_PERCENTILES",
+    "METRIC_KEYS",
+    "MetricSpread",
+    "SpreadResult",
+    "SpreadSamples",
+    "ToleranceModel",
+    "WorstCase",
+    "YieldLimit",
+    "corners_3db",
+    "monte_carlo",
+    "sample_multipliers",
+    "sampled_response",
+    "spread_to_json",
+    "tolerance_model",
+]
+
+TWO_PI = 2.0 * math.pi
+DEFAULT_PERCENTILES: tuple[float, ...] = (1.0, 50.0, 99.0)
+DEFAULT_POINTS = 200
+CHUNK_BYTES = 48 * 2**20
+REFINE_STEPS = 12
+SENSITIVITY_STEP = 1e-4
+METRIC_KEYS = ("gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz", "phase_margin_deg")
+WORST_CASE_KEYS = ("gain_db", "f_low_3db_hz", "f_high_3db_hz")
+HALF_POWER_DB = 10.0 * math.log10(2.0)  # the "−3 dB" corner is the half-power point, 3.0103 dB down
+
+
+@dataclass(frozen=True, slots=True)
+class ToleranceModel:
+    """The drive-attached pencil and the pattern of every toleranced part, built once.
+
+    Part k adds ``(m_k^powers_k − 1)·coefficients_k·left[:, k]·right[:, k]ᵀ`` to G, or to C where
+    ``capacitive[k]``; ``g_patterns``/``c_patterns`` (parts, n, n) hold the same as dense
+    nominal contributions. ``powers`` is −1 for resistors (their conductance is stamped).
+    """
+
+    g0: NDArray[np.float64]
+    c0: NDArray[np.float64]
+    b: NDArray[np.float64]
+    output: int
+    refs: tuple[str, ...]
+    tol: NDArray[np.float64]
+    powers: NDArray[np.float64]
+    left: NDArray[np.float64]
+    right: NDArray[np.float64]
+    coefficients: NDArray[np.float64]
+    capacitive: NDArray[np.bool_]
+    g_patterns: NDArray[np.float64]
+    c_patterns: NDArray[np.float64]
+    opamps: tuple[OpampStates, ...]
+    notes: tuple[str, ...]
+
+    @property
+    def size(self) -> int:
+        return int(self.g0.shape[0])
+
+    def matrices(self, multipliers: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """G and C of every sample: multipliers (samples, parts) -> two (samples, n, n) arrays."""
+        scale = multipliers ** self.powers[None, :] - 1.0
+        count = multipliers.shape[0]
+        n = self.size
+        g = self.g0.reshape(1, -1) + scale @ self.g_patterns.reshape(len(self.refs), -1)
+        c = self.c0.reshape(1, -1) + scale @ self.c_patterns.reshape(len(self.refs), -1)
+        return g.reshape(count, n, n), c.reshape(count, n, n)
+
+
+def tolerance_model(system: StageSystem, *, current_drive: bool) -> ToleranceModel:
+    """Collect the patterns of the system's toleranced parts (R, C, L, vcvs, vccs).
+
+    Current-controlled sources are held at their nominal gain: their coefficient also depends on
+    the controlling part, which the element records do not name; the notes say so.
+    """
+    driven = drive(system, current_drive)
+    n = driven.g.shape[0]
+    refs: list[str] = []
+    tols: list[float] = []
+    powers: list[float] = []
+    lefts: list[NDArray[np.float64]] = []
+    rights: list[NDArray[np.float64]] = []
+    coefficients: list[float] = []
+    capacitive: list[bool] = []
+    notes: list[str] = []
+
+    def difference(plus: int, minus: int) -> NDArray[np.float64]:
+        vector = np.zeros(n)
+        if plus >= 0:
+            vector[plus] += 1.0
+        if minus >= 0:
+            vector[minus] -= 1.0
+        return vector
+
+    for element in system.elements:
+        if element.tol is None or element.tol == 0:
+            continue
+        nodes = element.nodes
+        # Every stamp is rank one: coefficient · left · rightᵀ in G or in C (see mna).
+        if element.type in ("R", "C"):
+            left = right = difference(nodes[0], nodes[1])
+            coefficient = 1.0 / element.value if element.type == "R" else element.value
+            in_c = element.type == "C"
+        elif element.type == "L":
+            left = right = difference(element.row, -1)
+            coefficient, in_c = -element.value, True
+        elif element.type == "vcvs":
+            left, right = difference(element.row, -1), difference(nodes[2], nodes[3])
+            coefficient, in_c = -element.value, False
+        elif element.type == "vccs":
+            left, right = difference(nodes[0], nodes[1]), difference(nodes[2], nodes[3])
+            coefficient, in_c = element.value, False
+        elif element.type in ("ccvs", "cccs"):
+            notes.append(f"{element.ref}: a current-controlled source is held at its nominal gain "
+                         "(its coefficient also depends on the controlling part)")
+            continue
+        else:
+            notes.append(f"{element.ref}: tolerance on a {element.type!r} part is not applied")
+            continue
+        refs.append(element.ref)
+        tols.append(float(element.tol))
+        powers.append(-1.0 if element.type == "R" else 1.0)
+        lefts.append(left)
+        rights.append(right)
+        coefficients.append(coefficient)
+        capacitive.append(in_c)
+    count = len(refs)
+    left_matrix = np.array(lefts).reshape(count, n).T
+    right_matrix = np.array(rights).reshape(count, n).T
+    weights = np.array(coefficients, dtype=float)
+    mask = np.array(capacitive, dtype=bool)
+    return ToleranceModel(
+        g0=driven.g, c0=driven.c, b=driven.b, output=driven.output,
+        refs=tuple(refs), tol=np.array(tols, dtype=float), powers=np.array(powers, dtype=float),
+        left=left_matrix, right=right_matrix, coefficients=weights, capacitive=mask,
+        g_patterns=np.einsum("ip,jp,p->pij", left_matrix, right_matrix, np.where(mask, 0.0, weights)),
+        c_patterns=np.einsum("ip,jp,p->pij", left_matrix, right_matrix, np.where(mask, weights, 0.0)),
+        opamps=system.opamps, notes=tuple(notes),
+    )
+
+
+def sample_multipliers(tol: NDArray[np.float64], samples: int, seed: int, distribution: str) -> NDArray[np.float64]:
+    """Part multipliers (samples, parts): uniform within ±tol, or normal with σ = tol/3."""
+    generator = np.random.default_rng(seed)
+    if distribution == "uniform":
+        return 1.0 + tol[None, :] * generator.uniform(-1.0, 1.0, size=(samples, tol.size))
+    if distribution == "normal":
+        return 1.0 + (tol[None, :] / 3.0) * generator.standard_normal(size=(samples, tol.size))
+    raise ValueError(f'settings.mc_distribution: "{distribution}" is not "uniform" or "normal"')
+
+
+def _solve_output(
+    g: NDArray[np.float64], c: NDArray[np.float64], rhs_row: NDArray[np.float64] | int, read: Callable[[NDArray[np.complex128]], NDArray[np.complex128]],
+    f_hz: NDArray[np.float64],
+) -> NDArray[np.complex128]:
+    """Solve every sample at every frequency, chunked over samples; returns read(x) per (sample, f).
+
+    ``f_hz`` is (frequencies,) shared by all samples, or (samples, k) per sample. ``rhs_row``
+    is a full right-hand side vector, or the index of a unit injection.
+    """
+    count, n = g.shape[0], g.shape[1]
+    per_sample = f_hz.ndim == 2
+    width = f_hz.shape[-1]
+    chunk = max(1, int(CHUNK_BYTES // (width * n * n * 16)))
+    out = np.empty((count, width), dtype=complex)
+    for start in range(0, count, chunk):  # chunks of many samples, bounded memory
+        stop = min(start + chunk, count)
+        frequencies = f_hz[start:stop] if per_sample else f_hz[None, :]
+        s = 1j * TWO_PI * frequencies
+        matrices = g[start:stop, None, :, :] + s[:, :, None, None] * c[start:stop, None, :, :]
+        rhs = np.zeros((stop - start, width, n, 1), dtype=complex)
+        if isinstance(rhs_row, int):
+            rhs[:, :, rhs_row, 0] = 1.0
+        else:
+            rhs[:, :, :, 0] = rhs_row
+        try:
+            x = np.linalg.solve(matrices, rhs)[..., 0]
+        except np.linalg.LinAlgError as error:
+            raise CircuitError("a sampled circuit cannot be solved (singular matrix): "
+                               "a tolerance drives a part to zero or the circuit floats") from error
+        out[start:stop] = read(np.asarray(x, dtype=complex))
+    return out
+
+
+def _woodbury_output(
+    model: ToleranceModel, g0: NDArray[np.float64], c0: NDArray[np.float64], rhs: NDArray[np.float64],
+    out_vector: NDArray[np.float64], multipliers: NDArray[np.float64], f_hz: NDArray[np.float64],
+) -> NDArray[np.complex128]:
+    """``out_vectorᵀ·M(m, s)⁻¹·rhs`` for every sample and frequency, by a low-rank update.
+
+    ``M(m, s) = M0(s) + L·D(m, s)·Rᵀ`` with one rank-one term per toleranced part (Woodbury):
+    ``M⁻¹ = M0⁻¹ − M0⁻¹·L·(I + D·Rᵀ·M0⁻¹·L)⁻¹·D·Rᵀ·M0⁻¹``. The nominal solves are done once per
+    frequency; each sample then costs a (parts × parts) solve instead of an (n × n) one.
+
+    References
+    ----------
+    M. A. Woodbury, "Inverting modified matrices", Memorandum Report 42, Statistical Research
+    Group, Princeton University, 1950.
+    """
+    parts = len(model.refs)
+    s = 1j * TWO_PI * f_hz
+    nominal = g0[None, :, :] + s[:, None, None] * c0[None, :, :]
+    right_hand = np.concatenate([rhs[:, None], model.left], axis=1).astype(complex)
+    try:
+        solved = np.linalg.solve(nominal, np.broadcast_to(right_hand, (f_hz.size,) + right_hand.shape))
+    except np.linalg.LinAlgError as error:
+        raise CircuitError("the nominal circuit cannot be solved (singular matrix): a floating node "
+                           "or a loop of voltage sources") from error
+    x0, z = solved[:, :, 0], solved[:, :, 1:]
+    y0 = x0 @ out_vector  # (F,)
+    if parts == 0:
+        return np.asarray(np.broadcast_to(y0[None, :], (multipliers.shape[0], f_hz.size)), dtype=complex).copy()
+    h = np.einsum("n,fnp->fp", out_vector, z)
+    kernel = np.einsum("nq,fnp->fqp", model.right, z)  # Rᵀ·M0⁻¹·L, (F, P, P)
+    w = x0 @ model.right  # Rᵀ·M0⁻¹·rhs, (F, P)
+    per_part = np.where(model.capacitive[None, :], s[:, None], 1.0) * model.coefficients[None, :]  # (F, P)
+    scale = multipliers ** model.powers[None, :] - 1.0  # (S, P)
+    count = multipliers.shape[0]
+    out = np.empty((count, f_hz.size), dtype=complex)
+    chunk = max(1, int(CHUNK_BYTES // (f_hz.size * parts * parts * 16)))
+    for start in range(0, count, chunk):  # chunks of many samples, bounded memory
+        stop = min(start + chunk, count)
+        d = scale[start:stop, None, :] * per_part[None, :, :]  # (S, F, P)
+        system = d[..., :, None] * kernel[None, :, :, :]
+        np.einsum("...ii->...i", system)[...] += 1.0  # I + D·K, in place on the diagonal
+        try:
+            v = np.linalg.solve(system, (d * w[None, :, :])[..., None])[..., 0]
+        except np.linalg.LinAlgError as error:
+            raise CircuitError("a sampled circuit cannot be solved (singular matrix): "
+                               "a tolerance drives a part to zero or the circuit floats") from error
+        out[start:stop] = y0[None, :] - np.einsum("fp,sfp->sf", h, v)
+    return out
+
+
+def sampled_response(model: ToleranceModel, multipliers: NDArray[np.float64],
+                     f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+    """Drive -> output transfer of every sample: shape (samples, frequencies).
+
+    ``f_hz`` is shared (frequencies,): low-rank updates of the nominal solves; or per sample
+    (samples, k): dense solves of each sample's matrices.
+    """
+    f_hz = np.asarray(f_hz, dtype=float)
+    if f_hz.ndim == 1:
+        return _woodbury_output(model, model.g0, model.c0, model.b, _unit(model.size, model.output),
+                                multipliers, f_hz)
+    g, c = model.matrices(multipliers)
+    output = model.output
+    return _solve_output(g, c, model.b, lambda x: x[..., output], f_hz)
+
+
+def _unit(size: int, index: int) -> NDArray[np.float64]:
+    vector = np.zeros(size)
+    vector[index] = 1.0
+    return vector
+
+
+def _returned_vector(size: int, opamp: OpampStates) -> NDArray[np.float64]:
+    """The functional −(v+ − v−) that reads the returned signal of a broken loop."""
+    vector = np.zeros(size)
+    if opamp.in_plus >= 0:
+        vector[opamp.in_plus] -= 1.0
+    if opamp.in_minus >= 0:
+        vector[opamp.in_minus] += 1.0
+    return vector
+
+
+def _broken_g(g: NDArray[np.float64], opamp: OpampStates) -> NDArray[np.float64]:
+    """G (one matrix or a stack) with the op-amp's ``−(v+ − v−)`` state-row entries removed."""
+    opened = g.copy()
+    if opamp.in_plus >= 0:
+        opened[..., opamp.state_row, opamp.in_plus] += 1.0
+    if opamp.in_minus >= 0:
+        opened[..., opamp.state_row, opamp.in_minus] -= 1.0
+    return opened
+
+
+def _loop_values(model: ToleranceModel, multipliers: NDArray[np.float64], opamp: OpampStates,
+                 f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+    """Loop gain T = −(v+ − v−)/u with the loop broken at the op-amp's state row (see loops),
+    for every sample: shared frequencies (low-rank updates) or per-sample ones (dense)."""
+    f_hz = np.asarray(f_hz, dtype=float)
+    reader = _returned_vector(model.size, opamp)
+    if f_hz.ndim == 1:
+        return _woodbury_output(model, _broken_g(model.g0, opamp), model.c0, _unit(model.size, opamp.state_row),
+                                reader, multipliers, f_hz)
+    g, c = model.matrices(multipliers)
+    return _solve_output(_broken_g(g, opamp), c, opamp.state_row, lambda x: x @ reader, f_hz)
+
+
+def _refine(
+    evaluate: Callable[[NDArray[np.intp], NDArray[np.float64]], NDArray[np.float64]],
+    low_hz: NDArray[np.float64], high_hz: NDArray[np.float64],
+    value_low: NDArray[np.float64], value_high: NDArray[np.float64],
+) -> NDArray[np.float64]:
+    """Illinois regula falsi in ln f on every row at once.
+
+    ``evaluate(rows, f)`` gives the function at frequencies ``f`` for those rows (indices into
+    the brackets). Rows stop once their step is below 1e-11 in ln f; unfinished NaN brackets
+    stay NaN.
+    """
+    valid = np.isfinite(low_hz) & np.isfinite(high_hz)
+    a = np.where(valid, np.log(np.where(valid, low_hz, 1.0)), 0.0)
+    b = np.where(valid, np.log(np.where(valid, high_hz, 1.0)), 0.0)
+    fa = np.where(valid, value_low, -1.0)
+    fb = np.where(valid, value_high, 1.0)
+    active = np.flatnonzero(valid & (fb != 0))
+    for _ in range(REFINE_STEPS):  # iterations of the root finder, each one batched solve
+        if active.size == 0:
+            break
+        a_, b_, fa_, fb_ = a[active], b[active], fa[active], fb[active]
+        denominator = fb_ - fa_
+        safe = np.abs(denominator) > 0
+        x = np.where(safe, b_ - fb_ * (b_ - a_) / np.where(safe, denominator, 1.0), b_)
+        fx = evaluate(active, np.exp(x))
+        crossed = np.sign(fx) != np.sign(fb_)
+        # The old b becomes the other end when the root lies between; else halve the retained
+        # end's value (Illinois), so the bracket keeps shrinking from both sides.
+        a[active] = np.where(crossed, b_, a_)
+        fa[active] = np.where(crossed, fb_, fa_ / 2.0)
+        b[active], fb[active] = x, fx
+        moving = (np.abs(x - b_) > 1e-11) & (fx != 0) & np.isfinite(fx)
+        active = active[moving]
+    return np.where(valid, np.exp(b), np.nan)
+
+
+def corners_3db(
+    f_hz: NDArray[np.float64], mag_db: NDArray[np.float64], ref_index: int, ref_db: NDArray[np.float64]
+) -> tuple[tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]],
+           tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]]:
+    """Brackets of the −3 dB corners below and above ``f_hz[ref_index]`` for every row.
+
+    Returns ``(low bracket, high bracket)``, each ``(f_a, f_b, v_a, v_b)`` with
+    ``v = mag_db − (ref_db − 10·log10 2)`` at the bracket ends (half power); NaN where the
+    response does not fall that far below the reference on that side within the grid.
+    """
+    below = mag_db < (ref_db[:, None] - HALF_POWER_DB)
+    rows = np.arange(mag_db.shape[0])
+    excess = mag_db - (ref_db[:, None] - HALF_POWER_DB)
+    # High corner: first grid point above ref that is 3 dB down.
+    upper = below[:, ref_index:]
+    has_high = upper.any(axis=1)
+    first = ref_index + np.argmax(upper, axis=1)
+    hi_b = np.where(has_high, f_hz[first], np.nan)
+    hi_a = np.where(has_high, f_hz[np.maximum(first - 1, 0)], np.nan)
+    hv_b = excess[rows, first]
+    hv_a = excess[rows, np.maximum(first - 1, 0)]
+    # Low corner: last grid point below ref that is 3 dB down.
+    lower = below[:, : ref_index + 1][:, ::-1]
+    has_low = lower.any(axis=1)
+    last = ref_index - np.argmax(lower, axis=1)
+    lo_a = np.where(has_low, f_hz[last], np.nan)
+    lo_b = np.where(has_low, f_hz[np.minimum(last + 1, f_hz.size - 1)], np.nan)
+    lv_a = excess[rows, last]
+    lv_b = excess[rows, np.minimum(last + 1, f_hz.size - 1)]
+    return (lo_a, lo_b, lv_a, lv_b), (hi_a, hi_b, hv_a, hv_b)
+
+
+@dataclass(frozen=True, slots=True)
+class SpreadSamples:
+    """Per-sample values (one row per sample) for yield functions and plots.
+
+    NaN marks a metric that does not exist for that sample (no corner within the grid, no
+    crossover). ``phase_margin_deg`` maps op-amp ref -> (samples,) array.
+    """
+
+    multipliers: NDArray[np.float64]
+    f_hz: NDArray[np.float64]
+    response: NDArray[np.complex128]
+    ref_hz: float
+    gain_db: NDArray[np.float64]
+    peak_gain_db: NDArray[np.float64]
+    peaking_db: NDArray[np.float64]
+    f_low_3db_hz: NDArray[np.float64]
+    f_high_3db_hz: NDArray[np.float64]
+    phase_margin_deg: dict[str, NDArray[np.float64]]
+    extra_f_hz: NDArray[np.float64]
+    extra_response: NDArray[np.complex128]
+
+    def metric(self, key: str, at_hz: float | None = None, opamp: str | None = None) -> NDArray[np.float64]:
+        """The samples of a metric named by a DESIGN section 6 key (see ``METRIC_KEYS``).
+
+        ``gain_db`` with ``at_hz`` reads the gain at that frequency (it must have been asked for
+        through a :class:`YieldLimit`); ``phase_margin_deg`` without ``opamp`` is the smallest
+        margin of all op-amps in each sample.
+        """
+        if key == "gain_db" and at_hz is not None and at_hz != self.ref_hz:
+            where = np.flatnonzero(np.isclose(self.extra_f_hz, at_hz, rtol=1e-12))
+            if where.size == 0:
+                raise KeyError(f"gain_db at {at_hz:g} Hz was not evaluated")
+            values: NDArray[np.float64] = 20.0 * np.log10(np.abs(self.extra_response[:, int(where[0])]))
+            return values
+        if key == "phase_margin_deg":
+            if opamp is not None:
+                return self.phase_margin_deg[opamp]
+            if not self.phase_margin_deg:
+                return np.full(self.gain_db.shape, np.nan)
+            return np.asarray(np.min(np.vstack(list(self.phase_margin_deg.values())), axis=0), dtype=float)
+        if key in ("gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz"):
+            return np.asarray(getattr(self, key), dtype=float)
+        raise KeyError(f'"{key}" is not a metric of the spread analysis')
+
+
+@dataclass(frozen=True, slots=True)
+class YieldLimit:
+    """One limit for the yield: a named metric (or a function of the samples) within [min, max].
+
+    ``metric`` is one of ``METRIC_KEYS``; ``at_hz`` (for ``gain_db``) and ``opamp`` (for
+    ``phase_margin_deg``) say where. ``function``, when given, replaces the named metric: it maps
+    the :class:`SpreadSamples` to one value per sample. A sample whose metric does not exist
+    (NaN) fails the limit.
+    """
+
+    metric: str
+    min: float | None = None
+    max: float | None = None
+    at_hz: float | None = None
+    opamp: str | None = None
+    label: str = ""
+    function: Callable[[SpreadSamples], NDArray[np.float64]] | None = None
+
+    def values(self, samples: SpreadSamples) -> NDArray[np.float64]:
+        if self.function is not None:
+            return np.asarray(self.function(samples), dtype=float)
+        return samples.metric(self.metric, self.at_hz, self.opamp)
+
+    def met(self, samples: SpreadSamples) -> NDArray[np.bool_]:
+        values = self.values(samples)
+        ok = np.isfinite(values)
+        if self.min is not None:
+            ok &= values >= self.min
+        if self.max is not None:
+            ok &= values <= self.max
+        return ok
+
+
+@dataclass(frozen=True, slots=True)
+class MetricSpread:
+    """Distribution of one scalar metric over the samples (NaN samples left out, counted)."""
+
+    key: str
+    unit: str
+    nominal: float | None
+    mean: float | None
+    std: float | None
+    minimum: float | None
+    maximum: float | None
+    percentiles: dict[float, float]
+    defined_count: int
+    why: str | None
+
+
+@dataclass(frozen=True, slots=True)
+class WorstCase:
+    """Extreme vertices of one metric chosen from sensitivity signs, and their evaluation.
+
+    ``low_vertex``/``high_vertex`` map each part ref to −1, 0 or +1 (its tolerance sign);
+    ``confirmed`` is True when no Monte Carlo sample went beyond the evaluated vertices.
+    """
+
+    key: str
+    nominal: float | None
+    low: float | None
+    high: float | None
+    sensitivity: dict[str, float]
+    low_vertex: dict[str, int]
+    high_vertex: dict[str, int]
+    confirmed: bool | None
+    why: str | None
+
+
+@dataclass(frozen=True, slots=True)
+class SpreadResult:
+    """Monte Carlo spread, envelopes, worst case and yield of one system."""
+
+    seed: int
+    samples: int
+    distribution: str
+    parts: tuple[str, ...]
+    tolerances: tuple[float, ...]
+    f_hz: NDArray[np.float64]
+    percentile_levels: tuple[float, ...]
+    nominal_mag_db: NDArray[np.float64]
+    nominal_phase_deg: NDArray[np.float64]
+    mag_db_min: NDArray[np.float64]
+    mag_db_max: NDArray[np.float64]
+    mag_db_percentiles: NDArray[np.float64]  # (levels, frequencies)
+    phase_deg_min: NDArray[np.float64]
+    phase_deg_max: NDArray[np.float64]
+    phase_deg_percentiles: NDArray[np.float64]
+    metrics: dict[str, MetricSpread]
+    worst_case: dict[str, WorstCase]
+    yield_pct: float | None
+    yield_why: str | None
+    limit_pass_pct: tuple[tuple[str, float], ...]
+    sample_values: SpreadSamples
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+
+def _evaluate_samples(
+    model: ToleranceModel, multipliers: NDArray[np.float64], f_hz: NDArray[np.float64], ref_hz: float,
+    extra_f_hz: NDArray[np.float64], loop_grids: dict[str, tuple[NDArray[np.float64], float]],
+) -> SpreadSamples:
+    """All metrics of all samples: one batched sweep, then batched corner and crossover refinement."""
+    count = multipliers.shape[0]
+    grid = np.concatenate([f_hz, [ref_hz], extra_f_hz])
+    response_all = sampled_response(model, multipliers, grid)
+    response = response_all[:, : f_hz.size]
+    ref_response = response_all[:, f_hz.size]
+    extra = response_all[:, f_hz.size + 1:]
+    with np.errstate(divide="ignore"):
+        mag_db = 20.0 * np.log10(np.abs(response))
+        gain_db = 20.0 * np.log10(np.abs(ref_response))
+    peak = np.max(mag_db, axis=1)
+    ref_index = int(np.argmin(np.abs(np.log(f_hz / ref_hz))))
+    (lo_a, lo_b, lv_a, lv_b), (hi_a, hi_b, hv_a, hv_b) = corners_3db(f_hz, mag_db, ref_index, gain_db)
+
+    dense = _DenseCache(model, multipliers)
+
+    def excess_at(rows: NDArray[np.intp]) -> Callable[[NDArray[np.intp], NDArray[np.float64]], NDArray[np.float64]]:
+        target = gain_db[rows] - HALF_POWER_DB
+        g_rows, c_rows = dense.rows(rows)
+
+        def evaluate(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
+            values = _solve_output(g_rows[subset], c_rows[subset], model.b, lambda x: x[..., model.output],
+                                   frequencies[:, None])[:, 0]
+            with np.errstate(divide="ignore"):
+                result: NDArray[np.float64] = 20.0 * np.log10(np.abs(values)) - target[subset]
+            return result
+
+        return evaluate
+
+    corners: list[NDArray[np.float64]] = []
+    for f_a, f_b, v_a, v_b in ((lo_a, lo_b, lv_a, lv_b), (hi_a, hi_b, hv_a, hv_b)):
+        rows = np.flatnonzero(np.isfinite(f_a))
+        values = np.full(count, np.nan)
+        if rows.size:
+            values[rows] = _refine(excess_at(rows), f_a[rows], f_b[rows], v_a[rows], v_b[rows])
+        corners.append(values)
+    margins: dict[str, NDArray[np.float64]] = {}
+    for opamp in model.opamps:
+        if opamp.ref in loop_grids:
+            loop_grid, nominal_margin = loop_grids[opamp.ref]
+            margins[opamp.ref] = _sampled_phase_margins(model, multipliers, dense, opamp, loop_grid, nominal_margin)
+    return SpreadSamples(
+        multipliers=multipliers, f_hz=f_hz, response=response, ref_hz=ref_hz, gain_db=gain_db,
+        peak_gain_db=peak, peaking_db=np.maximum(peak - gain_db, 0.0),
+        f_low_3db_hz=corners[0], f_high_3db_hz=corners[1], phase_margin_deg=margins,
+        extra_f_hz=extra_f_hz, extra_response=extra,
+    )
+
+
+class _DenseCache:
+    """The sampled dense matrices, built on first use (only root refinement needs them)."""
+
+    def __init__(self, model: ToleranceModel, multipliers: NDArray[np.float64]) -> None:
+        self.model = model
+        self.multipliers = multipliers
+        self.built: tuple[NDArray[np.float64], NDArray[np.float64]] | None = None
+
+    def rows(self, rows: NDArray[np.intp]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        if self.built is None:
+            self.built = self.model.matrices(self.multipliers)
+        return self.built[0][rows], self.built[1][rows]
+
+
+def _sampled_phase_margins(model: ToleranceModel, multipliers: NDArray[np.float64], dense: _DenseCache,
+                           opamp: OpampStates, loop_grid: NDArray[np.float64],
+                           nominal_margin_deg: float) -> NDArray[np.float64]:
+    """Phase margin of one op-amp in every sample: bracket |T| = 1 on the grid, refine, read ∠T.
+
+    The phase branch is the one nearest the nominal margin (tolerances move it by far less than
+    360°). A sample whose crossover leaves the grid (half a decade either side of nominal) gets NaN.
+    """
+    values = _loop_values(model, multipliers, opamp, loop_grid)
+    magnitude = np.abs(values)
+    above = magnitude >= 1.0
+    downward = above[:, :-1] & ~above[:, 1:]
+    has = downward.any(axis=1)
+    # The highest downward crossing of each sample.
+    last = downward.shape[1] - 1 - np.argmax(downward[:, ::-1], axis=1)
+    rows = np.flatnonzero(has)
+    margins = np.full(multipliers.shape[0], np.nan)
+    if rows.size == 0:
+        return margins
+    index = last[rows]
+    g_rows, c_rows = dense.rows(rows)
+    g_rows = _broken_g(g_rows, opamp)
+    reader = _returned_vector(model.size, opamp)
+
+    def loop_at(subset: NDArray[np.intp] | slice, frequencies: NDArray[np.float64]) -> NDArray[np.complex128]:
+        return _solve_output(g_rows[subset], c_rows[subset], opamp.state_row, lambda x: x @ reader,
+                             frequencies[:, None])[:, 0]
+
+    def log_magnitude(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
+        loop = loop_at(subset, frequencies)
+        result: NDArray[np.float64] = np.log(np.abs(loop))
+        return result
+
+    crossover = _refine(log_magnitude, loop_grid[index], loop_grid[index + 1],
+                        np.log(magnitude[rows, index]), np.log(magnitude[rows, index + 1]))
+    at_crossover = loop_at(slice(None), crossover)
+    margin = 180.0 + np.degrees(np.angle(at_crossover))
+    margins[rows] = margin - 360.0 * np.round((margin - nominal_margin_deg) / 360.0)
+    return margins
+
+
+def _metric_spread(key: str, unit: str, nominal: float, values: NDArray[np.float64],
+                   levels: Sequence[float]) -> MetricSpread:
+    defined = values[np.isfinite(values)]
+    nominal_value = nominal if math.isfinite(nominal) else None
+    if defined.size == 0:
+        return MetricSpread(key, unit, nominal_value, None, None, None, None, {}, 0,
+                            f"{key} does not exist in any sample (no such corner or crossover on the grid)")
+    why = None
+    if defined.size < values.size:
+        why = f"{values.size - defined.size} of {values.size} samples have no {key}; left out"
+    return MetricSpread(
+        key=key, unit=unit, nominal=nominal_value,
+        mean=float(np.mean(defined)), std=float(np.std(defined, ddof=1)) if defined.size > 1 else 0.0,
+        minimum=float(np.min(defined)), maximum=float(np.max(defined)),
+        percentiles={float(level): float(np.percentile(defined, level)) for level in levels},
+        defined_count=int(defined.size), why=why,
+    )
+
+
+def _default_loop_grids(model: ToleranceModel) -> dict[str, tuple[NDArray[np.float64], float]]:
+    """Around each op-amp's nominal crossover: half a decade either side, 20 points per decade; with
+    the nominal phase margin, which fixes the phase branch of every sample."""
+    from stagewise.engine.loops import loop_gain  # the same break as the nominal loop analysis
+
+    grids: dict[str, tuple[NDArray[np.float64], float]] = {}
+    for opamp in model.opamps:
+        gbw_hz = 1.0 / (TWO_PI * model.c0[opamp.state_row, opamp.state_row])
+        search = np.logspace(math.log10(gbw_hz / opamp.a0 / 100.0), math.log10(gbw_hz * 1000.0),
+                             int(math.log10(1e5 * opamp.a0)) * 40 + 1)
+        nominal_loop = loop_gain(model.g0, model.c0, opamp, search)
+        if nominal_loop.crossover_hz is None or nominal_loop.phase_margin_deg is None:
+            continue
+        centre = nominal_loop.crossover_hz
+        grid = np.logspace(math.log10(centre) - 0.5, math.log10(centre) + 0.5, 21)
+        grids[opamp.ref] = (grid, nominal_loop.phase_margin_deg)
+    return grids
+
+
+def monte_carlo(
+    system: StageSystem,
+    project: Project,
+    *,
+    current_drive: bool,
+    f_hz: NDArray[np.float64] | None = None,
+    samples: int | None = None,
+    seed: int | None = None,
+    distribution: str | None = None,
+    percentiles: Sequence[float] = DEFAULT_PERCENTILES,
+    limits: Sequence[YieldLimit] = (),
+    phase_margins: bool = True,
+    worst_case: bool = True,
+) -> SpreadResult:
+    """Monte Carlo spread over part tolerances, worst case and yield.
+
+    Parameters
+    ----------
+    system : StageSystem
+        A stage or the merged chain (``chain.merged_system(project).system``).
+    project : Project
+        ``settings.seed``, ``mc_samples``, ``mc_distribution``, ``ref_hz`` and the sweep range
+        are the defaults of the options below.
+    current_drive : bool
+        The drive at the system's input (voltage or current).
+    f_hz : ndarray, optional
+        Frequencies of the envelopes in hertz, ascending; by default 200 log-spaced points over
+        ``f_min_hz..f_max_hz``.
+    samples, seed, distribution : optional
+        Override the project's settings.
+    percentiles : sequence of float
+        Percentile levels (0–100) of the envelopes and metric distributions.
+    limits : sequence of YieldLimit
+        The yield is the share of samples meeting every limit; ``None`` with a why when empty.
+    phase_margins : bool
+        Also the phase margin of every finite op-amp in every sample.
+    worst_case : bool
+        Also the extreme-vertex worst case of gain at ref and the −3 dB corners.
+
+    Returns
+    -------
+    SpreadResult
+        Magnitudes in dB, phases in degrees (unwrapped per sample), frequencies in hertz.
+    """
+    settings = project.settings
+    count = settings.mc_samples if samples is None else samples
+    seed_value = settings.seed if seed is None else seed
+    law = settings.mc_distribution if distribution is None else distribution
+    if count < 2:
+        raise ValueError(f"samples: {count} is too few for a spread (at least 2)")
+    if f_hz is None:
+        f_hz = np.logspace(math.log10(settings.f_min_hz.si), math.log10(settings.f_max_hz.si), DEFAULT_POINTS)
+    f_hz = np.asarray(f_hz, dtype=float)
+    model = tolerance_model(system, current_drive=current_drive)
+    notes = list(model.notes)
+    notes.append("op-amp model parameters are held at nominal")
+    if not model.refs:
+        notes.append("no part has a tolerance: every sample equals the nominal circuit")
+    extra = np.array(sorted({float(limit.at_hz) for limit in limits if limit.at_hz is not None}), dtype=float)
+    nominal_only = np.ones((1, len(model.refs)))
+    loop_grids = _default_loop_grids(model) if phase_margins else {}
+    # The reference: settings.ref_hz, else the nominal band maximum (fixed for every sample).
+    if settings.ref_hz is not None:
+        ref_hz = float(settings.ref_hz.si)
+    else:
+        nominal_sweep = sampled_response(model, nominal_only, f_hz)[0]
+        ref_hz = float(f_hz[int(np.argmax(np.abs(nominal_sweep)))])
+    multipliers = sample_multipliers(model.tol, count, seed_value, law)
+    everything = np.vstack([nominal_only, multipliers])
+    evaluated = _evaluate_samples(model, everything, f_hz, ref_hz, extra, loop_grids)
+    nominal, sampled = _split(evaluated, 1)
+    mag_db = 20.0 * np.log10(np.abs(sampled.response))
+    phase_deg = np.degrees(np.unwrap(np.angle(sampled.response), axis=1))
+    nominal_phase = np.degrees(np.unwrap(np.angle(nominal.response[0])))
+    # Keep every sample's unwrapped phase on the nominal's branch at the lowest frequency.
+    phase_deg -= 360.0 * np.round((phase_deg[:, :1] - nominal_phase[0]) / 360.0)
+    levels = tuple(float(level) for level in percentiles)
+    units = {"gain_db": "dB", "peak_gain_db": "dB", "peaking_db": "dB", "f_low_3db_hz": "Hz",
+             "f_high_3db_hz": "Hz"}
+    metrics = {
+        key: _metric_spread(key, unit, float(nominal.metric(key)[0]), sampled.metric(key), levels)
+        for key, unit in units.items()
+    }
+    for ref, values in sampled.phase_margin_deg.items():
+        metrics[f"phase_margin_deg:{ref}"] = _metric_spread(
+            "phase_margin_deg", "deg", float(nominal.phase_margin_deg[ref][0]), values, levels)
+    worst: dict[str, WorstCase] = {}
+    if worst_case and model.refs:
+        worst = _worst_cases(model, f_hz, ref_hz, nominal, sampled)
+    yield_pct: float | None = None
+    yield_why: str | None = "no check applies to the spread"
+    passes: list[tuple[str, float]] = []
+    if limits:
+        all_met = np.ones(count, dtype=bool)
+        for limit in limits:
+            met = limit.met(sampled)
+            passes.append((limit.label or limit.metric, 100.0 * float(np.mean(met))))
+            all_met &= met
+        yield_pct, yield_why = 100.0 * float(np.mean(all_met)), None
+    return SpreadResult(
+        seed=seed_value, samples=count, distribution=law, parts=model.refs,
+        tolerances=tuple(float(t) for t in model.tol), f_hz=f_hz, percentile_levels=levels,
+        nominal_mag_db=20.0 * np.log10(np.abs(nominal.response[0])), nominal_phase_deg=nominal_phase,
+        mag_db_min=mag_db.min(axis=0), mag_db_max=mag_db.max(axis=0),
+        mag_db_percentiles=np.percentile(mag_db, levels, axis=0),
+        phase_deg_min=phase_deg.min(axis=0), phase_deg_max=phase_deg.max(axis=0),
+        phase_deg_percentiles=np.percentile(phase_deg, levels, axis=0),
+        metrics=metrics, worst_case=worst, yield_pct=yield_pct, yield_why=yield_why,
+        limit_pass_pct=tuple(passes), sample_values=sampled, notes=tuple(notes),
+    )
+
+
+def _split(evaluated: SpreadSamples, head: int) -> tuple[SpreadSamples, SpreadSamples]:
+    """The first ``head`` rows and the rest, as two SpreadSamples."""
+    def part(rows: slice) -> SpreadSamples:
+        return SpreadSamples(
+            multipliers=evaluated.multipliers[rows], f_hz=evaluated.f_hz, response=evaluated.response[rows],
+            ref_hz=evaluated.ref_hz, gain_db=evaluated.gain_db[rows], peak_gain_db=evaluated.peak_gain_db[rows],
+            peaking_db=evaluated.peaking_db[rows], f_low_3db_hz=evaluated.f_low_3db_hz[rows],
+            f_high_3db_hz=evaluated.f_high_3db_hz[rows],
+            phase_margin_deg={ref: values[rows] for ref, values in evaluated.phase_margin_deg.items()},
+            extra_f_hz=evaluated.extra_f_hz, extra_response=evaluated.extra_response[rows],
+        )
+    return part(slice(0, head)), part(slice(head, None))
+
+
+def _worst_cases(model: ToleranceModel, f_hz: NDArray[np.float64], ref_hz: float,
+                 nominal: SpreadSamples, sampled: SpreadSamples) -> dict[str, WorstCase]:
+    """Sensitivity signs by central differences (batched), then the two vertices per metric."""
+    parts = len(model.refs)
+    steps = np.ones((2 * parts, parts))
+    steps[np.arange(parts), np.arange(parts)] += SENSITIVITY_STEP
+    steps[parts + np.arange(parts), np.arange(parts)] -= SENSITIVITY_STEP
+    none: NDArray[np.float64] = np.zeros(0)
+    probed = _evaluate_samples(model, steps, f_hz, ref_hz, none, {})
+    signs: dict[str, NDArray[np.float64]] = {}
+    sensitivities: dict[str, NDArray[np.float64]] = {}
+    vertices: list[NDArray[np.float64]] = []
+    keys = [key for key in WORST_CASE_KEYS if math.isfinite(float(nominal.metric(key)[0]))]
+    for key in keys:
+        values = probed.metric(key)
+        # d metric / d(relative change of the part), per part.
+        slope = (values[:parts] - values[parts:]) / (2.0 * SENSITIVITY_STEP)
+        sensitivities[key] = slope
+        signs[key] = np.where(np.isfinite(slope), np.sign(slope), 0.0)
+        vertices.append(1.0 - model.tol * signs[key])  # the low vertex
+        vertices.append(1.0 + model.tol * signs[key])  # the high vertex
+    results: dict[str, WorstCase] = {}
+    evaluated = _evaluate_samples(model, np.array(vertices).reshape(-1, parts), f_hz, ref_hz, none, {}) if keys else None
+    for number, key in enumerate(keys):
+        assert evaluated is not None
+        values = evaluated.metric(key)
+        low, high = float(values[2 * number]), float(values[2 * number + 1])
+        mc = sampled.metric(key)
+        mc = mc[np.isfinite(mc)]
+        slack = 1e-9 * max(abs(low), abs(high), 1e-30)
+        confirmed = None
+        why = None
+        if mc.size and math.isfinite(low) and math.isfinite(high):
+            confirmed = bool(mc.min() >= low - slack and mc.max() <= high + slack)
+            if not confirmed:
+                why = (f"a Monte Carlo sample lies beyond the vertices of {key} "
+                       f"({mc.min():.6g}..{mc.max():.6g} vs {low:.6g}..{high:.6g}): not monotone in every part")
+        elif not (math.isfinite(low) and math.isfinite(high)):
+            why = f"{key} does not exist at a vertex (the corner leaves the grid)"
+        sign = signs[key]
+        results[key] = WorstCase(
+            key=key, nominal=float(nominal.metric(key)[0]),
+            low=low if math.isfinite(low) else None, high=high if math.isfinite(high) else None,
+            sensitivity={ref: float(value) for ref, value in zip(model.refs, sensitivities[key], strict=True)},
+            low_vertex={ref: -int(s) for ref, s in zip(model.refs, sign, strict=True)},
+            high_vertex={ref: int(s) for ref, s in zip(model.refs, sign, strict=True)},
+            confirmed=confirmed, why=why,
+        )
+    return results
+
+
+def _number(value: float | None) -> float | None:
+    return None if value is None or not math.isfinite(value) else value
+
+
+def spread_to_json(result: SpreadResult) -> dict[str, Any]:
+    """The DESIGN section 6 ``spread`` object.
+
+    Keys: ``seed``, ``samples``, ``distribution``, ``parts`` (ref and tolerance), ``metrics``
+    (per key: ``nominal``, ``mean``, ``std``, ``min``, ``max``, ``p1``/``p50``/``p99`` ...,
+    ``defined``, ``why``), ``worst_case`` (per key: ``nominal``, ``low``, ``high``,
+    ``confirmed``, ``why``), ``yield_pct`` (null with ``yield_pct_why`` when no check applies),
+    ``limits`` (label and pass percentage each), ``notes``.
+    """
+    metrics: dict[str, Any] = {}
+    for name, spread in result.metrics.items():
+        entry: dict[str, Any] = {"unit": spread.unit, "nominal": _number(spread.nominal),
+                                 "mean": spread.mean, "std": spread.std, "min": spread.minimum,
+                                 "max": spread.maximum, "defined": spread.defined_count}
+        for level, value in spread.percentiles.items():
+            entry[f"p{level:g}"] = value
+        if spread.why is not None:
+            entry["why"] = spread.why
+        metrics[name] = entry
+    worst = {
+        key: {"nominal": _number(case.nominal), "low": case.low, "high": case.high,
+              "confirmed": case.confirmed, **({"why": case.why} if case.why else {})}
+        for key, case in result.worst_case.items()
+    }
+    document: dict[str, Any] = {
+        "seed": result.seed,
+        "samples": result.samples,
+        "distribution": result.distribution,
+        "parts": [{"ref": ref, "tol": tol} for ref, tol in zip(result.parts, result.tolerances, strict=True)],
+        "metrics": metrics,
+        "worst_case": worst,
+        "yield_pct": result.yield_pct,
+        "limits": [{"label": label, "pass_pct": value} for label, value in result.limit_pass_pct],
+        "notes": list(result.notes),
+    }
+    if result.yield_pct is None:
+        document["yield_pct_why"] = result.yield_why
+    return document
