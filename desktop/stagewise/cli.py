@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from collections.abc import Sequence
 
@@ -117,6 +118,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_ERROR
     except KeyboardInterrupt:
         _report("interrupted")
+        return EXIT_ERROR
+    except Exception as error:  # noqa: BLE001 - the user gets one sentence, never a traceback
+        if os.environ.get("STAGEWISE_DEBUG"):
+            raise
+        _report(f"internal error ({type(error).__name__}: {error}); this is a fault in Stagewise, "
+                "not in your file; run with STAGEWISE_DEBUG=1 to see where")
         return EXIT_ERROR
 
 

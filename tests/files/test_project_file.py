@@ -233,7 +233,7 @@ def test_file_at_the_limit_is_parsed(tmp_path: Path) -> None:
         (b"", "not valid JSON at line 1, column 1"),
         (b"{", "not valid JSON"),
         (b"\xff\xfe{}", "not UTF-8"),
-        (b'{"version": NaN}', "NaN is not allowed"),
+        (b'{"version": NaN}', "version: NaN is not allowed"),
         (b"[1, 2]", "expected an object"),
         (b"[" * 100000 + b"]" * 100000, "nested too deeply"),
     ],

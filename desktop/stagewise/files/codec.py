@@ -168,10 +168,12 @@ def _quantity(value: object) -> Quantity:
     try:
         return Quantity.of(value)
     except ValueSyntaxError as error:
-        if isinstance(value, str | int | float) and not isinstance(value, bool):
-            raise ValueError(f"{_describe(value)} is not a value; expected a JSON number or "
-                             f"text such as 4k7, 2.2u, 10nF or 1Meg") from error
-        raise ValueError(f"{_describe(value)} is not a value") from error
+        if isinstance(value, str):
+            raise ValueError(str(error)) from error  # quotes the text, says why or what is accepted
+        if isinstance(value, int | float) and not isinstance(value, bool):
+            raise ValueError(f"{_describe(value)} is not a finite value") from error
+        raise ValueError(f"{_describe(value)} is not a value; expected a JSON number or "
+                         f"text such as 4k7, 2.2u, 10nF or 1Meg") from error
 
 
 def _optional_quantity(value: object) -> Quantity | None:

@@ -51,8 +51,9 @@ def loads_project(text: str | bytes, source: str = "") -> Project:
         except UnicodeDecodeError as error:
             raise ProjectFileError([f"the file is not UTF-8 text (byte {error.start})"], source) from error
     try:
-        document: Any = json.loads(text.removeprefix("\ufeff"), parse_constant=_refuse_constant,
+        document: Any = json.loads(text.removeprefix("\ufeff"), parse_constant=_NonFinite,
                                    object_pairs_hook=JsonObject.from_pairs)
+        non_finite = _non_finite_problems(document)
     except json.JSONDecodeError as error:
         raise ProjectFileError([f"not valid JSON at line {error.lineno}, column {error.colno}: {error.msg}"],
                                source) from error
@@ -60,6 +61,8 @@ def loads_project(text: str | bytes, source: str = "") -> Project:
         raise ProjectFileError(["the JSON is nested too deeply"], source) from error
     except ValueError as error:
         raise ProjectFileError([str(error)], source) from error
+    if non_finite:
+        raise ProjectFileError(non_finite, source)
     document = migrate(document, source)
     project = decode(document, source)
     problems = validate(project)
@@ -72,8 +75,25 @@ def loads_project(text: str | bytes, source: str = "") -> Project:
 register_known_metrics()
 
 
-def _refuse_constant(name: str) -> Any:
-    raise ValueError(f"{name} is not allowed in a project file; write numbers as finite values")
+class _NonFinite:
+    """Stands where the JSON held NaN, Infinity or -Infinity, so the loader can name the path."""
+
+    def __init__(self, name: str) -> None:
+        self.name = name
+
+
+def _non_finite_problems(node: Any, path: str = "") -> list[str]:
+    """A problem, with its JSON path, for every NaN or Infinity in a parsed document."""
+    if isinstance(node, _NonFinite):
+        return [f"{path or '(document)'}: {node.name} is not allowed in a project file; write a finite number"]
+    problems: list[str] = []
+    if isinstance(node, dict):
+        for key, value in node.items():
+            problems.extend(_non_finite_problems(value, f"{path}.{key}" if path else str(key)))
+    elif isinstance(node, list):
+        for index, value in enumerate(node):
+            problems.extend(_non_finite_problems(value, f"{path}[{index}]"))
+    return problems
 
 
 def load_project(path: str | os.PathLike[str]) -> Project:
