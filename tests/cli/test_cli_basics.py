@@ -213,3 +213,26 @@ def test_code_in_a_value_through_the_installed_program(tmp_path: Path) -> None:
     assert path.read_bytes() == content
     assert not (tmp_path / "PWNED").exists()
     assert sorted(os.listdir(tmp_path)) == ["bad.stagewise.json"]
+
+
+# -- shared helpers of the subcommands ---------------------------------------------------------
+
+
+def test_parse_frequencies() -> None:
+    from stagewise.commands.common import parse_frequencies
+
+    # Source: BIPM SI Brochure, 9th ed., table 7 (prefixes k, M).
+    assert parse_frequencies("10,1k, 20k,1.5MHz") == [10.0, 1000.0, 20000.0, 1.5e6]
+    for bad, words in (("", "separated by commas"), ("10,,20", "separated by commas"), ("10,abc", "entry 2"),
+                       ("0", "above 0 Hz"), ("-5", "above 0 Hz"), (CODE, "entry 1")):
+        with pytest.raises(cli.CommandError, match=words):
+            parse_frequencies(bad)
+
+
+def test_stage_by_id_lists_the_stages() -> None:
+    from stagewise.commands.common import load, stage_by_id
+
+    project = load(str(DEMO))
+    assert stage_by_id(project, "tia").id == "tia"
+    with pytest.raises(cli.CommandError, match="diode, tia, gain, lpf, adc"):
+        stage_by_id(project, "nope")
