@@ -2,15 +2,16 @@
 
 The model ``H(s) = K·∏(s − z)/∏(s − p)`` is realised as a cascade of real first- and
 second-order sections (a conditioning-friendly state-space form, each section scaled to its own
-natural frequency), and the responses are read from matrix exponentials evaluated for all
-instants at once (scipy's ``expm`` on a stacked array: no loop per sample):
+natural frequency), and the responses are read from matrix exponentials for all instants at
+once (modal form when the eigenvectors are well conditioned, else doubling along arithmetic
+progressions of instants from one ``expm`` each: no loop per sample):
 
     step:     y(t) = C·∫₀ᵗ e^{Aτ} dτ·B + D,   from expm([[A, B], [0, 0]]·t)
     impulse:  y(t) = C·e^{At}·B   (plus D·δ(t), reported as ``impulse_weight``)
 
 The time span comes from the poles: ten times the slowest decay time constant 1/min(−Re p), so
-even the 0.1 % band is reached (e^−10 ≈ 4.5e−5); the grid is linear over the span joined with a
-logarithmic grid from the fastest time constant, so fast edges are resolved too. Every metric
+even the 0.1 % band is reached (e^−10 ≈ 4.5e−5); the grid is linear over the span joined with
+uniform runs per decade from the fastest time constant, so fast edges are resolved too. Every metric
 instant is then refined on the exact response (k-section search), not read off the grid.
 
 Definitions (as in python-control's ``step_info``, so results compare):
@@ -60,7 +61,7 @@ __all__ = [
 
 SPAN_TIME_CONSTANTS = 10.0
 LINEAR_POINTS = 1200
-LOG_POINTS = 800
+POINTS_PER_DECADE = 60
 # A pole counts as being on the jω axis (or in the right half-plane) beyond this fraction of its
 # magnitude: rounding of the pencil leaves ~1e-12 relative.
 STABILITY_RTOL = 1e-9
@@ -246,18 +247,72 @@ def time_span_s(model: PoleZeroModel) -> float:
 
 
 def _time_grid(model: PoleZeroModel, span_s: float) -> NDArray[np.float64]:
+    """Linear over the span, plus uniform runs per decade below its first step (fast edges).
+
+    The grid is piecewise uniform on purpose: the exact evaluation walks arithmetic progressions.
+    """
     magnitudes = np.abs(model.poles_rad_s[model.poles_rad_s != 0])
     fastest = 1.0 / float(np.max(magnitudes)) if len(magnitudes) else span_s / SPAN_TIME_CONSTANTS
-    start = min(fastest / 50.0, span_s / LINEAR_POINTS)
-    logarithmic = np.logspace(math.log10(start), math.log10(span_s), LOG_POINTS)
     linear = np.linspace(0.0, span_s, LINEAR_POINTS)
-    return np.unique(np.concatenate([linear, logarithmic]))
+    first_step = float(linear[1])
+    start = fastest / 50.0
+    early: list[NDArray[np.float64]] = []
+    while start < first_step:
+        stop = min(10.0 * start, first_step)
+        early.append(np.linspace(start, stop, POINTS_PER_DECADE, endpoint=False))
+        start = stop
+    return np.concatenate([linear[:1], *early, linear[1:]])
 
 
 # -- evaluation ------------------------------------------------------------------------------
 
 
+MODAL_CONDITION_LIMIT = 1e6
+
+
+def _propagate(matrix: Matrix, initial: NDArray[np.float64], output: NDArray[np.float64],
+               t_s: NDArray[np.float64]) -> NDArray[np.float64]:
+    """y(t) = output·e^{matrix·t}·initial for every t, without a loop per instant.
+
+    When the matrix has a well-conditioned eigenvector basis (distinct poles, the usual case)
+    the modal form Σ r_k·w_k·e^{λ_k t} is evaluated for all t at once. Otherwise (repeated poles:
+    Jordan blocks) the instants are split into arithmetic progressions, and along each one the
+    states follow by doubling, Z[2^k..2^(k+1)) = e^{M·h·2^k}·Z[0..2^k), from one expm per
+    progression (scaling and squaring; Moler and Van Loan, 2003).
+    """
+    t_s = np.asarray(t_s, dtype=float)
+    values, vectors = np.linalg.eig(matrix)
+    if np.linalg.cond(vectors) <= MODAL_CONDITION_LIMIT:
+        weights = np.linalg.solve(vectors, initial.astype(complex))
+        residues = (output @ vectors) * weights
+        return np.asarray(np.real(np.exp(np.outer(t_s, values)) @ residues), dtype=float)
+    order = np.argsort(t_s, kind="stable")
+    sorted_t = t_s[order]
+    result = np.empty(len(sorted_t))
+    start = 0
+    while start < len(sorted_t):
+        if start == len(sorted_t) - 1:
+            length, step = 1, 0.0
+        else:
+            step = float(sorted_t[start + 1] - sorted_t[start])
+            uniform = np.abs(np.diff(sorted_t[start:]) - step) <= 1e-9 * max(step, 1e-300)
+            broken = np.nonzero(~uniform)[0]
+            length = int(broken[0]) + 1 if len(broken) else len(sorted_t) - start
+        states = (scipy.linalg.expm(matrix * sorted_t[start]) @ initial)[:, None]
+        if length > 1:
+            power = scipy.linalg.expm(matrix * step)
+            while states.shape[1] < length:
+                states = np.hstack([states, power @ states])
+                power = power @ power
+        result[start:start + length] = output @ states[:, :length]
+        start += length
+    unsorted = np.empty_like(result)
+    unsorted[order] = result
+    return unsorted
+
+
 def _step_values(system: tuple[Matrix, Matrix, Matrix, Matrix], t_s: NDArray[np.float64]) -> NDArray[np.float64]:
+    """y(t) = C·∫₀ᵗ e^{Aτ}dτ·B + D, the last column of expm([[A, B], [0, 0]]·t)."""
     a, b, c, d = system
     n = a.shape[0]
     t_s = np.asarray(t_s, dtype=float)
@@ -266,9 +321,10 @@ def _step_values(system: tuple[Matrix, Matrix, Matrix, Matrix], t_s: NDArray[np.
     augmented = np.zeros((n + 1, n + 1))
     augmented[:n, :n] = a
     augmented[:n, n] = b[:, 0]
-    exponentials = scipy.linalg.expm(t_s[:, None, None] * augmented[None, :, :])
-    integral = exponentials[:, :n, n]  # ∫₀ᵗ e^{Aτ} dτ·B
-    return np.asarray(integral @ c[0] + d[0, 0], dtype=float)
+    initial = np.zeros(n + 1)
+    initial[n] = 1.0
+    output = np.concatenate([c[0], [0.0]])
+    return _propagate(augmented, initial, output, t_s) + float(d[0, 0])
 
 
 def _impulse_values(system: tuple[Matrix, Matrix, Matrix, Matrix], t_s: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -276,8 +332,7 @@ def _impulse_values(system: tuple[Matrix, Matrix, Matrix, Matrix], t_s: NDArray[
     t_s = np.asarray(t_s, dtype=float)
     if a.shape[0] == 0:
         return np.zeros(t_s.shape)
-    exponentials = scipy.linalg.expm(t_s[:, None, None] * a[None, :, :])
-    return np.asarray((exponentials @ b[:, 0]) @ c[0], dtype=float)
+    return _propagate(a, b[:, 0], c[0], t_s)
 
 
 def refine_crossing(function: Callable[[NDArray[np.float64]], NDArray[np.float64]], low: float, high: float,

@@ -1,0 +1,333 @@
+"""Stage metrics: step response, corners, peaking, phase, group delay (DESIGN 3.5 and 6)."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import control
+import numpy as np
+import pytest
+import scipy.signal
+
+from stagewise.engine.metrics import (
+    bandwidth,
+    frequency_response,
+    group_delay_s_at,
+    metric_at,
+    phase_deg_at,
+    stage_metrics,
+)
+from stagewise.engine.stage import StageAnalysis, analyze_stage
+from stagewise.engine.timeresp import impulse_response, step_response
+from stagewise.model.project import OpampModel, Part, Project, Settings, Stage
+from stagewise.model.values import Quantity
+
+TWO_PI = 2.0 * math.pi
+
+
+def q(value: float) -> Quantity:
+    return Quantity(value, float(value))
+
+
+def part(ref: str, kind: str, nodes: list[str], value: float | None = None, **extra: str) -> Part:
+    return Part(ref, kind, nodes, None if value is None else q(value), **extra)
+
+
+def analyse(parts: list[Part], ref_hz: float | None = None, models: dict[str, OpampModel] | None = None,
+            **stage_fields: object) -> tuple[StageAnalysis, Settings]:
+    stage = Stage("s", "stage", parts=parts, **stage_fields)  # type: ignore[arg-type]
+    project = Project("metrics", opamp_models=models or {}, stages=[stage])
+    project.settings.ref_hz = None if ref_hz is None else q(ref_hz)
+    analysis = analyze_stage(stage, project)
+    assert analysis.why is None, analysis.why
+    return analysis, project.settings
+
+
+def rc_low_pass(r: float, c: float) -> list[Part]:
+    return [part("R1", "R", ["in", "out"], r), part("C1", "C", ["out", "0"], c)]
+
+
+def unity_sallen_key(r1: float, r2: float, c1: float, c2: float) -> list[Part]:
+    return [part("R1", "R", ["in", "a"], r1), part("R2", "R", ["a", "b"], r2),
+            part("C1", "C", ["a", "out"], c1), part("C2", "C", ["b", "0"], c2),
+            part("U1", "opamp", ["b", "out", "out"], model="ideal")]
+
+
+def control_step_info(system: control.TransferFunction, span_s: float) -> dict[str, float]:
+    times = np.linspace(0.0, span_s, 100_001)
+    return dict(control.step_info(system, T=times, SettlingTimeThreshold=0.01))
+
+
+# -- step response ---------------------------------------------------------------------------
+
+
+def test_first_order_step_closed_form() -> None:
+    # Source: any control text: y = 1 − exp(−t/τ): 10–90 % rise ln(9)·τ, settling to 1 % at τ·ln(100),
+    # to 0.1 % at τ·ln(1000), no overshoot, final value 1
+    r, c = 6.8e3, 33e-9
+    tau = r * c
+    analysis, _ = analyse(rc_low_pass(r, c))
+    assert analysis.model is not None
+    step = step_response(analysis.model)
+    assert step.final == pytest.approx(1.0, rel=1e-12)
+    assert step.rise_s == pytest.approx(math.log(9.0) * tau, rel=1e-9)
+    assert step.settle_1pct_s == pytest.approx(math.log(100.0) * tau, rel=1e-9)
+    assert step.settle_0p1pct_s == pytest.approx(math.log(1000.0) * tau, rel=1e-9)
+    assert step.overshoot_pct == 0.0
+    # Source: same: y(t) = 1 − exp(−t/τ) on the whole grid
+    assert np.max(np.abs(step.y - (1.0 - np.exp(-step.t_s / tau)))) < 1e-12
+
+
+def test_double_pole_step_closed_form() -> None:
+    # Source: any control text: 1/(1 + sτ)² has the step response 1 − (1 + t/τ)·exp(−t/τ) (a Jordan
+    # block: the modal form does not apply, the exact exponential path must)
+    r, c = 10e3, 10e-9
+    tau = r * c
+    analysis, _ = analyse([part("R1", "R", ["in", "a"], r), part("C1", "C", ["a", "0"], c),
+                           part("U1", "opamp", ["a", "b", "b"], model="ideal"),
+                           part("R2", "R", ["b", "d"], r), part("C2", "C", ["d", "0"], c),
+                           part("U2", "opamp", ["d", "out", "out"], model="ideal")])
+    assert analysis.model is not None
+    step = step_response(analysis.model)
+    expected = 1.0 - (1.0 + step.t_s / tau) * np.exp(-step.t_s / tau)
+    assert np.max(np.abs(step.y - expected)) < 1e-9
+    # Source: same formula, 1 % settling: (1 + x)·exp(−x) = 0.01 at x = 6.638352 (solved numerically)
+    assert step.settle_1pct_s == pytest.approx(6.638352 * tau, rel=1e-6)
+
+
+@pytest.mark.parametrize("r2", [10e3, 39e3, 120e3])
+def test_sallen_key_step_matches_python_control(r2: float) -> None:
+    # Reference library: control 0.10.2, step_info (SettlingTimeThreshold 0.01) on ω0²/(s² + (ω0/Q)s + ω0²)
+    # with ω0, Q from Sallen & Key (1955)
+    r1, c1, c2 = 10e3, 47e-9, 2.2e-9
+    omega0 = 1.0 / math.sqrt(r1 * r2 * c1 * c2)
+    quality = math.sqrt(r1 * r2 * c1 * c2) / (c2 * (r1 + r2))
+    analysis, _ = analyse(unity_sallen_key(r1, r2, c1, c2))
+    assert analysis.model is not None
+    step = step_response(analysis.model)
+    span = float(step.t_s[-1])
+    info = control_step_info(control.tf([omega0**2], [1.0, omega0 / quality, omega0**2]), span)
+    resolution = span / 100_000
+    assert step.final == pytest.approx(info["SteadyStateValue"], rel=1e-9)
+    assert step.rise_s == pytest.approx(info["RiseTime"], abs=2 * resolution)
+    assert step.overshoot_pct == pytest.approx(info["Overshoot"], abs=1e-4)
+    assert step.settle_1pct_s == pytest.approx(info["SettlingTime"], abs=2 * resolution)
+    if quality > 0.5:
+        # Source: Ogata, Modern Control Engineering, ch. 5: overshoot exp(−πζ/sqrt(1 − ζ²)), ζ = 1/(2Q)
+        zeta = 1.0 / (2.0 * quality)
+        assert step.overshoot_pct == pytest.approx(100 * math.exp(-math.pi * zeta / math.sqrt(1 - zeta**2)), rel=1e-7)
+
+
+def test_inverting_finite_gbw_step_matches_python_control() -> None:
+    # Reference library: control 0.10.2, step_info of −(R2/R1)·A/(A + 1 + R2/R1)... built as
+    # control.feedback of the open loop (Black, 1934), negative final value
+    a0_db, gbw, p2, r1, r2 = 80.0, 1e6, 2.5e6, 1e3, 3.3e3
+    models = {"m": OpampModel(a0_db=q(a0_db), gbw_hz=q(gbw), p2_hz=q(p2))}
+    analysis, _ = analyse([part("R1", "R", ["in", "m"], r1), part("R2", "R", ["m", "out"], r2),
+                           part("U1", "opamp", ["0", "m", "out"], model="m")], models=models)
+    assert analysis.model is not None
+    step = step_response(analysis.model)
+    a0 = 10 ** (a0_db / 20)
+    open_loop = control.tf([a0], np.polymul([a0 / (TWO_PI * gbw), 1], [1 / (TWO_PI * p2), 1]))
+    beta = r1 / (r1 + r2)
+    closed = -(r2 / (r1 + r2)) * control.feedback(open_loop, beta)
+    span = float(step.t_s[-1])
+    info = control_step_info(closed, span)
+    resolution = span / 100_000
+    assert step.final == pytest.approx(info["SteadyStateValue"], rel=1e-9)
+    assert step.final is not None and step.final < 0
+    assert step.rise_s == pytest.approx(info["RiseTime"], abs=2 * resolution)
+    assert step.overshoot_pct == pytest.approx(info["Overshoot"], abs=1e-4)
+    assert step.settle_1pct_s == pytest.approx(info["SettlingTime"], abs=2 * resolution)
+
+
+def test_bessel_block_step_matches_scipy() -> None:
+    # Reference library: scipy 1.17, scipy.signal.bessel(3, ω, analog=True, norm="phase") poles and
+    # scipy.signal.step of the same (b, a)
+    omega = TWO_PI * 5e3
+    _, poles, _ = scipy.signal.bessel(3, omega, analog=True, output="zpk", norm="phase")
+    real = [p for p in poles if abs(p.imag) < 1e-9 * abs(p)]
+    pair = [p for p in poles if p.imag > 1e-9 * abs(p)]
+    roots: list[Quantity | tuple[Quantity, Quantity]] = [q(-real[0].real / TWO_PI)]
+    roots.append((q(abs(pair[0]) / TWO_PI), q(abs(pair[0]) / (-2 * pair[0].real))))
+    stage = Stage("bessel", "block", kind="block", gain=q(1.0), poles_hz=roots)
+    analysis = analyze_stage(stage, Project("b", stages=[stage]))
+    assert analysis.model is not None
+    b, a = scipy.signal.zpk2tf([], poles, np.prod(-poles).real)
+    times = np.linspace(0.0, 2e-3, 2001)
+    _, expected = scipy.signal.step((b, a), T=times)
+    actual = step_response(analysis.model, times)
+    assert np.max(np.abs(actual.y - expected)) < 1e-8
+
+
+def test_impulse_response_matches_python_control() -> None:
+    # Reference library: control 0.10.2, impulse_response of ω0²/(s² + (ω0/Q)s + ω0²)
+    r1, r2, c1, c2 = 15e3, 15e3, 20e-9, 5e-9
+    omega0 = 1.0 / math.sqrt(r1 * r2 * c1 * c2)
+    quality = math.sqrt(r1 * r2 * c1 * c2) / (c2 * (r1 + r2))
+    analysis, _ = analyse(unity_sallen_key(r1, r2, c1, c2))
+    assert analysis.model is not None
+    times = np.linspace(0.0, 1e-3, 1001)
+    ours = impulse_response(analysis.model, times)
+    reference = control.impulse_response(control.tf([omega0**2], [1.0, omega0 / quality, omega0**2]), T=times)
+    assert ours.impulse_weight == 0.0
+    assert np.max(np.abs(ours.y - reference.outputs)) <= 1e-9 * np.max(np.abs(reference.outputs))
+
+
+def test_high_pass_step_has_no_rise_time_and_settles_against_its_peak() -> None:
+    # Source: any circuits text: the step response of sτ/(1 + sτ) is exp(−t/τ): final 0, peak 1 at t = 0,
+    # inside 1 % of the peak after τ·ln(100)
+    r, c = 47e3, 100e-9
+    analysis, settings = analyse([part("C1", "C", ["in", "out"], c), part("R1", "R", ["out", "0"], r)])
+    document = stage_metrics(analysis, settings)["step"]
+    assert document["final"] == 0.0
+    assert document["rise_s"] is None and "zero at DC" in document["rise_s_why"]
+    assert document["overshoot_pct"] is None and document["overshoot_pct_why"]
+    assert document["settle_basis"] == "peak"
+    assert document["settle_1pct_s"] == pytest.approx(r * c * math.log(100.0), rel=1e-9)
+
+
+def test_integrator_step_has_no_final_value() -> None:
+    # Source: any op-amp text: −1/(sRC) has a pole at s = 0, its step response is a ramp
+    analysis, settings = analyse([part("R1", "R", ["in", "m"], 10e3), part("C1", "C", ["m", "out"], 1e-9),
+                                  part("U1", "opamp", ["0", "m", "out"], model="ideal")])
+    document = stage_metrics(analysis, settings)["step"]
+    assert document["final"] is None
+    assert "s = 0" in document["final_why"]
+
+
+def test_unstable_stage_step_says_so() -> None:
+    # Source: Sallen & Key (1955), equal components: Q = 1/(3 − K); K > 3 puts the poles in the right half-plane
+    analysis, settings = analyse([
+        part("R1", "R", ["in", "a"], 10e3), part("R2", "R", ["a", "b"], 10e3),
+        part("C1", "C", ["a", "out"], 10e-9), part("C2", "C", ["b", "0"], 10e-9),
+        part("RA", "R", ["m", "0"], 1e3), part("RB", "R", ["out", "m"], 2.5e3),
+        part("U1", "opamp", ["b", "m", "out"], model="ideal")])
+    assert analysis.poles_rad_s is not None and np.all(analysis.poles_rad_s.real > 0)
+    document = stage_metrics(analysis, settings)["step"]
+    assert document["rise_s"] is None and "unstable" in document["rise_s_why"]
+
+
+# -- frequency-domain metrics ----------------------------------------------------------------
+
+
+def test_rc_corner_relative_to_the_reference_gain() -> None:
+    # Source: first-order corner f_c = 1/(2πRC) (any circuits text); relative to the gain at f_ref the
+    # half-power point solves 1 + (f/fc)² = 2(1 + (f_ref/fc)²)
+    r, c, f_ref = 2.7e3, 10e-9, 100.0
+    fc = 1.0 / (TWO_PI * r * c)
+    analysis, settings = analyse(rc_low_pass(r, c), ref_hz=f_ref)
+    limits = bandwidth(analysis, settings)
+    assert limits.f_high_3db_hz == pytest.approx(fc * math.sqrt(1 + 2 * (f_ref / fc) ** 2), rel=1e-9)
+    assert limits.gain_db == pytest.approx(-10 * math.log10(1 + (f_ref / fc) ** 2), abs=1e-12)
+    assert limits.f_low_3db_hz is None
+    assert "no low-frequency corner" in limits.why["f_low_3db_hz"]
+    # Source: same formula: attenuation relative to the reference gain
+    f = 20e3
+    expected = 10 * math.log10((1 + (f / fc) ** 2) / (1 + (f_ref / fc) ** 2))
+    value = metric_at(analysis, "attenuation_db", f, settings)
+    assert value.value == pytest.approx(expected, rel=1e-10)
+
+
+def test_series_rlc_half_power_frequencies() -> None:
+    # Source: Nilsson & Riedel, series RLC band-pass: ω0 = 1/sqrt(LC), Q = ω0L/R, half-power frequencies
+    # ω0·(sqrt(1 + 1/(4Q²)) ∓ 1/(2Q)); reference gain (band maximum) 0 dB at ω0
+    resistance, inductance, capacitance = 150.0, 33e-3, 68e-9
+    omega0 = 1.0 / math.sqrt(inductance * capacitance)
+    quality = omega0 * inductance / resistance
+    analysis, settings = analyse([part("L1", "L", ["in", "a"], inductance), part("C1", "C", ["a", "out"], capacitance),
+                                  part("R1", "R", ["out", "0"], resistance)])
+    limits = bandwidth(analysis, settings)
+    root = math.sqrt(1 + 1 / (4 * quality**2))
+    assert limits.gain_db == pytest.approx(0.0, abs=1e-9)
+    assert limits.peak_hz == pytest.approx(omega0 / TWO_PI, rel=1e-5)
+    assert limits.f_low_3db_hz == pytest.approx(omega0 * (root - 1 / (2 * quality)) / TWO_PI, rel=1e-9)
+    assert limits.f_high_3db_hz == pytest.approx(omega0 * (root + 1 / (2 * quality)) / TWO_PI, rel=1e-9)
+
+
+def test_sallen_key_peaking() -> None:
+    # Source: Ogata, Modern Control Engineering, ch. 7, resonant peak of a second-order low-pass:
+    # M_r = 1/(2ζ·sqrt(1 − ζ²)) at ω0·sqrt(1 − 2ζ²); reference gain the exact |H| at f_ref
+    r1, r2, c1, c2, f_ref = 10e3, 10e3, 100e-9, 1.5e-9, 10.0
+    omega0 = 1.0 / math.sqrt(r1 * r2 * c1 * c2)
+    quality = math.sqrt(r1 * r2 * c1 * c2) / (c2 * (r1 + r2))
+    zeta = 1.0 / (2.0 * quality)
+    analysis, settings = analyse(unity_sallen_key(r1, r2, c1, c2), ref_hz=f_ref)
+    limits = bandwidth(analysis, settings)
+    s_ref = 1j * TWO_PI * f_ref
+    ref_db = 20 * math.log10(abs(omega0**2 / (s_ref**2 + omega0 / quality * s_ref + omega0**2)))
+    peak_db = 20 * math.log10(1.0 / (2 * zeta * math.sqrt(1 - zeta**2)))
+    assert limits.peak_gain_db == pytest.approx(peak_db, abs=1e-9)
+    assert limits.peak_hz == pytest.approx(omega0 * math.sqrt(1 - 2 * zeta**2) / TWO_PI, rel=1e-4)
+    assert limits.peaking_db == pytest.approx(peak_db - ref_db, abs=1e-9)
+
+
+def test_phase_and_group_delay_of_rc() -> None:
+    # Source: any circuits text: phase −atan(ωRC); group delay −dφ/dω = RC/(1 + (ωRC)²)
+    r, c = 1e3, 1e-6
+    analysis, _ = analyse(rc_low_pass(r, c))
+    for f in (30.0, 159.15, 4e3):
+        w = TWO_PI * f
+        assert phase_deg_at(analysis, f) == pytest.approx(-math.degrees(math.atan(w * r * c)), abs=1e-10)
+        assert group_delay_s_at(analysis, f) == pytest.approx(r * c / (1 + (w * r * c) ** 2), rel=1e-9)
+
+
+def test_butterworth_phase_is_unwrapped() -> None:
+    # Reference library: scipy 1.17, scipy.signal.freqs_zpk of butter(4) and numpy.unwrap on a dense grid:
+    # the phase runs continuously from 0 towards −360°
+    order, corner, resistance = 4, TWO_PI * 1e3, 10e3
+    parts: list[Part] = []
+    nodes = ["in", "mid", "out"]
+    for k in (1, 2):
+        quality = 1.0 / (2.0 * math.cos((2 * k - 1) * math.pi / (2 * order)))
+        c2 = 1.0 / (2.0 * quality * corner * resistance)
+        c1 = 4.0 * quality**2 * c2
+        tag = str(k)
+        parts += [part(f"R1{tag}", "R", [nodes[k - 1], f"a{tag}"], resistance),
+                  part(f"R2{tag}", "R", [f"a{tag}", f"b{tag}"], resistance),
+                  part(f"C1{tag}", "C", [f"a{tag}", nodes[k]], c1), part(f"C2{tag}", "C", [f"b{tag}", "0"], c2),
+                  part(f"U{tag}", "opamp", [f"b{tag}", nodes[k], nodes[k]], model="ideal")]
+    analysis, _ = analyse(parts)
+    z, p, k_gain = scipy.signal.butter(order, corner, analog=True, output="zpk")
+    dense = np.logspace(-1, 6, 20001)
+    _, h = scipy.signal.freqs_zpk(z, p, k_gain, worN=TWO_PI * dense)
+    expected = np.degrees(np.unwrap(np.angle(h)))
+    ours = frequency_response(analysis)
+    assert np.max(np.abs(ours.phase_deg - np.interp(ours.f_hz, dense, expected))) < 0.05
+    assert phase_deg_at(analysis, 300e3) == pytest.approx(np.interp(300e3, dense, expected), abs=1e-3)
+
+
+def test_inverting_amplifier_phase_is_180_degrees() -> None:
+    # Source: any op-amp text: H = −R2/R1 with an ideal op-amp: phase ±180°, gain 20·log10(R2/R1)
+    analysis, settings = analyse([part("R1", "R", ["in", "m"], 1e3), part("R2", "R", ["m", "out"], 22e3),
+                                  part("U1", "opamp", ["0", "m", "out"], model="ideal")], ref_hz=1e3)
+    assert abs(phase_deg_at(analysis, 1e3)) == pytest.approx(180.0, abs=1e-9)
+    assert metric_at(analysis, "gain_db", 5e3).value == pytest.approx(20 * math.log10(22.0), abs=1e-10)
+
+
+def test_stage_metrics_document_is_json_ready_with_reasons() -> None:
+    # Common practice, no source: every null carries a reason; no NaN or infinity in JSON
+    analysis, settings = analyse(rc_low_pass(1e3, 100e-9), ref_hz=1e3)
+    document = stage_metrics(analysis, settings)
+    text = json.dumps(document, allow_nan=False)
+    assert "f_low_3db_hz_why" in document and document["f_low_3db_hz"] is None
+    assert document["poles"][0]["q"] is None
+    # Source: first-order corner 1/(2πRC): the pole's natural frequency
+    assert document["poles"][0]["f_hz"] == pytest.approx(1 / (TWO_PI * 1e-4), rel=1e-9)
+    for key in ("gain_db", "peak_gain_db", "f_low_3db_hz", "f_high_3db_hz", "peaking_db", "poles", "zeros", "step"):
+        assert key in document, text
+    for key in ("rise_s", "overshoot_pct", "settle_1pct_s", "final"):
+        assert key in document["step"]
+
+
+def test_failed_stage_metrics_are_null_with_the_reason() -> None:
+    # Common practice, no source: an unsolvable stage gives nulls with its diagnosis, never an exception
+    stage = Stage("bad", "bad", parts=[part("R1", "R", ["in", "0"], 1e3), part("R2", "R", ["out", "0"], 1e3),
+                                      part("U1", "opamp", ["in", "0", "out"], model="ideal")])
+    project = Project("p", stages=[stage])
+    analysis = analyze_stage(stage, project)
+    document = stage_metrics(analysis, project.settings)
+    assert document["gain_db"] is None and "U1" in document["gain_db_why"]
+    assert document["step"] is None and "U1" in document["step_why"]
+    assert metric_at(analysis, "gain_db", 1e3).value is None
