@@ -1,0 +1,705 @@
+"""The whole analysis of a project: every stage isolated and in chain, and the chain itself.
+
+This module joins the engine's parts into the document that ``stagewise analyze --json``
+prints (DESIGN section 6), and into the :class:`ProjectAnalysis` object that the review layer
+asks for check values (``metric_value``), the packet draws and the GUI shows.
+
+How "in chain" is computed: given the voltage at a stage's input, what its output does depends
+only on the stage and everything after it (the upstream only sets that voltage). So the stage
+in chain, V_out/V_in, is exactly the stage driven by an ideal source at its input and loaded by
+the rest of the chain and the load, which is one driven pencil: the stage engine's pole/zero
+model, step response and metrics apply to it unchanged. A current-driven stage (a
+transimpedance stage) is seen as V_out/I_in, with an ideal current source instead. The
+port-relation cascade (:mod:`stagewise.engine.chain`) gives the same responses (a test holds
+them to 1e-9) and the loading errors and interface impedances.
+
+Every value that cannot be computed is ``None`` with a ``"<key>_why"`` sentence beside it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import cached_property
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from stagewise.engine import loops as loops_module
+from stagewise.engine.chain import (
+    ChainEngine,
+    ChainResult,
+    MergedChain,
+    StageInChain,
+    load_admittance,
+    merge_systems,
+    merged_system,
+)
+from stagewise.engine.metrics import metric_at, stage_metrics
+from stagewise.engine.mna import CircuitError, StageSystem
+from stagewise.engine.stage import StageAnalysis, analyze_stage, analyze_system
+from stagewise.engine.sweep import TWO_PI, DrivenSystem, drive, frequency_grid, solve_batched
+from stagewise.model.project import Check, Project, Stage
+
+__all__ = ["ProjectAnalysis", "analyze_project", "metric_provider", "response_points"]
+
+VOLTAGE_UNIT = "V/V"
+CURRENT_UNIT = "Ω"
+
+NO_OPAMP = "the stage has no finite-gain op-amp, so it has no loop to measure"
+IDEAL_ONLY = "its op-amps are ideal (infinite gain): there is no loop gain to measure"
+
+# Step keys of the metric table -> keys of the stage engine's step document.
+STEP_KEYS = {"rise_s": "rise_s", "overshoot_pct": "overshoot_pct", "settle_1pct_s": "settle_1pct_s",
+             "settle_01pct_s": "settle_0p1pct_s"}
+BAND_KEYS = ("peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz")
+POINT_KEYS = ("phase_deg", "attenuation_db", "group_delay_s")
+
+
+def _finite(value: float | None) -> float | None:
+    if value is None or not math.isfinite(value):
+        return None
+    return float(value)
+
+
+@dataclass(frozen=True, slots=True)
+class _Failure:
+    why: str
+
+
+class ProjectAnalysis:
+    """Lazily computed analysis of one project (each piece computed once, when first asked).
+
+    Parameters
+    ----------
+    project : Project
+        A validated project. It must not change while this object is in use.
+    engine : ChainEngine, optional
+        A chain engine whose caches are reused (the GUI keeps one per document).
+    spread : bool
+        Whether the Monte Carlo spread is part of the document (it is the slowest piece).
+    """
+
+    def __init__(self, project: Project, engine: ChainEngine | None = None, *, spread: bool = True) -> None:
+        self.project = project
+        self.engine = engine or ChainEngine()
+        self.with_spread = spread
+
+    # -- the pieces ------------------------------------------------------------------------
+
+    @cached_property
+    def f_hz(self) -> NDArray[np.float64]:
+        """The project's analysis grid in hertz."""
+        return frequency_grid(self.project.settings)
+
+    @cached_property
+    def chain(self) -> ChainResult | _Failure:
+        """The port-relation cascade on the grid (loading errors, impedances), or why not."""
+        try:
+            return self.engine.analyze(self.project, self.f_hz)
+        except CircuitError as error:
+            return _Failure(str(error))
+        except np.linalg.LinAlgError:
+            return _Failure("the chain's equations are singular at an analysis frequency")
+
+    @cached_property
+    def merged(self) -> MergedChain | _Failure:
+        """The whole active chain as one circuit, or why not."""
+        try:
+            return merged_system(self.project)
+        except CircuitError as error:
+            return _Failure(str(error))
+
+    @cached_property
+    def _systems(self) -> dict[str, StageSystem | _Failure]:
+        systems: dict[str, StageSystem | _Failure] = {}
+        for stage in self.project.stages:
+            try:
+                systems[stage.id] = self.engine.system(stage, self.project)
+            except CircuitError as error:
+                systems[stage.id] = _Failure(str(error))
+        return systems
+
+    def isolated(self, stage_id: str) -> StageAnalysis:
+        """The stage alone: its own drive, output unloaded (cached)."""
+        return self._isolated[stage_id]
+
+    @cached_property
+    def _isolated(self) -> dict[str, StageAnalysis]:
+        return {stage.id: analyze_stage(stage, self.project, self.f_hz) for stage in self.project.stages}
+
+    def in_chain(self, stage_id: str) -> StageAnalysis | _Failure:
+        """The stage where it sits: its own drive at its input, loaded by the rest of the chain."""
+        return self._in_chain[stage_id]
+
+    @cached_property
+    def _in_chain(self) -> dict[str, StageAnalysis | _Failure]:
+        results: dict[str, StageAnalysis | _Failure] = {}
+        active = self.project.active_stages
+        for stage in self.project.stages:
+            if stage.bypass:
+                results[stage.id] = _Failure(f'stage "{stage.id}" is bypassed, so it is not in the chain')
+        try:
+            load_r, load_c = load_admittance(self.project)
+        except CircuitError as error:
+            for stage in active:
+                results[stage.id] = _Failure(str(error))
+            return results
+        for position, stage in enumerate(active):
+            rest = active[position:]
+            systems = [self._systems[item.id] for item in rest]
+            failed = next((system for system in systems if isinstance(system, _Failure)), None)
+            if failed is not None:
+                results[stage.id] = _Failure(failed.why)
+                continue
+            current = stage.drive == "current"
+            unit = CURRENT_UNIT if current else VOLTAGE_UNIT
+            reason = self._undefined_in_chain(stage.id)
+            if reason is not None:
+                results[stage.id] = _Failure(reason)
+                continue
+            merged = merge_systems([item.id for item in rest], [s for s in systems if isinstance(s, StageSystem)],
+                                   current_drive=current, load_r_ohm=load_r, load_c_f=load_c)
+            driven = drive(merged.system, current)
+            driven = DrivenSystem(driven.g, driven.c, driven.b, merged.interface_indices[1], current)
+            analysis = analyze_system(driven, self.f_hz, unit, stage.id, "")
+            if analysis.why is not None:
+                results[stage.id] = _Failure(f'stage "{stage.id}" in chain: {analysis.why}')
+            else:
+                results[stage.id] = analysis
+        return results
+
+    def _undefined_in_chain(self, stage_id: str) -> str | None:
+        chain = self.chain
+        if isinstance(chain, _Failure):
+            return None
+        entry = self._chain_entry(stage_id)
+        if entry is not None and entry.in_chain is None:
+            return f'stage "{stage_id}" in chain: {entry.in_chain_why}'
+        return None
+
+    def _chain_entry(self, stage_id: str) -> StageInChain | None:
+        chain = self.chain
+        if isinstance(chain, _Failure):
+            return None
+        for entry in chain.stages:
+            if entry.stage_id == stage_id:
+                return entry
+        return None
+
+    @cached_property
+    def whole_chain(self) -> StageAnalysis | _Failure:
+        """Drive → last output of the merged chain, with its pole/zero model."""
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return merged
+        unit = CURRENT_UNIT if merged.current_drive else VOLTAGE_UNIT
+        analysis = analyze_system(merged.driven(), self.f_hz, unit, "chain", "")
+        if analysis.why is not None:
+            return _Failure(f"the chain: {analysis.why}")
+        return analysis
+
+    @cached_property
+    def isolated_loops(self) -> dict[str, list[dict[str, Any]]]:
+        result: dict[str, list[dict[str, Any]]] = {}
+        for stage in self.project.stages:
+            system = self._systems[stage.id]
+            if isinstance(system, _Failure) or stage.is_block:
+                result[stage.id] = []
+                continue
+            result[stage.id] = loops_module.loops_to_json(
+                loops_module.loop_gains(system, current_drive=stage.drive == "current"))
+        return result
+
+    @cached_property
+    def chain_loops(self) -> list[dict[str, Any]] | _Failure:
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return merged
+        return loops_module.loops_to_json(loops_module.loop_gains(merged.system,
+                                                                  current_drive=merged.current_drive))
+
+    def stage_chain_loops(self, stage_id: str) -> list[dict[str, Any]]:
+        loops = self.chain_loops
+        if isinstance(loops, _Failure):
+            return []
+        prefix = f"{stage_id}:"
+        picked = []
+        for entry in loops:
+            if str(entry["ref"]).startswith(prefix):
+                local = dict(entry)
+                local["ref"] = str(entry["ref"])[len(prefix):]
+                picked.append(local)
+        return picked
+
+    @cached_property
+    def noise_result(self) -> Any:
+        """The chain's :class:`~stagewise.engine.noise.NoiseResult`, or why not."""
+        from stagewise.engine.noise import analyze_noise  # noqa: PLC0415
+
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return merged
+        try:
+            return analyze_noise(merged.system, self.project, current_drive=merged.current_drive)
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return _Failure(f"the noise analysis failed: {error}")
+
+    @cached_property
+    def noise(self) -> dict[str, Any] | _Failure:
+        """The chain's noise document (DESIGN section 6 ``noise``), or why not."""
+        from stagewise.engine.noise import noise_to_json  # noqa: PLC0415
+
+        result = self.noise_result
+        if isinstance(result, _Failure):
+            return result
+        return noise_to_json(result, self.project.converter)
+
+    @cached_property
+    def headroom(self) -> list[dict[str, Any]] | _Failure:
+        """Headroom and slew at every op-amp output of the chain (DESIGN 3.5), or why not."""
+        from stagewise.engine.headroom import headroom, headroom_to_json  # noqa: PLC0415
+
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return merged
+        try:
+            return headroom_to_json(headroom(merged.system, self.project, current_drive=merged.current_drive,
+                                             f_hz=self.f_hz))
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return _Failure(f"the headroom analysis failed: {error}")
+
+    @cached_property
+    def converter(self) -> dict[str, Any] | _Failure:
+        """The converter figures (alias attenuation, noise against LSB and full scale), or why not."""
+        from stagewise.engine.converter import converter_review, converter_to_json  # noqa: PLC0415
+
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return merged
+        noise = self.noise_result
+        corner = None
+        chain = self.whole_chain
+        if not isinstance(chain, _Failure):
+            corner = self._metrics_document("chain", "", chain).get("f_high_3db_hz")
+        try:
+            result = converter_review(merged.system, self.project, current_drive=merged.current_drive,
+                                      noise=None if isinstance(noise, _Failure) else noise,
+                                      f_high_3db_hz=corner)
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return _Failure(f"the converter analysis failed: {error}")
+        return converter_to_json(result)
+
+    @cached_property
+    def spread(self) -> Any:
+        """Monte Carlo spread of the chain with the yield against the applicable checks."""
+        from stagewise.engine.spread import monte_carlo, spread_to_json  # noqa: PLC0415
+
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return merged
+        limits, basis = self._yield_limits(merged)
+        try:
+            result = monte_carlo(merged.system, self.project, current_drive=merged.current_drive, limits=limits)
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return _Failure(f"the spread analysis failed: {error}")
+        document = spread_to_json(result)
+        document["yield_basis"] = basis
+        if not basis and document.get("yield_pct") is None:
+            document["yield_pct_why"] = ("no numeric check of the project applies to the whole chain's gain, "
+                                         "corners or phase margins, so there is nothing to count a yield against")
+        return document
+
+    def _yield_limits(self, merged: MergedChain) -> tuple[list[Any], list[str]]:
+        from stagewise.engine.spread import YieldLimit  # noqa: PLC0415
+
+        limits: list[Any] = []
+        basis: list[str] = []
+        supported = {"gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz"}
+        opamp_refs = [opamp.ref for opamp in merged.system.opamps]
+        for stage in self.project.stages:
+            for check in stage.checks:
+                if check.metric is None or check.waiver is not None:
+                    continue
+                low = None if check.min is None else check.min.si
+                high = None if check.max is None else check.max.si
+                label = f"{stage.id}/{check.id}"
+                if check.where == "chain" and check.metric in supported:
+                    at_hz = None if check.at_hz is None else check.at_hz.si
+                    if check.metric == "gain_db" and at_hz is None and self.project.settings.ref_hz is not None:
+                        at_hz = self.project.settings.ref_hz.si
+                    limits.append(YieldLimit(check.metric, low, high, at_hz=at_hz, label=label))
+                    basis.append(label)
+                elif check.metric == "phase_margin_deg" and check.where == "in_chain" and not stage.bypass:
+                    for ref in opamp_refs:
+                        if ref.startswith(f"{stage.id}:"):
+                            limits.append(YieldLimit("phase_margin_deg", low, high, opamp=ref, label=label))
+                            if label not in basis:
+                                basis.append(label)
+        return limits, basis
+
+    # -- impedances ------------------------------------------------------------------------
+
+    def isolated_impedances(self, stage_id: str, f_hz: float) -> tuple[complex | None, complex | None, str | None]:
+        """Z_in (output unloaded) and Z_out (its own drive zeroed) of a stage alone, at ``f_hz``."""
+        system = self._systems.get(stage_id)
+        if system is None or isinstance(system, _Failure):
+            return None, None, None if system is None else system.why
+        stage = self.project.stage(stage_id)
+        assert stage is not None
+        s = np.array([1j * TWO_PI * f_hz])
+        n = system.size
+        try:
+            injected = np.zeros(n, dtype=complex)
+            injected[system.input_index] = 1.0
+            z_in = complex(solve_batched(system.g, system.c, injected, s)[0, system.input_index])
+        except np.linalg.LinAlgError:
+            z_in = None
+        try:
+            if stage.drive == "current":
+                g, c = system.g, system.c
+            else:
+                shorted = drive(system, False)
+                g, c = shorted.g, shorted.c
+            injected = np.zeros(g.shape[0], dtype=complex)
+            injected[system.output_index] = 1.0
+            z_out = complex(solve_batched(g, c, injected, s)[0, system.output_index])
+        except np.linalg.LinAlgError:
+            z_out = None
+        return z_in, z_out, None
+
+    def chain_impedances(self, stage_id: str, f_hz: float) -> tuple[complex | None, complex | None, str | None]:
+        """Z_in looking into the stage where it sits and Z_out looking back from its output."""
+        stage = self.project.stage(stage_id)
+        if stage is None or stage.bypass:
+            return None, None, f'stage "{stage_id}" is bypassed, so it is not in the chain'
+        try:
+            result = self.engine.analyze(self.project, [f_hz])
+        except CircuitError as error:
+            return None, None, str(error)
+        entry = result.stage(stage_id)
+        return complex(entry.z_in_ohm[0]), complex(entry.z_out_ohm[0]), None
+
+    # -- the metric provider for checks ------------------------------------------------------
+
+    def _analysis_for(self, where: str, stage_id: str) -> StageAnalysis | _Failure:
+        if where == "chain":
+            return self.whole_chain
+        if where == "isolated":
+            analysis = self.isolated(stage_id)
+            return _Failure(analysis.why) if analysis.why is not None else analysis
+        return self.in_chain(stage_id)
+
+    def metric_value(self, metric: str, where: str, stage_id: str,
+                     at_hz: float | None) -> tuple[float | None, str | None]:
+        """A check's metric (DESIGN section 4), or ``(None, why)``. Units as in the metric table."""
+        if self.project.stage(stage_id) is None:
+            return None, f'there is no stage "{stage_id}"'
+        try:
+            return self._metric_value(metric, where, stage_id, at_hz)
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return None, f"{metric} could not be computed: {error}"
+
+    def _metric_value(self, metric: str, where: str, stage_id: str,
+                      at_hz: float | None) -> tuple[float | None, str | None]:
+        settings = self.project.settings
+        if metric in ("gain_db", *POINT_KEYS, *BAND_KEYS, *STEP_KEYS):
+            analysis = self._analysis_for(where, stage_id)
+            if isinstance(analysis, _Failure):
+                return None, analysis.why
+            if metric == "gain_db" and at_hz is None:
+                document = self._metrics_document(where, stage_id, analysis)
+                return _document_value(document, "gain_db")
+            if metric == "gain_db" or metric in POINT_KEYS:
+                if at_hz is None:
+                    return None, f"{metric} needs a frequency (at_hz)"
+                point = metric_at(analysis, metric, at_hz, settings)
+                return _finite(point.value), point.why
+            document = self._metrics_document(where, stage_id, analysis)
+            if metric in BAND_KEYS:
+                return _document_value(document, metric)
+            step = document.get("step")
+            if not isinstance(step, dict):
+                return None, str(document.get("step_why", "the step response could not be computed"))
+            return _document_value(step, STEP_KEYS[metric])
+        if metric in ("phase_margin_deg", "gain_margin_db", "crossover_hz"):
+            loops = self.stage_chain_loops(stage_id) if where == "in_chain" else self.isolated_loops.get(stage_id, [])
+            if where == "chain":
+                chain_loops = self.chain_loops
+                loops = [] if isinstance(chain_loops, _Failure) else chain_loops
+            return _loop_value(loops, metric)
+        if metric == "loading_error_db_max":
+            entry = self._chain_entry(stage_id)
+            if entry is None:
+                chain = self.chain
+                return None, chain.why if isinstance(chain, _Failure) else f'stage "{stage_id}" is not in the chain'
+            return _finite(entry.loading_error_db_max), entry.loading_error_why
+        if metric in ("zin_ohm", "zout_ohm"):
+            frequency = at_hz if at_hz is not None else _reference_hz(self.project)
+            if frequency is None:
+                return None, "no frequency: give at_hz or the project's settings.ref_hz"
+            if where == "isolated":
+                z_in, z_out, why = self.isolated_impedances(stage_id, frequency)
+            else:
+                z_in, z_out, why = self.chain_impedances(stage_id, frequency)
+            impedance = z_in if metric == "zin_ohm" else z_out
+            if impedance is None:
+                return None, why or "the impedance is undefined (the equations are singular there)"
+            magnitude = abs(impedance)
+            if not math.isfinite(magnitude):
+                return None, "the impedance is infinite there (an open circuit)"
+            return magnitude, None
+        if metric in ("noise_out_rms_v", "noise_in_rms", "snr_db"):
+            noise = self.noise
+            if isinstance(noise, _Failure):
+                return None, noise.why
+            key = {"noise_out_rms_v": "out_rms_v", "noise_in_rms": "in_rms", "snr_db": "snr_db"}[metric]
+            return _document_value(noise, key)
+        if metric == "alias_attenuation_db":
+            converter = self.converter
+            if isinstance(converter, _Failure):
+                return None, converter.why
+            return _document_value(converter, "alias_attenuation_db")
+        if metric in ("headroom_v", "slew_margin"):
+            return self._headroom_value(metric, where, stage_id)
+        if metric == "yield_pct":
+            spread = self.spread
+            if isinstance(spread, _Failure):
+                return None, spread.why
+            return _document_value(spread, "yield_pct")
+        return None, f'"{metric}" is not a metric Stagewise computes'
+
+    def _headroom_value(self, metric: str, where: str, stage_id: str) -> tuple[float | None, str | None]:
+        headroom = self.headroom
+        if isinstance(headroom, _Failure):
+            return None, headroom.why
+        entries = headroom
+        if where == "in_chain":
+            entries = [entry for entry in entries if str(entry.get("ref", "")).startswith(f"{stage_id}:")]
+        key = "swing_margin_v" if metric == "headroom_v" else "slew_margin"
+        values = [float(entry[key]) for entry in entries if entry.get(key) is not None]
+        if values:
+            return min(values), None
+        reasons = [str(entry.get(f"{key}_why")) for entry in entries if entry.get(f"{key}_why")]
+        if reasons:
+            return None, reasons[0]
+        return None, "no op-amp with a swing or slew model sits there"
+
+    # -- documents -------------------------------------------------------------------------
+
+    def _metrics_document(self, where: str, stage_id: str, analysis: StageAnalysis) -> dict[str, Any]:
+        key = (where, stage_id if where != "chain" else "")
+        cache = self._documents
+        if key not in cache:
+            cache[key] = stage_metrics(analysis, self.project.settings)
+        return cache[key]
+
+    @cached_property
+    def _documents(self) -> dict[tuple[str, str], dict[str, Any]]:
+        return {}
+
+    def stage_document(self, stage: Stage) -> dict[str, Any]:
+        """One ``stages[]`` entry of the ``analyze --json`` document."""
+        document: dict[str, Any] = {"id": stage.id, "name": stage.name}
+        if stage.bypass:
+            document["bypass"] = True
+        isolated = self.isolated(stage.id)
+        if isolated.why is not None:
+            document["isolated"] = None
+            document["isolated_why"] = isolated.why
+        else:
+            metrics = dict(self._metrics_document("isolated", stage.id, isolated))
+            metrics["loops"] = self.isolated_loops.get(stage.id, [])
+            document["isolated"] = metrics
+        in_chain = self.in_chain(stage.id)
+        if isinstance(in_chain, _Failure):
+            document["in_chain"] = None
+            document["in_chain_why"] = in_chain.why
+        else:
+            metrics = dict(self._metrics_document("in_chain", stage.id, in_chain))
+            metrics["loops"] = self.stage_chain_loops(stage.id)
+            document["in_chain"] = metrics
+        value, why = self.metric_value("loading_error_db_max", "in_chain", stage.id, None)
+        _put(document, "loading_error_db_max", value, why)
+        for key, metric in (("zin_ohm_at_ref", "zin_ohm"), ("zout_ohm_at_ref", "zout_ohm")):
+            if stage.bypass:
+                _put(document, key, None, f'stage "{stage.id}" is bypassed, so it is not in the chain')
+                continue
+            value, why = self.metric_value(metric, "in_chain", stage.id, None)
+            _put(document, key, value, why)
+        document["checks"] = [self.check_document(stage, check) for check in stage.checks]
+        return document
+
+    def check_document(self, stage: Stage, check: Check) -> dict[str, Any]:
+        """A check with its computed state, through the review layer's evaluation."""
+        from stagewise.review.checks import evaluate_check  # noqa: PLC0415
+
+        result = evaluate_check(check, stage, self.project, self)
+        document: dict[str, Any] = {
+            "id": check.id,
+            "text": check.text,
+            "metric": check.metric,
+            "where": check.where if check.metric is not None else None,
+            "at_hz": result.at_hz,
+            "min": None if check.min is None else check.min.si,
+            "max": None if check.max is None else check.max.si,
+            "value": _finite(result.value),
+            "unit": result.unit,
+            "state": str(result.state),
+        }
+        if result.why:
+            document["why"] = result.why
+        return document
+
+    def chain_document(self) -> dict[str, Any] | None:
+        """The ``chain`` M of the document (None when the chain cannot be analysed)."""
+        chain = self.whole_chain
+        if isinstance(chain, _Failure):
+            return None
+        document = dict(self._metrics_document("chain", "", chain))
+        loops = self.chain_loops
+        document["loops"] = [] if isinstance(loops, _Failure) else loops
+        for key, piece in (("noise", self.noise), ("headroom", self.headroom), ("converter", self.converter)):
+            if isinstance(piece, _Failure):
+                document[key] = None
+                document[f"{key}_why"] = piece.why
+            else:
+                document[key] = piece
+        noise = document.get("noise")
+        if isinstance(noise, dict):
+            _put(document, "snr_db", noise.get("snr_db"), noise.get("snr_db_why"))
+        else:
+            _put(document, "snr_db", None, document.get("noise_why"))
+        value, why = self.metric_value("alias_attenuation_db", "chain", self.project.stages[0].id, None)
+        _put(document, "alias_attenuation_db", value, why)
+        if self.with_spread:
+            spread = self.spread
+            if isinstance(spread, _Failure):
+                _put(document, "spread", None, spread.why)
+            else:
+                document["spread"] = spread
+        else:
+            _put(document, "spread", None, "the spread analysis was not asked for")
+        return document
+
+    def document(self, path: str | Path | None = None, sha256: str | None = None) -> dict[str, Any]:
+        """The whole ``analyze --json`` document (DESIGN section 6)."""
+        document: dict[str, Any] = {
+            "file": None if path is None else str(path),
+            "sha256": sha256,
+            "title": self.project.title,
+            "revision": self.project.revision,
+            "stages": [self.stage_document(stage) for stage in self.project.stages],
+        }
+        chain = self.chain_document()
+        if chain is None:
+            failure = self.whole_chain
+            document["chain"] = None
+            document["chain_why"] = failure.why if isinstance(failure, _Failure) else "the chain cannot be analysed"
+        else:
+            document["chain"] = chain
+        ready: dict[str, Any] = _json_ready(document)
+        return ready
+
+
+def _reference_hz(project: Project) -> float | None:
+    return None if project.settings.ref_hz is None else project.settings.ref_hz.si
+
+
+def _put(document: dict[str, Any], key: str, value: Any, why: str | None) -> None:
+    document[key] = value
+    if value is None:
+        document[f"{key}_why"] = why or "not computed"
+
+
+def _document_value(document: dict[str, Any], key: str) -> tuple[float | None, str | None]:
+    value = document.get(key)
+    if value is None:
+        return None, str(document.get(f"{key}_why") or f"{key} could not be computed")
+    return _finite(float(value)), None
+
+
+def _loop_value(loops: list[dict[str, Any]], metric: str) -> tuple[float | None, str | None]:
+    if not loops:
+        return None, NO_OPAMP
+    values = [float(entry[metric]) for entry in loops if entry.get(metric) is not None]
+    if values:
+        # The weakest loop decides: smallest margin; for crossover, the lowest frequency.
+        return min(values), None
+    reasons = [str(entry.get(f"{metric}_why")) for entry in loops if entry.get(f"{metric}_why")]
+    return None, reasons[0] if reasons else IDEAL_ONLY
+
+
+def _json_ready(value: Any) -> Any:
+    """Replace NaN/inf by None and numpy scalars by Python numbers, recursively."""
+    if isinstance(value, dict):
+        return {key: _json_ready(item) for key, item in value.items()}
+    if isinstance(value, list | tuple):
+        return [_json_ready(item) for item in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+# -- entry points ----------------------------------------------------------------------------
+
+
+def analyze_project(project: Project, path: str | Path | None = None, *, spread: bool = True) -> dict[str, Any]:
+    """The ``analyze --json`` document of a project (DESIGN section 6).
+
+    Parameters
+    ----------
+    project : Project
+        A validated project.
+    path : str or Path, optional
+        The file it came from: its name and SHA-256 go into the document.
+    spread : bool
+        Include the Monte Carlo spread (the slowest piece).
+    """
+    sha256 = None
+    if path is not None:
+        from stagewise.files.project_file import file_sha256  # noqa: PLC0415
+
+        sha256 = file_sha256(path)
+    return ProjectAnalysis(project, spread=spread).document(path, sha256)
+
+
+def metric_provider(project: Project) -> ProjectAnalysis:
+    """The review layer's :class:`~stagewise.review.checks.MetricProvider` for ``project``."""
+    return ProjectAnalysis(project)
+
+
+def response_points(project: Project, f_hz: list[float], stage_id: str | None = None,
+                    in_chain: bool = False) -> tuple[str, NDArray[np.complex128] | None, str | None]:
+    """The response at chosen frequencies: the chain, a stage isolated, or a stage in chain.
+
+    Returns
+    -------
+    (unit, values, why)
+        ``values`` is None when the response is undefined, ``why`` then says why.
+
+    Raises
+    ------
+    ValueError
+        An unknown stage id, or ``in_chain`` for a bypassed stage (one sentence each).
+    """
+    engine = ChainEngine()
+    if stage_id is None:
+        result = engine.analyze(project, f_hz)
+        return result.unit, result.response, None
+    stage = project.stage(stage_id)
+    if stage is None:
+        known = ", ".join(item.id for item in project.stages)
+        raise ValueError(f'there is no stage "{stage_id}" (stages: {known})')
+    if not in_chain:
+        isolated = engine.isolated(stage, project, np.asarray(f_hz, dtype=float))
+        return isolated.unit, isolated.response, isolated.why
+    if stage.bypass:
+        raise ValueError(f'stage "{stage_id}" is bypassed, so it has no response in chain')
+    entry = engine.analyze(project, f_hz).stage(stage_id)
+    return entry.unit, entry.in_chain, entry.in_chain_why
+
