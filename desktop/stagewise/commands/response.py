@@ -15,26 +15,7 @@ import math
 import numpy as np
 
 from stagewise.cli import CommandError
-from stagewise.commands.common import load, print_json
-from stagewise.model.values import ValueSyntaxError, parse_value
-
-
-def parse_frequencies(text: str) -> list[float]:
-    """``"10,1k,20k"`` -> [10.0, 1000.0, 20000.0]; a bad entry raises CommandError naming it."""
-    values: list[float] = []
-    for piece in text.split(","):
-        if not piece.strip():
-            continue
-        try:
-            value = parse_value(piece.strip())
-        except ValueSyntaxError as error:
-            raise CommandError(f'--freqs: "{piece.strip()}" is not a frequency ({error})') from error
-        if not value > 0:
-            raise CommandError(f'--freqs: "{piece.strip()}" is not a frequency above 0 Hz')
-        values.append(value)
-    if not values:
-        raise CommandError("--freqs: give at least one frequency, e.g. 10,1k,20k")
-    return values
+from stagewise.commands.common import load, parse_frequencies, print_json, stage_by_id
 
 
 def run(args: argparse.Namespace) -> int:
@@ -44,6 +25,8 @@ def run(args: argparse.Namespace) -> int:
     if args.in_chain and args.stage is None:
         raise CommandError("--in-chain needs --stage ID")
     project = load(args.file)
+    if args.stage is not None:
+        stage_by_id(project, args.stage, args.file)
     unit, values, why = response_points(project, frequencies, args.stage, args.in_chain)
     if args.stage is None:
         what = "chain"
