@@ -31,7 +31,7 @@ from numpy.typing import NDArray
 
 from stagewise.engine.cache import ComputeCache, grid_key
 from stagewise.engine.mna import CircuitError, ElementStamp, OpampStates, StageSystem, assemble
-from stagewise.engine.ports import I_IN, V_IN, PortRelation, forced_zero, reduce_stage
+from stagewise.engine.ports import PortRelation, reduce_stage
 from stagewise.engine.sweep import DrivenSystem, drive, frequency_grid, transfer
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Stage
@@ -388,36 +388,38 @@ def cascade(
     sec. 4.3 (banded systems) and sec. 4.5.1 (block tridiagonal elimination).
     """
     frequencies = len(f_hz)
+    interfaces = len(relations) + 1
+    # Rows are interfaces, so that each step writes one contiguous row.
+    back_alpha = np.empty((interfaces, frequencies), dtype=complex)
+    back_beta = np.empty_like(back_alpha)
+    back_gamma = np.empty_like(back_alpha)
+    front_a = np.empty_like(back_alpha)
+    front_b = np.empty_like(back_alpha)
     ones = np.ones(frequencies, dtype=complex)
     zeros = np.zeros(frequencies, dtype=complex)
-    # From the drive: α·V0 + β·J0 = γ.
-    alpha, beta, gamma = (zeros.copy(), ones.copy(), ones.copy()) if current_drive else (ones.copy(), zeros.copy(), ones.copy())
-    back = [(alpha, beta, gamma)]
-    for p in relations:
+    # From the drive: α·V0 + β·J0 = γ (V0 = 1, or J0 = 1 for a current drive).
+    alpha, beta, gamma = (zeros, ones, ones) if current_drive else (ones, zeros, ones)
+    back_alpha[0], back_beta[0], back_gamma[0] = alpha, beta, gamma
+    for index, p in enumerate(relations, start=1):
         lam = _cross((alpha, p[:, 0, 0], p[:, 1, 0]), (beta, p[:, 0, 1], p[:, 1, 1]))
         new_alpha = lam[1] * p[:, 0, 2] + lam[2] * p[:, 1, 2]
         new_beta = -(lam[1] * p[:, 0, 3] + lam[2] * p[:, 1, 3])
         alpha, beta, gamma = _normalise(new_alpha, new_beta, lam[0] * gamma)
-        back.append((alpha, beta, gamma))
+        back_alpha[index], back_beta[index], back_gamma[index] = alpha, beta, gamma
     # From the load: a·VK + b·JK = 0 with JK = Y_load·VK.
     a, b = _normalise(np.asarray(load_admittance_s, dtype=complex), -ones)
-    forward = [(a, b)]
-    for p in reversed(relations):
+    front_a[-1], front_b[-1] = a, b
+    for index in range(len(relations) - 1, -1, -1):
+        p = relations[index]
         lam = _cross((a, p[:, 0, 2], p[:, 1, 2]), (b, -p[:, 0, 3], -p[:, 1, 3]))
         a, b = _normalise(lam[1] * p[:, 0, 0] + lam[2] * p[:, 1, 0], lam[1] * p[:, 0, 1] + lam[2] * p[:, 1, 1])
-        forward.append((a, b))
-    forward.reverse()
+        front_a[index], front_b[index] = a, b
 
-    back_alpha = np.stack([item[0] for item in back], axis=1)
-    back_beta = np.stack([item[1] for item in back], axis=1)
-    back_gamma = np.stack([item[2] for item in back], axis=1)
-    front_a = np.stack([item[0] for item in forward], axis=1)
-    front_b = np.stack([item[1] for item in forward], axis=1)
     determinant = back_alpha * front_b - back_beta * front_a
     size = np.abs(back_alpha * front_b) + np.abs(back_beta * front_a)
     singular = ~(np.abs(determinant) > 1e-13 * size)
     if np.any(singular):
-        row, interface = (int(index[0]) for index in np.nonzero(singular))
+        interface, row = (int(index[0]) for index in np.nonzero(singular))
         raise CircuitError(
             f"the chain cannot be solved at {f_hz[row]:.6g} Hz: at the {_interface_words(interface, stage_ids)} "
             "a source meets a constraint it cannot satisfy (for example a voltage drive into an input at a "
@@ -426,10 +428,10 @@ def cascade(
     voltage = back_gamma * front_b / determinant
     current = -back_gamma * front_a / determinant
     return CascadeSolution(
-        voltage=voltage,
-        current=current,
-        z_out_ohm=_impedance(back_beta, back_alpha),
-        z_in_ohm=_impedance(-front_b, front_a),
+        voltage=voltage.T,
+        current=current.T,
+        z_out_ohm=_impedance(back_beta, back_alpha).T,
+        z_in_ohm=_impedance(-front_b, front_a).T,
     )
 
 
@@ -593,19 +595,19 @@ def _ratio(numerator: NDArray[np.complex128], denominator: NDArray[np.complex128
     return result
 
 
-def isolated_from_system(system: StageSystem, relation: NDArray[np.complex128], current_drive: bool,
+def isolated_from_system(system: StageSystem, relation: PortRelation, current_drive: bool,
                          f_hz: NDArray[np.float64]) -> IsolatedResponse:
     """The isolated response of an assembled stage (``sweep.drive`` + ``sweep.transfer``).
 
-    ``relation`` (the stage's port relation at ``f_hz``) tells, before solving, whether the
-    drive can be applied at all: a voltage source cannot drive an input held at a virtual
+    ``relation`` (the stage's port relation) tells, before solving, whether the drive can be
+    applied at all: a voltage source cannot drive an input held at a virtual
     ground, a current source cannot drive an input that takes no current.
     """
     unit = CURRENT_UNIT if current_drive else VOLTAGE_UNIT
-    if current_drive and np.all(forced_zero(relation, I_IN)):
+    if current_drive and relation.input_current_zero:
         return IsolatedResponse(f_hz, None, unit, "no current can enter its input (I_in ≡ 0), so a current "
                                 "drive cannot be applied; give the stage a voltage drive")
-    if not current_drive and np.all(forced_zero(relation, V_IN)):
+    if not current_drive and relation.input_voltage_zero:
         return IsolatedResponse(f_hz, None, unit, "its input sits at a virtual ground (V_in ≡ 0), so a voltage "
                                 "drive cannot be applied; give the stage a current drive")
     try:
@@ -725,7 +727,7 @@ class ChainEngine:
         def compute() -> IsolatedResponse:
             relation = self._relation(stage, project, fingerprint, grid, key)
             system = self._system(stage, project, fingerprint)
-            return isolated_from_system(system, relation.p, stage.drive == "current", grid)
+            return isolated_from_system(system, relation, stage.drive == "current", grid)
         return self._isolated.get_or_compute((fingerprint, key), compute)
 
     def merged(self, project: Project) -> MergedChain:
@@ -781,9 +783,9 @@ class ChainEngine:
         current_drive = project.input.drive == "current"
         solution = cascade([relation.p for relation in relations], current_drive=current_drive,
                            load_admittance_s=load_y, f_hz=grid, stage_ids=stage_ids)
-        held_at_zero = [bool(np.all(forced_zero(relation.p, V_IN))) for relation in relations[1:]] + [False]
+        held_at_zero = [relation.input_voltage_zero for relation in relations[1:]] + [False]
         entries = tuple(
-            _stage_in_chain(position, stage, relation.p, alone, solution, held_at_zero[position - 1])
+            _stage_in_chain(position, stage, relation, alone, solution, held_at_zero[position - 1])
             for position, (stage, relation, alone) in enumerate(zip(stages, relations, isolated, strict=True),
                                                                 start=1)
         )
@@ -799,7 +801,7 @@ class ChainEngine:
         )
 
 
-def _stage_in_chain(position: int, stage: Stage, relation: NDArray[np.complex128], alone: IsolatedResponse,
+def _stage_in_chain(position: int, stage: Stage, relation: PortRelation, alone: IsolatedResponse,
                     solution: CascadeSolution, output_held_at_zero: bool) -> StageInChain:
     v_in, v_out = solution.voltage[:, position - 1], solution.voltage[:, position]
     if output_held_at_zero:
@@ -809,13 +811,13 @@ def _stage_in_chain(position: int, stage: Stage, relation: NDArray[np.complex128
     i_in = solution.current[:, position - 1]
     per_volt: NDArray[np.complex128] | None = None
     per_volt_why: str | None = None
-    if np.all(forced_zero(relation, V_IN)):
+    if relation.input_voltage_zero:
         per_volt_why = _WHY_VIRTUAL_GROUND
     else:
         per_volt = _ratio(v_out, v_in)
     per_amp: NDArray[np.complex128] | None = None
     per_amp_why: str | None = None
-    if np.all(forced_zero(relation, I_IN)):
+    if relation.input_current_zero:
         per_amp_why = _WHY_NO_INPUT_CURRENT
     else:
         per_amp = _ratio(v_out, i_in)

@@ -82,6 +82,10 @@ class PortRelation:
     imposed : tuple of two int, or None
         The two port variables the relation was solved for (``(V_IN, I_OUT)`` for most
         stages); ``None`` when it came from the R0-terminated form.
+    input_voltage_zero : bool
+        The stage by itself holds V_in ≡ 0 (its input is a virtual ground).
+    input_current_zero : bool
+        The stage by itself takes no input current, I_in ≡ 0.
     """
 
     f_hz: NDArray[np.float64]
@@ -89,6 +93,8 @@ class PortRelation:
     fingerprint: str
     r0_ohm: float
     imposed: tuple[int, int] | None = None
+    input_voltage_zero: bool = False
+    input_current_zero: bool = False
 
 
 def reference_resistance(system: StageSystem) -> float:
@@ -273,6 +279,7 @@ def reduce_stage(system: StageSystem, f_hz: NDArray[np.float64], *, stage_id: st
                            "are singular (a floating node, a loop of voltage sources or an op-amp without "
                            "feedback)")
     sample_relation, r0_ohm = sampled
+    sample_r0 = r0_ohm
     worst = np.min(termination_scores(sample_relation, r0_ohm), axis=0)
     order = [index for index in range(len(TERMINATIONS)) if worst[index] >= _GOOD_TERMINATION]
     order += [index for index in np.argsort(-worst) if index not in order and worst[index] > 0]
@@ -295,11 +302,16 @@ def reduce_stage(system: StageSystem, f_hz: NDArray[np.float64], *, stage_id: st
         relation, r0_ohm = full
     scale = np.max(np.abs(relation), axis=2, keepdims=True)
     relation = relation / np.where(scale > 0, scale, 1.0)
-    return PortRelation(f_hz=frequencies, p=relation, fingerprint=system.fingerprint, r0_ohm=r0_ohm,
-                        imposed=imposed)
+    return PortRelation(
+        f_hz=frequencies, p=relation, fingerprint=system.fingerprint, r0_ohm=r0_ohm, imposed=imposed,
+        # Structural facts, read where the R0 form weighs volts and amperes alike.
+        input_voltage_zero=bool(np.all(forced_zero(sample_relation, V_IN, sample_r0))),
+        input_current_zero=bool(np.all(forced_zero(sample_relation, I_IN, sample_r0))),
+    )
 
 
-def forced_zero(relation: NDArray[np.complex128], column: int, tolerance: float = 1e-9) -> NDArray[np.bool_]:
+def forced_zero(relation: NDArray[np.complex128], column: int, r0_ohm: float | None = None,
+                tolerance: float = 1e-9) -> NDArray[np.bool_]:
     """Where the relation by itself forces the port variable ``column`` to zero.
 
     ``V_in ≡ 0`` (an input at a virtual ground) holds when a combination of the two rows
@@ -311,6 +323,8 @@ def forced_zero(relation: NDArray[np.complex128], column: int, tolerance: float 
     relation : ndarray, shape (F, 2, 4)
     column : int
         One of ``V_IN``, ``I_IN``, ``V_OUT``, ``I_OUT``.
+    r0_ohm : float, optional
+        Measure currents as R0·I, so that volts and amperes weigh alike (recommended).
     tolerance : float
         Relative size below which a minor counts as zero.
 
@@ -318,6 +332,9 @@ def forced_zero(relation: NDArray[np.complex128], column: int, tolerance: float 
     -------
     ndarray of bool, shape (F,)
     """
+    if r0_ohm is not None:
+        relation = relation.copy()
+        relation[:, :, [I_IN, I_OUT]] /= r0_ohm
     others = [index for index in range(4) if index != column]
     block = relation[:, :, others]
     minors = np.stack([
