@@ -58,6 +58,7 @@ class PacketContent:
     chain: Curve
     stages: dict[str, StageCurves]
     symbolic: dict[str, dict[str, Any]]
+    provider: Any = None  # the review layer's MetricProvider (the same analysis object), if any
 
     def stage_analysis(self, stage_id: str) -> dict[str, Any] | None:
         """The ``stages[]`` entry of the analysis document for ``stage_id``, if any."""
@@ -91,14 +92,37 @@ def _optional(module: str, name: str) -> Callable[..., Any] | None:
     return found if callable(found) else None
 
 
-def _analysis(project: Project, path: str | None) -> tuple[dict[str, Any] | None, str | None]:
-    analyze = _optional("stagewise.engine.analysis", "analyze_project")
-    if analyze is None:
-        return None, f"the analysis engine is {NOT_IN_BUILD}"
+def _analysis(project: Project, path: str | None, sha: str) -> tuple[Any, dict[str, Any] | None, str | None]:
+    """``(analysis object, analyze --json document, why)`` from engine/analysis.py when present."""
+    analysis_class = _optional("stagewise.engine.analysis", "ProjectAnalysis")
+    if analysis_class is None:
+        return None, None, f"the analysis engine is {NOT_IN_BUILD}"
+    analysis = analysis_class(project)
     try:
-        return dict(analyze(project, path)), None
+        return analysis, dict(analysis.document(path, sha)), None
     except (ValueError, ArithmeticError, np.linalg.LinAlgError) as error:
-        return None, f"the analysis failed: {error}"
+        return None, None, f"the analysis failed: {error}"
+
+
+def _curves_from_analysis(analysis: Any, project: Project) -> tuple[Curve, dict[str, StageCurves]] | None:
+    """Chain, isolated and in-chain responses from the analysis object's cascade (same numbers)."""
+    result = getattr(analysis, "chain", None)
+    if result is None or not hasattr(result, "stage"):
+        return None
+    f_hz = np.asarray(result.f_hz)
+    stages: dict[str, StageCurves] = {}
+    for stage in project.stages:
+        if stage.bypass or stage.id not in result.stage_ids:
+            curves = StageCurves(Curve(why="not computed"), Curve(why="the stage is bypassed: it is not in the chain"))
+            stages[stage.id] = curves
+            continue
+        entry = result.stage(stage.id)
+        isolated = (Curve(f_hz, np.asarray(entry.isolated)) if entry.isolated is not None
+                    else Curve(why=entry.isolated_why or "no isolated response"))
+        in_chain = (Curve(f_hz, np.asarray(entry.in_chain)) if entry.in_chain is not None
+                    else Curve(why=entry.in_chain_why or "no response in chain"))
+        stages[stage.id] = StageCurves(isolated, in_chain)
+    return Curve(f_hz, np.asarray(result.response)), stages
 
 
 def _isolated_curve(stage: Stage, project: Project, f_hz: NDArray[np.float64]) -> Curve:
@@ -135,11 +159,15 @@ def _chain_curves(project: Project, f_hz: NDArray[np.float64]) -> tuple[Curve, d
 
 
 def _symbolic(stage: Stage, project: Project) -> dict[str, Any]:
+    """The stage's symbolic form as display strings (``SymbolicForm.as_dict``), or why there is none."""
     form = _optional("stagewise.engine.symbolic", "symbolic_form")
     if form is None:
         return {"why": f"the symbolic form is {NOT_IN_BUILD}"}
     try:
-        return {"result": form(stage, project)}
+        result = form(stage, project)
+        if not result.ok:
+            return {"why": result.why or "no formula for this stage"}
+        return {"form": result.as_dict()}
     except (ValueError, ArithmeticError, TimeoutError) as error:
         return {"why": f"no symbolic form: {error}"}
 
@@ -154,16 +182,22 @@ def gather(project: Project, path_or_sha: str | os.PathLike[str],
     sha, name, path = resolve_source(path_or_sha)
     if not go_on("analysing the project"):
         return None
-    analysis, why = _analysis(project, path)
+    analysis, document, why = _analysis(project, path, sha)
     f_hz = frequency_grid(project.settings)
     if not go_on("computing the chain response"):
         return None
-    chain, in_chain = _chain_curves(project, f_hz)
-    stages: dict[str, StageCurves] = {}
+    from_analysis = _curves_from_analysis(analysis, project) if analysis is not None else None
+    if from_analysis is not None:
+        chain, stage_curves = from_analysis
+    else:
+        chain, in_chain = _chain_curves(project, f_hz)
+        stage_curves = {stage.id: StageCurves(Curve(why="not computed"), in_chain[stage.id])
+                        for stage in project.stages}
     symbolic: dict[str, dict[str, Any]] = {}
     for stage in project.stages:
         if not go_on(f"stage {stage.name}"):
             return None
-        stages[stage.id] = StageCurves(_isolated_curve(stage, project, f_hz), in_chain[stage.id])
+        if stage_curves[stage.id].isolated.response is None and stage_curves[stage.id].isolated.why == "not computed":
+            stage_curves[stage.id].isolated = _isolated_curve(stage, project, f_hz)
         symbolic[stage.id] = _symbolic(stage, project) if not stage.is_block else {}
-    return PacketContent(project, sha, name, analysis, why, chain, stages, symbolic)
+    return PacketContent(project, sha, name, analysis and document, why, chain, stage_curves, symbolic, analysis)

@@ -20,11 +20,11 @@ from stagewise.report.layout import INK, MUTED, font, wrap_text
 
 __all__ = ["DiagramBox", "diagram_height", "draw_diagram"]
 
-BOX_WIDTH = 128.0
+BOX_WIDTH = 112.0
 BOX_HEIGHT = 86.0  # an active stage
 BYPASS_HEIGHT = 46.0  # a bypassed stage, drawn above the signal line
 ACTIVE_TOP = 34.0
-GAP = 26.0
+GAP = 22.0
 ROW_PITCH = ACTIVE_TOP + BOX_HEIGHT + 30.0
 
 

@@ -87,6 +87,7 @@ class Block:
     """Something that flows onto pages. Subclasses measure, split and paint themselves."""
 
     keep_with_next = False
+    splittable = False
 
     def height(self, width: float) -> float:
         raise NotImplementedError
@@ -123,6 +124,8 @@ class PageBreak(Block):
 @dataclass
 class Paragraph(Block):
     """Wrapped text in one font and colour; splits between lines."""
+
+    splittable = True
 
     text: str
     size_px: float = 12.0
@@ -470,8 +473,9 @@ def paginate(blocks: Sequence[Block], frame: PageFrame) -> list[Page]:
         needed = height
         if block.keep_with_next and index + 1 < len(queue):
             following = queue[index + 1]
-            # Keep a heading with the first few lines of what follows (or all of it when short).
-            needed += min(following.height(width), 90.0)
+            # Keep a heading with the first lines of what follows, or all of it when it cannot split.
+            following_height = following.height(width)
+            needed += min(following_height, 90.0) if following.splittable else following_height
         if y + needed <= body.height() or (y == 0.0 and height > body.height() and block.split(width, body.height())[0] is None):
             pages[-1].placed.append((block, y))
             y += height

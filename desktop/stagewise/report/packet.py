@@ -19,6 +19,7 @@ import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import cast
 
 from PySide6.QtCore import QMarginsF
 from PySide6.QtGui import QPagedPaintDevice, QPageLayout, QPageSize, QPainter, QPdfWriter
@@ -28,7 +29,7 @@ from stagewise.model.project import Project
 from stagewise.report.content import PacketContent, gather
 from stagewise.report.layout import LOGICAL_DPI, PageFrame, paginate, paint_pages
 from stagewise.report.sections import build_blocks
-from stagewise.review.checks import CheckResult, UnavailableProvider, evaluate_project
+from stagewise.review.checks import CheckResult, MetricProvider, UnavailableProvider, evaluate_project
 
 __all__ = ["PacketCancelled", "PacketResult", "Progress", "build_packet", "ensure_application", "print_packet"]
 
@@ -64,12 +65,11 @@ def ensure_application() -> None:
     _APPLICATION = QApplication(["stagewise"])
 
 
-def _metric_provider(project: Project, content: PacketContent) -> object:
-    try:
-        from stagewise.engine.analysis import metric_provider
-    except ImportError:
-        return UnavailableProvider(content.analysis_why or "the analysis engine is not available in this build")
-    return metric_provider(project)
+def _metric_provider(content: PacketContent) -> MetricProvider:
+    """The analysis object that made the packet's numbers, so checks read the very same values."""
+    if content.provider is not None:
+        return cast(MetricProvider, content.provider)
+    return UnavailableProvider(content.analysis_why or "the analysis engine is not available in this build")
 
 
 class _Steps:
@@ -100,7 +100,7 @@ def _prepare(project: Project, path_or_sha: str | os.PathLike[str], steps: _Step
     content = gather(project, path_or_sha, steps.step)
     if content is None or not steps.step("evaluating the checks"):
         raise PacketCancelled
-    results = evaluate_project(project, _metric_provider(project, content))  # type: ignore[arg-type]
+    results = evaluate_project(project, _metric_provider(content))
     from stagewise.review.signoff import signoff_states
 
     states = signoff_states(project)

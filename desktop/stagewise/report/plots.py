@@ -16,15 +16,18 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 import pyqtgraph as pg
 from numpy.typing import NDArray
 from PySide6.QtCore import QRectF, Qt
 from PySide6.QtGui import QColor, QFont, QPainter, QPen
+from PySide6.QtWidgets import QGraphicsRectItem
 
 from stagewise.model.values import format_value
+from stagewise.ui.palette import LINE_STYLES as GUI_LINE_STYLES
+from stagewise.ui.palette import OKABE_ITO, limit_brush_colour, trace_style
 
 __all__ = [
     "LINE_STYLES",
@@ -32,7 +35,6 @@ __all__ = [
     "FrequencyAxis",
     "PlotStyle",
     "ResponseTrace",
-    "Shade",
     "bars_plot",
     "pole_zero_plot",
     "render_plot",
@@ -40,11 +42,9 @@ __all__ = [
     "trace_from_complex",
 ]
 
-# Okabe & Ito (2008): black, orange, sky blue, bluish green, yellow, blue, vermillion, reddish purple.
-# Yellow is left out: it vanishes on white paper.
-PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#56B4E9", "#E69F00", "#000000")
-LINE_STYLES = (Qt.PenStyle.SolidLine, Qt.PenStyle.DashLine, Qt.PenStyle.DotLine, Qt.PenStyle.DashDotLine,
-               Qt.PenStyle.DashDotDotLine)
+# The GUI's trace styles (ui/palette.py), so a trace looks the same on screen and on paper.
+PALETTE = tuple(colour for _, colour in OKABE_ITO)
+LINE_STYLES = tuple(line for _, line in GUI_LINE_STYLES)
 
 
 @dataclass(frozen=True)
@@ -70,18 +70,6 @@ class ResponseTrace:
     f_hz: NDArray[np.float64]
     mag_db: NDArray[np.float64]
     phase_deg: NDArray[np.float64]
-
-
-@dataclass
-class Shade:
-    """A check's limit drawn as a shaded band on the magnitude plot: dB range over a frequency span."""
-
-    f_low_hz: float
-    f_high_hz: float
-    low_db: float | None
-    high_db: float | None
-    label: str = ""
-    extra: dict[str, str] = field(default_factory=dict)
 
 
 def trace_from_complex(label: str, f_hz: NDArray[np.float64], response: NDArray[np.complex128]) -> ResponseTrace:
@@ -125,8 +113,9 @@ def _label(plot: pg.PlotItem, side: str, text: str, style: PlotStyle) -> None:
 
 
 def _pen(index: int, style: PlotStyle) -> QPen:
-    pen = pg.mkPen(PALETTE[index % len(PALETTE)], width=style.line_width)
-    pen.setStyle(LINE_STYLES[index % len(LINE_STYLES)])
+    chosen = trace_style(index, style.line_width)
+    pen = pg.mkPen(chosen.colour, width=chosen.width)
+    pen.setStyle(chosen.line)
     return pen
 
 
@@ -136,23 +125,31 @@ def _legend(plot: pg.PlotItem, style: PlotStyle) -> pg.LegendItem:
     return legend
 
 
-def response_plot(traces: Sequence[ResponseTrace], shades: Sequence[Shade] = (), style: PlotStyle = PRINT,
-                  show_phase: bool = True) -> pg.GraphicsLayoutWidget:
-    """Magnitude (dB) above phase (degrees) on linked log-frequency axes, one style per trace."""
+Limit = tuple[str, str, tuple[float, float], tuple[float, float]]
+"""A check's limit as ``ui.plots.limit_shapes`` gives it: (plot, label, x range, y range), ±inf open."""
+
+
+def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (), style: PlotStyle = PRINT,
+                  show_phase: bool = True, magnitude_label: str = "magnitude (dB)") -> pg.GraphicsLayoutWidget:
+    """Magnitude (dB) above phase (degrees) on linked log-frequency axes, one style per trace.
+
+    ``limits`` are drawn as shaded gates: the band a trace must pass through for the check to
+    be met (the GUI's ``limit_shapes`` gives them).
+    """
     widget = pg.GraphicsLayoutWidget()
     widget.setBackground(style.background)
     magnitude = widget.addPlot(row=0, col=0, axisItems={"bottom": FrequencyAxis("bottom")})
     _style_axes(magnitude, style)
     magnitude.setLogMode(x=True, y=False)
-    _label(magnitude, "left", "magnitude (dB)", style)
+    _label(magnitude, "left", magnitude_label, style)
     if len(traces) > 1:
         _legend(magnitude, style)
-    for shade in shades:
-        _add_shade(magnitude, shade)
     for index, trace in enumerate(traces):
         finite = np.isfinite(trace.mag_db)
         magnitude.plot(trace.f_hz[finite], trace.mag_db[finite], pen=_pen(index, style), name=trace.label)
     _minimum_span(magnitude, [trace.mag_db for trace in traces], 2.0)
+    _tick_spacing(magnitude, [trace.mag_db for trace in traces], (1, 2, 5, 10, 20, 50, 100))
+    _add_limits(magnitude, [limit for limit in limits if limit[0] == "magnitude"], traces, "mag_db", style)
     magnitude.getAxis("left").setWidth(64)
     if show_phase:
         phase = widget.addPlot(row=1, col=0, axisItems={"bottom": FrequencyAxis("bottom")})
@@ -165,6 +162,8 @@ def response_plot(traces: Sequence[ResponseTrace], shades: Sequence[Shade] = (),
             finite = np.isfinite(trace.phase_deg)
             phase.plot(trace.f_hz[finite], trace.phase_deg[finite], pen=_pen(index, style))
         _minimum_span(phase, [trace.phase_deg for trace in traces], 20.0)
+        _tick_spacing(phase, [trace.phase_deg for trace in traces], (5, 10, 15, 30, 45, 90, 180, 360))
+        _add_limits(phase, [limit for limit in limits if limit[0] == "phase"], traces, "phase_deg", style)
         widget.ci.layout.setRowStretchFactor(0, 3)
         widget.ci.layout.setRowStretchFactor(1, 2)
         phase.getAxis("left").setWidth(64)
@@ -185,14 +184,50 @@ def _minimum_span(plot: pg.PlotItem, series: Sequence[NDArray[np.float64]], span
         plot.setYRange(middle - span / 2, middle + span / 2, padding=0.05)
 
 
-def _add_shade(plot: pg.PlotItem, shade: Shade) -> None:
-    # A limit drawn as the forbidden region's edge: the band where the check is met is shaded.
-    low = shade.low_db if shade.low_db is not None else -400.0
-    high = shade.high_db if shade.high_db is not None else 400.0
-    x = np.log10([shade.f_low_hz, shade.f_high_hz])
-    region = pg.FillBetweenItem(pg.PlotDataItem(x, [low, low]), pg.PlotDataItem(x, [high, high]),
-                                brush=pg.mkBrush(0, 158, 115, 40))
-    plot.addItem(region, ignoreBounds=True)
+def _tick_spacing(plot: pg.PlotItem, series: Sequence[NDArray[np.float64]], steps: Sequence[float],
+                  count: int = 5) -> None:
+    """Major y ticks on the first of ``steps`` giving at most ``count`` intervals (dB or degree steps)."""
+    values = np.concatenate([np.asarray(item, dtype=float).ravel() for item in series]) if series else np.array([])
+    values = values[np.isfinite(values)]
+    if values.size == 0:
+        return
+    span = float(values.max() - values.min())
+    for step in steps:
+        if span / step <= count:
+            plot.getAxis("left").setTickSpacing(step, step / 2 if step > 1 else step)
+            return
+    plot.getAxis("left").setTickSpacing()
+
+
+def _add_limits(plot: pg.PlotItem, limits: Sequence[Limit], traces: Sequence[ResponseTrace], field_name: str,
+                style: PlotStyle) -> None:
+    """Shaded gates for check limits; open sides end just outside the traces' range."""
+    if not limits or not traces:
+        return
+    f_all = np.concatenate([trace.f_hz for trace in traces])
+    y_all = np.concatenate([np.asarray(getattr(trace, field_name)) for trace in traces])
+    y_all = y_all[np.isfinite(y_all)]
+    if y_all.size == 0:
+        return
+    y_span = max(float(y_all.max() - y_all.min()), 1.0)
+    y_floor, y_ceiling = float(y_all.min()) - 0.1 * y_span, float(y_all.max()) + 0.1 * y_span
+    f_low, f_high = float(f_all.min()), float(f_all.max())
+    brush = pg.mkBrush(limit_brush_colour(70))
+    for _, label, (x_low, x_high), (y_low, y_high) in limits:
+        x0 = math.log10(min(max(x_low, f_low), f_high)) if x_low > 0 else math.log10(f_low)
+        x1 = math.log10(max(min(x_high, f_high), f_low)) if math.isfinite(x_high) else math.log10(f_high)
+        y0 = y_low if math.isfinite(y_low) else y_floor
+        y1 = y_high if math.isfinite(y_high) else y_ceiling
+        if x1 <= x0 or y1 <= y0:
+            continue
+        gate = QGraphicsRectItem(x0, y0, x1 - x0, y1 - y0)
+        gate.setBrush(brush)
+        gate.setPen(pg.mkPen(limit_brush_colour(200), width=0.8))
+        plot.addItem(gate, ignoreBounds=True)
+        text = pg.TextItem(label, color=style.foreground, anchor=(0, 1))
+        text.setFont(_tick_font(style))
+        text.setPos(x0, min(y1, y_ceiling))
+        plot.addItem(text, ignoreBounds=True)
 
 
 def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex],

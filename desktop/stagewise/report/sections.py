@@ -291,7 +291,7 @@ def _metrics_rows(documents: Sequence[dict[str, Any] | None]) -> list[list[str]]
 
 def _chain(content: PacketContent) -> list[Block]:
     project = content.project
-    blocks: list[Block] = [PageBreak(), Heading("The chain", 1), Heading("Block diagram", 2)]
+    blocks: list[Block] = [Spacer(12.0), Heading("The chain", 1), Heading("Block diagram", 2)]
     boxes = _diagram_boxes(content)
 
     def draw(painter: QPainter, rect: QRectF) -> None:
@@ -303,8 +303,11 @@ def _chain(content: PacketContent) -> list[Block]:
     blocks.append(Heading("Response of the whole chain", 2))
     if content.chain.response is not None:
         traces = _traces([("chain", content.chain)])
-        blocks.append(_plot_figure(lambda: response_plot(traces), 330.0,
-                                   "Drive to the last output, every stage loaded by the next."))
+        limits = _limits(project, project.stages, ("chain",))
+        label = _magnitude_label("Ω" if project.input.drive == "current" else "V/V")
+        blocks.append(_plot_figure(lambda: response_plot(traces, limits, magnitude_label=label), 360.0,
+                                   "Drive to the last output, every stage loaded by the next. Shaded: limits of "
+                                   "checks on the whole chain."))
     else:
         blocks.append(_unavailable(f"Chain response plot: {content.chain.why}."))
     analysis = content.analysis
@@ -466,6 +469,21 @@ def _parts(stage: Stage, project: Project) -> list[Block]:
     return blocks
 
 
+_FORMULA_SHOWN_WHOLE = 420  # characters; longer transfer functions are shown coefficient by coefficient
+
+
+def _parameter(expression: Any, value: Any, unit: str = "") -> str:
+    """A standard-form parameter: its expression in the parts and its value (once when it is a number)."""
+    if expression is None:
+        return DASH
+    shown = DASH if value is None else (_text(value, unit) if unit else f"{value:.5g}")
+    try:
+        float(str(expression))
+    except ValueError:
+        return f"{expression}\n= {shown}"
+    return shown
+
+
 def _symbolic_blocks(stage: Stage, content: PacketContent) -> list[Block]:
     blocks: list[Block] = [Heading("Transfer function", 3)]
     found = content.symbolic.get(stage.id, {})
@@ -473,18 +491,46 @@ def _symbolic_blocks(stage: Stage, content: PacketContent) -> list[Block]:
         blocks.append(Paragraph("A behavioural block: its transfer function is its gain, zeros and poles above.",
                                 11.5))
         return blocks
-    result = found.get("result")
-    if result is None:
+    form = found.get("form")
+    if not isinstance(form, dict):
         blocks.append(_unavailable(f"Symbolic form: {found.get('why', NOT_IN_BUILD)}."))
         return blocks
-    text = getattr(result, "text", None) or str(result)
-    blocks.append(Paragraph(str(text), 11.5, mono=True))
-    sections = getattr(result, "sections", None) or []
-    rows = []
-    for section in sections:
-        rows.append([str(getattr(section, "name", "")), str(getattr(section, "expression", ""))])
-    if rows:
-        blocks.append(Table([Column("parameter"), Column("expression", mono=True)], rows))
+    unit = form.get("unit") or "V/V"
+    transfer = str(form.get("transfer") or "")
+    if transfer and len(transfer) <= _FORMULA_SHOWN_WHOLE:
+        blocks.append(Paragraph(f"H(s) = {transfer}", 11.0, mono=True))
+    else:
+        numerator = list(form.get("numerator") or [])
+        denominator = list(form.get("denominator") or [])
+        order = max(len(numerator), len(denominator))
+        blocks.append(Paragraph(
+            "H(s) = N(s) / D(s), with D monic; coefficients of s to each power, highest first:", 11.0))
+        rows = []
+        for index in range(order):
+            power_n = len(numerator) - 1 - index
+            power_d = len(denominator) - 1 - index
+            rows.append([f"s^{max(power_n, power_d)}",
+                         numerator[index - (order - len(numerator))] if index >= order - len(numerator) else "0",
+                         denominator[index - (order - len(denominator))] if index >= order - len(denominator) else "0"])
+        blocks.append(Table([Column("power", wrap=False), Column("N(s)", mono=True), Column("D(s)", mono=True)],
+                            rows, size_px=9.5))
+    blocks.append(Paragraph(f"Unit of H: {unit}. Part symbols stand for the values in the parts table"
+                            + ("; coefficients are numeric." if form.get("numeric") else "."), 10.5,
+                            color=QColor(MUTED)))
+    if form.get("why"):
+        blocks.append(_unavailable(f"Note: {form['why']}."))
+    sections = form.get("sections") or []
+    if sections:
+        rows = []
+        for section in sections:
+            rows.append([f"{section.get('order')}", str(section.get("kind", "")),
+                         _parameter(section.get("gain"), section.get("gain_value")),
+                         _parameter(section.get("f0_hz"), section.get("f0_hz_value"), "Hz"),
+                         _parameter(section.get("q"), section.get("q_value"))])
+        blocks.append(Paragraph("Standard-form sections (K, f0 = ω0/2π, Q) in the parts and their values:", 11.0,
+                                space_after=3.0))
+        blocks.append(Table([Column("order", "right", wrap=False), Column("kind", wrap=False), Column("K", mono=True),
+                             Column("f0", mono=True), Column("Q", mono=True)], rows, size_px=9.5))
     return blocks
 
 
@@ -519,6 +565,22 @@ def _poles_zeros(entry: dict[str, Any] | None, content: PacketContent) -> list[B
     return blocks
 
 
+def _limits(project: Project, stages: Sequence[Stage], wheres: tuple[str, ...]) -> list[Any]:
+    """The gates the GUI shades for these checks (the GUI's own ``limit_shapes``)."""
+    from stagewise.ui.plots import limit_shapes
+
+    shapes: list[Any] = []
+    for stage in stages:
+        for check in stage.checks:
+            if check.where in wheres and check.waiver is None:
+                shapes.extend(limit_shapes(check, project))
+    return shapes
+
+
+def _magnitude_label(unit: str) -> str:
+    return "magnitude (dB re 1 Ω)" if unit == "Ω" else "magnitude (dB)"
+
+
 def _response_blocks(stage: Stage, content: PacketContent) -> list[Block]:
     blocks: list[Block] = [Heading("Response: isolated and in chain", 3)]
     curves = content.stages[stage.id]
@@ -528,8 +590,12 @@ def _response_blocks(stage: Stage, content: PacketContent) -> list[Block]:
                                                             ("in chain", curves.in_chain)) if curve.response is None]
     if available:
         traces = _traces(available)
-        blocks.append(_plot_figure(lambda: response_plot(traces), 300.0,
-                                   "Isolated: ideal drive, unloaded. In chain: V_out/V_in where the stage sits."))
+        limits = _limits(content.project, [stage], ("isolated", "in_chain"))
+        label = _magnitude_label("Ω" if stage.drive == "current" else "V/V")
+        blocks.append(_plot_figure(lambda: response_plot(traces, limits, magnitude_label=label), 300.0,
+                                   "Isolated: ideal drive, unloaded. In chain: the stage where it sits (V_out/V_in, "
+                                   "or V_out/I_in for a current-driven stage). Shaded: limits of the stage's checks "
+                                   "on gain or phase at a frequency."))
     for line in missing:
         blocks.append(_unavailable(line[0].upper() + line[1:] + "."))
     return blocks

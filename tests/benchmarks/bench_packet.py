@@ -1,0 +1,62 @@
+"""Benchmark of the review packet: the hydrophone demo printed to PDF.
+
+Goal: at most 5 s on this machine class for the whole packet (analysis, symbolic forms, plots,
+layout and painting). The baseline is a one-page QPdfWriter document with one line of text,
+which shows the machine's speed at writing a PDF at all.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+from run import Benchmark
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+DEMO = Path(__file__).resolve().parents[2] / "projects" / "hydrophone.stagewise.json"
+
+
+def _setup() -> dict[str, object]:
+    from stagewise.files.project_file import load_project
+    from stagewise.report.packet import ensure_application
+
+    ensure_application()
+    folder = tempfile.mkdtemp(prefix="bench-packet-")
+    return {"project": load_project(DEMO), "folder": folder}
+
+
+def _packet(context: object) -> object:
+    from stagewise.report.packet import build_packet
+
+    assert isinstance(context, dict)
+    return build_packet(context["project"], DEMO, Path(str(context["folder"])) / "packet.pdf")
+
+
+def _one_page(context: object) -> object:
+    from PySide6.QtGui import QPageSize, QPainter, QPdfWriter
+
+    assert isinstance(context, dict)
+    writer = QPdfWriter(str(Path(str(context["folder"])) / "baseline.pdf"))
+    writer.setResolution(96)
+    writer.setPageSize(QPageSize(QPageSize.PageSizeId.A4))
+    painter = QPainter(writer)
+    painter.drawText(100, 100, "one line on one page")
+    painter.end()
+    del writer
+    return None
+
+
+def benchmarks() -> list[Benchmark]:
+    return [
+        Benchmark(
+            name="packet_demo",
+            ours=_packet,
+            baseline=_one_page,
+            setup=_setup,
+            goal_seconds=5.0,
+            repeats=3,
+            note="hydrophone demo packet, whole pipeline; baseline: one-page QPdfWriter document",
+        )
+    ]

@@ -1,0 +1,159 @@
+"""The packet's API: progress and cancellation, the printer path, and the command's refusals.
+
+A small chain of our own (values chosen for these tests only): an RC low-pass, a bypassed
+behavioural block and a unity buffer on an ideal op-amp with a bias resistor.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+pypdf = pytest.importorskip("pypdf")
+
+from stagewise.cli import main  # noqa: E402
+from stagewise.files.project_file import file_sha256, load_project  # noqa: E402
+from stagewise.report.packet import PacketCancelled, build_packet, ensure_application, print_packet  # noqa: E402
+
+DOCUMENT: dict[str, Any] = {
+    "format": "stagewise-project",
+    "version": 1,
+    "title": "Packet test chain",
+    "revision": "T1",
+    "settings": {"f_min_hz": 10, "f_max_hz": "100k", "points_per_decade": 20, "temperature_c": 25,
+                 "ref_hz": 100, "noise_band_hz": [10, 10000], "seed": 7},
+    "input": {"drive": "voltage", "amplitude": "100m"},
+    "converter": {"fs_hz": 48000, "bits": 12, "full_scale_vpp": 3.3},
+    "load": {"r_ohm": None, "c_f": None},
+    "opamp_models": {},
+    "stages": [
+        {"id": "rc", "name": "RC low-pass", "ports": {"in": "in", "out": "out"},
+         "parts": [{"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": "6k8", "tol": "1%"},
+                   {"ref": "C1", "type": "C", "nodes": ["out", "0"], "value": "10n", "tol": "5%"}],
+         "checks": [{"id": "flat", "text": "Flat at 100 Hz", "metric": "gain_db", "where": "isolated",
+                     "at_hz": 100, "min": -0.1, "max": 0.1}]},
+        {"id": "spare", "name": "Spare gain block", "kind": "block", "bypass": True, "gain": 2,
+         "zeros_hz": [], "poles_hz": [50000], "zin": {"r_ohm": "100k", "c_f": None}, "zout_ohm": 10},
+        {"id": "buf", "name": "Unity buffer", "ports": {"in": "in", "out": "out"},
+         "parts": [{"ref": "R2", "type": "R", "nodes": ["in", "0"], "value": "1M", "tol": "1%"},
+                   {"ref": "U1", "type": "opamp", "nodes": ["in", "out", "out"], "model": "ideal"}],
+         "checks": [{"id": "fit", "text": "Is the buffer's supply decoupled?"}]},
+    ],
+    "audit": [],
+}
+
+
+@pytest.fixture
+def project_file(tmp_path: Path) -> Path:
+    path = tmp_path / "small.stagewise.json"
+    path.write_text(json.dumps(DOCUMENT, indent=2), encoding="utf-8")
+    return path
+
+
+def _text(path: Path) -> list[str]:
+    return [re.sub(r"\s+", " ", page.extract_text()) for page in pypdf.PdfReader(str(path)).pages]
+
+
+def test_progress_counts_up_and_cancelling_leaves_no_file(project_file: Path, tmp_path: Path) -> None:
+    project = load_project(project_file)
+    calls: list[tuple[int, int, str]] = []
+
+    def stop_at_third(done: int, total: int, label: str) -> bool:
+        calls.append((done, total, label))
+        return len(calls) < 3
+
+    output = tmp_path / "cancelled.pdf"
+    with pytest.raises(PacketCancelled):
+        build_packet(project, project_file, output, progress=stop_at_third)
+    assert len(calls) == 3
+    assert not output.exists()
+    assert [entry.name for entry in tmp_path.iterdir() if entry.name.endswith(".tmp")] == []
+
+    seen: list[tuple[int, int, str]] = []
+    result = build_packet(project, project_file, tmp_path / "whole.pdf",
+                          progress=lambda done, total, label: seen.append((done, total, label)) or True)
+    dones = [done for done, _, _ in seen]
+    assert dones == sorted(dones)
+    assert len({total for _, total, _ in seen}) == 1
+    assert any(label == f"page {result.pages} of {result.pages}" for _, _, label in seen)
+
+
+def test_cancelling_while_painting_pages_leaves_no_file(project_file: Path, tmp_path: Path) -> None:
+    project = load_project(project_file)
+    output = tmp_path / "late.pdf"
+
+    def stop_on_first_page(done: int, total: int, label: str) -> bool:
+        return not label.startswith("page 1 of")
+
+    with pytest.raises(PacketCancelled):
+        build_packet(project, project_file, output, progress=stop_on_first_page)
+    assert not output.exists()
+    assert [entry.name for entry in tmp_path.iterdir() if entry.name.endswith(".tmp")] == []
+
+
+def test_printer_gets_the_same_pages(project_file: Path, tmp_path: Path) -> None:
+    ensure_application()
+    from PySide6.QtPrintSupport import QPrinter
+
+    project = load_project(project_file)
+    written = build_packet(project, project_file, tmp_path / "file.pdf", printed_utc="2026-12-01T10:00:00Z")
+    printer = QPrinter(QPrinter.PrinterMode.HighResolution)
+    printer.setOutputFormat(QPrinter.OutputFormat.PdfFormat)
+    printer.setOutputFileName(str(tmp_path / "printed.pdf"))
+    printed = print_packet(project, project_file, printer, printed_utc="2026-12-01T10:00:00Z")
+    assert printed.pages == written.pages
+    from_file = _text(tmp_path / "file.pdf")
+    from_printer = _text(tmp_path / "printed.pdf")
+    assert len(from_printer) == len(from_file)
+    for page_file, page_printer in zip(from_file, from_printer, strict=True):
+        assert page_printer == page_file
+
+
+def test_bypassed_stage_is_shown_as_bypassed(project_file: Path, tmp_path: Path) -> None:
+    project = load_project(project_file)
+    output = tmp_path / "bypass.pdf"
+    build_packet(project, project_file, output)
+    text = " ".join(_text(output))
+    assert "spare · bypassed" in text  # the block diagram's box
+    assert "BYPASSED: left out of the chain" in text  # the stage's own section
+    assert "Stage 2: Spare gain block" in text
+
+
+def test_sha256_given_instead_of_a_path_goes_on_the_cover(project_file: Path, tmp_path: Path) -> None:
+    project = load_project(project_file)
+    sha = file_sha256(project_file)
+    output = tmp_path / "by-sha.pdf"
+    build_packet(project, sha, output)
+    assert sha in _text(output)[0]
+
+
+def test_output_that_is_not_a_pdf_is_refused_and_nothing_changes(project_file: Path, tmp_path: Path,
+                                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    before = project_file.read_bytes()
+    status = main(["packet", str(project_file), "-o", str(tmp_path / "packet.txt"), "--by", "Tester"])
+    error = capsys.readouterr().err
+    assert status == 2
+    assert error.count("\n") == 1 and "PDF" in error
+    assert project_file.read_bytes() == before
+    assert not (tmp_path / "packet.txt").exists()
+    assert not project_file.with_name(project_file.name + ".bak").exists()
+
+
+def test_missing_project_file_is_one_sentence(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    status = main(["packet", str(tmp_path / "absent.stagewise.json"), "-o", str(tmp_path / "p.pdf"), "--by", "T"])
+    error = capsys.readouterr().err
+    assert status == 2
+    assert error.count("\n") == 1 and "no such file" in error
+    assert not (tmp_path / "p.pdf").exists()
+
+
+def test_empty_name_is_refused(project_file: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    before = project_file.read_bytes()
+    status = main(["packet", str(project_file), "-o", str(tmp_path / "p.pdf"), "--by", "  "])
+    assert status == 2
+    assert "--by" in capsys.readouterr().err
+    assert project_file.read_bytes() == before
