@@ -494,8 +494,8 @@ def _numeric_form(model: PoleZeroModel, unit: str, why: str | None) -> SymbolicF
     import sympy
 
     s = sympy.Symbol("s")
-    numerator = [sympy.Float(float(c)) for c in model.gain * np.real(np.poly(model.zeros_rad_s))]
-    denominator = [sympy.Float(float(c)) for c in np.real(np.poly(model.poles_rad_s))]
+    numerator = [sympy.Float(float(c)) for c in model.gain * np.atleast_1d(np.real(np.poly(model.zeros_rad_s)))]
+    denominator = [sympy.Float(float(c)) for c in np.atleast_1d(np.real(np.poly(model.poles_rad_s)))]
     transfer = sympy.Poly(numerator, s).as_expr() / sympy.Poly(denominator, s).as_expr()
     if len(denominator) - 1 <= 2:
         sections = _sections_from_coefficients(numerator, denominator)
