@@ -811,8 +811,12 @@ def _stage_in_chain(position: int, stage: Stage, relation: PortRelation, alone: 
     i_in = solution.current[:, position - 1]
     per_volt: NDArray[np.complex128] | None = None
     per_volt_why: str | None = None
+    scale = np.max(np.abs(solution.voltage), axis=1)
     if relation.input_voltage_zero:
         per_volt_why = _WHY_VIRTUAL_GROUND
+    elif output_held_at_zero and np.all(np.abs(v_in) <= 1e-12 * scale):
+        per_volt_why = ("its input and output are both held at 0 V by the next stage's virtual-ground input, "
+                        "so V_out/V_in is undefined")
     else:
         per_volt = _ratio(v_out, v_in)
     per_amp: NDArray[np.complex128] | None = None
