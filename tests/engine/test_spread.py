@@ -138,18 +138,20 @@ def test_low_rank_updates_equal_dense_solves_of_each_sample() -> None:
         {"ref": "RI", "type": "R", "nodes": ["in", "n"], "value": "8k2", "tol": "1%"},
         {"ref": "RF", "type": "R", "nodes": ["n", "out"], "value": "39k", "tol": "1%"},
         {"ref": "CF", "type": "C", "nodes": ["n", "out"], "value": "1n5", "tol": "5%"},
+        {"ref": "RP", "type": "R", "nodes": ["out", "n"], "value": "220k", "tol": "5%"},  # parallel: one term
         {"ref": "U1", "type": "opamp", "nodes": ["0", "n", "out"], "model": "m"},
     ], ref_hz=100)
     model = tolerance_model(assemble(project.stages[0], project), current_drive=False)
     rng = np.random.default_rng(3)
-    multipliers = 1 + 0.05 * rng.uniform(-1, 1, size=(7, 3))
+    multipliers = 1 + 0.05 * rng.uniform(-1, 1, size=(7, 4))
     f_hz = np.logspace(1, 6, 9)
     shared = sampled_response(model, multipliers, f_hz)
     per_sample = sampled_response(model, multipliers, np.broadcast_to(f_hz, (7, 9)))
     # Cross-check inside the engine (REFERENCES.md): Woodbury updates vs dense solves.
     assert np.allclose(shared, per_sample, rtol=1e-10, atol=0)
-    # Source: the inverting amplifier with ideal gain, −(RF ∥ CF)/RI (any circuits text); the
+    # Source: the inverting amplifier with ideal gain, −(RF ∥ RP ∥ CF)/RI (any circuits text); the
     # finite op-amp (A0 = 1e5, 4 MHz) departs from it by < 1e-3 at 10 Hz.
     ri, rf, cf = 8.2e3 * multipliers[:, 0], 39e3 * multipliers[:, 1], 1.5e-9 * multipliers[:, 2]
-    ideal = -(rf / (1 + 1j * TWO_PI * 10 * rf * cf)) / ri
+    rp = 220e3 * multipliers[:, 3]
+    ideal = -1 / (ri * (1 / rf + 1 / rp + 1j * TWO_PI * 10 * cf))
     assert np.allclose(shared[:, 0], ideal, rtol=1e-3)

@@ -227,6 +227,28 @@ def _solve_output(
     return out
 
 
+def _merged_terms(model: ToleranceModel) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """Parts with the same rank-one direction (R ∥ C on one node pair) share one term.
+
+    Returns the distinct ``left``, ``right`` columns (n, Q) and the (P, Q) 0/1 matrix that sums
+    each part's coefficient into its term: the update stays exact with fewer terms.
+    """
+    if not model.refs:
+        return model.left, model.right, np.zeros((0, 0))
+    stacked = np.vstack([model.left, model.right])  # (2n, P)
+    # The outer product is unchanged by negating both vectors: make the first nonzero positive.
+    first = np.argmax(stacked != 0, axis=0)
+    signs = np.sign(stacked[first, np.arange(stacked.shape[1])])
+    signs[signs == 0] = 1.0
+    _, representative, inverse = np.unique((stacked * signs).T, axis=0, return_index=True, return_inverse=True)
+    inverse = np.asarray(inverse).ravel()
+    groups = np.zeros((len(model.refs), representative.size))
+    groups[np.arange(len(model.refs)), inverse] = signs * signs  # 1: the sign appears twice
+    left = model.left[:, representative] * signs[representative]
+    right = model.right[:, representative] * signs[representative]
+    return left, right, groups
+
+
 def _woodbury_output(
     model: ToleranceModel, g0: NDArray[np.float64], c0: NDArray[np.float64], rhs: NDArray[np.float64],
     out_vector: NDArray[np.float64], multipliers: NDArray[np.float64], f_hz: NDArray[np.float64],
@@ -242,10 +264,11 @@ def _woodbury_output(
     M. A. Woodbury, "Inverting modified matrices", Memorandum Report 42, Statistical Research
     Group, Princeton University, 1950.
     """
-    parts = len(model.refs)
+    left, right, groups = _merged_terms(model)
+    parts = left.shape[1]
     s = 1j * TWO_PI * f_hz
     nominal = g0[None, :, :] + s[:, None, None] * c0[None, :, :]
-    right_hand = np.concatenate([rhs[:, None], model.left], axis=1).astype(complex)
+    right_hand = np.concatenate([rhs[:, None], left], axis=1).astype(complex)
     try:
         solved = np.linalg.solve(nominal, np.broadcast_to(right_hand, (f_hz.size,) + right_hand.shape))
     except np.linalg.LinAlgError as error:
@@ -256,8 +279,8 @@ def _woodbury_output(
     if parts == 0:
         return np.asarray(np.broadcast_to(y0[None, :], (multipliers.shape[0], f_hz.size)), dtype=complex).copy()
     h = np.einsum("n,fnp->fp", out_vector, z)
-    kernel = np.einsum("nq,fnp->fqp", model.right, z)  # Rᵀ·M0⁻¹·L, (F, P, P)
-    w = x0 @ model.right  # Rᵀ·M0⁻¹·rhs, (F, P)
+    kernel = np.einsum("nq,fnp->fqp", right, z)  # Rᵀ·M0⁻¹·L, (F, Q, Q)
+    w = x0 @ right  # Rᵀ·M0⁻¹·rhs, (F, Q)
     per_part = np.where(model.capacitive[None, :], s[:, None], 1.0) * model.coefficients[None, :]  # (F, P)
     scale = multipliers ** model.powers[None, :] - 1.0  # (S, P)
     count = multipliers.shape[0]
@@ -265,7 +288,7 @@ def _woodbury_output(
     chunk = max(1, int(CHUNK_BYTES // (f_hz.size * parts * parts * 16)))
     for start in range(0, count, chunk):  # chunks of many samples, bounded memory
         stop = min(start + chunk, count)
-        d = scale[start:stop, None, :] * per_part[None, :, :]  # (S, F, P)
+        d = (scale[start:stop, None, :] * per_part[None, :, :]) @ groups  # (S, F, Q)
         system = d[..., :, None] * kernel[None, :, :, :]
         np.einsum("...ii->...i", system)[...] += 1.0  # I + D·K, in place on the diagonal
         try:
