@@ -219,3 +219,26 @@ def test_pole_count_is_the_order_of_an_rc_ladder_with_op_amp_buffers() -> None:
     assert_same_roots(model.poles_rad_s, np.array([-1 / (r * c) for r, c in sections]), rtol=1e-9)
     system = drive(assemble(Stage("s", "s", parts=parts), Project("p")), False)
     assert system.g.shape[0] > 3 * len(sections)  # many infinite eigenvalues were present
+
+
+def test_minimal_model_reproduces_the_sweep_of_a_deep_stage() -> None:
+    # Cross-check inside the engine (REFERENCES): K·∏(s − z)/∏(s − p) against the MNA solve, for ten
+    # RC sections each buffered by a two-pole op-amp model with rout (30 poles, relative degree 30).
+    # Source: each RC section gives 1/(1 + sRC) (Nilsson & Riedel); each follower A/(1 + A) with the
+    # op-amp's A(s) (Black, 1934), so the pole count is 3 per section and there are no finite zeros.
+    model_params = OpampModel(a0_db=q(105.0), gbw_hz=q(12e6), p2_hz=q(40e6), rout_ohm=q(30.0))
+    parts: list[Part] = []
+    previous = "in"
+    for index in range(1, 11):
+        node, out = f"n{index}", ("out" if index == 10 else f"o{index}")
+        parts += [part(f"R{index}", "R", [previous, node], 1e3 * (1.0 + 0.29 * (index % 4))),
+                  part(f"C{index}", "C", [node, "0"], 1e-9 * (1.0 + 0.17 * (index % 5))),
+                  part(f"U{index}", "opamp", [node, out, out], model="buf")]
+        previous = out
+    stage = Stage("deep", "deep", parts=parts)
+    f_hz = np.logspace(0, 7, 71)
+    analysis = analyze_stage(stage, Project("p", opamp_models={"buf": model_params}, stages=[stage]), f_hz)
+    assert analysis.model is not None and analysis.response is not None
+    assert len(analysis.model.poles_rad_s) == 30 and len(analysis.model.zeros_rad_s) == 0
+    rebuilt = analysis.model.evaluate(1j * TWO_PI * f_hz)
+    assert np.max(np.abs(rebuilt - analysis.response) / np.abs(analysis.response)) < 1e-6

@@ -13,6 +13,10 @@ Public API
     The same for any driven pencil (the merged chain uses it).
 ``response_at(analysis, f_hz) -> ndarray``
     The exact response at any frequencies (an extra batched solve, not interpolation).
+``stage_response(stage, project, f_hz) -> ndarray``
+    The isolated response only (no poles or zeros): assembly and one batched solve; the
+    fastest path for plots. Raises :class:`~stagewise.engine.mna.CircuitError` or
+    ``numpy.linalg.LinAlgError``; use ``analyze_stage`` for reasons instead of exceptions.
 ``isolated_system(stage, project) -> DrivenSystem``
     The assembled and driven pencil (raises :class:`~stagewise.engine.mna.CircuitError`).
 
@@ -43,6 +47,7 @@ __all__ = [
     "analyze_system",
     "isolated_system",
     "response_at",
+    "stage_response",
 ]
 
 TWO_PI = 2.0 * math.pi
@@ -217,4 +222,21 @@ def response_at(analysis: StageAnalysis, f_hz: NDArray[np.float64] | float) -> N
         raise ValueError(analysis.why or "the analysis has no system to evaluate")
     driven = analysis.driven
     points = 1j * TWO_PI * np.atleast_1d(np.asarray(f_hz, dtype=float))
+    return transfer_at(driven.g, driven.c, driven.b, driven.output, points)
+
+
+def stage_response(stage: Stage, project: Project, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+    """The isolated response of ``stage`` at ``f_hz`` (hertz): V/V, or Ω for a current drive.
+
+    Assembly, drive and one batched solve; no pole/zero work and no diagnosis.
+
+    Raises
+    ------
+    CircuitError
+        A part the engine cannot stamp.
+    numpy.linalg.LinAlgError
+        When the stage's matrix is singular (see :func:`analyze_stage` for the reason).
+    """
+    driven = isolated_system(stage, project)
+    points = 1j * TWO_PI * np.asarray(f_hz, dtype=float)
     return transfer_at(driven.g, driven.c, driven.b, driven.output, points)
