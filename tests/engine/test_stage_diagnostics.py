@@ -101,3 +101,14 @@ def test_solvable_stages_have_no_diagnosis() -> None:
     stage = Stage("f", "f", parts=[part("U1", "opamp", ["in", "out", "out"], model="m")])
     project = Project("p", opamp_models={"m": OpampModel(a0_db=q(100.0), gbw_hz=q(1e6))}, stages=[stage])
     assert diagnose(assemble(stage, project), current_drive=False) is None
+
+
+def test_values_the_matrix_cannot_hold_become_reasons() -> None:
+    # Common practice, no source: a 0 Ω resistor (infinite conductance) and an op-amp without bandwidth
+    # cannot be stamped; the part is named instead of a division by zero escaping
+    why = why_of([part("R1", "R", ["in", "out"], 0.0), part("R2", "R", ["out", "0"], 1e3)])
+    assert "R1" in why and "0 Ω" in why
+    stage = Stage("z", "z", parts=[part("U1", "opamp", ["in", "out", "out"], model="flat")])
+    project = Project("p", opamp_models={"flat": OpampModel(a0_db=q(100.0), gbw_hz=q(0.0))}, stages=[stage])
+    analysis = analyze_stage(stage, project)
+    assert analysis.why is not None and "U1" in analysis.why and "gbw_hz" in analysis.why

@@ -42,6 +42,7 @@ __all__ = [
 ]
 
 BLOCK_IN = "in"
+VALUE_TYPES = frozenset({"R", "C", "L", "vcvs", "vccs", "ccvs", "cccs"})
 BLOCK_OUT = "out"
 TWO_PI = 2.0 * math.pi
 
@@ -261,6 +262,12 @@ def _stamp(
     nodes = [builder.node(name) for name in part.nodes]
     value = _si(part.value)
     kind = part.type
+    if kind == "R" and not (value != 0.0 and math.isfinite(value)):
+        # A conductance of 1/0 has no place in the matrix; a wire is a merged node.
+        raise CircuitError(f"{part.ref}: a resistance of {part.value} cannot be solved; join the two nodes "
+                           "instead of a 0 Ω resistor")
+    if kind in VALUE_TYPES and not math.isfinite(value):
+        raise CircuitError(f"{part.ref}: its value {part.value} is not a finite number")
     if kind == "R":
         builder.admittance(nodes[0], nodes[1], 1.0 / value, capacitive=False)
     elif kind == "C":
@@ -331,6 +338,9 @@ def _stamp_opamp(
     model = project.opamp_models.get(part.model)
     if model is None:
         raise CircuitError(f'{part.ref}: op-amp model "{part.model}" is not in the project')
+    for name, quantity in (("gbw_hz", model.gbw_hz), ("p2_hz", model.p2_hz), ("rin_ohm", model.rin_ohm)):
+        if quantity is not None and not (quantity.si > 0 and math.isfinite(quantity.si)):
+            raise CircuitError(f'{part.ref}: op-amp model "{part.model}" has {name} = {quantity}; it must be above zero')
     a0 = opamp_open_loop_gain(model)
     gbw_rad_s = TWO_PI * model.gbw_hz.si
     # Gain state, row divided by A0 for conditioning:
@@ -385,8 +395,10 @@ def _block_sections(stage: Stage) -> list[tuple[tuple[float, float, float], tupl
     """Split the block into sections (numerator, denominator), each at most second order.
 
     Real poles are paired into second-order sections; complex zero pairs go to second-order
-    sections first, then real zeros fill what is left. A zero at 0 Hz is scaled by the time
-    constant of the section it lands in, so that ``gain`` is then the high-frequency gain.
+    sections first, then real zeros fill what is left. A zero at 0 Hz contributes s·τ, τ the
+    time constant (1/ω0) of the section it lands in: a first-order high-pass then has
+    high-frequency gain ``gain``, and a second-order band-pass (one zero at 0 in a pole pair)
+    has centre gain ``gain``·Q.
     """
     denominators: list[list[float]] = []
     real_poles: list[float] = []
@@ -441,6 +453,13 @@ def _block_sections(stage: Stage) -> list[tuple[tuple[float, float, float], tupl
 
 
 def _assemble_block(stage: Stage) -> StageSystem:
+    if stage.zin_r_ohm is not None and stage.zin_r_ohm.si == 0:
+        raise CircuitError(f'stage "{stage.id}": an input resistance of 0 Ω shorts the input; leave it out or '
+                           "give it a value")
+    for root in [*stage.poles_hz, *stage.zeros_hz]:
+        if isinstance(root, tuple) and not (root[0].si > 0 and root[1].si > 0):
+            raise CircuitError(f'stage "{stage.id}": a complex pair needs f0 and Q above zero, found '
+                               f"[{root[0]}, {root[1]}]")
     builder = _Builder()
     input_index = builder.node(BLOCK_IN)
     output_index = builder.node(BLOCK_OUT)

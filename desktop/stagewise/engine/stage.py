@@ -153,6 +153,8 @@ def analyze_system(
         model = pole_zero_model(driven.g, driven.c, driven.b, driven.output)
     except SingularPencilError as error:
         return _failed(f_hz, unit, str(error), label, fingerprint, driven)
+    except (np.linalg.LinAlgError, ArithmeticError) as error:
+        return _failed(f_hz, unit, f"the poles and zeros could not be computed ({error})", label, fingerprint, driven)
     try:
         response = transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * TWO_PI * f_hz)
     except np.linalg.LinAlgError:
@@ -200,7 +202,13 @@ def analyze_stage(stage: Stage, project: Project, f_hz: NDArray[np.float64] | No
         system: StageSystem = assemble(stage, project)
     except CircuitError as error:
         return _failed(grid, unit, f'stage "{stage.id}": {error}', stage.id)
-    diagnosis = diagnose(system, current)
+    except (ArithmeticError, ValueError) as error:  # a value the validation let through
+        return _failed(grid, unit, f'stage "{stage.id}" cannot be assembled: {error}', stage.id)
+    try:
+        diagnosis = diagnose(system, current)
+    except np.linalg.LinAlgError as error:
+        return _failed(grid, unit, f'stage "{stage.id}": its matrix could not be examined ({error})', stage.id,
+                       system.fingerprint)
     if diagnosis is not None:
         return _failed(grid, unit, f'stage "{stage.id}": {diagnosis.why}', stage.id, system.fingerprint)
     analysis = analyze_system(drive(system, current), grid, unit, stage.id, system.fingerprint)
