@@ -39,6 +39,9 @@ def application() -> QApplication:
     existing = QApplication.instance()
     if isinstance(existing, QApplication):
         return existing
+    from stagewise.ui.qt_guard import protect_singletons
+
+    protect_singletons()
     _previous_handler = qInstallMessageHandler(_quiet_offscreen)
     app = QApplication(sys.argv[:1])
     app.setApplicationName("Stagewise")

@@ -15,6 +15,7 @@ from stagewise.model.project import PART_TYPES, Part, Stage
 from stagewise.ui.document import Document, EditRefused
 from stagewise.ui.icons import icon
 from stagewise.ui.overlays import IN_CHAIN, ISOLATED, OverlaySelection
+from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import ComputeWorker, Outcome
 
 __all__ = ["ChainTree", "describe_part"]
@@ -65,7 +66,8 @@ class ChainTree(QTreeWidget):
         self.currentItemChanged.connect(self._current_changed)
         self._stage_items: dict[str, QTreeWidgetItem] = {}
         self._building = False
-        self._connections = [
+        self.subscriptions = Subscriptions()
+        self.subscriptions.connect_all([
             (document.projectReplaced, self.rebuild),
             (document.chainChanged, self.rebuild),
             (document.stageChanged, self._stage_changed),
@@ -74,18 +76,12 @@ class ChainTree(QTreeWidget):
             (document.baselineChanged, self.rebuild),
             (overlays.changed, self._sync_ticks),
             (worker.outcomeReady, self._on_outcome),
-        ]
-        for signal, slot in self._connections:
-            signal.connect(slot)
+        ])
         self.rebuild()
 
     def disconnect_all(self) -> None:
-        for signal, slot in self._connections:
-            try:
-                signal.disconnect(slot)
-            except (RuntimeError, TypeError):
-                pass
-        self._connections = []
+        """Stop listening to the document and the worker (the window calls this when it closes)."""
+        self.subscriptions.close()
 
     # ----------------------------------------------------------------- model → widget
     def rebuild(self, *_: object) -> None:

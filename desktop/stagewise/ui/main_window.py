@@ -100,6 +100,9 @@ class MainWindow(QMainWindow):
 
     def __init__(self, project: Project, path: str | Path | None = None, *, read_only: bool = False,
                  interactive: bool = True, parent: QWidget | None = None) -> None:
+        from stagewise.ui.qt_guard import protect_singletons
+
+        protect_singletons()
         super().__init__(parent)
         self.interactive = interactive
         self.document = Document(project, path, self)
@@ -109,6 +112,8 @@ class MainWindow(QMainWindow):
         self.overlays = OverlaySelection(self)
         self.overlays.show_only_stage(self.document.current_stage_id)
         self._lock: Any = None
+        self._recovery_written = False
+        self._discard_chosen = False
         self._saved_snapshot = copy.deepcopy(project)
         self._previous_stage = self.document.current_stage_id
         self.first_paint = _FirstPaint(self)
@@ -639,7 +644,8 @@ class MainWindow(QMainWindow):
             QMessageBox.StandardButton.Save)
         if answer == QMessageBox.StandardButton.Save:
             return self.save()
-        return answer == QMessageBox.StandardButton.Discard
+        self._discard_chosen = answer == QMessageBox.StandardButton.Discard
+        return self._discard_chosen
 
     def new_project(self) -> None:
         if not self.confirm_discard():
@@ -814,14 +820,17 @@ class MainWindow(QMainWindow):
             with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
                 stream.write(dumps(self.document.project))
             os.replace(temporary, target)
+            self._recovery_written = True
         except OSError as error:
             self.show_message(f"Autosave failed: {error.strerror or error}.")
             return None
         return target
 
     def remove_recovery(self) -> None:
+        """Delete the recovery copy: its changes were saved or deliberately discarded."""
         with contextlib.suppress(OSError):
             self.recovery_file().unlink()
+        self._recovery_written = False
 
     def offer_recovery(self, path: Path) -> bool:
         """If a recovery copy newer than ``path`` exists, offer to restore it (True when restored)."""
@@ -874,7 +883,9 @@ class MainWindow(QMainWindow):
         self.worker.close()
         for view in [*self.plot_views(), self.tree, self.parts_table, self.formula_view, self.review_panel]:
             view.disconnect_all()
-        if not self.document.is_modified or not self.interactive:
+        # Keep a recovery copy only while it holds changes nobody saved or discarded; never delete
+        # one this window did not write (a copy from a crash stays for the next start).
+        if self._discard_chosen or (self._recovery_written and not self.document.is_modified):
             self.remove_recovery()
         self._release_lock()
 

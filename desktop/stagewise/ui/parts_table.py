@@ -23,6 +23,7 @@ from PySide6.QtWidgets import (
 from stagewise.model.project import PART_TYPES, Stage
 from stagewise.model.values import format_value
 from stagewise.ui.document import BLOCK_FIELDS, Document, EditRefused
+from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import Computed, ComputeWorker
 
 __all__ = ["FormulaView", "PartsTable"]
@@ -73,23 +74,18 @@ class PartsTable(QWidget):
         self._stage_id = ""
         self._is_block = False
         self.table.itemChanged.connect(self._item_changed)
-        self._connections = [
+        self.subscriptions = Subscriptions()
+        self.subscriptions.connect_all([
             (document.currentStageChanged, self._stage_selected),
             (document.stageChanged, self._stage_changed),
             (document.projectReplaced, self.reload),
             (document.chainChanged, self.reload),
-        ]
-        for signal, slot in self._connections:
-            signal.connect(slot)
+        ])
         self.reload()
 
     def disconnect_all(self) -> None:
-        for signal, slot in self._connections:
-            try:
-                signal.disconnect(slot)
-            except (RuntimeError, TypeError):
-                pass
-        self._connections = []
+        """Stop listening to the document and the worker (the window calls this when it closes)."""
+        self.subscriptions.close()
 
     @property
     def stage_id(self) -> str:
@@ -222,23 +218,18 @@ class FormulaView(QTextBrowser):
         self.worker = worker
         self.setOpenLinks(False)
         self._key = ""
-        self._connections = [
+        self.subscriptions = Subscriptions()
+        self.subscriptions.connect_all([
             (document.currentStageChanged, self._request),
             (document.stageChanged, self._stage_changed),
             (document.projectReplaced, self._request),
             (worker.formulaReady, self._ready),
-        ]
-        for signal, slot in self._connections:
-            signal.connect(slot)
+        ])
         self._request()
 
     def disconnect_all(self) -> None:
-        for signal, slot in self._connections:
-            try:
-                signal.disconnect(slot)
-            except (RuntimeError, TypeError):
-                pass
-        self._connections = []
+        """Stop listening to the document and the worker (the window calls this when it closes)."""
+        self.subscriptions.close()
 
     def _stage_changed(self, stage_id: str) -> None:
         if stage_id == self.document.current_stage_id:

@@ -24,6 +24,7 @@ from stagewise.ui.analyses import ResponseTrace, finite
 from stagewise.ui.document import Document
 from stagewise.ui.overlays import BASELINE, CHAIN, IN_CHAIN, ISOLATED, OverlaySelection, TraceSpec
 from stagewise.ui.palette import OKABE_ITO, limit_brush_colour
+from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import Computed, ComputeWorker, Outcome
 
 __all__ = ["NoiseView", "PlotView", "PoleZeroView", "ResponseView", "SpreadView", "StepView", "limit_shapes"]
@@ -84,25 +85,19 @@ class PlotView(QWidget):
         layout.addWidget(self.header)
         layout.addWidget(self.graphics, 1)
         self._problems: list[str] = []
-        self._connections = [
+        self.subscriptions = Subscriptions()
+        self.subscriptions.connect_all([
             (worker.outcomeReady, self._on_outcome),
             (worker.busyChanged, self._on_busy),
             (overlays.changed, self.refresh),
             (document.currentStageChanged, self._on_selection),
             (document.projectReplaced, self.refresh),
             (document.chainChanged, self.refresh),
-        ]
-        for signal, slot in self._connections:
-            signal.connect(slot)
+        ])
 
     def disconnect_all(self) -> None:
-        """Stop listening (the window calls this when it closes)."""
-        for signal, slot in self._connections:
-            try:
-                signal.disconnect(slot)
-            except (RuntimeError, TypeError):
-                pass
-        self._connections = []
+        """Stop listening to the document and the worker (the window calls this when it closes)."""
+        self.subscriptions.close()
 
     def _on_outcome(self, outcome: Outcome) -> None:
         self.outcome = outcome
@@ -286,9 +281,7 @@ class ResponseView(PlotView):
         self.layout().addWidget(self.readout)
         self._shown: list[tuple[TraceSpec, ResponseTrace]] = []
         self._mouse_proxy = pg.SignalProxy(self.graphics.scene().sigMouseMoved, rateLimit=30, slot=self._mouse_moved)
-        for signal, slot in ((document.stageChanged, self._on_stage_changed),):
-            signal.connect(slot)
-            self._connections.append((signal, slot))
+        self.subscriptions.connect(document.stageChanged, self._on_stage_changed)
         self.refresh()
 
     def _on_stage_changed(self, _stage_id: str) -> None:
@@ -329,8 +322,9 @@ class ResponseView(PlotView):
         phase = self.phase_traces.items.get(key)
         if magnitude is None or phase is None or not magnitude.isVisible():
             return None
-        f_hz, mag_db = magnitude.getData()
-        _, phase_deg = phase.getData()
+        # getData() returns the displayed (log10-mapped) x; the dataset as given is what was drawn.
+        f_hz, mag_db = magnitude.getOriginalDataset()
+        _, phase_deg = phase.getOriginalDataset()
         return f_hz, mag_db, phase_deg
 
     def _mouse_moved(self, event: tuple[QPointF]) -> None:

@@ -29,6 +29,7 @@ from PySide6.QtWidgets import (
 from stagewise.review.words import ANSWER_WORDS, WHERE_WORDS, CheckState, SignoffState
 from stagewise.ui.document import Document, EditRefused
 from stagewise.ui.icons import icon
+from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import ComputeWorker, Outcome
 
 __all__ = ["ReviewPanel"]
@@ -121,25 +122,20 @@ class ReviewPanel(QWidget):
         layout.addWidget(self.signoffs, 2)
         layout.addWidget(QLabel("Comments", self))
         layout.addWidget(self.comments, 1)
-        self._connections = [
+        self.subscriptions = Subscriptions()
+        self.subscriptions.connect_all([
             (document.currentStageChanged, self.reload),
             (document.stageChanged, self._stage_changed),
             (document.reviewChanged, self._stage_changed),
             (document.projectReplaced, self.reload),
             (document.chainChanged, self.reload),
             (worker.outcomeReady, self._on_outcome),
-        ]
-        for signal, slot in self._connections:
-            signal.connect(slot)
+        ])
         self.reload()
 
     def disconnect_all(self) -> None:
-        for signal, slot in self._connections:
-            try:
-                signal.disconnect(slot)
-            except (RuntimeError, TypeError):
-                pass
-        self._connections = []
+        """Stop listening to the document and the worker (the window calls this when it closes)."""
+        self.subscriptions.close()
 
     def selected_check(self) -> str:
         row = self.checks.currentRow()
