@@ -155,3 +155,53 @@ def test_low_rank_updates_equal_dense_solves_of_each_sample() -> None:
     rp = 220e3 * multipliers[:, 3]
     ideal = -1 / (ri * (1 / rf + 1 / rp + 1j * TWO_PI * 10 * cf))
     assert np.allclose(shared[:, 0], ideal, rtol=1e-3)
+
+
+def test_low_corner_worst_case_of_a_high_pass_equals_its_corners() -> None:
+    c, tc, r, tr = 47e-9, 0.1, 33e3, 0.05
+    fc = 1 / (TWO_PI * r * c)
+    ref_hz = fc * 1e3
+    project = make_project([
+        {"ref": "C1", "type": "C", "nodes": ["in", "out"], "value": c, "tol": tc},
+        {"ref": "R1", "type": "R", "nodes": ["out", "0"], "value": r, "tol": tr},
+    ], ref_hz=ref_hz)
+    result = run(project, samples=300, phase_margins=False)
+    # Source: H = jωRC/(1 + jωRC) (any circuits text). Relative to ref (x = f/fc, q = ref/fc):
+    # x²/(1 + x²) = q²/(2(1 + q²))  =>  x² = a/(1 − a), a = q²/(2(1 + q²)).
+    corners = []
+    for s1, s2 in itertools.product((-1, 1), repeat=2):
+        pole = 1 / (TWO_PI * r * (1 + s2 * tr) * c * (1 + s1 * tc))
+        q = ref_hz / pole
+        a = q**2 / (2 * (1 + q**2))
+        corners.append(pole * math.sqrt(a / (1 - a)))
+    case = result.worst_case["f_low_3db_hz"]
+    assert case.low == pytest.approx(min(corners), rel=1e-8)
+    assert case.high == pytest.approx(max(corners), rel=1e-8)
+    assert case.confirmed
+
+
+def test_phase_margin_of_each_sample_matches_stability_margins() -> None:
+    import control  # type: ignore[import-untyped]
+
+    rf, rg = 15e3, 1.8e3
+    project = decode({
+        "format": "stagewise-project", "version": 1, "title": "pm spread",
+        "settings": {"f_min_hz": 1, "f_max_hz": 1e6, "ref_hz": 100},
+        "opamp_models": {"m": {"a0_db": 96, "gbw_hz": "2M", "p2_hz": "3M"}},
+        "stages": [{"id": "s", "name": "stage", "ports": {"in": "in", "out": "out"}, "parts": [
+            {"ref": "U1", "type": "opamp", "nodes": ["in", "n", "out"], "model": "m"},
+            {"ref": "RF", "type": "R", "nodes": ["out", "n"], "value": rf, "tol": "20%"},
+            {"ref": "RG", "type": "R", "nodes": ["n", "0"], "value": rg, "tol": "20%"}]}],
+    })
+    result = run(project, samples=40, worst_case=False)
+    margins = result.sample_values.phase_margin_deg["U1"]
+    a0 = 10 ** (96 / 20)
+    open_loop = control.tf([a0], [a0 / (TWO_PI * 2e6), 1]) * control.tf([1], [1 / (TWO_PI * 3e6), 1])
+    for row in range(0, 40, 8):  # a few samples checked one by one against the reference library
+        m_rf, m_rg = result.sample_values.multipliers[row]
+        beta = rg * m_rg / (rf * m_rf + rg * m_rg)
+        # Reference library: control 0.10.2, stability_margins (T = A(s)·β, no loading)
+        pm = control.stability_margins(open_loop * beta)[1]
+        assert margins[row] == pytest.approx(pm, abs=1e-6)
+    spread = result.metrics["phase_margin_deg:U1"]
+    assert spread.minimum is not None and spread.maximum is not None and spread.minimum < spread.maximum

@@ -249,7 +249,7 @@ def chain_loops(project: Project) -> tuple[LoopResult, ...]:
     from stagewise.engine.chain import merged_system  # the composition layer, imported when used
 
     merged = merged_system(project)
-    return loop_gains(merged.system, current_drive=project.input.drive == "current")
+    return loop_gains(merged.system, current_drive=merged.current_drive)
 
 
 def loops_to_json(results: tuple[LoopResult, ...] | list[LoopResult]) -> list[dict[str, Any]]:

@@ -107,8 +107,8 @@ class ToleranceModel:
         scale = multipliers ** self.powers[None, :] - 1.0
         count = multipliers.shape[0]
         n = self.size
-        g = self.g0.reshape(1, -1) + scale @ self.g_patterns.reshape(len(self.refs), -1)
-        c = self.c0.reshape(1, -1) + scale @ self.c_patterns.reshape(len(self.refs), -1)
+        g = self.g0.reshape(1, -1) + scale @ self.g_patterns.reshape(len(self.refs), n * n)
+        c = self.c0.reshape(1, -1) + scale @ self.c_patterns.reshape(len(self.refs), n * n)
         return g.reshape(count, n, n), c.reshape(count, n, n)
 
 
