@@ -46,7 +46,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-import scipy.linalg
 from numpy.typing import NDArray
 
 __all__ = [
@@ -212,6 +211,8 @@ def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64]) -> NDArra
         u, sigma, vt = np.linalg.svd(e)
         rank_e = _rank(sigma, reference)
         if rank_e == n:
+            import scipy.linalg  # lazily: 0.6 s of import, off the start-up path
+
             values = np.asarray(scipy.linalg.eigvals(a, -e), dtype=complex)
             # A root at s = 0 (integrator, DC-blocking zero) comes out as rounding noise of
             # the scaled pencil's size; make it exactly 0 so DC behaviour is decided exactly.
@@ -307,11 +308,12 @@ def _cancel(
 
 
 def root_table(roots: NDArray[np.complex128]) -> list[dict[str, float | None]]:
-    """Roots as report rows ``{"re", "im", "f_hz", "q"}`` (re, im in rad/s).
+    """Roots as report rows ``{"re", "im", "f_hz", "q", "zeta"}`` (re, im in rad/s).
 
     ``f_hz`` is the natural frequency |s|/(2π); ``q`` = |s|/(−2·Re s) for a complex root (negative
     for a right-half-plane pair) and ``None`` for a real root or a root on the imaginary axis
-    (no damping: Q is infinite, and JSON has no infinity).
+    (no damping: Q is infinite, and JSON has no infinity); ``zeta`` = −Re s/|s| = 1/(2Q) for a
+    complex root (0 on the axis), ``None`` for a real root.
 
     References
     ----------
@@ -322,10 +324,13 @@ def root_table(roots: NDArray[np.complex128]) -> list[dict[str, float | None]]:
     for root in roots:
         magnitude = abs(root)
         q: float | None = None
-        if root.imag != 0.0 and root.real != 0.0:
-            q = float(magnitude / (-2.0 * root.real))
+        zeta: float | None = None
+        if root.imag != 0.0:
+            zeta = float(-root.real / magnitude)
+            if root.real != 0.0:
+                q = float(magnitude / (-2.0 * root.real))
         rows.append({"re": float(root.real), "im": float(root.imag),
-                     "f_hz": float(magnitude / TWO_PI), "q": q})
+                     "f_hz": float(magnitude / TWO_PI), "q": q, "zeta": zeta})
     return rows
 
 

@@ -44,7 +44,6 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.linalg
 from numpy.typing import NDArray
 
 from stagewise.engine.poles import PoleZeroModel
@@ -298,6 +297,8 @@ def _propagate(matrix: Matrix, initial: NDArray[np.float64], output: NDArray[np.
             uniform = np.abs(np.diff(sorted_t[start:]) - step) <= 1e-9 * max(step, 1e-300)
             broken = np.nonzero(~uniform)[0]
             length = int(broken[0]) + 1 if len(broken) else len(sorted_t) - start
+        import scipy.linalg  # lazily: 0.6 s of import, off the start-up path
+
         states = (scipy.linalg.expm(matrix * sorted_t[start]) @ initial)[:, None]
         if length > 1:
             power = scipy.linalg.expm(matrix * step)
