@@ -87,9 +87,9 @@ def solve_batched(
     matrices = g[None, :, :] + s[:, None, None] * c[None, :, :]
     if rhs.ndim == 1:
         right = np.broadcast_to(rhs[None, :, None], (len(s), rhs.shape[0], 1)).astype(complex)
-        return np.linalg.solve(matrices, right)[:, :, 0]
+        return np.asarray(np.linalg.solve(matrices, right)[:, :, 0], dtype=complex)
     right = np.broadcast_to(rhs[None, :, :], (len(s),) + rhs.shape).astype(complex)
-    return np.linalg.solve(matrices, right)
+    return np.asarray(np.linalg.solve(matrices, right), dtype=complex)
 
 
 def transfer(system: DrivenSystem, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
