@@ -331,3 +331,25 @@ def test_failed_stage_metrics_are_null_with_the_reason() -> None:
     assert document["gain_db"] is None and "U1" in document["gain_db_why"]
     assert document["step"] is None and "U1" in document["step_why"]
     assert metric_at(analysis, "gain_db", 1e3).value is None
+
+
+def test_point_response_matches_the_sweep_branch() -> None:
+    # Reference library: scipy 1.17, scipy.signal.freqs for the MFB low-pass closed form (Williams &
+    # Taylor): exact values at arbitrary frequencies, phase on the sweep's branch (inverting: starts at ±180°)
+    from stagewise.engine.metrics import frequency_response_at
+
+    r1, r2, r3, c1, c2 = 4.7e3, 9.1e3, 5.6e3, 33e-9, 2.2e-9
+    analysis, _ = analyse([
+        part("R1", "R", ["in", "a"], r1), part("C1", "C", ["a", "0"], c1),
+        part("R2", "R", ["a", "out"], r2), part("R3", "R", ["a", "b"], r3),
+        part("C2", "C", ["b", "out"], c2), part("U1", "opamp", ["0", "b", "out"], model="ideal")])
+    points = np.array([3.3, 470.0, 2.2e3, 9.9e3, 123e3])
+    b = [-1.0 / (r1 * r3 * c1 * c2)]
+    a = [1.0, (1 / r1 + 1 / r2 + 1 / r3) / c1, 1.0 / (r2 * r3 * c1 * c2)]
+    _, h = scipy.signal.freqs(b, a, worN=TWO_PI * points)
+    ours = frequency_response_at(analysis, points)
+    assert np.allclose(ours.mag_db, 20 * np.log10(np.abs(h)), atol=1e-9)
+    sweep = frequency_response(analysis)
+    branch = np.interp(np.log10(points), np.log10(sweep.f_hz), sweep.phase_deg)
+    assert np.max(np.abs(ours.phase_deg - branch)) < 1.0
+    assert np.allclose(np.exp(1j * np.radians(ours.phase_deg)), np.exp(1j * np.angle(h)), atol=1e-9)

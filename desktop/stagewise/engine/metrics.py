@@ -24,6 +24,9 @@ Public API
     ``gain_db``, ``phase_deg``, ``attenuation_db`` or ``group_delay_s`` at any frequency.
 ``frequency_response(analysis) -> FrequencyResponse``
     Magnitude (dB), unwrapped phase (degrees) and group delay (s) on the analysis grid.
+``frequency_response_at(analysis, f_hz) -> FrequencyResponse``
+    The same at any frequencies, exact (for ``stagewise response --freqs``); the complex values
+    themselves come from ``stage.response_at``.
 ``bandwidth(analysis, settings) -> Bandwidth``
 ``gain_db_at``, ``phase_deg_at``, ``attenuation_db_at``, ``group_delay_s_at``.
 
@@ -56,6 +59,7 @@ __all__ = [
     "attenuation_db_at",
     "bandwidth",
     "frequency_response",
+    "frequency_response_at",
     "gain_db_at",
     "group_delay_s_at",
     "metric_at",
@@ -173,6 +177,28 @@ def frequency_response(analysis: StageAnalysis) -> FrequencyResponse:
         mag_db=_db(analysis.response),
         phase_deg=_anchored_phase_deg(analysis, analysis.f_hz, analysis.response),
         group_delay_s=_group_delay_s(analysis, analysis.f_hz),
+    )
+
+
+def frequency_response_at(analysis: StageAnalysis, f_hz: NDArray[np.float64]) -> FrequencyResponse:
+    """The same quantities at any frequencies (hertz), from exact solves there (not interpolated).
+
+    The phase is on the same unwrapping branch as :func:`frequency_response` (anchored to the
+    pole/zero phase), so a value printed for one frequency agrees with the plotted sweep.
+
+    Raises
+    ------
+    ValueError
+        When the analysis failed (its ``why``).
+    """
+    _require(analysis)
+    points = np.atleast_1d(np.asarray(f_hz, dtype=float))
+    values = response_at(analysis, points)
+    return FrequencyResponse(
+        f_hz=points,
+        mag_db=_db(values),
+        phase_deg=_anchored_phase_deg(analysis, points, values),
+        group_delay_s=_group_delay_s(analysis, points),
     )
 
 

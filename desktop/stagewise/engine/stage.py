@@ -20,6 +20,22 @@ Public API
 ``isolated_system(stage, project) -> DrivenSystem``
     The assembled and driven pencil (raises :class:`~stagewise.engine.mna.CircuitError`).
 
+The stage engine, module by module
+----------------------------------
+``engine.mna``          assemble(stage, project) -> StageSystem (G, C, unknown names, op-amp states)
+``engine.sweep``        drive(system, current) -> DrivenSystem; frequency_grid(settings); transfer
+``engine.stage``        analyze_stage, analyze_system, response_at, stage_response (this module)
+``engine.poles``        pole_zero_model(g, c, b, output) -> PoleZeroModel; root_table(roots)
+``engine.metrics``      stage_metrics(analysis, settings) -> dict ("M" of DESIGN 6);
+                        metric_at(analysis, name, at_hz, settings); frequency_response(_at); bandwidth
+``engine.timeresp``     step_response(model) -> StepResponse; impulse_response(model)
+``engine.symbolic``     symbolic_form(stage, project, time_limit_s=5.0) -> SymbolicForm (.as_dict())
+``engine.diagnostics``  diagnose(system, current_drive) -> Diagnosis | None
+
+Results are frozen dataclasses holding numpy arrays; nothing is cached here. A caller that
+wants to recompute only edited stages keys its cache on ``StageAnalysis.fingerprint``
+(the stage fingerprint of DESIGN 4, which covers parts, ports and the op-amp models used).
+
 Example
 -------
 >>> analysis = analyze_stage(project.stages[0], project)        # doctest: +SKIP
