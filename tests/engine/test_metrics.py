@@ -353,3 +353,19 @@ def test_point_response_matches_the_sweep_branch() -> None:
     branch = np.interp(np.log10(points), np.log10(sweep.f_hz), sweep.phase_deg)
     assert np.max(np.abs(ours.phase_deg - branch)) < 1.0
     assert np.allclose(np.exp(1j * np.radians(ours.phase_deg)), np.exp(1j * np.angle(h)), atol=1e-9)
+
+
+def test_notch_with_real_poles_step_matches_scipy() -> None:
+    # Source: Nilsson & Riedel: R in series, then L and C in series to node 0: H = (1 + s²LC)/(1 + sRC + s²LC);
+    # with R = 2.2 kΩ the poles are real (Q = sqrt(L/C)/R < 0.5) and the complex zero pair needs them paired.
+    # Reference library: scipy 1.17, scipy.signal.step of the same (b, a)
+    r, inductance, capacitance = 2.2e3, 10e-3, 100e-9
+    analysis, _ = analyse([part("R1", "R", ["in", "out"], r), part("L1", "L", ["out", "a"], inductance),
+                           part("C1", "C", ["a", "0"], capacitance)])
+    assert analysis.model is not None
+    assert np.all(analysis.model.poles_rad_s.imag == 0)
+    times = np.linspace(0.0, 5e-3, 5001)
+    _, expected = scipy.signal.step(([inductance * capacitance, 0.0, 1.0], [inductance * capacitance, r * capacitance, 1.0]),
+                                    T=times)
+    ours = step_response(analysis.model, times)
+    assert np.max(np.abs(ours.y - expected)) < 1e-8

@@ -326,7 +326,7 @@ def root_table(roots: NDArray[np.complex128]) -> list[dict[str, float | None]]:
         q: float | None = None
         zeta: float | None = None
         if root.imag != 0.0:
-            zeta = float(-root.real / magnitude)
+            zeta = float(-root.real / magnitude) if root.real != 0.0 else 0.0
             if root.real != 0.0:
                 q = float(magnitude / (-2.0 * root.real))
         rows.append({"re": float(root.real), "im": float(root.imag),

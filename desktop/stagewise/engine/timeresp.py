@@ -204,7 +204,9 @@ def realisation(model: PoleZeroModel) -> tuple[Matrix, Matrix, Matrix, Matrix]:
             a1, a0 = float(den[0]), float(den[1])
             padded = np.concatenate([np.zeros(3 - len(numerator)), numerator])
             omega = math.sqrt(abs(a0)) if a0 != 0 else reference
-            value = np.polyval(padded, 1j * omega) / ((1j * omega) ** 2 + a1 * 1j * omega + a0)
+            # Normalised at 2ω0, away from an undamped pair's resonance (where D(jω0) = 0).
+            point = 2j * omega
+            value = np.polyval(padded, point) / (point**2 + a1 * point + a0)
             norm = float(abs(value)) if np.isfinite(value) and value != 0 else 1.0
             gain *= norm
             blocks.append(_second_order(padded / norm, a1, a0, reference))
@@ -212,7 +214,7 @@ def realisation(model: PoleZeroModel) -> tuple[Matrix, Matrix, Matrix, Matrix]:
             pole = float(den[0])
             padded = np.concatenate([np.zeros(2 - len(numerator)), numerator])
             omega = abs(pole) if pole != 0 else reference
-            value = np.polyval(padded, 1j * omega) / (1j * omega - pole)
+            value = np.polyval(padded, 1j * omega) / (1j * omega - pole)  # never 0: pole is real
             norm = float(abs(value)) if np.isfinite(value) and value != 0 else 1.0
             gain *= norm
             blocks.append(_first_order(padded / norm, pole, reference))
