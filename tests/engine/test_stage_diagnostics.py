@@ -28,7 +28,7 @@ def why_of(parts: list[Part], drive: str = "voltage", ports: dict[str, str] | No
 
 
 def test_floating_node_is_named() -> None:
-    # Source: Vlach & Singhal, Computer Methods for Circuit Analysis and Design, ch. 4: a node with no
+    # Source: Vlach & Singhal, Computer Methods for Circuit Analysis and Design (modified nodal analysis): a node with no
     # conductive path to the reference leaves its voltage undetermined (here it meets only an op-amp input
     # and a controlled-source input)
     why = why_of([part("R1", "R", ["in", "out"], 1e3), part("R2", "R", ["out", "0"], 1e3),
@@ -39,7 +39,7 @@ def test_floating_node_is_named() -> None:
 
 
 def test_loop_of_voltage_defined_branches_is_named() -> None:
-    # Source: Vlach & Singhal, ch. 4: voltage sources in a loop leave the loop current undetermined
+    # Source: Vlach & Singhal, Computer Methods for Circuit Analysis and Design: voltage sources in a loop leave the loop current undetermined
     why = why_of([part("R1", "R", ["in", "0"], 1e3), part("E1", "vcvs", ["out", "0", "in", "0"], 2.0),
                   part("E2", "vcvs", ["out", "0", "in", "0"], 2.0), part("R2", "R", ["out", "0"], 1e3)])
     assert '"E1"' in why and '"E2"' in why and "loop" in why

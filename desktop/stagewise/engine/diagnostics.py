@@ -24,7 +24,7 @@ Public API
 References
 ----------
 J. Vlach and K. Singhal, *Computer Methods for Circuit Analysis and Design*, 2nd ed., Van
-Nostrand Reinhold, 1994, ch. 4 (MNA and the conditions for a unique solution).
+Nostrand Reinhold, 1994 (modified nodal analysis and when its equations have a unique solution).
 """
 
 from __future__ import annotations
