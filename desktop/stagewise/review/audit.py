@@ -13,7 +13,9 @@ What this proves, and what it does not: recomputing the chain reveals an event e
 inserted or reordered by anything that did not also recompute every hash after it, which is
 what happens when a file is edited by hand or by another tool. It is not a signature: the
 rule above is public and uses no secret, so anyone holding the file can rebuild a chain that
-verifies. Removing events from the end leaves a shorter chain that still verifies.
+verifies. Removing events from the end leaves a shorter chain that still verifies, unless a
+review record in the stages still needs one of them: :func:`unrecorded_decisions` lists the
+sign-offs, waivers, answers and comments that no event accounts for.
 """
 
 from __future__ import annotations
