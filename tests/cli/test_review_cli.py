@@ -231,3 +231,19 @@ def test_verify_is_blind_to_reformatting(tmp_path: Path, capsys: pytest.CaptureF
     path.write_text(json.dumps(document, indent=5, sort_keys=True, ensure_ascii=True), encoding="utf-8")
     status, out, _ = _run(capsys, "verify", str(path))
     assert status == 0 and "intact" in out
+
+
+def test_check_with_an_unsolvable_stage_reports_no_value_and_exit_1(tmp_path: Path,
+                                                                    capsys: pytest.CaptureFixture[str]) -> None:
+    pytest.importorskip("stagewise.engine.analysis")
+    # Two ideal voltage sources driving one node: the branch currents are undetermined
+    # (Source: modified nodal analysis has no solution for a loop of voltage sources; any circuits text).
+    document = {"format": "stagewise-project", "version": 1, "title": "Singular", "stages": [
+        {"id": "bad", "name": "Two sources on one node", "ports": {"in": "in", "out": "out"},
+         "parts": [{"ref": "R1", "type": "R", "nodes": ["in", "0"], "value": "1k"},
+                   {"ref": "E1", "type": "vcvs", "nodes": ["out", "0", "in", "0"], "value": 2},
+                   {"ref": "E2", "type": "vcvs", "nodes": ["out", "0", "in", "0"], "value": 3}],
+         "checks": [{"id": "g", "text": "Gain", "metric": "gain_db", "where": "isolated", "at_hz": 1000, "min": 0}]}]}
+    status, out, err = _run(capsys, "check", str(_write(tmp_path, document)))
+    assert status == 1 and err == ""
+    assert "no value" in out and "E1" in out and "E2" in out
