@@ -7,14 +7,23 @@ row, a voltage-controlled source its gain at the control columns. So with the pa
 
     G(m) = G0 + Σ_k (m_k^p_k − 1)·ΔG_k,    C(m) = C0 + Σ_k (m_k^p_k − 1)·ΔC_k
 
-(``p = −1`` for a resistor, whose conductance is stamped, ``+1`` otherwise). The patterns are
-built once from the system's :class:`~stagewise.engine.mna.ElementStamp` records; every sampled
-matrix is then one matrix product over all samples, and every sample at every frequency is one
-batched LAPACK solve (chunked to bound memory). No Python loop runs per sample or per frequency.
+(``p = −1`` for a resistor, whose conductance is stamped, ``+1`` otherwise). Every pattern is
+rank one (``coefficient·left·rightᵀ``), built once from the system's
+:class:`~stagewise.engine.mna.ElementStamp` records. The sampled pencil is therefore the nominal
+one plus a low-rank update ``L·D(m, s)·Rᵀ``, and the response of every sample at every
+frequency follows from the nominal solves by the Woodbury identity: per frequency one solve of
+the nominal matrix (shared by all samples), per sample and frequency one (terms × terms) solve,
+all in batched LAPACK calls chunked over samples to bound memory. Parts on the same node pair
+(R ∥ C) share one term. No Python loop runs per sample or per frequency.
 
-Corner frequencies and loop crossovers are bracketed on the grid, then refined per sample by
-the Illinois variant of regula falsi in ln f, every iteration one batched solve at each sample's
-own frequency.
+Metrics per sample: ``gain_db`` at the reference (``settings.ref_hz``, else the nominal band
+maximum, the same frequency for every sample); ``peak_gain_db`` the largest gain on the grid
+(not refined between points); ``peaking_db`` peak minus reference gain; ``f_low_3db_hz`` and
+``f_high_3db_hz`` the half-power points (10·log10 2 ≈ 3.0103 dB below the reference gain)
+nearest the reference on either side; ``phase_margin_deg`` of every finite op-amp, on a window
+of half a decade either side of its nominal crossover. Corners and crossovers are bracketed on
+the grid, then refined per sample by the Illinois variant of regula falsi in ln f, every
+iteration one batched dense solve at each sample's own frequency.
 
 Worst case: the sensitivity sign of each metric to each part (central finite differences at
 nominal, batched like samples) chooses the extreme vertex (every part at +tol or −tol); the
@@ -363,7 +372,7 @@ def _refine(
     """Illinois regula falsi in ln f on every row at once.
 
     ``evaluate(rows, f)`` gives the function at frequencies ``f`` for those rows (indices into
-    the brackets). Rows stop once their step is below 1e-11 in ln f; unfinished NaN brackets
+    the brackets). Rows stop once their step is below 1e-10 in ln f; unfinished NaN brackets
     stay NaN.
     """
     valid = np.isfinite(low_hz) & np.isfinite(high_hz)
@@ -386,7 +395,7 @@ def _refine(
         a[active] = np.where(crossed, b_, a_)
         fa[active] = np.where(crossed, fb_, fa_ / 2.0)
         b[active], fb[active] = x, fx
-        moving = (np.abs(x - b_) > 1e-11) & (fx != 0) & np.isfinite(fx)
+        moving = (np.abs(x - b_) > 1e-10) & (fx != 0) & np.isfinite(fx)
         active = active[moving]
     return np.where(valid, np.exp(b), np.nan)
 
@@ -692,7 +701,7 @@ def _metric_spread(key: str, unit: str, nominal: float, values: NDArray[np.float
 
 
 def _default_loop_grids(model: ToleranceModel) -> dict[str, tuple[NDArray[np.float64], float]]:
-    """Around each op-amp's nominal crossover: half a decade either side, 20 points per decade; with
+    """Around each op-amp's nominal crossover: half a decade either side, 10 points per decade; with
     the nominal phase margin, which fixes the phase branch of every sample."""
     from stagewise.engine.loops import loop_gain  # the same break as the nominal loop analysis
 
@@ -705,7 +714,7 @@ def _default_loop_grids(model: ToleranceModel) -> dict[str, tuple[NDArray[np.flo
         if nominal_loop.crossover_hz is None or nominal_loop.phase_margin_deg is None:
             continue
         centre = nominal_loop.crossover_hz
-        grid = np.logspace(math.log10(centre) - 0.5, math.log10(centre) + 0.5, 21)
+        grid = np.logspace(math.log10(centre) - 0.5, math.log10(centre) + 0.5, 11)
         grids[opamp.ref] = (grid, nominal_loop.phase_margin_deg)
     return grids
 
