@@ -157,3 +157,20 @@ def test_empty_name_is_refused(project_file: Path, tmp_path: Path, capsys: pytes
     assert status == 2
     assert "--by" in capsys.readouterr().err
     assert project_file.read_bytes() == before
+
+
+def test_command_exits_cleanly_in_its_own_process(project_file: Path, tmp_path: Path) -> None:
+    # Qt objects left to interpreter shutdown can crash it after the work is done; the exit
+    # status is part of the command-line contract (DESIGN section 6).
+    import os
+    import subprocess
+    import sys
+
+    output = tmp_path / "own-process.pdf"
+    environment = dict(os.environ, QT_QPA_PLATFORM="offscreen")
+    completed = subprocess.run([sys.executable, "-m", "stagewise", "packet", str(project_file), "-o", str(output),
+                                "--by", "Tester"], capture_output=True, text=True, env=environment, timeout=120,
+                               check=False)
+    assert completed.returncode == 0, completed.stderr
+    assert output.read_bytes().startswith(b"%PDF")
+    assert "recorded in the audit trail" in completed.stdout

@@ -292,6 +292,23 @@ class Table(Block):
                 give = min(excess, max(widths[i] - minimum[i], 0.0))
                 widths[i] -= give
                 excess -= give
+        if excess > 0 and flexible:
+            # Long unbroken words (hashes, formulas): wrap_text cuts them, so the widest flexible
+            # columns are capped at one width L (found by bisection) that makes the table fit,
+            # leaving the narrow ones (names, short words) whole.
+            room_left = max(width - fixed, 12.0 * len(flexible))
+            low, high = 0.0, max(widths[i] for i in flexible)
+            for _ in range(50):
+                level = (low + high) / 2
+                if sum(min(widths[i], level) for i in flexible) > room_left:
+                    high = level
+                else:
+                    low = level
+            for i in flexible:
+                widths[i] = min(widths[i], low)
+        total = sum(widths)
+        if total > width:  # even the fixed columns are too wide: scale every column to fit
+            widths = [w * width / total for w in widths]
         return widths
 
     def _layout(self, width: float) -> tuple[list[float], list[list[list[str]]]]:

@@ -22,7 +22,7 @@ import numpy as np
 import pyqtgraph as pg
 from numpy.typing import NDArray
 from PySide6.QtCore import QRectF, Qt
-from PySide6.QtGui import QColor, QFont, QPainter, QPen
+from PySide6.QtGui import QColor, QFont, QFontMetricsF, QPainter, QPen
 from PySide6.QtWidgets import QGraphicsRectItem
 
 from stagewise.model.values import format_value
@@ -36,6 +36,7 @@ __all__ = [
     "PlotStyle",
     "ResponseTrace",
     "bars_plot",
+    "legend_text",
     "pole_zero_plot",
     "render_plot",
     "response_plot",
@@ -70,6 +71,12 @@ class ResponseTrace:
     f_hz: NDArray[np.float64]
     mag_db: NDArray[np.float64]
     phase_deg: NDArray[np.float64]
+
+
+def legend_text(labels: Sequence[str]) -> str:
+    """The traces' styles in words ("isolated: black, solid; in chain: blue, dash"), for captions."""
+    return "; ".join(f"{label}: {trace_style(index).colour_name}, {trace_style(index).line_name}"
+                     for index, label in enumerate(labels))
 
 
 def trace_from_complex(label: str, f_hz: NDArray[np.float64], response: NDArray[np.complex128]) -> ResponseTrace:
@@ -130,7 +137,8 @@ Limit = tuple[str, str, tuple[float, float], tuple[float, float]]
 
 
 def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (), style: PlotStyle = PRINT,
-                  show_phase: bool = True, magnitude_label: str = "magnitude (dB)") -> pg.GraphicsLayoutWidget:
+                  show_phase: bool = True, magnitude_label: str = "magnitude (dB)",
+                  legend: bool = True) -> pg.GraphicsLayoutWidget:
     """Magnitude (dB) above phase (degrees) on linked log-frequency axes, one style per trace.
 
     ``limits`` are drawn as shaded gates: the band a trace must pass through for the check to
@@ -142,7 +150,7 @@ def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (),
     _style_axes(magnitude, style)
     magnitude.setLogMode(x=True, y=False)
     _label(magnitude, "left", magnitude_label, style)
-    if len(traces) > 1:
+    if legend and len(traces) > 1:
         _legend(magnitude, style)
     for index, trace in enumerate(traces):
         finite = np.isfinite(trace.mag_db)
@@ -224,15 +232,16 @@ def _add_limits(plot: pg.PlotItem, limits: Sequence[Limit], traces: Sequence[Res
         gate.setBrush(brush)
         gate.setPen(pg.mkPen(limit_brush_colour(200), width=0.8))
         plot.addItem(gate, ignoreBounds=True)
-        text = pg.TextItem(label, color=style.foreground, anchor=(0, 1))
+        # The label hangs inside the gate's top, kept within the traces' range so it is on the plot.
+        text = pg.TextItem(label, color=style.foreground, anchor=(0, 0))
         text.setFont(_tick_font(style))
-        text.setPos(x0, min(y1, y_ceiling))
+        text.setPos(x0, min(y1, float(y_all.max()) + 0.05 * y_span))
         plot.addItem(text, ignoreBounds=True)
 
 
 def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex],
                    style: PlotStyle = PRINT) -> pg.GraphicsLayoutWidget:
-    """Poles (×) and zeros (○) in the s-plane, axes in rad/s with SI prefixes."""
+    """Poles (×, blue) and zeros (○, vermillion) in the s-plane, axes in rad/s with SI prefixes."""
     widget = pg.GraphicsLayoutWidget()
     widget.setBackground(style.background)
     plot = widget.addPlot()
@@ -242,15 +251,19 @@ def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex
     _label(plot, "bottom", "real part σ (rad/s)", style)
     _label(plot, "left", "imaginary part ω (rad/s)", style)
     values = [complex(v) for v in list(poles_rad_s) + list(zeros_rad_s)]
-    extent = max([abs(v.real) for v in values] + [abs(v.imag) for v in values] + [1.0]) * 1.15
+    extent = max([abs(v.real) for v in values] + [abs(v.imag) for v in values] + [0.0]) * 1.15 or 1.0
     plot.addLine(x=0, pen=pg.mkPen(style.foreground, width=0.6, style=Qt.PenStyle.DashLine))
     plot.addLine(y=0, pen=pg.mkPen(style.foreground, width=0.6, style=Qt.PenStyle.DashLine))
+    # useCache=False: pyqtgraph otherwise stamps symbols from a pixmap atlas, which would put
+    # raster images into the PDF; drawn each time they stay vector paths.
     if poles_rad_s:
-        plot.plot([p.real for p in poles_rad_s], [p.imag for p in poles_rad_s], pen=None, symbol="x",
-                  symbolSize=11, symbolPen=pg.mkPen(PALETTE[1], width=1.8), symbolBrush=None, name="poles")
+        plot.addItem(pg.ScatterPlotItem([p.real for p in poles_rad_s], [p.imag for p in poles_rad_s], symbol="x",
+                                        size=11, pen=pg.mkPen(trace_style(1).colour, width=1.8), brush=None,
+                                        useCache=False, name="poles"))
     if zeros_rad_s:
-        plot.plot([z.real for z in zeros_rad_s], [z.imag for z in zeros_rad_s], pen=None, symbol="o",
-                  symbolSize=10, symbolPen=pg.mkPen(PALETTE[0], width=1.6), symbolBrush=None, name="zeros")
+        plot.addItem(pg.ScatterPlotItem([z.real for z in zeros_rad_s], [z.imag for z in zeros_rad_s], symbol="o",
+                                        size=10, pen=pg.mkPen(trace_style(2).colour, width=1.6), brush=None,
+                                        useCache=False, name="zeros"))
     plot.setXRange(-extent, max(extent * 0.25, max([v.real for v in values] + [0.0]) * 1.15), padding=0)
     plot.setYRange(-extent, extent, padding=0)
     return widget
@@ -266,9 +279,12 @@ def bars_plot(labels: Sequence[str], values: Sequence[float], unit_label: str,
     count = len(values)
     positions = np.arange(count)[::-1].astype(float)
     bars = pg.BarGraphItem(x0=np.zeros(count), y=positions, height=0.6, width=np.asarray(values, dtype=float),
-                           brush=pg.mkBrush(PALETTE[0]), pen=pg.mkPen(style.foreground, width=0.5))
+                           brush=pg.mkBrush(trace_style(1).colour), pen=pg.mkPen(style.foreground, width=0.5))
     plot.addItem(bars)
-    plot.getAxis("left").setTicks([[(float(p), label) for p, label in zip(positions, labels, strict=True)]])
+    left = plot.getAxis("left")
+    left.setTicks([[(float(p), label) for p, label in zip(positions, labels, strict=True)]])
+    metrics = QFontMetricsF(_tick_font(style))
+    left.setWidth(int(max([metrics.horizontalAdvance(label) for label in labels] + [20.0]) + 14))
     _label(plot, "bottom", unit_label, style)
     plot.setYRange(-0.6, count - 0.4, padding=0)
     plot.setXRange(0, max(list(values) + [0.0]) * 1.05 or 1.0, padding=0)

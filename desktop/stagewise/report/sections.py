@@ -16,6 +16,7 @@ from collections.abc import Callable, Sequence
 from datetime import UTC, datetime
 from typing import Any
 
+import shiboken6
 from PySide6.QtCore import QRectF
 from PySide6.QtGui import QColor, QPainter
 
@@ -38,6 +39,7 @@ from stagewise.report.layout import (
 from stagewise.report.plots import (
     ResponseTrace,
     bars_plot,
+    legend_text,
     pole_zero_plot,
     render_plot,
     response_plot,
@@ -128,7 +130,9 @@ def _plot_figure(build: Callable[[], Any], height: float, caption: str) -> Figur
         try:
             render_plot(widget, painter, rect)
         finally:
-            widget.deleteLater()
+            # Destroy the widget now: without an event loop deleteLater() never runs, and Qt
+            # objects left for interpreter shutdown can crash it.
+            shiboken6.delete(widget)
 
     return Figure(draw, height, caption)
 
@@ -220,21 +224,19 @@ def _cautions(content: PacketContent) -> list[Block]:
 
 
 def _stage_figures(entry: dict[str, Any] | None) -> tuple[str, ...]:
+    """Gain at the reference frequency and the −3 dB band, isolated, for a diagram box."""
     if entry is None or not isinstance(entry.get("isolated"), dict):
         return ("no figures in this build",)
     isolated = entry["isolated"]
     lines = []
-    if isolated.get("gain_db") is not None:
-        lines.append(f"gain {_text(isolated['gain_db'], 'dB')}")
-    corners = []
-    if isolated.get("f_low_3db_hz") is not None:
-        corners.append(f"{format_value(isolated['f_low_3db_hz'], 'Hz', 3)}")
-    else:
-        corners.append("")
-    if isolated.get("f_high_3db_hz") is not None:
-        corners.append(f"{format_value(isolated['f_high_3db_hz'], 'Hz', 3)}")
-    if any(corners):
-        lines.append("−3 dB: " + " … ".join(corner or "DC" for corner in corners))
+    gain = isolated.get("gain_db")
+    if isinstance(gain, int | float):
+        lines.append(f"gain {gain:+.2f} dB")
+    low, high = isolated.get("f_low_3db_hz"), isolated.get("f_high_3db_hz")
+    if isinstance(low, int | float) or isinstance(high, int | float):
+        low_text = format_value(low, "Hz", 3) if isinstance(low, int | float) else "DC"
+        high_text = format_value(high, "Hz", 3) if isinstance(high, int | float) else "above band"
+        lines.append(f"{low_text} – {high_text}")
     return tuple(lines)
 
 
@@ -299,7 +301,8 @@ def _chain(content: PacketContent) -> list[Block]:
 
     blocks.append(Figure(draw, diagram_height(len(boxes), 650.0),
                          "Stages in chain order from the source to the converter. Figures are isolated: gain at "
-                         "the reference frequency and −3 dB corners. Dashed grey: bypassed, not in the chain."))
+                         "the reference frequency and the −3 dB band (DC: no lower corner in the analysed band). "
+                         "Dashed grey: bypassed, not in the chain."))
     blocks.append(Heading("Response of the whole chain", 2))
     if content.chain.response is not None:
         traces = _traces([("chain", content.chain)])
@@ -330,12 +333,16 @@ def _noise(chain: dict[str, Any], project: Project) -> list[Block]:
         blocks.append(_unavailable(f"Noise: {_why(chain, 'noise') or NOT_IN_BUILD}."))
         return blocks
     band = noise.get("band_hz") or [None, None]
-    in_unit = "A" if project.input.drive == "current" else "V"
+    in_unit = str(noise.get("in_unit") or ("A" if project.input.drive == "current" else "V"))
     rows = [
         ("Noise band", f"{_text(band[0], 'Hz')} to {_text(band[1], 'Hz')}"),
+        ("Temperature", f"{noise['temperature_k']:.2f} K" if isinstance(noise.get("temperature_k"), int | float)
+         else DASH),
         ("Output noise (RMS)", _value_or_why(noise, "out_rms_v", "V")),
-        ("Output density at the reference frequency", _value_or_why(noise, "out_density_v_rthz_at_ref", "V/√Hz")),
+        (f"Output density at {_text(noise.get('ref_hz'), 'Hz')}", _value_or_why(noise, "out_density_v_rthz_at_ref",
+                                                                               "V/√Hz")),
         ("Input-referred noise (RMS)", _value_or_why(noise, "in_rms", in_unit)),
+        ("Input-referred density at the same frequency", _value_or_why(noise, "in_density_at_ref", f"{in_unit}/√Hz")),
     ]
     blocks.append(_key_values(rows))
     sources = noise.get("top_sources") or []
@@ -344,52 +351,73 @@ def _noise(chain: dict[str, Any], project: Project) -> list[Block]:
         names = []
         values = []
         for source in sources:
-            name = str(source.get("name") or source.get("ref") or "?")
-            table_rows.append([name, str(source.get("kind", "")),
-                               _text(source.get("out_rms_v"), "V"),
+            name = str(source.get("source") or source.get("ref") or "?")
+            table_rows.append([name, str(source.get("kind", "")), _text(source.get("rms_v"), "V"),
                                _text(source.get("share_pct"), "%")])
             names.append(name)
-            values.append(float(source.get("out_rms_v") or 0.0) * 1e6)
+            values.append(float(source.get("rms_v") or 0.0) * 1e6)
         blocks.append(Heading("Top contributors", 3))
         blocks.append(Table([Column("source"), Column("kind"), Column("output RMS", "right", wrap=False),
-                             Column("share of power", "right", wrap=False)], table_rows))
-        blocks.append(_plot_figure(lambda: bars_plot(names, values, "output noise RMS (µV)"),
-                                   max(120.0, 26.0 * len(names) + 60.0),
+                             Column("share of output power", "right", wrap=False)], table_rows))
+        blocks.append(_plot_figure(lambda: bars_plot(names, values, "output noise RMS over the band (µV)"),
+                                   max(130.0, 24.0 * len(names) + 70.0),
                                    "Largest contributors to the output noise over the noise band."))
+    for note in noise.get("notes") or []:
+        blocks.append(Paragraph(f"Note: {note}", 10.5, color=QColor(MUTED)))
     return blocks
 
 
 def _converter(chain: dict[str, Any], project: Project) -> list[Block]:
-    converter = project.converter
     blocks: list[Block] = [Heading("Converter", 2)]
+    figures = chain.get("converter")
+    if not isinstance(figures, dict):
+        blocks.append(_unavailable(f"Converter figures: {_why(chain, 'converter') or NOT_IN_BUILD}."))
+        return blocks
+    bits = figures.get("bits")
     rows = [
-        ("Sampling rate", _text(converter.fs_hz.si if converter.fs_hz else None, "Hz")),
-        ("Resolution", f"{converter.bits} bit" if converter.bits else DASH),
-        ("Full scale", _text(converter.full_scale_vpp.si if converter.full_scale_vpp else None, "V") + " p-p"
-         if converter.full_scale_vpp else DASH),
-        ("Ideal converter SNR (6.02 N + 1.76 dB)", f"{6.02 * converter.bits + 1.76:.2f} dB" if converter.bits else DASH),
-        ("SNR of the chain with the converter", _value_or_why(chain, "snr_db", "dB")),
-        ("Attenuation at fs − pass-band edge", _value_or_why(chain, "alias_attenuation_db", "dB")),
+        ("Sampling rate", _value_or_why(figures, "fs_hz", "Hz")),
+        ("Resolution", f"{bits} bit" if bits else _value_or_why(figures, "bits", "")),
+        ("Full scale (peak to peak)", _value_or_why(figures, "full_scale_vpp", "V")),
+        ("LSB", _value_or_why(figures, "lsb_v", "V")),
+        ("Quantization noise (RMS)", _value_or_why(figures, "quantization_noise_v_rms", "V")),
+        ("Ideal converter SNR, 6.02 N + 1.76 dB", _value_or_why(figures, "ideal_snr_db", "dB")),
+        ("Pass-band edge used", _value_or_why(figures, "f_pass_hz", "Hz")
+         + (f" ({figures['f_pass_source']})" if figures.get("f_pass_source") else "")),
+        ("Folds into the pass band from", _value_or_why(figures, "alias_hz", "Hz")),
+        ("Attenuation there (alias attenuation)", _value_or_why(figures, "alias_attenuation_db", "dB")),
+        ("Chain noise at the converter (RMS)", _value_or_why(figures, "noise_rms_v", "V")),
+        ("Chain noise in LSB (RMS)", _value_or_why(figures, "noise_rms_lsb", "")),
+        ("SNR, chain noise against full-scale sine", _value_or_why(figures, "snr_db", "dB")),
+        ("SNR with quantization noise", _value_or_why(figures, "snr_with_quantization_db", "dB")),
     ]
     blocks.append(_key_values(rows))
+    for note in figures.get("notes") or []:
+        blocks.append(Paragraph(f"Note: {note}", 10.5, color=QColor(MUTED)))
     return blocks
 
 
 def _headroom(chain: dict[str, Any]) -> list[Block]:
-    blocks: list[Block] = [Heading("Headroom and slew", 2)]
+    blocks: list[Block] = [Heading("Headroom and slew at the declared input", 2)]
     headroom = chain.get("headroom")
-    if isinstance(headroom, dict) and isinstance(headroom.get("outputs"), list):
-        rows = []
-        for item in headroom["outputs"]:
-            rows.append([str(item.get("stage", "")), str(item.get("ref", "")), _text(item.get("peak_v"), "V"),
-                         _text(item.get("headroom_v"), "V"), _text(item.get("slew_margin"), "")])
-        blocks.append(Table([Column("stage"), Column("op-amp"), Column("peak", "right"), Column("headroom", "right"),
-                             Column("slew margin", "right")], rows))
-    elif isinstance(headroom, dict):
-        blocks.append(_key_values([(str(key), _text(value) if not isinstance(value, dict | list) else
-                                    json.dumps(value, ensure_ascii=False)) for key, value in headroom.items()]))
-    else:
+    if not isinstance(headroom, list):
         blocks.append(_unavailable(f"Headroom: {_why(chain, 'headroom') or NOT_IN_BUILD}."))
+        return blocks
+    if not headroom:
+        blocks.append(Paragraph("No finite op-amp model in the chain: nothing to check.", 11.5))
+        return blocks
+    rows = []
+    marks = []
+    for item in headroom:
+        margin = item.get("swing_margin_v")
+        slew = item.get("slew_margin")
+        rows.append([str(item.get("ref", "")), _value_or_why(item, "peak_v", "V"), _text(item.get("at_hz"), "Hz"),
+                     _value_or_why(item, "swing_margin_v", "V"), _value_or_why(item, "slew_needed_v_per_s", "V/s"),
+                     _value_or_why(item, "slew_margin", "")])
+        short = (isinstance(margin, int | float) and margin < 0) or (isinstance(slew, int | float) and slew < 1)
+        marks.append("bad" if short else "")
+    blocks.append(Table([Column("op-amp"), Column("peak output", "right"), Column("at", "right", wrap=False),
+                         Column("swing margin", "right"), Column("slew needed", "right"),
+                         Column("slew margin (×)", "right")], rows, size_px=10.5, row_marks=marks))
     return blocks
 
 
@@ -400,21 +428,50 @@ def _spread(chain: dict[str, Any]) -> list[Block]:
         blocks.append(_unavailable(f"Spread: {_why(chain, 'spread') or NOT_IN_BUILD}."))
         return blocks
     blocks.append(_key_values([
-        ("Seed", _text(spread.get("seed"))),
-        ("Samples", _text(spread.get("samples"))),
+        ("Method", f"Monte Carlo, {_text(spread.get('samples'))} samples, {spread.get('distribution', DASH)} "
+                   f"within each tolerance, seed {_text(spread.get('seed'))}"),
         ("Yield against the checks", _value_or_why(spread, "yield_pct", "%")),
     ]))
-    percentiles = spread.get("percentiles")
-    if isinstance(percentiles, dict) and percentiles:
+    metrics = spread.get("metrics")
+    if isinstance(metrics, dict) and metrics:
         rows = []
-        for key, values in percentiles.items():
-            unit = METRICS[key].unit if key in METRICS else ""
-            label = METRICS[key].label if key in METRICS else key
-            if isinstance(values, dict):
-                rows.append([label] + [_text(values.get(name), unit) for name in ("p1", "p50", "p99", "min", "max")])
+        for key, values in metrics.items():
+            if not isinstance(values, dict):
+                continue
+            unit = str(values.get("unit") or (METRICS[key].unit if key in METRICS else ""))
+            unit = "°" if unit == "deg" else unit
+            base, _, where = key.partition(":")
+            label = (METRICS[base].label if base in METRICS else base.replace("_", " ")) + (f", {where}" if where else "")
+            if values.get("why") and values.get("p50") is None:
+                rows.append([label, f"{DASH} ({values['why']})", "", "", "", ""])
+                continue
+            rows.append([label] + [_text(values.get(name), unit) for name in ("nominal", "p1", "p50", "p99")]
+                        + [f"{_text(values.get('min'), unit)} … {_text(values.get('max'), unit)}"])
         if rows:
-            blocks.append(Table([Column("metric"), Column("1 %", "right"), Column("median", "right"),
-                                 Column("99 %", "right"), Column("min", "right"), Column("max", "right")], rows))
+            blocks.append(Table([Column("metric"), Column("nominal", "right"), Column("1 %", "right"),
+                                 Column("median", "right"), Column("99 %", "right"), Column("min … max", "right")],
+                                rows, size_px=10.5))
+    worst = spread.get("worst_case")
+    if isinstance(worst, dict) and worst:
+        rows = []
+        for key, values in worst.items():
+            if not isinstance(values, dict):
+                continue
+            unit = METRICS[key].unit if key in METRICS else ""
+            label = METRICS[key].label if key in METRICS else key.replace("_", " ")
+            confirmed = "confirmed by evaluation" if values.get("confirmed") else str(values.get("why") or "not confirmed")
+            rows.append([label, _text(values.get("low"), unit), _text(values.get("high"), unit), confirmed])
+        if rows:
+            blocks.append(Heading("Worst case (extreme vertices from sensitivity signs)", 3))
+            blocks.append(Table([Column("metric"), Column("low", "right"), Column("high", "right"), Column("")],
+                                rows, size_px=10.5))
+    limits = spread.get("limits")
+    if isinstance(limits, list) and limits:
+        blocks.append(Table([Column("check counted in the yield"), Column("samples passing", "right", wrap=False)],
+                            [[str(item.get("label", "")), _text(item.get("pass_pct"), "%")] for item in limits],
+                            size_px=10.5))
+    for note in spread.get("notes") or []:
+        blocks.append(Paragraph(f"Note: {note}", 10.5, color=QColor(MUTED)))
     return blocks
 
 
@@ -561,7 +618,7 @@ def _poles_zeros(entry: dict[str, Any] | None, content: PacketContent) -> list[B
         pole_values = [complex(p.get("re", 0.0), p.get("im", 0.0)) for p in poles]
         zero_values = [complex(z.get("re", 0.0), z.get("im", 0.0)) for z in zeros]
         blocks.append(_plot_figure(lambda: pole_zero_plot(pole_values, zero_values), 250.0,
-                                   "s-plane: poles ×, zeros ○."))
+                                   "s-plane: poles × (blue), zeros ○ (vermillion)."))
     return blocks
 
 
@@ -592,10 +649,11 @@ def _response_blocks(stage: Stage, content: PacketContent) -> list[Block]:
         traces = _traces(available)
         limits = _limits(content.project, [stage], ("isolated", "in_chain"))
         label = _magnitude_label("Ω" if stage.drive == "current" else "V/V")
-        blocks.append(_plot_figure(lambda: response_plot(traces, limits, magnitude_label=label), 300.0,
-                                   "Isolated: ideal drive, unloaded. In chain: the stage where it sits (V_out/V_in, "
-                                   "or V_out/I_in for a current-driven stage). Shaded: limits of the stage's checks "
-                                   "on gain or phase at a frequency."))
+        blocks.append(_plot_figure(lambda: response_plot(traces, limits, magnitude_label=label, legend=False), 300.0,
+                                   f"Traces: {legend_text([trace.label for trace in traces])}. Isolated: ideal "
+                                   "drive, unloaded. In chain: the stage where it sits (V_out/V_in, or V_out/I_in "
+                                   "for a current-driven stage). Shaded: limits of the stage's checks on gain or "
+                                   "phase at a frequency."))
     for line in missing:
         blocks.append(_unavailable(line[0].upper() + line[1:] + "."))
     return blocks
