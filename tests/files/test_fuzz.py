@@ -19,6 +19,13 @@ from stagewise.files.project_file import ProjectFileError, loads_project
 PROJECTS = Path(__file__).resolve().parents[2] / "projects"
 DEMOS = [json.loads((PROJECTS / name).read_text(encoding="utf-8"))
          for name in ("hydrophone.stagewise.json", "greenhouse.stagewise.json")]
+# A pre-release (version 0) document, so that mutations also run through the migration.
+VERSION_0 = {
+    "version": 0, "title": "Old", "drive": "current", "input": {"amplitude": "1u"},
+    "chain": [{"id": "pd", "name": "Photodiode", "drive": "current", "ports": {"in": "a", "out": "a"},
+               "parts": [{"ref": "C1", "type": "C", "nodes": ["a", "0"], "value": "100p"}]}],
+}
+DEMOS.append(VERSION_0)
 
 json_scalars = st.one_of(
     st.none(), st.booleans(), st.integers(min_value=-(10**40), max_value=10**40),
