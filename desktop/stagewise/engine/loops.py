@@ -14,7 +14,9 @@ input.
 Crossover is where ``|T| = 1`` (the highest downward crossing), refined by bisection in log f on
 exact solves; phase margin is ``180° + ∠T`` there, with the phase unwrapped from the lowest
 frequency of the grid. Gain margin is ``−20·log10|T|`` where the unwrapped phase crosses
-``−180°`` (an odd multiple of 180°); when several, the smallest margin is reported.
+``−180°`` (an odd multiple of 180°); when there are several (a conditionally stable loop), the
+one nearest instability is reported: the smallest |margin| in dB, which is negative when the
+gain would have to fall (not rise) by that much to reach instability.
 
 References
 ----------
@@ -187,7 +189,7 @@ def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates
 
             where = _bisect(offset, float(f_hz[index]), float(f_hz[index + 1]))
             margin_db = -20.0 * math.log10(abs(exact(where)))
-            if best is None or margin_db < best[0]:
+            if best is None or abs(margin_db) < abs(best[0]):
                 best = (margin_db, where)
         assert best is not None
         gain_margin, phase_crossover = best
