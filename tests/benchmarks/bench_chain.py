@@ -76,13 +76,14 @@ def _incremental_setup() -> dict[str, Any]:
     f_hz = _frequencies()
     engine.analyze(project, f_hz)
     part = project.stages[STAGES // 2].parts[3]
-    return {"project": project, "engine": engine, "f_hz": f_hz, "part": part, "toggle": [0]}
+    return {"project": project, "engine": engine, "f_hz": f_hz, "part": part, "edits": [0]}
 
 
 def _edit(context: Any) -> None:
-    # One capacitor changed, alternating between two values so that every call is a real edit.
-    context["toggle"][0] ^= 1
-    context["part"].value = Quantity.of("1.5n" if context["toggle"][0] else "1.8n")
+    # One capacitor changed to a value never used before, so every call is a real edit that
+    # no cache can answer.
+    context["edits"][0] += 1
+    context["part"].value = Quantity.of(1.5e-9 * (1.0 + 1e-3 * context["edits"][0]))
 
 
 def _incremental(context: Any) -> object:

@@ -31,7 +31,7 @@ from numpy.typing import NDArray
 
 from stagewise.engine.cache import ComputeCache, grid_key
 from stagewise.engine.mna import CircuitError, ElementStamp, OpampStates, StageSystem, assemble
-from stagewise.engine.ports import PortRelation, reduce_stage
+from stagewise.engine.ports import PortRelation, reduce_stage, reduce_stage_terminated, retermination
 from stagewise.engine.sweep import DrivenSystem, drive, frequency_grid, transfer
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Stage
@@ -335,9 +335,9 @@ def _normalise(*terms: NDArray[np.complex128]) -> tuple[NDArray[np.complex128], 
 
 
 def _impedance(numerator: NDArray[np.complex128], denominator: NDArray[np.complex128]) -> NDArray[np.complex128]:
+    # A zero denominator is an open circuit: infinite impedance.
     result = np.full(numerator.shape, complex(np.inf, 0.0))
-    finite = denominator != 0
-    result[finite] = numerator[finite] / denominator[finite]
+    np.divide(numerator, denominator, out=result, where=denominator != 0)
     return result
 
 
@@ -659,12 +659,18 @@ class ChainEngine:
     def __init__(self, max_entries: int = 512) -> None:
         self._systems: ComputeCache[StageSystem] = ComputeCache(max_entries)
         self._relations: ComputeCache[PortRelation] = ComputeCache(max_entries)
+        self._refined: ComputeCache[PortRelation | None] = ComputeCache(max_entries)
         self._isolated: ComputeCache[IsolatedResponse] = ComputeCache(max_entries)
 
     @property
     def reductions(self) -> int:
         """How many stage port relations were computed (cache misses)."""
         return self._relations.computed
+
+    @property
+    def refinements(self) -> int:
+        """How many stages were re-reduced with terminations suited to their neighbours."""
+        return self._refined.computed
 
     @property
     def isolated_solves(self) -> int:
@@ -680,6 +686,7 @@ class ChainEngine:
         """Forget every cached result (counters are kept)."""
         self._systems.clear()
         self._relations.clear()
+        self._refined.clear()
         self._isolated.clear()
 
     def system(self, stage: Stage, project: Project) -> StageSystem:
@@ -708,6 +715,21 @@ class ChainEngine:
             (fingerprint, key),
             lambda: reduce_stage(self._system(stage, project, fingerprint), grid, stage_id=stage.id),
         )
+
+    def _refine(self, stage: Stage, project: Project, fingerprint: str, key: str, relation: PortRelation,
+                input_current: NDArray[np.bool_], output_voltage: NDArray[np.bool_]) -> PortRelation:
+        # Impose the current at a port where the neighbour's side has the higher impedance
+        # (it drives like a current source), the voltage where it has the lower: at the input
+        # that is where the chain before is the higher; at the output where the stage is.
+        if not retermination(relation, input_current, output_voltage):
+            return relation
+        mask_key = hashlib.sha256(np.packbits(np.concatenate([input_current, output_voltage])).tobytes()).hexdigest()
+        better = self._refined.get_or_compute(
+            (fingerprint, key, mask_key),
+            lambda: reduce_stage_terminated(self._system(stage, project, fingerprint), relation, input_current,
+                                            output_voltage),
+        )
+        return relation if better is None else better
 
     def isolated(self, stage: Stage, project: Project, f_hz: NDArray[np.float64] | list[float] | None = None
                  ) -> IsolatedResponse:
@@ -783,6 +805,19 @@ class ChainEngine:
         current_drive = project.input.drive == "current"
         solution = cascade([relation.p for relation in relations], current_drive=current_drive,
                            load_admittance_s=load_y, f_hz=grid, stage_ids=stage_ids)
+        # Second pass where a neighbour's impedance calls for other terminations (for instance
+        # a current drive, or a high-impedance output, into a stage): see reduce_stage_terminated.
+        with np.errstate(invalid="ignore"):
+            # Where the side looking back has the higher impedance (column j: interface j).
+            back_higher = np.abs(solution.z_out_ohm) > np.abs(solution.z_in_ohm)
+        refined = [self._refine(stage, project, fingerprint, key, relation, back_higher[:, position - 1],
+                                back_higher[:, position])
+                   for position, (stage, fingerprint, relation) in enumerate(
+                       zip(stages, fingerprints, relations, strict=True), start=1)]
+        if any(item is not relation for item, relation in zip(refined, relations, strict=True)):
+            relations = refined
+            solution = cascade([relation.p for relation in relations], current_drive=current_drive,
+                               load_admittance_s=load_y, f_hz=grid, stage_ids=stage_ids)
         held_at_zero = [relation.input_voltage_zero for relation in relations[1:]] + [False]
         entries = tuple(
             _stage_in_chain(position, stage, relation, alone, solution, held_at_zero[position - 1])

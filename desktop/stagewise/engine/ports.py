@@ -50,7 +50,9 @@ __all__ = [
     "forced_zero",
     "TERMINATIONS",
     "reduce_stage",
+    "reduce_stage_terminated",
     "reference_resistance",
+    "retermination",
     "termination_scores",
 ]
 
@@ -86,6 +88,9 @@ class PortRelation:
         The stage by itself holds V_in ≡ 0 (its input is a virtual ground).
     input_current_zero : bool
         The stage by itself takes no input current, I_in ≡ 0.
+    per_frequency : bool
+        The terminations were chosen frequency by frequency to suit the neighbouring stages
+        (:func:`reduce_stage_terminated`); ``imposed`` is then ``None``.
     """
 
     f_hz: NDArray[np.float64]
@@ -95,6 +100,7 @@ class PortRelation:
     imposed: tuple[int, int] | None = None
     input_voltage_zero: bool = False
     input_current_zero: bool = False
+    per_frequency: bool = False
 
 
 def reference_resistance(system: StageSystem) -> float:
@@ -123,12 +129,13 @@ _SAMPLES = 9
 
 
 def _terminated_solve(system: StageSystem, s: NDArray[np.complex128], imposed: tuple[int, int] | None,
-                      r0_ohm: float) -> NDArray[np.complex128]:
+                      r0_ohm: float, per_frequency: NDArray[np.int_] | None = None) -> NDArray[np.complex128]:
     """Solve the stage with two terminating rows, for t = e1 and t = e2.
 
     ``imposed`` names the two port variables set to ``t`` (a voltage row ``v(port) = t`` or a
     current row ``I_port = t``); ``None`` terminates both ports in R0 (``V + R0·I = t``).
-    Returns the four port variables, shape (F, 4, 2): column j for t = e_j.
+    ``per_frequency`` (shape (F, 2)), when given, names the imposed pair at each frequency
+    instead. Returns the four port variables, shape (F, 4, 2): column j for t = e_j.
     """
     n = system.size
     size = n + 2
@@ -140,20 +147,24 @@ def _terminated_solve(system: StageSystem, s: NDArray[np.complex128], imposed: t
     # The injected port currents enter their node's current balance (rows: currents leaving).
     g[port_in, n] -= 1.0
     g[port_out, n + 1] -= 1.0
-    column_of = {V_IN: port_in, I_IN: n, V_OUT: port_out, I_OUT: n + 1}
-    if imposed is None:
+    column_of = np.array([port_in, n, port_out, n + 1])  # V_IN, I_IN, V_OUT, I_OUT
+    if imposed is None and per_frequency is None:
         # V_in + R0·I_in = t1, V_out + R0·I_out = t2.
         g[n, port_in], g[n, n] = 1.0, r0_ohm
         g[n + 1, port_out], g[n + 1, n + 1] = 1.0, r0_ohm
-    else:
+    elif imposed is not None:
         g[n, column_of[imposed[0]]] = 1.0
         g[n + 1, column_of[imposed[1]]] = 1.0
     matrices = g[None, :, :] + s[:, None, None] * c[None, :, :]
+    if per_frequency is not None:
+        rows = np.arange(len(s))
+        matrices[rows, n, column_of[per_frequency[:, 0]]] = 1.0
+        matrices[rows, n + 1, column_of[per_frequency[:, 1]]] = 1.0
     right = np.zeros((len(s), size, 2), dtype=complex)
     right[:, n, 0] = 1.0
     right[:, n + 1, 1] = 1.0
     solution = np.linalg.solve(matrices, right)
-    ports = solution[:, [port_in, n, port_out, n + 1], :]
+    ports = solution[:, column_of, :]
     return ports.astype(np.complex128, copy=False)
 
 
@@ -170,16 +181,31 @@ def _r0_relation(ports: NDArray[np.complex128], r0_ohm: float) -> NDArray[np.com
     return relation
 
 
-def _explicit_relation(ports: NDArray[np.complex128], imposed: tuple[int, int]) -> NDArray[np.complex128]:
+def _explicit_relation(ports: NDArray[np.complex128], imposed: tuple[int, int] | NDArray[np.int_]
+                       ) -> NDArray[np.complex128]:
     # Each of the two free variables as an explicit combination of the two imposed ones:
     # free_r − Σ_j W[r, j]·imposed_j = 0. Its coefficients are transfer functions of a regular
     # system, each accurate to its own size whatever the impedance level of the ports.
-    free = [index for index in range(4) if index not in imposed]
-    relation = np.zeros((ports.shape[0], 2, 4), dtype=complex)
-    for row, variable in enumerate(free):
-        relation[:, row, variable] = 1.0
-        for column, source in enumerate(imposed):
-            relation[:, row, source] = -ports[:, variable, column]
+    count = ports.shape[0]
+    if isinstance(imposed, tuple):  # the same pair at every frequency: plain slices
+        free_variables = [index for index in range(4) if index not in imposed]
+        uniform = np.zeros((count, 2, 4), dtype=complex)
+        for row, variable in enumerate(free_variables):
+            uniform[:, row, variable] = 1.0
+            for column, source in enumerate(imposed):
+                uniform[:, row, source] = -ports[:, variable, column]
+        return uniform
+    pairs = np.asarray(imposed, dtype=int)
+    taken = np.zeros((count, 4), dtype=bool)
+    rows = np.arange(count)
+    taken[rows, pairs[:, 0]] = True
+    taken[rows, pairs[:, 1]] = True
+    free = np.nonzero(~taken)[1].reshape(count, 2)
+    relation = np.zeros((count, 2, 4), dtype=complex)
+    for row in range(2):
+        relation[rows, row, free[:, row]] = 1.0
+        for column in range(2):
+            relation[rows, row, pairs[:, column]] = -ports[rows, free[:, row], column]
     return relation
 
 
@@ -308,6 +334,57 @@ def reduce_stage(system: StageSystem, f_hz: NDArray[np.float64], *, stage_id: st
         input_voltage_zero=bool(np.all(forced_zero(sample_relation, V_IN, sample_r0))),
         input_current_zero=bool(np.all(forced_zero(sample_relation, I_IN, sample_r0))),
     )
+
+
+def retermination(relation: PortRelation, impose_input_current: NDArray[np.bool_],
+                   impose_output_voltage: NDArray[np.bool_]) -> bool:
+    """Whether terminating by these masks differs from how ``relation`` was computed."""
+    if relation.imposed is None or relation.imposed[0] not in (V_IN, I_IN) or relation.imposed[1] not in (
+            V_OUT, I_OUT):
+        return False
+    return bool(np.any(impose_input_current != (relation.imposed[0] == I_IN))
+                or np.any(impose_output_voltage != (relation.imposed[1] == V_OUT)))
+
+
+def reduce_stage_terminated(system: StageSystem, base: PortRelation, impose_input_current: NDArray[np.bool_],
+                            impose_output_voltage: NDArray[np.bool_]) -> PortRelation | None:
+    """Re-reduce a stage imposing, frequency by frequency, the variables its neighbours suit.
+
+    At a port where the neighbour's impedance is higher than the stage's side, the neighbour
+    acts as a current source and the stage's relation is best solved for a given current;
+    where it is lower, for a given voltage. (Computing the small input current of a stage
+    whose input impedance is far above its series resistance, for a given voltage, cancels
+    digits; computing the voltage for a given current does not.)
+
+    Parameters
+    ----------
+    system : StageSystem
+        The stage's pencil.
+    base : PortRelation
+        The stage's relation from :func:`reduce_stage` (its frequencies and structural facts).
+    impose_input_current, impose_output_voltage : ndarray of bool, shape (F,)
+        Where to impose I_in (else V_in) and V_out (else I_out).
+
+    Returns
+    -------
+    PortRelation or None
+        ``None`` when these terminations are singular somewhere (keep ``base`` then).
+    """
+    pairs = np.stack([np.where(impose_input_current, I_IN, V_IN), np.where(impose_output_voltage, V_OUT, I_OUT)],
+                     axis=1)
+    s = np.asarray(1j * TWO_PI * base.f_hz, dtype=np.complex128)
+    try:
+        ports = _terminated_solve(system, s, None, base.r0_ohm, per_frequency=pairs)
+    except np.linalg.LinAlgError:
+        return None
+    if not np.all(np.isfinite(ports)):
+        return None
+    relation = _explicit_relation(ports, pairs)
+    scale = np.max(np.abs(relation), axis=2, keepdims=True)
+    relation = relation / np.where(scale > 0, scale, 1.0)
+    return PortRelation(f_hz=base.f_hz, p=relation, fingerprint=base.fingerprint, r0_ohm=base.r0_ohm,
+                        imposed=None, input_voltage_zero=base.input_voltage_zero,
+                        input_current_zero=base.input_current_zero, per_frequency=True)
 
 
 def forced_zero(relation: NDArray[np.complex128], column: int, r0_ohm: float | None = None,
