@@ -14,10 +14,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import make_window
 from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QMessageBox
 
+from conftest import make_window
 from stagewise.files.codec import dumps
 from stagewise.files.project_file import load_project
 from stagewise.ui.overlays import IN_CHAIN, ISOLATED
@@ -175,7 +175,7 @@ def test_waiver_needs_a_justification(window) -> None:  # type: ignore[no-untype
     assert window.document.project.audit[-1].what == "waiver"
     assert window.wait_until_idle(60, formula=False)
     row = [window.review_panel.checks.item(r, 0).text() for r in range(window.review_panel.checks.rowCount())].index("gain")
-    assert "waived by Ines Okafor: bench measurement" in window.review_panel.checks.item(row, 5).text()
+    assert "waived by Ines Okafor: bench measurement" in window.review_panel.checks.item(row, 4).text()
 
 
 def test_save_then_open_round_trip(window, tmp_path: Path, qtbot) -> None:  # type: ignore[no-untyped-def]

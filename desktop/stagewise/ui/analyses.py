@@ -148,12 +148,22 @@ def _usable(analysis: Any) -> Any:
     return analysis
 
 
-def _analysis_trace(analysis: Any) -> ResponseTrace:
-    """Magnitude and phase as the engine defines them (engine/metrics.py, phase anchored at DC)."""
-    from stagewise.engine.metrics import frequency_response
+def _mag_phase(model: Any, f_hz: NDArray[np.float64], values: NDArray[np.complex128], unit: str) -> ResponseTrace:
+    """Magnitude and phase exactly as the engine's metrics define them (engine/metrics.py: dB of
+    |H|, the exact angle on the branch of the pole/zero phase). Its helpers are called directly:
+    ``frequency_response`` would also compute the group delay, which no plot shows and which
+    costs as much again."""
+    from types import SimpleNamespace
 
-    response = frequency_response(analysis)
-    return ResponseTrace(response.f_hz, response.mag_db, response.phase_deg, analysis.unit)
+    from stagewise.engine import metrics
+
+    mag_db = metrics._db(values)  # noqa: SLF001
+    phase_deg = metrics._anchored_phase_deg(SimpleNamespace(model=model), f_hz, values)  # noqa: SLF001
+    return ResponseTrace(f_hz, mag_db, phase_deg, unit)
+
+
+def _analysis_trace(analysis: Any) -> ResponseTrace:
+    return _mag_phase(analysis.model, analysis.f_hz, analysis.response, analysis.unit)
 
 
 def isolated_response(stage: Stage, project: Project, context: Context) -> ResponseTrace:
@@ -299,26 +309,37 @@ STAGE_ANALYSES: list[tuple[str, int, Any]] = [
 
 
 # ----------------------------------------------------------------------------- chain analyses
-def _chain_analysis(project: Project, context: Context) -> Any:
-    from stagewise.engine.stage import analyze_system
+def _chain_model(project: Project, context: Context) -> Any:
+    """The pole/zero model of the whole chain (engine/poles.py on the merged pencil)."""
+    from stagewise.engine.poles import pole_zero_model
 
-    key = "analysis" if project is not context.baseline else "baseline_analysis"
+    key = "model" if project is not context.baseline else "baseline_model"
     if key not in context.chain_state:
-        merged = _merged(project, context)
-        unit = "Ω" if merged.current_drive else "V/V"
-        context.chain_state[key] = analyze_system(merged.driven(), context.f_hz, unit, "chain",
-                                                  merged.system.fingerprint)
-    return _usable(context.chain_state[key])
+        driven = _merged(project, context).driven()
+        try:
+            context.chain_state[key] = pole_zero_model(driven.g, driven.c, driven.b, driven.output)
+        except ValueError as error:
+            context.chain_state[key] = error
+    model = context.chain_state[key]
+    if isinstance(model, Exception):
+        raise NotAvailable(explain(model))
+    return model
 
 
 def chain_response(project: Project, context: Context) -> ResponseTrace:
-    """Drive → last output of the whole chain, with loading (the merged circuit)."""
-    return _analysis_trace(_chain_analysis(project, context))
+    """Drive → last output of the whole chain, with loading (the merged circuit, one batched solve
+    shared with the in-chain responses)."""
+    merged = _merged(project, context)
+    driven = merged.driven()
+    values = _chain_solution(project, context)[:, driven.output]
+    return _mag_phase(_chain_model(project, context), context.f_hz, values, "Ω" if merged.current_drive else "V/V")
 
 
 def chain_step(project: Project, context: Context) -> StepTrace:
-    """Unit-step response of the whole chain."""
-    return _step(_chain_analysis(project, context))
+    """Unit-step response of the whole chain (slow for chains with very slow poles: phase 2)."""
+    from types import SimpleNamespace
+
+    return _step(SimpleNamespace(model=_chain_model(project, context), why=None))
 
 
 @dataclass(frozen=True, slots=True)
@@ -360,8 +381,8 @@ def chain_spread(project: Project, context: Context) -> SpreadTrace:
 
 
 def chain_roots(project: Project, context: Context) -> RootSet:
-    analysis = _chain_analysis(project, context)
-    return RootSet(analysis.poles_rad_s, analysis.zeros_rad_s, analysis.cancelled)
+    model = _chain_model(project, context)
+    return RootSet(model.poles_rad_s, model.zeros_rad_s, model.cancelled)
 
 
 def baseline_chain(project: Project, context: Context) -> ResponseTrace:
@@ -378,7 +399,7 @@ def chain_noise(project: Project, context: Context) -> NoiseTrace:
 
     merged = _merged(project, context)
     result = analyze_noise(merged.system, project, current_drive=merged.current_drive)
-    top = tuple((source.name, source.out_density_v_rthz) for source in result.sources[:6])
+    top = tuple((source.name, source.out_density_v_rthz) for source in result.sources[:4])
     summary = (f"Output noise {format_value(result.out_rms_v, 'V')} rms over "
                f"{format_value(result.band_hz[0], 'Hz')}–{format_value(result.band_hz[1], 'Hz')}; "
                f"{format_value(result.out_density_v_rthz_at_ref, 'V/√Hz')} at "
@@ -396,17 +417,32 @@ def chain_noise(project: Project, context: Context) -> NoiseTrace:
 CHAIN_ANALYSES: list[tuple[str, int, Any]] = [
     ("response", 1, chain_response),
     ("poles", 1, chain_roots),
-    ("step", 1, chain_step),
     ("baseline_response", 1, baseline_chain),
+    ("step", 2, chain_step),
     ("noise", 2, chain_noise),
     ("spread", 2, chain_spread),
 ]
 
 
 # ----------------------------------------------------------------------------- formula
-def stage_formula(stage: Stage, project: Project, context: Context) -> Any:
-    """The symbolic transfer function of a stage (sympy, loaded here in the worker thread)."""
-    raise NotAvailable("the formula needs the symbolic engine (engine/symbolic.py), not in this build yet")
+@dataclass(frozen=True, slots=True)
+class FormulaText:
+    """The stage formula laid out for the formula view, and the plain transfer function."""
+
+    html: str
+    transfer: str
+    numeric: bool
+
+
+def stage_formula(stage: Stage, project: Project, context: Context) -> FormulaText:
+    """The symbolic transfer function of a stage (engine/symbolic.py; sympy loads in this thread)."""
+    from stagewise.engine.symbolic import symbolic_form
+    from stagewise.ui.formula_html import formula_html
+
+    form = symbolic_form(stage, project).as_dict()
+    if not form.get("denominator"):
+        raise NotAvailable(form.get("why") or "the stage has no transfer function")
+    return FormulaText(formula_html(form, stage.name), str(form.get("transfer") or ""), bool(form.get("numeric")))
 
 
 def finite(values: NDArray[np.float64]) -> NDArray[np.float64]:

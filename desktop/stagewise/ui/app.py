@@ -81,8 +81,10 @@ def run(project: Project, path: Path | None) -> int:
         def report() -> None:
             sys.stdout.write(f"first-paint {time.time():.6f}\n")
             sys.stdout.flush()
-            window.shutdown()
-            app.quit()
+            # Timing run: leave at once, without waiting for the analysis threads; release the
+            # lock first so that nothing is left behind.
+            window._release_lock()  # noqa: SLF001
+            os._exit(0)
 
         window.first_paint.painted.connect(lambda: QTimer.singleShot(0, report))
     if path is not None:
@@ -109,6 +111,8 @@ def screenshot(project: Project, path: Path | None, png: Path, width: int, heigh
     window.show()
     app.processEvents()
     finished = window.wait_until_idle(timeout_s)
+    window._default_sizes()  # noqa: SLF001 - the default arrangement at the final size
+    app.processEvents()
     # Put the cursor read-out somewhere meaningful: the reference frequency or the middle.
     reference = project.settings.ref_hz.si if project.settings.ref_hz is not None else (
         (project.settings.f_min_hz.si * project.settings.f_max_hz.si) ** 0.5)

@@ -51,9 +51,11 @@ class ChainTree(QTreeWidget):
         header = self.header()
         header.setStretchLastSection(False)
         header.setSectionResizeMode(COLUMN_NAME, QHeaderView.ResizeMode.Stretch)
-        for column in (COLUMN_ALONE, COLUMN_IN_CHAIN, COLUMN_STATE):
-            header.setSectionResizeMode(column, QHeaderView.ResizeMode.ResizeToContents)
         header.setMinimumSectionSize(24)
+        for column, width in ((COLUMN_ALONE, 44), (COLUMN_IN_CHAIN, 56), (COLUMN_STATE, 118)):
+            header.setSectionResizeMode(column, QHeaderView.ResizeMode.Interactive)
+            header.resizeSection(column, width)
+        self.setTextElideMode(Qt.TextElideMode.ElideRight)
         self.headerItem().setToolTip(COLUMN_ALONE, "Overlay the stage alone (ideal drive, unloaded)")
         self.headerItem().setToolTip(COLUMN_IN_CHAIN, "Overlay the stage where it sits in the chain")
         self.headerItem().setToolTip(COLUMN_STATE, "Sign-off state, and checks passing of all")

@@ -139,7 +139,16 @@ class MainWindow(QMainWindow):
         self._update_title()
         self._update_actions()
         self.statusBar().showMessage("Ready.", 3000)
-        self.worker.request()
+        # The first analysis starts once the window has painted (or shortly after, if it is not
+        # shown), so that start-up paints first and computes second.
+        self._first_request_done = False
+        self.first_paint.painted.connect(self._first_request)
+        QTimer.singleShot(250, self._first_request)
+
+    def _first_request(self) -> None:
+        if not self._first_request_done:
+            self._first_request_done = True
+            self.worker.request()
 
     # ----------------------------------------------------------------- construction
     def _dock(self, name: str, title: str, widget: QWidget) -> QDockWidget:
@@ -322,7 +331,8 @@ class MainWindow(QMainWindow):
         width, height = max(self.width(), 1280), max(self.height(), 800)
         self.resizeDocks([d["chain"], d["response"], d["review"]],
                          [int(width * 0.22), int(width * 0.52), int(width * 0.26)], Qt.Orientation.Horizontal)
-        self.resizeDocks([d["step"], d["poles"], d["noise"]], [1, 1, 1], Qt.Orientation.Horizontal)
+        third = int(width * 0.52 / 3)
+        self.resizeDocks([d["step"], d["poles"], d["noise"]], [third, third, third], Qt.Orientation.Horizontal)
         self.resizeDocks([d["chain"], d["parts"]], [int(height * 0.5), int(height * 0.4)], Qt.Orientation.Vertical)
         self.resizeDocks([d["response"], d["step"]], [int(height * 0.56), int(height * 0.34)], Qt.Orientation.Vertical)
         self.resizeDocks([d["review"], d["formula"]], [int(height * 0.58), int(height * 0.32)], Qt.Orientation.Vertical)
@@ -331,7 +341,8 @@ class MainWindow(QMainWindow):
         super().showEvent(event)
         if not self._layout_restored and not self._sized:
             self._sized = True
-            self._default_sizes()
+            # After the first layout pass, when the docks know the window's real size.
+            QTimer.singleShot(0, self._default_sizes)
 
     def _restore_layout(self) -> None:
         settings = app_settings()

@@ -475,8 +475,10 @@ class NoiseView(PlotView):
         self.plot.getAxis("left").enableAutoSIPrefix(False)
         self.plot.showGrid(x=True, y=True, alpha=0.25)
         self.plot.setLabel("bottom", "Frequency (Hz)")
-        self.plot.setLabel("left", "Output noise density (V/√Hz)")
-        self.legend = self.plot.addLegend(offset=(-10, 10), labelTextSize="9pt")
+        self.plot.setLabel("left", "Output noise (V/√Hz)")
+        # The legend sits below the plot: the sources are many and the plot is small.
+        self.legend = pg.LegendItem(labelTextSize="8pt", colCount=3, verSpacing=-6)
+        self.graphics.addItem(self.legend, row=1, col=0)
         self.traces = _TraceItems(self.plot, self.legend)
         self.summary = QLabel(self)
         self.summary.setTextFormat(Qt.TextFormat.PlainText)

@@ -26,7 +26,13 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from stagewise.review.words import ANSWER_WORDS, WHERE_WORDS, CheckState, SignoffState
+from stagewise.review.words import (
+    ANSWER_WORDS,
+    SIGNOFF_STATE_MEANINGS,
+    WHERE_WORDS,
+    CheckState,
+    SignoffState,
+)
 from stagewise.ui.document import Document, EditRefused
 from stagewise.ui.icons import icon
 from stagewise.ui.subscriptions import Subscriptions
@@ -42,13 +48,13 @@ STATE_COLOURS = {
     str(CheckState.OPEN): "#606060",
     str(CheckState.NOT_APPLICABLE): "#606060",
 }
-SIGNOFF_STYLE = {
-    SignoffState.APPROVED: ("#00704f", "Approved as it is now."),
-    SignoffState.CHANGES: ("#b54a00", "A reviewer asked for changes."),
-    SignoffState.STALE: ("#8a4b00", "STALE: the stage changed after it was signed. Sign again."),
-    SignoffState.NONE: ("#505050", "Not signed yet."),
+SIGNOFF_COLOURS = {
+    SignoffState.APPROVED: "#00704f",
+    SignoffState.CHANGES: "#b54a00",
+    SignoffState.STALE: "#8a4b00",
+    SignoffState.NONE: "#505050",
 }
-CHECK_COLUMNS = ("Check", "State", "Value", "Limits", "Where", "What and why")
+CHECK_COLUMNS = ("Check", "State", "Value", "Limits", "What and why")
 
 
 class ReviewPanel(QWidget):
@@ -89,7 +95,8 @@ class ReviewPanel(QWidget):
         self.checks.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
         self.checks.setSelectionBehavior(QAbstractItemView.SelectionBehavior.SelectRows)
         self.checks.setSelectionMode(QAbstractItemView.SelectionMode.SingleSelection)
-        self.checks.setWordWrap(True)
+        # One line per check: the full question, record and reason are in each row's tooltip.
+        self.checks.setWordWrap(False)
         header = self.checks.horizontalHeader()
         header.setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
         header.setStretchLastSection(True)
@@ -168,8 +175,9 @@ class ReviewPanel(QWidget):
             return
         self.title.setText(f"Review of {stage.name}")
         state = signoff_state(self.document.project, stage.id)
-        colour, sentence = SIGNOFF_STYLE[state.state]
-        self.state.setText(f"{str(state.state).capitalize()}. {sentence}")
+        colour = SIGNOFF_COLOURS[state.state]
+        meaning = SIGNOFF_STATE_MEANINGS[state.state]
+        self.state.setText(f"{str(state.state).capitalize()}: {meaning}.")
         self.state.setStyleSheet(f"color: {colour}; font-weight: bold;")
         self.state.setProperty("signoffState", str(state.state))
         for view in reversed(state.signoffs):
@@ -223,13 +231,13 @@ class ReviewPanel(QWidget):
                           f"{': ' + check.answer.note if check.answer.note else ''}")
             elif result is not None and result.why:
                 record = result.why
-            detail = check.text + (f"\n{record}" if record else "")
-            cells = [check.id, state, result.value_text() if result is not None else "",
-                     result.limits if result is not None else "", where, detail]
+            detail = check.text + (f" — {record}" if record else "")
+            limits = f"{result.limits} {where}" if result is not None and result.limits else where
+            cells = [check.id, state, result.value_text() if result is not None else "", limits, detail]
             for column, text in enumerate(cells):
                 item = QTableWidgetItem(text)
                 item.setData(Qt.ItemDataRole.UserRole, check.id)
-                item.setToolTip(detail if column in (0, 5) else text)
+                item.setToolTip(detail if column in (0, 4) else text)
                 if column == 1:
                     item.setForeground(QBrush(QColor(STATE_COLOURS.get(state, "#202020"))))
                     font = item.font()

@@ -130,14 +130,19 @@ class ComputeWorker(QObject):
     def __init__(self, document: Document, debounce_ms: int = 150, parent: QObject | None = None) -> None:
         super().__init__(parent)
         self._document = document
+        # Quick results and slow results run on separate threads, so that an edit made while the
+        # spread is still computing is shown at once; each thread has its own context (caches).
         self._pool = QThreadPool(self)
         self._pool.setMaxThreadCount(1)
+        self._slow_pool = QThreadPool(self)
+        self._slow_pool.setMaxThreadCount(1)
         self._formula_pool = QThreadPool(self)
         self._formula_pool.setMaxThreadCount(1)
         self._context = analyses.Context()
-        # The formula thread has its own context: the two pools run at the same time.
+        self._slow_context = analyses.Context()
         self._formula_context = analyses.Context()
         self._generation = 0
+        self._completed_generation = 0
         self._running = False
         self._pending = False
         self._busy = False
@@ -160,7 +165,9 @@ class ComputeWorker(QObject):
 
     @property
     def is_busy(self) -> bool:
-        return self._running or self._pending or self._timer.isActive()
+        """Computing or about to: quick results, or slow results of the newest edit."""
+        return (self._running or self._pending or self._timer.isActive()
+                or self._completed_generation < self._generation)
 
     def formula_busy(self) -> bool:
         return bool(self._formula_running)
@@ -198,16 +205,12 @@ class ComputeWorker(QObject):
         self._running = True
         self._since_start.start()
 
-        def work() -> list[Outcome]:
-            first = compute_outcome(project, baseline, generation, 1, context)
-            return [first]
+        def quick() -> Outcome:
+            return compute_outcome(project, baseline, generation, 1, context)
 
-        def work_phase_two(first: Outcome) -> Outcome:
-            return compute_outcome(project, baseline, generation, 2, context, previous=first)
+        self._submit(self._pool, quick, lambda first: self._quick_done(first, project, baseline))
 
-        self._submit(work, lambda result: self._phase_one_done(result[0], work_phase_two))
-
-    def _submit(self, work: Any, on_done: Any) -> None:
+    def _submit(self, pool: QThreadPool, work: Any, on_done: Any) -> None:
         signals = _JobSignals()
         job = _Job(work, signals)
         self._jobs.append(job)
@@ -218,30 +221,36 @@ class ComputeWorker(QObject):
             on_done(result)
 
         signals.done.connect(finished)
-        self._pool.start(job)
+        pool.start(job)
 
-    def _phase_one_done(self, first: Outcome, work_phase_two: Any) -> None:
-        if self._closed:
-            return
-        if first.generation == self._generation and not self._pending:
-            self._latest = first
-            self.outcomeReady.emit(first)
-        if self._pending:
-            self._running = False
-            self._start()
-            return
-        self._submit(lambda: work_phase_two(first), self._phase_two_done)
-
-    def _phase_two_done(self, outcome: Outcome) -> None:
+    def _quick_done(self, first: Outcome, project: Project, baseline: Project | None) -> None:
         if self._closed:
             return
         self._running = False
-        if outcome.generation == self._generation and not self._pending:
-            self._latest = outcome
-            self.outcomeReady.emit(outcome)
+        newest = first.generation == self._generation and not self._pending
+        if newest:
+            self._latest = first
+            self.outcomeReady.emit(first)
+            slow_context = self._slow_context
+
+            def slow() -> Outcome | None:
+                # A newer edit made this one obsolete while it waited: skip the work.
+                if first.generation != self._generation:
+                    return None
+                return compute_outcome(project, baseline, first.generation, 2, slow_context, previous=first)
+
+            self._submit(self._slow_pool, slow, self._slow_done)
         if self._pending:
             self._start()
-        elif not self._timer.isActive():
+
+    def _slow_done(self, outcome: Outcome | None) -> None:
+        if self._closed or outcome is None:
+            return
+        self._completed_generation = max(self._completed_generation, outcome.generation)
+        if outcome.generation == self._generation and not self._pending and not self._running:
+            self._latest = outcome
+            self.outcomeReady.emit(outcome)
+        if not self.is_busy:
             self._set_busy(False)
 
     # ----------------------------------------------------------------- formulas
@@ -280,6 +289,7 @@ class ComputeWorker(QObject):
         """Stop scheduling; wait for the running jobs so no thread outlives the window."""
         self._closed = True
         self._timer.stop()
-        self._pool.waitForDone(30000)
-        self._formula_pool.waitForDone(30000)
+        for pool in (self._pool, self._slow_pool, self._formula_pool):
+            pool.clear()
+            pool.waitForDone(60000)
         self._set_busy(False)
