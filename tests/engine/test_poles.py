@@ -242,3 +242,36 @@ def test_minimal_model_reproduces_the_sweep_of_a_deep_stage() -> None:
     assert len(analysis.model.poles_rad_s) == 30 and len(analysis.model.zeros_rad_s) == 0
     rebuilt = analysis.model.evaluate(1j * TWO_PI * f_hz)
     assert np.max(np.abs(rebuilt - analysis.response) / np.abs(analysis.response)) < 1e-6
+
+
+def test_minimal_model_matches_the_sweep_on_random_circuits() -> None:
+    # Cross-check inside the engine (REFERENCES): for random R, L, C networks with ideal and finite
+    # op-amps in random places, every solvable one's minimal model K·∏(s − z)/∏(s − p) must give the MNA
+    # sweep. Multiple roots and near-cancellations make 1e-4 the honest bound here (1e-9 holds for the
+    # well-conditioned stages of the closed-form tests).
+    rng = np.random.default_rng(3)
+    models = {"m": OpampModel(a0_db=q(90.0), gbw_hz=q(5e6), p2_hz=q(20e6), rout_ohm=q(40.0))}
+    f_hz = np.logspace(0, 7, 40)
+    nodes = ["in", "out", "a", "b", "c", "0"]
+    checked = 0
+    for _ in range(80):
+        parts: list[Part] = []
+        for number in range(int(rng.integers(4, 9))):
+            first, second = rng.choice(len(nodes), 2, replace=False)
+            kind = str(rng.choice(["R", "C", "L", "R", "C"]))
+            value = {"R": 10 ** rng.uniform(2, 5), "C": 10 ** rng.uniform(-10, -6), "L": 10 ** rng.uniform(-5, -2)}[kind]
+            parts.append(part(f"{kind}{number}", kind, [nodes[first], nodes[second]], float(value)))
+        for number in range(int(rng.integers(0, 3))):
+            plus, minus, out = (str(node) for node in rng.choice(nodes[:5], 3, replace=True))
+            parts.append(part(f"U{number}", "opamp", [plus, minus, out], model=str(rng.choice(["ideal", "m"]))))
+        parts.append(part("RZ", "R", ["out", "0"], 1e4))
+        stage = Stage("r", "random", parts=parts)
+        analysis = analyze_stage(stage, Project("p", opamp_models=models, stages=[stage]), f_hz)
+        if analysis.why is not None:
+            continue
+        assert analysis.model is not None and analysis.response is not None
+        rebuilt = analysis.model.evaluate(1j * TWO_PI * f_hz)
+        error = np.max(np.abs(rebuilt - analysis.response) / np.abs(analysis.response))
+        assert error < 1e-4, [(p.ref, p.nodes) for p in parts]
+        checked += 1
+    assert checked >= 30

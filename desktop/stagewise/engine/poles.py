@@ -60,10 +60,10 @@ __all__ = [
 TWO_PI = 2.0 * math.pi
 # Rank decisions on equilibrated matrices: a singular value below this fraction of the pencil's
 # norm is a structural zero (rounding of an exact zero is ~1e-16 of the norm).
-RANK_RTOL = 1e-11
+RANK_RTOL = 1e-9
 # A root of the equilibrated pencil below this magnitude (in units of the pencil's own frequency
 # scale) is a root at s = 0 blurred by rounding.
-ZERO_RTOL = 1e-12
+ZERO_RTOL = 1e-10
 # A computed root whose imaginary part is below this fraction of its magnitude is real: a double
 # real pole splits into a pair with imaginary part ~sqrt(eps)·|p| under rounding.
 REAL_RTOL = 1e-7
@@ -175,6 +175,18 @@ def _orthonormal_complement(matrix: NDArray[np.float64], reference: float) -> tu
 # -- finite eigenvalues ----------------------------------------------------------------------
 
 
+def _snap_origin(values: NDArray[np.complex128]) -> NDArray[np.complex128]:
+    """Make a simple root at s = 0 exact; ``values`` are in units of the pencil's scale.
+
+    A root at the origin (an integrator, a DC-blocking zero) comes out of QZ as rounding noise
+    of the pencil's size. Multiple roots at the origin spread wider (δ^(1/k)); those are settled
+    against the exact response by :func:`_settle_origin`.
+    """
+    values = np.asarray(values, dtype=complex).copy()
+    values[np.abs(values) <= ZERO_RTOL] = 0.0
+    return values
+
+
 def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64]) -> NDArray[np.complex128]:
     """The finite values of s where ``a + s·e`` is singular.
 
@@ -214,10 +226,7 @@ def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64]) -> NDArra
             import scipy.linalg  # lazily: 0.6 s of import, off the start-up path
 
             values = np.asarray(scipy.linalg.eigvals(a, -e), dtype=complex)
-            # A root at s = 0 (integrator, DC-blocking zero) comes out as rounding noise of
-            # the scaled pencil's size; make it exactly 0 so DC behaviour is decided exactly.
-            values[np.abs(values) < ZERO_RTOL] = 0.0
-            return np.asarray(values * scale, dtype=complex)
+            return np.asarray(_snap_origin(values) * scale, dtype=complex)
         if rank_e == 0:
             if _rank(np.asarray(np.linalg.svd(a, compute_uv=False), dtype=float), reference) < n:
                 raise SingularPencilError("the pencil is singular for every s")
@@ -352,8 +361,13 @@ def transfer_at(
 
 
 def _gain_point(roots: NDArray[np.complex128], scale: float) -> complex:
-    """A point on the jω axis well away from every root, near the roots' geometric centre."""
+    """A point on the jω axis well away from every root, near the roots' geometric centre.
+
+    Roots far below the pencil's scale are left out of the centre: where QZ leaves a multiple
+    root at the origin spread into a small ring, evaluating far above it keeps K exact.
+    """
     magnitudes = np.abs(roots[roots != 0])
+    magnitudes = magnitudes[magnitudes > 1e-3 * scale]
     centre = float(np.exp(np.mean(np.log(magnitudes)))) if len(magnitudes) else scale
     best = 1j * centre
     best_distance = -1.0
@@ -365,6 +379,49 @@ def _gain_point(roots: NDArray[np.complex128], scale: float) -> complex:
         if distance > best_distance:
             best, best_distance = candidate, distance
     return complex(best)
+
+
+def _settle_origin(
+    g: NDArray[np.float64],
+    c: NDArray[np.float64],
+    b: NDArray[np.float64],
+    output: int,
+    poles: NDArray[np.complex128],
+    zeros: NDArray[np.complex128],
+    scale: float,
+) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
+    """Decide from the exact response whether tiny roots are really at s = 0.
+
+    Far below every nonzero root, |H(jω)| ∝ ω^(Z0 − P0), Z0 and P0 the numbers of zeros and
+    poles at the origin. The slope measured over one decade there, two decades under the
+    smallest candidate, says how many of the candidates (roots within 1e-3 of the pencil's
+    scale, not already 0) belong at the origin; those are set to exactly 0, the smallest first
+    (a k-fold root at 0 comes out of QZ as a ring of k values of radius δ^(1/k)).
+    """
+    limit = 1e-3 * scale
+    pole_candidates = [i for i, r in enumerate(poles) if r != 0 and abs(r) <= limit]
+    zero_candidates = [i for i, r in enumerate(zeros) if r != 0 and abs(r) <= limit]
+    if not pole_candidates and not zero_candidates:
+        return poles, zeros
+    smallest = min(abs(r) for r in [*poles[pole_candidates], *zeros[zero_candidates]])
+    high = smallest * 1e-2
+    try:
+        values = transfer_at(g, c, b, output, np.array([1j * high, 1j * high / 10.0]))
+    except np.linalg.LinAlgError:
+        return poles, zeros
+    if not np.all(np.isfinite(values)) or np.any(values == 0):
+        return poles, zeros
+    measured = round(float(np.log10(abs(values[0]) / abs(values[1]))))
+    present = int(np.sum(zeros == 0)) - int(np.sum(poles == 0))
+    poles, zeros = poles.copy(), zeros.copy()
+    extra = measured - present
+    if extra > 0:
+        for index in sorted(zero_candidates, key=lambda i: abs(zeros[i]))[:extra]:
+            zeros[index] = 0.0
+    elif extra < 0:
+        for index in sorted(pole_candidates, key=lambda i: abs(poles[i]))[:-extra]:
+            poles[index] = 0.0
+    return poles, zeros
 
 
 def pole_zero_model(
@@ -414,11 +471,11 @@ def pole_zero_model(
     except SingularPencilError as error:
         raise SingularPencilError("the output does not respond to the input (the response is zero at every "
                                   "frequency)") from error
+    poles, zeros = _settle_origin(g, c, b, output, _tidy(poles), _tidy(zeros), scale)
     poles, zeros = _tidy(poles), _tidy(zeros)
-    everything = np.concatenate([poles, zeros])
-    nonzero = np.abs(everything[everything != 0])
-    typical = float(np.max(nonzero)) if len(nonzero) else scale
-    kept_poles, kept_zeros, cancelled = _cancel(poles, zeros, cancel_rtol, 1e-12 * typical)
+    # Roots at s = 0 are exact (snapped), so the absolute floor only needs to absorb rounding
+    # near the origin; tied to the pencil's own frequency scale, never to its largest root.
+    kept_poles, kept_zeros, cancelled = _cancel(poles, zeros, cancel_rtol, 1e-12 * scale)
     kept_poles, kept_zeros = _tidy(kept_poles), _tidy(kept_zeros)
     point = _gain_point(np.concatenate([poles, zeros]), scale)
     value = complex(transfer_at(g, c, b, output, point)[0])
