@@ -12,6 +12,7 @@ pixels, not points, so a painter scaled for another device resolution draws the 
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -47,9 +48,14 @@ SHADE = QColor("#eef0f2")
 
 def font(size_px: float, bold: bool = False, italic: bool = False, mono: bool = False) -> QFont:
     """The packet's font: a clean sans-serif (or monospace for hashes and formulas), sized in pixels."""
+    return QFont(_font(max(int(round(size_px)), 1), bold, italic, mono))
+
+
+@functools.lru_cache(maxsize=64)
+def _font(size_px: int, bold: bool, italic: bool, mono: bool) -> QFont:
     result = QFont()
     result.setFamilies(["DejaVu Sans Mono", "Liberation Mono", "monospace"] if mono else FONT_FAMILIES)
-    result.setPixelSize(max(int(round(size_px)), 1))
+    result.setPixelSize(size_px)
     result.setBold(bold)
     result.setItalic(italic)
     result.setKerning(True)

@@ -146,7 +146,7 @@ def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (),
     """
     widget = pg.GraphicsLayoutWidget()
     widget.setBackground(style.background)
-    magnitude = widget.addPlot(row=0, col=0, axisItems={"bottom": FrequencyAxis("bottom")})
+    magnitude = widget.addPlot(row=0, col=0, axisItems={"bottom": FrequencyAxis("bottom")}, enableMenu=False)
     _style_axes(magnitude, style)
     magnitude.setLogMode(x=True, y=False)
     _label(magnitude, "left", magnitude_label, style)
@@ -160,7 +160,7 @@ def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (),
     _add_limits(magnitude, [limit for limit in limits if limit[0] == "magnitude"], traces, "mag_db", style)
     magnitude.getAxis("left").setWidth(64)
     if show_phase:
-        phase = widget.addPlot(row=1, col=0, axisItems={"bottom": FrequencyAxis("bottom")})
+        phase = widget.addPlot(row=1, col=0, axisItems={"bottom": FrequencyAxis("bottom")}, enableMenu=False)
         _style_axes(phase, style)
         phase.setLogMode(x=True, y=False)
         phase.setXLink(magnitude)
@@ -244,7 +244,7 @@ def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex
     """Poles (×, blue) and zeros (○, vermillion) in the s-plane, axes in rad/s with SI prefixes."""
     widget = pg.GraphicsLayoutWidget()
     widget.setBackground(style.background)
-    plot = widget.addPlot()
+    plot = widget.addPlot(enableMenu=False)  # no context menu: nobody clicks on paper
     _style_axes(plot, style)
     for name in ("left", "bottom"):
         plot.getAxis(name).enableAutoSIPrefix(True)
@@ -274,7 +274,7 @@ def bars_plot(labels: Sequence[str], values: Sequence[float], unit_label: str,
     """Horizontal bars, largest first from the top (a noise budget's contributors)."""
     widget = pg.GraphicsLayoutWidget()
     widget.setBackground(style.background)
-    plot = widget.addPlot()
+    plot = widget.addPlot(enableMenu=False)  # no context menu: nobody clicks on paper
     _style_axes(plot, style)
     count = len(values)
     positions = np.arange(count)[::-1].astype(float)

@@ -231,7 +231,7 @@ def _stage_figures(entry: dict[str, Any] | None) -> tuple[str, ...]:
     lines = []
     gain = isolated.get("gain_db")
     if isinstance(gain, int | float):
-        lines.append(f"gain {gain:+.2f} dB")
+        lines.append(f"gain {round(gain, 2) + 0.0:+.2f} dB")  # + 0.0: no "-0.00"
     low, high = isolated.get("f_low_3db_hz"), isolated.get("f_high_3db_hz")
     if isinstance(low, int | float) or isinstance(high, int | float):
         low_text = format_value(low, "Hz", 3) if isinstance(low, int | float) else "DC"
