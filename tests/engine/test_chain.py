@@ -307,3 +307,32 @@ def test_a_stage_that_is_not_a_two_port_is_named() -> None:
     floating = Stage("bad", "Floating", parts=[r_part("R1", "in", "out", 1e3), c_part("C1", "x", "y", 1e-9)])
     with pytest.raises(CircuitError, match='stage "bad"'):
         analyze_chain(Project("bad", stages=[floating]), F_HZ)
+
+
+def test_whole_chain_poles_and_step_from_the_merged_circuit() -> None:
+    engine = ChainEngine()
+    project = rc_into_rc()
+    analysis = engine.whole_chain(project, F_HZ)
+    assert analysis.why is None and analysis.poles_rad_s is not None
+    denominator = [R1 * C1 * R2 * C2, R1 * C1 + R2 * C2 + R1 * C2, 1.0]
+    # Reference library: numpy 2, numpy.roots of the hand-derived denominator above.
+    expected = np.sort_complex(np.roots(denominator))
+    np.testing.assert_allclose(np.sort_complex(analysis.poles_rad_s), expected, rtol=1e-6)
+    assert analysis.zeros_rad_s is not None and len(analysis.zeros_rad_s) == 0
+    step = engine.step(project)
+    # Source: Ogata, Modern Control Engineering, ch. 5 (partial fractions): with real poles
+    # p1, p2 and unit DC gain, y(t) = 1 + (p2·e^(p1·t) − p1·e^(p2·t)) / (p1 − p2).
+    # Reference library: scipy 1, scipy.optimize.brentq for the 10 %, 90 % and 99 % crossings.
+    from scipy.optimize import brentq
+
+    p1, p2 = (float(root.real) for root in expected)
+
+    def crossing(level: float) -> float:
+        def y(t: float) -> float:
+            return 1 + (p2 * math.exp(p1 * t) - p1 * math.exp(p2 * t)) / (p1 - p2) - level
+        return float(brentq(y, 0.0, 100.0 / min(abs(p1), abs(p2)), xtol=1e-16, rtol=1e-13))
+
+    assert step.final == pytest.approx(1.0, rel=1e-9)
+    assert step.overshoot_pct == pytest.approx(0.0, abs=1e-6)
+    assert step.rise_s == pytest.approx(crossing(0.9) - crossing(0.1), rel=1e-6)
+    assert step.settle_1pct_s == pytest.approx(crossing(0.99), rel=1e-6)

@@ -25,6 +25,7 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import NDArray
@@ -35,6 +36,10 @@ from stagewise.engine.ports import PortRelation, reduce_stage, reduce_stage_term
 from stagewise.engine.sweep import DrivenSystem, drive, frequency_grid, transfer
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Stage
+
+if TYPE_CHECKING:
+    from stagewise.engine.stage import StageAnalysis
+    from stagewise.engine.timeresp import StepResponse
 
 __all__ = [
     "CURRENT_UNIT",
@@ -661,6 +666,7 @@ class ChainEngine:
         self._relations: ComputeCache[PortRelation] = ComputeCache(max_entries)
         self._refined: ComputeCache[PortRelation | None] = ComputeCache(max_entries)
         self._isolated: ComputeCache[IsolatedResponse] = ComputeCache(max_entries)
+        self._whole: ComputeCache[StageAnalysis] = ComputeCache(max_entries)
 
     @property
     def reductions(self) -> int:
@@ -688,6 +694,7 @@ class ChainEngine:
         self._relations.clear()
         self._refined.clear()
         self._isolated.clear()
+        self._whole.clear()
 
     def system(self, stage: Stage, project: Project) -> StageSystem:
         """The stage's assembled pencil, cached by fingerprint."""
@@ -760,6 +767,40 @@ class ChainEngine:
         r_ohm, c_f = load_admittance(project)
         return merge_systems([stage.id for stage in stages], [self.system(stage, project) for stage in stages],
                              current_drive=project.input.drive == "current", load_r_ohm=r_ohm, load_c_f=c_f)
+
+    def whole_chain(self, project: Project, f_hz: NDArray[np.float64] | list[float] | float | None = None
+                    ) -> StageAnalysis:
+        """The merged chain, drive → last output, analysed by the stage engine.
+
+        The poles and zeros (from the merged pencil), gain constant and sweep of the whole
+        chain, by :func:`stagewise.engine.stage.analyze_system` on :meth:`MergedChain.driven`;
+        cached by the merged circuit's fingerprint and the grid. ``why`` says why when the chain
+        cannot be analysed (the stage engine never raises for that).
+        """
+        from stagewise.engine.stage import analyze_system  # noqa: PLC0415 - scipy only when asked
+
+        grid = _frequencies(project, f_hz)
+        merged = self.merged(project)
+        unit = CURRENT_UNIT if merged.current_drive else VOLTAGE_UNIT
+        return self._whole.get_or_compute(
+            (merged.system.fingerprint, grid_key(grid)),
+            lambda: analyze_system(merged.driven(), grid, unit, "chain", merged.system.fingerprint),
+        )
+
+    def step(self, project: Project) -> StepResponse:
+        """The whole chain's step response and its metrics, from :meth:`whole_chain`'s minimal model.
+
+        Raises
+        ------
+        CircuitError
+            When the chain has no pole/zero model (the message says why).
+        """
+        from stagewise.engine.timeresp import step_response  # noqa: PLC0415 - scipy only when asked
+
+        analysis = self.whole_chain(project)
+        if analysis.model is None:
+            raise CircuitError(f"the chain has no pole/zero model: {analysis.why}")
+        return step_response(analysis.model)
 
     def analyze(self, project: Project, f_hz: NDArray[np.float64] | list[float] | float | None = None
                 ) -> ChainResult:
