@@ -290,14 +290,16 @@ def _woodbury_output(
     h = np.einsum("n,fnp->fp", out_vector, z)
     kernel = np.einsum("nq,fnp->fqp", right, z)  # Rᵀ·M0⁻¹·L, (F, Q, Q)
     w = x0 @ right  # Rᵀ·M0⁻¹·rhs, (F, Q)
-    per_part = np.where(model.capacitive[None, :], s[:, None], 1.0) * model.coefficients[None, :]  # (F, P)
-    scale = multipliers ** model.powers[None, :] - 1.0  # (S, P)
+    # d_q(sample, s) = a_q + s·b_q: the G-parts and the C-parts of each term, per sample.
+    weighted = (multipliers ** model.powers[None, :] - 1.0) * model.coefficients[None, :]  # (S, P)
+    constant = (weighted * ~model.capacitive[None, :]) @ groups  # (S, Q)
+    slope = (weighted * model.capacitive[None, :]) @ groups  # (S, Q)
     count = multipliers.shape[0]
     out = np.empty((count, f_hz.size), dtype=complex)
     chunk = max(1, int(CHUNK_BYTES // (f_hz.size * parts * parts * 16)))
     for start in range(0, count, chunk):  # chunks of many samples, bounded memory
         stop = min(start + chunk, count)
-        d = (scale[start:stop, None, :] * per_part[None, :, :]) @ groups  # (S, F, Q)
+        d = constant[start:stop, None, :] + s[None, :, None] * slope[start:stop, None, :]  # (S, F, Q)
         system = d[..., :, None] * kernel[None, :, :, :]
         np.einsum("...ii->...i", system)[...] += 1.0  # I + D·K, in place on the diagonal
         try:
