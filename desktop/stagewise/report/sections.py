@@ -116,6 +116,20 @@ def _value_or_why(document: dict[str, Any] | None, key: str, unit: str) -> str:
     return _text(value, unit)
 
 
+def _label(text: str) -> Paragraph:
+    """A bold line that introduces the block after it, kept on the same page as that block."""
+    label = Paragraph(text, 11.5, bold=True, space_after=2.0)
+    label.keep_with_next = True
+    return label
+
+
+def _intro(text: str) -> Paragraph:
+    """A sentence that introduces a table, kept on the same page as the table."""
+    intro = Paragraph(text, 11.0, space_after=3.0)
+    intro.keep_with_next = True
+    return intro
+
+
 def _unavailable(text: str) -> Paragraph:
     return Paragraph(text, 11.5, italic=True, color=QColor(MUTED))
 
@@ -560,8 +574,7 @@ def _symbolic_blocks(stage: Stage, content: PacketContent) -> list[Block]:
         numerator = list(form.get("numerator") or [])
         denominator = list(form.get("denominator") or [])
         order = max(len(numerator), len(denominator))
-        blocks.append(Paragraph(
-            "H(s) = N(s) / D(s), with D monic; coefficients of s to each power, highest first:", 11.0))
+        blocks.append(_intro("H(s) = N(s) / D(s), with D monic; coefficients of s to each power, highest first:"))
         rows = []
         for index in range(order):
             power_n = len(numerator) - 1 - index
@@ -584,8 +597,7 @@ def _symbolic_blocks(stage: Stage, content: PacketContent) -> list[Block]:
                          _parameter(section.get("gain"), section.get("gain_value")),
                          _parameter(section.get("f0_hz"), section.get("f0_hz_value"), "Hz"),
                          _parameter(section.get("q"), section.get("q_value"))])
-        blocks.append(Paragraph("Standard-form sections (K, f0 = ω0/2π, Q) in the parts and their values:", 11.0,
-                                space_after=3.0))
+        blocks.append(_intro("Standard-form sections (K, f0 = ω0/2π, Q) in the parts and their values:"))
         blocks.append(Table([Column("order", "right", wrap=False), Column("kind", wrap=False), Column("K", mono=True),
                              Column("f0", mono=True), Column("Q", mono=True)], rows, size_px=9.5))
     return blocks
@@ -610,9 +622,9 @@ def _poles_zeros(entry: dict[str, Any] | None, content: PacketContent) -> list[B
     poles = isolated.get("poles") or []
     zeros = isolated.get("zeros") or []
     columns = [Column("re (rad/s)", "right"), Column("im (rad/s)", "right"), Column("f", "right"), Column("Q", "right")]
-    blocks.append(Paragraph(f"Poles ({len(poles)})", 11.5, bold=True, space_after=2.0))
+    blocks.append(_label(f"Poles ({len(poles)})"))
     blocks.append(Table(columns, _roots_rows(poles)) if poles else Paragraph("none", 11.5))
-    blocks.append(Paragraph(f"Zeros ({len(zeros)})", 11.5, bold=True, space_after=2.0))
+    blocks.append(_label(f"Zeros ({len(zeros)})"))
     blocks.append(Table(columns, _roots_rows(zeros)) if zeros else Paragraph("none (no finite zeros)", 11.5))
     if poles or zeros:
         pole_values = [complex(p.get("re", 0.0), p.get("im", 0.0)) for p in poles]
