@@ -52,6 +52,7 @@ __all__ = [
     "PoleZeroModel",
     "SingularPencilError",
     "finite_eigenvalues",
+    "origin_multiplicity",
     "pole_zero_model",
     "root_table",
     "transfer_at",
@@ -60,10 +61,13 @@ __all__ = [
 TWO_PI = 2.0 * math.pi
 # Rank decisions on equilibrated matrices: a singular value below this fraction of the pencil's
 # norm is a structural zero (rounding of an exact zero is ~1e-16 of the norm).
-RANK_RTOL = 1e-9
+RANK_RTOL = 1e-11
 # A root of the equilibrated pencil below this magnitude (in units of the pencil's own frequency
 # scale) is a root at s = 0 blurred by rounding.
 ZERO_RTOL = 1e-10
+# Roots beyond this multiple of the pencil's own frequency scale are numerical debris (an
+# ill-conditioned rank decision sends an infinite eigenvalue there), never circuit dynamics.
+HORIZON = 1e10
 # A computed root whose imaginary part is below this fraction of its magnitude is real: a double
 # real pole splits into a pair with imaginary part ~sqrt(eps)·|p| under rounding.
 REAL_RTOL = 1e-7
@@ -89,6 +93,9 @@ class PoleZeroModel:
         Pairs removed because they coincide within ``cancel_rtol``.
     scale_rad_s : float
         The pencil's natural frequency scale (norm of G over norm of C), a good place to look.
+    beyond_horizon : tuple of complex
+        Roots (poles or zeros) found beyond ``HORIZON`` times the scale and left out: their
+        values are rounding debris of infinite eigenvalues, not dynamics of the circuit.
     """
 
     poles_rad_s: NDArray[np.complex128]
@@ -96,6 +103,7 @@ class PoleZeroModel:
     gain: float
     cancelled: tuple[tuple[complex, complex], ...] = ()
     scale_rad_s: float = 1.0
+    beyond_horizon: tuple[complex, ...] = ()
 
     def evaluate(self, s: NDArray[np.complex128] | complex) -> NDArray[np.complex128]:
         """H(s) from the roots (s in rad/s)."""
@@ -179,15 +187,15 @@ def _snap_origin(values: NDArray[np.complex128]) -> NDArray[np.complex128]:
     """Make a simple root at s = 0 exact; ``values`` are in units of the pencil's scale.
 
     A root at the origin (an integrator, a DC-blocking zero) comes out of QZ as rounding noise
-    of the pencil's size. Multiple roots at the origin spread wider (δ^(1/k)); those are settled
-    against the exact response by :func:`_settle_origin`.
+    of the pencil's size. Multiple roots at the origin spread wider (δ^(1/k)); their number is
+    found from the structure by :func:`origin_multiplicity`.
     """
     values = np.asarray(values, dtype=complex).copy()
     values[np.abs(values) <= ZERO_RTOL] = 0.0
     return values
 
 
-def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64]) -> NDArray[np.complex128]:
+def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64], snap: bool = True) -> NDArray[np.complex128]:
     """The finite values of s where ``a + s·e`` is singular.
 
     The infinite eigenvalues are deflated exactly before QZ: with ``e = U·diag(Σ, 0)·Vᵀ`` the
@@ -199,6 +207,9 @@ def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64]) -> NDArra
     ----------
     a, e : ndarray, shape (n, n)
         Real matrices of the pencil ``a + s·e``.
+
+    snap : bool
+        Make roots within rounding of s = 0 exactly 0 (simple roots only).
 
     Returns
     -------
@@ -226,7 +237,7 @@ def finite_eigenvalues(a: NDArray[np.float64], e: NDArray[np.float64]) -> NDArra
             import scipy.linalg  # lazily: 0.6 s of import, off the start-up path
 
             values = np.asarray(scipy.linalg.eigvals(a, -e), dtype=complex)
-            return np.asarray(_snap_origin(values) * scale, dtype=complex)
+            return np.asarray((_snap_origin(values) if snap else values) * scale, dtype=complex)
         if rank_e == 0:
             if _rank(np.asarray(np.linalg.svd(a, compute_uv=False), dtype=float), reference) < n:
                 raise SingularPencilError("the pencil is singular for every s")
@@ -381,47 +392,31 @@ def _gain_point(roots: NDArray[np.complex128], scale: float) -> complex:
     return complex(best)
 
 
-def _settle_origin(
-    g: NDArray[np.float64],
-    c: NDArray[np.float64],
-    b: NDArray[np.float64],
-    output: int,
-    poles: NDArray[np.complex128],
-    zeros: NDArray[np.complex128],
-    scale: float,
-) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
-    """Decide from the exact response whether tiny roots are really at s = 0.
+def origin_multiplicity(a: NDArray[np.float64], e: NDArray[np.float64]) -> int:
+    """How many roots of det(a + s·e) sit exactly at s = 0, from the pencil's structure.
 
-    Far below every nonzero root, |H(jω)| ∝ ω^(Z0 − P0), Z0 and P0 the numbers of zeros and
-    poles at the origin. The slope measured over one decade there, two decades under the
-    smallest candidate, says how many of the candidates (roots within 1e-3 of the pencil's
-    scale, not already 0) belong at the origin; those are set to exactly 0, the smallest first
-    (a k-fold root at 0 comes out of QZ as a ring of k values of radius δ^(1/k)).
+    With μ = 1/s, det(a + s·e) = s^n·det(e + μ·a): a root of multiplicity m at s = 0 is an
+    infinite eigenvalue of the reversed pencil, whose finite eigenvalues therefore number
+    n − m. The count comes from the same exact deflation, so it does not depend on how far
+    rounding spreads a multiple root (a k-fold root leaves QZ as a ring of radius δ^(1/k)).
     """
-    limit = 1e-3 * scale
-    pole_candidates = [i for i, r in enumerate(poles) if r != 0 and abs(r) <= limit]
-    zero_candidates = [i for i, r in enumerate(zeros) if r != 0 and abs(r) <= limit]
-    if not pole_candidates and not zero_candidates:
-        return poles, zeros
-    smallest = min(abs(r) for r in [*poles[pole_candidates], *zeros[zero_candidates]])
-    high = smallest * 1e-2
+    n = int(a.shape[0])
     try:
-        values = transfer_at(g, c, b, output, np.array([1j * high, 1j * high / 10.0]))
-    except np.linalg.LinAlgError:
-        return poles, zeros
-    if not np.all(np.isfinite(values)) or np.any(values == 0):
-        return poles, zeros
-    measured = round(float(np.log10(abs(values[0]) / abs(values[1]))))
-    present = int(np.sum(zeros == 0)) - int(np.sum(poles == 0))
-    poles, zeros = poles.copy(), zeros.copy()
-    extra = measured - present
-    if extra > 0:
-        for index in sorted(zero_candidates, key=lambda i: abs(zeros[i]))[:extra]:
-            zeros[index] = 0.0
-    elif extra < 0:
-        for index in sorted(pole_candidates, key=lambda i: abs(poles[i]))[:-extra]:
-            poles[index] = 0.0
-    return poles, zeros
+        return n - len(finite_eigenvalues(e, a, snap=False))
+    except SingularPencilError:
+        return 0
+
+
+def _settle_origin(
+    roots: NDArray[np.complex128], count: int
+) -> NDArray[np.complex128]:
+    """Set the ``count`` roots nearest to s = 0 to exactly 0 (the rest are kept)."""
+    roots = np.asarray(roots, dtype=complex).copy()
+    if count <= 0:
+        return roots
+    order = np.argsort(np.abs(roots), kind="stable")
+    roots[order[:count]] = 0.0
+    return roots
 
 
 def pole_zero_model(
@@ -471,8 +466,11 @@ def pole_zero_model(
     except SingularPencilError as error:
         raise SingularPencilError("the output does not respond to the input (the response is zero at every "
                                   "frequency)") from error
-    poles, zeros = _settle_origin(g, c, b, output, _tidy(poles), _tidy(zeros), scale)
-    poles, zeros = _tidy(poles), _tidy(zeros)
+    poles = _settle_origin(poles, origin_multiplicity(g, c))
+    zeros = _settle_origin(zeros, origin_multiplicity(system_a, system_e))
+    horizon = HORIZON * scale
+    far = tuple(complex(r) for r in np.concatenate([poles[np.abs(poles) > horizon], zeros[np.abs(zeros) > horizon]]))
+    poles, zeros = _tidy(poles[np.abs(poles) <= horizon]), _tidy(zeros[np.abs(zeros) <= horizon])
     # Roots at s = 0 are exact (snapped), so the absolute floor only needs to absorb rounding
     # near the origin; tied to the pencil's own frequency scale, never to its largest root.
     kept_poles, kept_zeros, cancelled = _cancel(poles, zeros, cancel_rtol, 1e-12 * scale)
@@ -491,4 +489,5 @@ def pole_zero_model(
         gain=float(gain_complex.real),
         cancelled=tuple(cancelled),
         scale_rad_s=scale,
+        beyond_horizon=far,
     )
