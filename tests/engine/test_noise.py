@@ -142,3 +142,11 @@ def test_snr_against_full_scale_and_ideal_converter() -> None:
     # Common practice, no source: a full-scale sine of Vpp has rms Vpp/(2√2).
     value, why = snr_db(1e-4, project.converter)
     assert why is None and value == pytest.approx(20 * math.log10((4 / (2 * math.sqrt(2))) / 1e-4))
+
+
+def test_a_temperature_below_absolute_zero_is_refused() -> None:
+    project = make_project([{"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": "1k"}],
+                           settings={"temperature_c": -300})
+    # Source: SI Brochure, 9th ed.: 0 K = −273.15 °C; no temperature lies below it.
+    with pytest.raises(ValueError, match="absolute zero"):
+        noise_of(project)

@@ -242,6 +242,13 @@ def analyze_noise(
     -------
     NoiseResult
         Densities in V/√Hz, RMS in V over the band.
+
+    Raises
+    ------
+    ValueError
+        A temperature at or below absolute zero.
+    CircuitError
+        A circuit whose matrix is singular.
     """
     settings = project.settings
     if settings.noise_band_hz is not None:
@@ -251,6 +258,8 @@ def analyze_noise(
         band = (float(settings.f_min_hz.si), float(settings.f_max_hz.si))
         from_settings = False
     temperature_k = float(settings.temperature_c.si) + ZERO_CELSIUS_K
+    if not temperature_k > 0:
+        raise ValueError(f"settings.temperature_c: {settings.temperature_c.si:g} °C is at or below absolute zero")
     f_grid = _band_grid(band[0], band[1], points_per_decade)
     driven: DrivenSystem = drive(system, current_drive)
     size = driven.g.shape[0]
