@@ -41,9 +41,20 @@ class Curve:
 
 
 @dataclass
+class Step:
+    """A unit-step response over time, or the reason there is none."""
+
+    t_s: NDArray[np.float64] | None = None
+    y: NDArray[np.float64] | None = None
+    why: str | None = None
+
+
+@dataclass
 class StageCurves:
     isolated: Curve = field(default_factory=Curve)
     in_chain: Curve = field(default_factory=Curve)
+    step_isolated: Step = field(default_factory=lambda: Step(why=f"the step response is {NOT_IN_BUILD}"))
+    step_in_chain: Step = field(default_factory=lambda: Step(why=f"the step response is {NOT_IN_BUILD}"))
 
 
 @dataclass
@@ -125,6 +136,31 @@ def _curves_from_analysis(analysis: Any, project: Project) -> tuple[Curve, dict[
     return Curve(f_hz, np.asarray(result.response)), stages
 
 
+def _step(stage_analysis: Any) -> Step:
+    """The step response of a stage analysis's minimal pole/zero model (engine/timeresp.py)."""
+    respond = _optional("stagewise.engine.timeresp", "step_response")
+    if respond is None:
+        return Step(why=f"the step response is {NOT_IN_BUILD}")
+    model = getattr(stage_analysis, "model", None)
+    if model is None:
+        return Step(why=getattr(stage_analysis, "why", None) or "no pole/zero model")
+    try:
+        result = respond(model)
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError) as error:
+        return Step(why=f"the step response failed: {error}")
+    return Step(np.asarray(result.t_s, dtype=float), np.asarray(result.y, dtype=float))
+
+
+def _steps(analysis: Any, stage: Stage) -> tuple[Step, Step]:
+    isolated = _step(analysis.isolated(stage.id))
+    if stage.bypass:
+        return isolated, Step(why="the stage is bypassed: it is not in the chain")
+    in_chain = analysis.in_chain(stage.id)
+    if getattr(in_chain, "model", None) is None:
+        return isolated, Step(why=getattr(in_chain, "why", None) or "no response in chain")
+    return isolated, _step(in_chain)
+
+
 def _isolated_curve(stage: Stage, project: Project, f_hz: NDArray[np.float64]) -> Curve:
     try:
         system = assemble(stage, project)
@@ -199,5 +235,7 @@ def gather(project: Project, path_or_sha: str | os.PathLike[str],
             return None
         if stage_curves[stage.id].isolated.response is None and stage_curves[stage.id].isolated.why == "not computed":
             stage_curves[stage.id].isolated = _isolated_curve(stage, project, f_hz)
+        if analysis is not None:
+            stage_curves[stage.id].step_isolated, stage_curves[stage.id].step_in_chain = _steps(analysis, stage)
         symbolic[stage.id] = _symbolic(stage, project) if not stage.is_block else {}
     return PacketContent(project, sha, name, analysis and document, why, chain, stage_curves, symbolic, analysis)

@@ -40,6 +40,7 @@ __all__ = [
     "pole_zero_plot",
     "render_plot",
     "response_plot",
+    "step_plot",
     "trace_from_complex",
 ]
 
@@ -266,6 +267,24 @@ def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex
                                         useCache=False, name="zeros"))
     plot.setXRange(-extent, max(extent * 0.25, max([v.real for v in values] + [0.0]) * 1.15), padding=0)
     plot.setYRange(-extent, extent, padding=0)
+    return widget
+
+
+def step_plot(traces: Sequence[tuple[str, NDArray[np.float64], NDArray[np.float64]]], y_label: str,
+              style: PlotStyle = PRINT) -> pg.GraphicsLayoutWidget:
+    """Unit-step responses ``(label, t_s, y)`` on a linear time axis in seconds (SI prefixes)."""
+    widget = pg.GraphicsLayoutWidget()
+    widget.setBackground(style.background)
+    plot = widget.addPlot(enableMenu=False)  # no context menu: nobody clicks on paper
+    _style_axes(plot, style)
+    plot.getAxis("bottom").enableAutoSIPrefix(True)
+    plot.getAxis("bottom").setLabel("time", units="s", **{"font-size": f"{style.label_px}px",
+                                                         "color": style.foreground})
+    _label(plot, "left", y_label, style)
+    plot.getAxis("left").setWidth(64)
+    for index, (_, t_s, y) in enumerate(traces):
+        finite = np.isfinite(y)
+        plot.plot(t_s[finite], y[finite], pen=_pen(index, style))
     return widget
 
 

@@ -43,6 +43,7 @@ from stagewise.report.plots import (
     pole_zero_plot,
     render_plot,
     response_plot,
+    step_plot,
     trace_from_complex,
 )
 from stagewise.review.audit import EVENT_LABELS, verify_trail
@@ -668,6 +669,22 @@ def _response_blocks(stage: Stage, content: PacketContent) -> list[Block]:
                                    "phase at a frequency."))
     for line in missing:
         blocks.append(_unavailable(line[0].upper() + line[1:] + "."))
+    blocks.extend(_step_blocks(stage, content))
+    return blocks
+
+
+def _step_blocks(stage: Stage, content: PacketContent) -> list[Block]:
+    curves = content.stages[stage.id]
+    pairs = (("isolated", curves.step_isolated), ("in chain", curves.step_in_chain))
+    traces = [(label, step.t_s, step.y) for label, step in pairs if step.t_s is not None and step.y is not None]
+    missing = [f"Step response {label}: {step.why}." for label, step in pairs if step.y is None]
+    blocks: list[Block] = [Heading("Step response: isolated and in chain", 3)]
+    if traces:
+        unit = "V per A" if stage.drive == "current" else "V"
+        blocks.append(_plot_figure(lambda: step_plot(traces, f"output ({unit}) for a unit step"), 210.0,
+                                   f"Traces: {legend_text([label for label, _, _ in traces])}. Response of the "
+                                   "minimal pole/zero model to a unit step at the input."))
+    blocks.extend(_unavailable(line) for line in missing)
     return blocks
 
 
