@@ -221,3 +221,20 @@ def test_printing_is_recorded_with_the_packets_own_sha256(printed: dict[str, Any
     assert last.detail["file_sha256"] == printed["sha_before"]
     assert verify_trail(project.audit).intact
     assert len(project.audit) == len(printed["project"].audit) + 1
+
+
+def test_chain_figures_match_analyze_json(printed: dict[str, Any], capsys: pytest.CaptureFixture[str]) -> None:
+    # The packet takes every number from the `analyze --json` document (DESIGN 6 and 8).
+    from stagewise.model.values import format_value
+
+    main(["analyze", str(printed["path"]), "--json"])
+    chain = json.loads(capsys.readouterr().out)["chain"]
+    text = printed["text"]
+    assert _normal(f"Gain {chain['gain_db']:.4g} dB") in text
+    assert _normal(f"Upper −3 dB corner {format_value(chain['f_high_3db_hz'], 'Hz')}") in text
+    noise = chain["noise"]
+    assert _normal(f"Output noise (RMS) {format_value(noise['out_rms_v'], 'V')}") in text
+    converter = chain["converter"]
+    assert _normal(f"SNR, chain noise against full-scale sine {converter['snr_db']:.4g} dB") in text
+    if chain["spread"]["yield_pct"] is not None:
+        assert _normal(f"Yield against the checks {chain['spread']['yield_pct']:.4g} %") in text

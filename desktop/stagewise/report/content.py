@@ -103,12 +103,14 @@ def _optional(module: str, name: str) -> Callable[..., Any] | None:
     return found if callable(found) else None
 
 
-def _analysis(project: Project, path: str | None, sha: str) -> tuple[Any, dict[str, Any] | None, str | None]:
+def _analysis(project: Project, path: str | None, sha: str,
+              analysis: Any = None) -> tuple[Any, dict[str, Any] | None, str | None]:
     """``(analysis object, analyze --json document, why)`` from engine/analysis.py when present."""
-    analysis_class = _optional("stagewise.engine.analysis", "ProjectAnalysis")
-    if analysis_class is None:
-        return None, None, f"the analysis engine is {NOT_IN_BUILD}"
-    analysis = analysis_class(project)
+    if analysis is None:
+        analysis_class = _optional("stagewise.engine.analysis", "ProjectAnalysis")
+        if analysis_class is None:
+            return None, None, f"the analysis engine is {NOT_IN_BUILD}"
+        analysis = analysis_class(project)
     try:
         return analysis, dict(analysis.document(path, sha)), None
     except (ValueError, ArithmeticError, np.linalg.LinAlgError) as error:
@@ -209,8 +211,12 @@ def _symbolic(stage: Stage, project: Project) -> dict[str, Any]:
 
 
 def gather(project: Project, path_or_sha: str | os.PathLike[str],
-           step: Callable[[str], bool] | None = None) -> PacketContent | None:
-    """Compute what the packet shows; ``None`` when ``step`` (called before each piece) says stop."""
+           step: Callable[[str], bool] | None = None, analysis: Any = None) -> PacketContent | None:
+    """Compute what the packet shows; ``None`` when ``step`` (called before each piece) says stop.
+
+    ``analysis`` may be an ``engine.analysis.ProjectAnalysis`` of this very project that the
+    caller already holds (the GUI's), so nothing is computed twice.
+    """
 
     def go_on(label: str) -> bool:
         return step is None or step(label)
@@ -218,7 +224,7 @@ def gather(project: Project, path_or_sha: str | os.PathLike[str],
     sha, name, path = resolve_source(path_or_sha)
     if not go_on("analysing the project"):
         return None
-    analysis, document, why = _analysis(project, path, sha)
+    analysis, document, why = _analysis(project, path, sha, analysis)
     f_hz = frequency_grid(project.settings)
     if not go_on("computing the chain response"):
         return None

@@ -27,7 +27,7 @@ from PySide6.QtGui import QPagedPaintDevice, QPageLayout, QPageSize, QPainter, Q
 from stagewise import __version__
 from stagewise.model.project import Project
 from stagewise.report.content import PacketContent, gather
-from stagewise.report.layout import LOGICAL_DPI, PageFrame, paginate, paint_pages
+from stagewise.report.layout import LOGICAL_DPI, Page, PageFrame, paginate, paint_pages
 from stagewise.report.sections import build_blocks
 from stagewise.review.checks import CheckResult, MetricProvider, UnavailableProvider, evaluate_project
 
@@ -94,10 +94,10 @@ class _Steps:
         return bool(self.progress(self.done, self.total, f"page {number} of {pages}"))
 
 
-def _prepare(project: Project, path_or_sha: str | os.PathLike[str], steps: _Steps,
-             printed_utc: str | None) -> tuple[PacketContent, list[CheckResult], PageFrame, list]:  # type: ignore[type-arg]
+def _prepare(project: Project, path_or_sha: str | os.PathLike[str], steps: _Steps, printed_utc: str | None,
+             analysis: object = None) -> tuple[PacketContent, list[CheckResult], PageFrame, list[Page]]:
     ensure_application()
-    content = gather(project, path_or_sha, steps.step)
+    content = gather(project, path_or_sha, steps.step, analysis)
     if content is None or not steps.step("evaluating the checks"):
         raise PacketCancelled
     results = evaluate_project(project, _metric_provider(content))
@@ -120,7 +120,7 @@ def _setup_device(device: QPagedPaintDevice) -> None:
     device.setPageMargins(QMarginsF(0, 0, 0, 0), QPageLayout.Unit.Millimeter)
 
 
-def _paint(device: QPagedPaintDevice, frame: PageFrame, pages: list, steps: _Steps) -> bool:  # type: ignore[type-arg]
+def _paint(device: QPagedPaintDevice, frame: PageFrame, pages: list[Page], steps: _Steps) -> bool:
     painter = QPainter()
     if not painter.begin(device):
         raise OSError("the packet cannot be written: the output device did not open")
@@ -136,8 +136,7 @@ def _paint(device: QPagedPaintDevice, frame: PageFrame, pages: list, steps: _Ste
         painter.end()
 
 
-def _write_pdf(file_name: str, project: Project, frame: PageFrame, pages: list,  # type: ignore[type-arg]
-               steps: _Steps) -> bytes | None:
+def _write_pdf(file_name: str, project: Project, frame: PageFrame, pages: list[Page], steps: _Steps) -> bytes | None:
     """Paint the pages into ``file_name``; its bytes, or ``None`` when cancelled."""
     writer = QPdfWriter(file_name)
     writer.setResolution(LOGICAL_DPI)
@@ -155,7 +154,8 @@ def _write_pdf(file_name: str, project: Project, frame: PageFrame, pages: list, 
 
 
 def build_packet(project: Project, path_or_sha: str | os.PathLike[str], output: str | os.PathLike[str],
-                 progress: Progress | None = None, printed_utc: str | None = None) -> PacketResult:
+                 progress: Progress | None = None, printed_utc: str | None = None,
+                 analysis: object = None) -> PacketResult:
     """Write the review packet of ``project`` as a PDF.
 
     Parameters
@@ -172,6 +172,9 @@ def build_packet(project: Project, path_or_sha: str | os.PathLike[str], output: 
         ``progress(done, total, label) -> bool``; return False to cancel.
     printed_utc : str, optional
         The printing time shown on the cover (ISO 8601 UTC); now when omitted.
+    analysis : engine.analysis.ProjectAnalysis, optional
+        An analysis of this very project the caller already holds (the GUI's), reused as is;
+        a new one is computed when omitted.
 
     Returns
     -------
@@ -186,7 +189,7 @@ def build_packet(project: Project, path_or_sha: str | os.PathLike[str], output: 
         The output cannot be written.
     """
     steps = _Steps(project, progress)
-    content, _, frame, pages = _prepare(project, path_or_sha, steps, printed_utc)
+    content, _, frame, pages = _prepare(project, path_or_sha, steps, printed_utc, analysis)
     target = Path(output)
     folder = target.parent if str(target.parent) else Path(".")
     handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
@@ -203,7 +206,8 @@ def build_packet(project: Project, path_or_sha: str | os.PathLike[str], output: 
 
 
 def print_packet(project: Project, path_or_sha: str | os.PathLike[str], printer: object,
-                 progress: Progress | None = None, printed_utc: str | None = None) -> PacketResult:
+                 progress: Progress | None = None, printed_utc: str | None = None,
+                 analysis: object = None) -> PacketResult:
     """Send the same pages to a ``QPrinter`` (set up by the caller, e.g. with ``QPrintDialog``).
 
     The printer is asked for A4 portrait at 96 dpi; where a printer insists on another
@@ -215,7 +219,7 @@ def print_packet(project: Project, path_or_sha: str | os.PathLike[str], printer:
     if not isinstance(printer, QPrinter):
         raise TypeError("print_packet needs a QPrinter")
     steps = _Steps(project, progress)
-    content, _, frame, pages = _prepare(project, path_or_sha, steps, printed_utc)
+    content, _, frame, pages = _prepare(project, path_or_sha, steps, printed_utc, analysis)
     printer.setResolution(LOGICAL_DPI)
     printer.setFullPage(True)
     _setup_device(printer)

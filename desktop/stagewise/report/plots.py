@@ -88,7 +88,7 @@ def trace_from_complex(label: str, f_hz: NDArray[np.float64], response: NDArray[
     return ResponseTrace(label, np.asarray(f_hz, dtype=float), magnitude, phase)
 
 
-class FrequencyAxis(pg.AxisItem):
+class FrequencyAxis(pg.AxisItem):  # type: ignore[misc]  # pyqtgraph has no type hints
     """A log-frequency axis whose ticks read 10, 100, 1k, 10k (SI prefixes), not powers of ten."""
 
     def tickStrings(self, values: Sequence[float], scale: float, spacing: float) -> list[str]:  # noqa: N802
@@ -122,7 +122,7 @@ def _label(plot: pg.PlotItem, side: str, text: str, style: PlotStyle) -> None:
 
 def _pen(index: int, style: PlotStyle) -> QPen:
     chosen = trace_style(index, style.line_width)
-    pen = pg.mkPen(chosen.colour, width=chosen.width)
+    pen: QPen = pg.mkPen(chosen.colour, width=chosen.width)
     pen.setStyle(chosen.line)
     return pen
 
