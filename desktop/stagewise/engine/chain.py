@@ -32,7 +32,13 @@ from numpy.typing import NDArray
 
 from stagewise.engine.cache import ComputeCache, grid_key
 from stagewise.engine.mna import CircuitError, ElementStamp, OpampStates, StageSystem, assemble
-from stagewise.engine.ports import PortRelation, reduce_stage, reduce_stage_terminated, retermination
+from stagewise.engine.ports import (
+    PortRelation,
+    reduce_stage,
+    reduce_stage_terminated,
+    relation_minors,
+    retermination,
+)
 from stagewise.engine.sweep import DrivenSystem, drive, frequency_grid, transfer
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Stage
@@ -324,19 +330,15 @@ class CascadeSolution:
     z_in_ohm: NDArray[np.complex128]
 
 
-def _cross(u: tuple[NDArray[np.complex128], ...], v: tuple[NDArray[np.complex128], ...]) -> tuple[
-        NDArray[np.complex128], NDArray[np.complex128], NDArray[np.complex128]]:
-    # λ = u × v is the row combination that cancels the two eliminated unknowns, whose
-    # coefficients in three equations are u and v: λ·u = λ·v = 0 (bilinear, no conjugation).
-    return (u[1] * v[2] - u[2] * v[1], u[2] * v[0] - u[0] * v[2], u[0] * v[1] - u[1] * v[0])
+_RESCALE_EVERY = 3
 
 
 def _normalise(*terms: NDArray[np.complex128]) -> tuple[NDArray[np.complex128], ...]:
     # A relation keeps its meaning when scaled; scaling to unit size at each frequency keeps
     # ten stages of products from overflowing. The first two terms are the coefficients.
-    scale = np.maximum(np.abs(terms[0]), np.abs(terms[1]))
-    scale = np.where(scale > 0, scale, 1.0)
-    return tuple(term / scale for term in terms)
+    # (The tiny floor keeps an all-zero relation, a singular chain reported later, from 0/0.)
+    inverse = 1.0 / (np.maximum(np.abs(terms[0]), np.abs(terms[1])) + 1e-300)
+    return tuple(term * inverse for term in terms)
 
 
 def _impedance(numerator: NDArray[np.complex128], denominator: NDArray[np.complex128]) -> NDArray[np.complex128]:
@@ -353,6 +355,7 @@ def cascade(
     load_admittance_s: NDArray[np.complex128],
     f_hz: NDArray[np.float64],
     stage_ids: tuple[str, ...] = (),
+    minors: list[NDArray[np.complex128]] | None = None,
 ) -> CascadeSolution:
     """Solve the chain of port relations with the drive at the input and the load at the output.
 
@@ -360,9 +363,19 @@ def cascade(
     ``I_out(k) = −I_in(k+1)``, one drive row, one load row) is block-bidiagonal. It is solved
     by eliminating it from both ends at once, as the sweeps of a banded solver do: from the
     drive, every interface gets the relation ``α·V + β·J = γ`` of everything before it; from
-    the load, the relation ``a·V + b·J = 0`` of everything after it. Each interface then
-    solves its own 2 x 2 system, and the same relations give Z_out = β/α (drive zeroed) and
-    Z_in = −b/a. All frequencies at once; the loop runs over the stages only.
+    the load, the relation ``a·V + b·J = 0`` of everything after it (J is the current crossing
+    the interface towards the output). Each interface then solves its own 2 x 2 system, and
+    the same relations give Z_out = β/α (drive zeroed) and Z_in = −b/a.
+
+    Eliminating a stage's two port variables on one side from its two rows and the relation
+    reaching it leaves one relation on the other side; written with the stage's minors
+    m_xy = P[0,x]·P[1,y] − P[0,y]·P[1,x] (x, y among V_in = a, I_in = b, V_out = c,
+    I_out = d, with I_out = −J), the steps are 2 x 2 maps::
+
+        from the drive:  α' = m_bc·α − m_ac·β,   β' = m_ad·β − m_bd·α,   γ' = m_ab·γ
+        from the load:   a' = m_ad·a + m_ac·b,   b' = m_bd·a + m_bc·b
+
+    All frequencies at once; the loop runs over the stages only.
 
     Parameters
     ----------
@@ -376,6 +389,8 @@ def cascade(
         The frequencies, for error messages.
     stage_ids : tuple of str
         The stage ids, for error messages.
+    minors : list of ndarray, each shape (6, F), optional
+        The relations' minors (:func:`stagewise.engine.ports.relation_minors`), when known.
 
     Returns
     -------
@@ -392,6 +407,8 @@ def cascade(
     G. H. Golub and C. F. Van Loan, *Matrix Computations*, 4th ed., Johns Hopkins, 2013,
     sec. 4.3 (banded systems) and sec. 4.5.1 (block tridiagonal elimination).
     """
+    if minors is None:
+        minors = [relation_minors(relation) for relation in relations]
     frequencies = len(f_hz)
     interfaces = len(relations) + 1
     # Rows are interfaces, so that each step writes one contiguous row.
@@ -405,19 +422,23 @@ def cascade(
     # From the drive: α·V0 + β·J0 = γ (V0 = 1, or J0 = 1 for a current drive).
     alpha, beta, gamma = (zeros, ones, ones) if current_drive else (ones, zeros, ones)
     back_alpha[0], back_beta[0], back_gamma[0] = alpha, beta, gamma
-    for index, p in enumerate(relations, start=1):
-        lam = _cross((alpha, p[:, 0, 0], p[:, 1, 0]), (beta, p[:, 0, 1], p[:, 1, 1]))
-        new_alpha = lam[1] * p[:, 0, 2] + lam[2] * p[:, 1, 2]
-        new_beta = -(lam[1] * p[:, 0, 3] + lam[2] * p[:, 1, 3])
-        alpha, beta, gamma = _normalise(new_alpha, new_beta, lam[0] * gamma)
+    # Relations are scale-free; rescaling every few steps keeps long chains of small minors
+    # far from underflow (each step multiplies by minors of unit-scaled rows).
+    for index, m in enumerate(minors, start=1):
+        m_ab, m_ac, m_ad, m_bc, m_bd = m[0], m[1], m[2], m[3], m[4]
+        alpha, beta, gamma = m_bc * alpha - m_ac * beta, m_ad * beta - m_bd * alpha, m_ab * gamma
+        if index % _RESCALE_EVERY == 0:
+            alpha, beta, gamma = _normalise(alpha, beta, gamma)
         back_alpha[index], back_beta[index], back_gamma[index] = alpha, beta, gamma
     # From the load: a·VK + b·JK = 0 with JK = Y_load·VK.
     a, b = _normalise(np.asarray(load_admittance_s, dtype=complex), -ones)
     front_a[-1], front_b[-1] = a, b
-    for index in range(len(relations) - 1, -1, -1):
-        p = relations[index]
-        lam = _cross((a, p[:, 0, 2], p[:, 1, 2]), (b, -p[:, 0, 3], -p[:, 1, 3]))
-        a, b = _normalise(lam[1] * p[:, 0, 0] + lam[2] * p[:, 1, 0], lam[1] * p[:, 0, 1] + lam[2] * p[:, 1, 1])
+    for index in range(len(minors) - 1, -1, -1):
+        m = minors[index]
+        m_ac, m_ad, m_bc, m_bd = m[1], m[2], m[3], m[4]
+        a, b = m_ad * a + m_ac * b, m_bd * a + m_bc * b
+        if index % _RESCALE_EVERY == 0:
+            a, b = _normalise(a, b)
         front_a[index], front_b[index] = a, b
 
     determinant = back_alpha * front_b - back_beta * front_a
@@ -845,7 +866,8 @@ class ChainEngine:
         stage_ids = tuple(stage.id for stage in stages)
         current_drive = project.input.drive == "current"
         solution = cascade([relation.p for relation in relations], current_drive=current_drive,
-                           load_admittance_s=load_y, f_hz=grid, stage_ids=stage_ids)
+                           load_admittance_s=load_y, f_hz=grid, stage_ids=stage_ids,
+                           minors=[relation.minors for relation in relations])
         # Second pass where a neighbour's impedance calls for other terminations (for instance
         # a current drive, or a high-impedance output, into a stage): see reduce_stage_terminated.
         with np.errstate(invalid="ignore"):
@@ -858,7 +880,8 @@ class ChainEngine:
         if any(item is not relation for item, relation in zip(refined, relations, strict=True)):
             relations = refined
             solution = cascade([relation.p for relation in relations], current_drive=current_drive,
-                               load_admittance_s=load_y, f_hz=grid, stage_ids=stage_ids)
+                               load_admittance_s=load_y, f_hz=grid, stage_ids=stage_ids,
+                               minors=[relation.minors for relation in relations])
         held_at_zero = [relation.input_voltage_zero for relation in relations[1:]] + [False]
         entries = tuple(
             _stage_in_chain(position, stage, relation, alone, solution, held_at_zero[position - 1])
@@ -887,10 +910,9 @@ def _stage_in_chain(position: int, stage: Stage, relation: PortRelation, alone: 
     i_in = solution.current[:, position - 1]
     per_volt: NDArray[np.complex128] | None = None
     per_volt_why: str | None = None
-    scale = np.max(np.abs(solution.voltage), axis=1)
     if relation.input_voltage_zero:
         per_volt_why = _WHY_VIRTUAL_GROUND
-    elif output_held_at_zero and np.all(np.abs(v_in) <= 1e-12 * scale):
+    elif output_held_at_zero and np.all(np.abs(v_in) <= 1e-12 * np.max(np.abs(solution.voltage), axis=1)):
         per_volt_why = ("its input and output are both held at 0 V by the next stage's virtual-ground input, "
                         "so V_out/V_in is undefined")
     else:

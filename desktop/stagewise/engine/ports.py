@@ -46,12 +46,14 @@ __all__ = [
     "I_IN",
     "V_OUT",
     "I_OUT",
+    "MINOR_PAIRS",
     "PortRelation",
     "forced_zero",
     "TERMINATIONS",
     "reduce_stage",
     "reduce_stage_terminated",
     "reference_resistance",
+    "relation_minors",
     "retermination",
     "termination_scores",
 ]
@@ -59,6 +61,10 @@ __all__ = [
 TWO_PI = 2.0 * math.pi
 # Column order of the port variables in a relation P·w = 0.
 V_IN, I_IN, V_OUT, I_OUT = 0, 1, 2, 3
+# Column pairs of the minors a PortRelation carries, in this order.
+MINOR_PAIRS: tuple[tuple[int, int], ...] = (
+    (V_IN, I_IN), (V_IN, V_OUT), (V_IN, I_OUT), (I_IN, V_OUT), (I_IN, I_OUT), (V_OUT, I_OUT),
+)
 DEFAULT_R0_OHM = 1e3
 # Retries with other terminations when a stage terminated in R0 is singular at a frequency
 # (it would take a negative resistance equal to -R0 somewhere in the stage).
@@ -79,6 +85,9 @@ class PortRelation:
         to unit largest magnitude.
     fingerprint : str
         The stage fingerprint the relation was computed from (the cache key).
+    minors : ndarray, shape (6, F), complex
+        The 2 x 2 minors of ``p`` (its Plücker coordinates), for the column pairs of
+        :data:`MINOR_PAIRS`; the cascade works on these (see :func:`relation_minors`).
     r0_ohm : float
         The reference resistance of the stage (its resistors' geometric mean, else 1 kΩ).
     imposed : tuple of two int, or None
@@ -97,10 +106,27 @@ class PortRelation:
     p: NDArray[np.complex128]
     fingerprint: str
     r0_ohm: float
+    minors: NDArray[np.complex128]
     imposed: tuple[int, int] | None = None
     input_voltage_zero: bool = False
     input_current_zero: bool = False
     per_frequency: bool = False
+
+
+def relation_minors(relation: NDArray[np.complex128]) -> NDArray[np.complex128]:
+    """The six 2 x 2 minors of a relation (its Plücker coordinates), shape (6, F).
+
+    ``minors[k] = P[0, a]·P[1, b] − P[0, b]·P[1, a]`` for ``(a, b) = MINOR_PAIRS[k]``. They
+    describe the relation independently of which two equations were written down, and the
+    cascade through a stage is a 2 x 2 map of them (see :func:`stagewise.engine.chain.cascade`).
+
+    References
+    ----------
+    W. V. D. Hodge and D. Pedoe, *Methods of Algebraic Geometry*, vol. 1, Cambridge, 1947,
+    ch. VII (Grassmann/Plücker coordinates of a linear subspace).
+    """
+    rows = np.ascontiguousarray(np.moveaxis(relation, 0, -1))  # (2, 4, F)
+    return np.stack([rows[0, a] * rows[1, b] - rows[0, b] * rows[1, a] for a, b in MINOR_PAIRS])
 
 
 def reference_resistance(system: StageSystem) -> float:
@@ -329,7 +355,8 @@ def reduce_stage(system: StageSystem, f_hz: NDArray[np.float64], *, stage_id: st
     scale = np.max(np.abs(relation), axis=2, keepdims=True)
     relation = relation / np.where(scale > 0, scale, 1.0)
     return PortRelation(
-        f_hz=frequencies, p=relation, fingerprint=system.fingerprint, r0_ohm=r0_ohm, imposed=imposed,
+        f_hz=frequencies, p=relation, fingerprint=system.fingerprint, r0_ohm=r0_ohm,
+        minors=relation_minors(relation), imposed=imposed,
         # Structural facts, read where the R0 form weighs volts and amperes alike.
         input_voltage_zero=bool(np.all(forced_zero(sample_relation, V_IN, sample_r0))),
         input_current_zero=bool(np.all(forced_zero(sample_relation, I_IN, sample_r0))),
@@ -383,7 +410,7 @@ def reduce_stage_terminated(system: StageSystem, base: PortRelation, impose_inpu
     scale = np.max(np.abs(relation), axis=2, keepdims=True)
     relation = relation / np.where(scale > 0, scale, 1.0)
     return PortRelation(f_hz=base.f_hz, p=relation, fingerprint=base.fingerprint, r0_ohm=base.r0_ohm,
-                        imposed=None, input_voltage_zero=base.input_voltage_zero,
+                        minors=relation_minors(relation), imposed=None, input_voltage_zero=base.input_voltage_zero,
                         input_current_zero=base.input_current_zero, per_frequency=True)
 
 
