@@ -143,7 +143,6 @@ class MainWindow(QMainWindow):
         # shown), so that start-up paints first and computes second.
         self._first_request_done = False
         self.first_paint.painted.connect(self._first_request)
-        QTimer.singleShot(250, self._first_request)
 
     def _first_request(self) -> None:
         if not self._first_request_done:
@@ -339,6 +338,8 @@ class MainWindow(QMainWindow):
 
     def showEvent(self, event: Any) -> None:  # noqa: N802 - Qt's name
         super().showEvent(event)
+        # Should no paint event reach the window (some platforms), start computing anyway.
+        QTimer.singleShot(1500, self._first_request)
         if not self._layout_restored and not self._sized:
             self._sized = True
             # After the first layout pass, when the docks know the window's real size.

@@ -138,35 +138,47 @@ class PlotView(QWidget):
 
 
 class _TraceItems:
-    """The plot items of one trace key in one plot, created once and reused."""
+    """The plot items of one trace key in one plot, created once and reused.
+
+    Pens and the legend are touched only when the set of traces or their styles change; a new
+    result only calls ``setData``.
+    """
 
     def __init__(self, plot: pg.PlotItem, legend: pg.LegendItem | None) -> None:
         self.plot = plot
         self.legend = legend
         self.items: dict[str, pg.PlotDataItem] = {}
+        self._styles: dict[str, tuple[str, object, float]] = {}
+        self._legend_entries: list[tuple[str, str]] = []
 
     def show(self, specs: Iterable[tuple[TraceSpec, Any, Any]]) -> None:
         """Set the data of the wanted traces, hide the others. Each tuple is (spec, x, y)."""
-        wanted = set()
-        if self.legend is not None:
-            self.legend.clear()
+        wanted: list[tuple[str, str]] = []
         for spec, x, y in specs:
-            wanted.add(spec.key)
+            wanted.append((spec.key, spec.label))
             item = self.items.get(spec.key)
             if item is None:
                 item = pg.PlotDataItem()
                 self.plot.addItem(item)
                 self.items[spec.key] = item
-            item.setPen(_pen(spec))
+            style = (spec.style.colour, spec.style.line, spec.style.width)
+            if self._styles.get(spec.key) != style:
+                item.setPen(_pen(spec))
+                self._styles[spec.key] = style
             item.setData(x, y)
-            item.setVisible(True)
             item.opts["name"] = spec.label
-            if self.legend is not None:
-                self.legend.addItem(item, spec.label)
+            if not item.isVisible():
+                item.setVisible(True)
+        keys = {key for key, _ in wanted}
         for key, item in self.items.items():
-            if key not in wanted:
+            if key not in keys and item.isVisible():
                 item.setVisible(False)
                 item.setData([], [])
+        if self.legend is not None and wanted != self._legend_entries:
+            self.legend.clear()
+            for key, label in wanted:
+                self.legend.addItem(self.items[key], label)
+            self._legend_entries = wanted
 
 
 def limit_shapes(check: Check, project: Project) -> list[tuple[str, str, tuple[float, float], tuple[float, float]]]:
@@ -205,8 +217,12 @@ class _LimitLayer:
         self.log_x = log_x
         self.items: list[Any] = []
         self.labels: list[str] = []
+        self._shapes: list[tuple[str, tuple[float, float], tuple[float, float]]] = []
 
     def set_shapes(self, shapes: list[tuple[str, tuple[float, float], tuple[float, float]]]) -> None:
+        if shapes == self._shapes:
+            return
+        self._shapes = list(shapes)
         for item in self.items:
             self.plot.removeItem(item)
         self.items = []
@@ -525,6 +541,8 @@ class SpreadView(PlotView):
         self.inner = pg.FillBetweenItem(self.lines["low"], self.lines["high"], brush=pg.mkBrush(0, 114, 178, 70))
         self.plot.addItem(self.outer)
         self.plot.addItem(self.inner)
+        self._styled = False
+        self._legend_entries: list[tuple[str, str]] = []
         self.summary = QLabel(self)
         self.summary.setTextFormat(Qt.TextFormat.PlainText)
         self.summary.setWordWrap(True)
@@ -533,7 +551,6 @@ class SpreadView(PlotView):
 
     def draw(self) -> None:
         computed = self.outcome.of_chain("spread") if self.outcome is not None else Computed(None, "")
-        self.legend.clear()
         if not computed.ok:
             if self.outcome is not None:
                 self.note("Spread", computed)
@@ -551,12 +568,19 @@ class SpreadView(PlotView):
         }
         data = {"min": spread.min_db, "max": spread.max_db, "low": spread.low_db, "high": spread.high_db,
                 "nominal": spread.nominal_db}
+        first = not self._styled
         for name, item in self.lines.items():
             colour, style, label = styles[name]
-            pen = pg.mkPen(colour, width=2 if name == "nominal" else 1.2)
-            pen.setStyle(style)
-            item.setPen(pen)
+            if first:
+                pen = pg.mkPen(colour, width=2 if name == "nominal" else 1.2)
+                pen.setStyle(style)
+                item.setPen(pen)
             item.setData(spread.f_hz, finite(data[name]))
-            if label:
-                self.legend.addItem(item, label)
+        legend = [(name, styles[name][2]) for name in self.lines if styles[name][2]]
+        if legend != self._legend_entries:
+            self.legend.clear()
+            for name, label in legend:
+                self.legend.addItem(self.lines[name], label)
+            self._legend_entries = legend
+        self._styled = True
         self.summary.setText(spread.summary)

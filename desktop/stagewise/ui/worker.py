@@ -155,6 +155,8 @@ class ComputeWorker(QObject):
         self._timer.timeout.connect(self._start)
         self._formulas: dict[str, Computed] = {}
         self._formula_running: set[str] = set()
+        self._deferred_formulas: list[str] = []
+        self._started = False
         self._closed = False
         document.modelEdited.connect(self.request)
 
@@ -176,6 +178,13 @@ class ComputeWorker(QObject):
         """Ask for a recomputation of the document's current state."""
         if self._closed:
             return
+        if not self._started:
+            # Formulas asked for before the first analysis (while the window was being built)
+            # start now: sympy then loads after the first paint, not during start-up.
+            self._started = True
+            for stage_id in self._deferred_formulas:
+                self.request_formula(stage_id)
+            self._deferred_formulas.clear()
         idle_long_enough = not self._since_start.isValid() or self._since_start.elapsed() >= self._debounce_ms
         if self._running:
             self._pending = True
@@ -258,6 +267,9 @@ class ComputeWorker(QObject):
         """The symbolic formula of a stage: cached result now, or ``None`` and formulaReady later."""
         stage = self._document.project.stage(stage_id)
         if stage is None or self._closed:
+            return None
+        if not self._started:
+            self._deferred_formulas.append(stage_id)
             return None
         key = analyses.stage_key(stage, self._document.project)
         if key in self._formulas:
