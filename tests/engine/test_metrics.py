@@ -369,3 +369,25 @@ def test_notch_with_real_poles_step_matches_scipy() -> None:
                                     T=times)
     ours = step_response(analysis.model, times)
     assert np.max(np.abs(ours.y - expected)) < 1e-8
+
+
+def test_step_from_poles_and_residues_matches_the_closed_form() -> None:
+    # Source: Ogata, Modern Control Engineering, ch. 5: the unit-step response of ω0²/(s² + 2ζω0s + ω0²),
+    # 1 − e^(−ζω0t)(cos ωd·t + ζ/sqrt(1 − ζ²)·sin ωd·t), ωd = ω0·sqrt(1 − ζ²); here computed from the
+    # pencil's poles and residues alone (the path used when zeros are ill-conditioned)
+    from stagewise.engine.timeresp import step_response_of_pencil
+
+    r1, r2, c1, c2 = 22e3, 22e3, 15e-9, 2.2e-9
+    omega0 = 1.0 / math.sqrt(r1 * r2 * c1 * c2)
+    zeta = c2 * (r1 + r2) / (2.0 * math.sqrt(r1 * r2 * c1 * c2))
+    analysis, _ = analyse(unity_sallen_key(r1, r2, c1, c2))
+    assert analysis.model is not None and analysis.driven is not None
+    driven = analysis.driven
+    times = np.linspace(0.0, 2e-3, 801)
+    step = step_response_of_pencil(driven.g, driven.c, driven.b, driven.output, analysis.model, times)
+    damped = omega0 * math.sqrt(1 - zeta**2)
+    expected = 1 - np.exp(-zeta * omega0 * times) * (np.cos(damped * times)
+                                                      + zeta / math.sqrt(1 - zeta**2) * np.sin(damped * times))
+    assert np.max(np.abs(step.y - expected)) < 1e-9
+    assert step.final == pytest.approx(1.0, rel=1e-12)
+    assert step.overshoot_pct == pytest.approx(100 * math.exp(-math.pi * zeta / math.sqrt(1 - zeta**2)), rel=1e-7)

@@ -294,3 +294,4 @@ def test_minimal_model_of_the_merged_demo_chains(name: str) -> None:
     s = 1j * TWO_PI * np.logspace(-1, 8, 200)
     exact = transfer_at(driven.g, driven.c, driven.b, driven.output, s)
     assert np.max(np.abs(model.evaluate(s) - exact) / np.abs(exact)) < 1e-5
+    assert model.fit_error < 1e-4  # not flagged as ill-conditioned (FIT_TOLERANCE)

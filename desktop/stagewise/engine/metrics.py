@@ -46,9 +46,9 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from stagewise.engine.poles import root_table
+from stagewise.engine.poles import FIT_TOLERANCE, root_table
 from stagewise.engine.stage import StageAnalysis, response_at
-from stagewise.engine.timeresp import refine_crossing, step_response
+from stagewise.engine.timeresp import StepResponse, refine_crossing, step_response, step_response_of_pencil
 from stagewise.model.project import Settings
 from stagewise.model.values import format_value
 
@@ -134,7 +134,7 @@ def _model_phase_rad(analysis: StageAnalysis, f_hz: NDArray[np.float64]) -> NDAr
                 total += math.pi - np.arctan2(y, root.real)
         return total
 
-    base = 0.0 if model.gain >= 0 else math.pi
+    base = 0.0 if model.gain_sign > 0 else math.pi
     return base + factor_angles(model.zeros_rad_s) - factor_angles(model.poles_rad_s)
 
 
@@ -395,16 +395,37 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
         document["cancelled"] = []
         return document
     model = analysis.model
-    document["gain_constant"] = model.gain
+    trusted = not (model.fit_error > FIT_TOLERANCE)  # NaN (not checked) counts as trusted
+    if not trusted:
+        reason = (f"the zeros are ill-conditioned here (the pole/zero model departs from the exact response by "
+                  f"{model.fit_error:.2g}, relative degree {model.relative_degree}); poles and response are exact")
+        document["poles"] = root_table(model.poles_rad_s)
+        _with_why(document, "zeros", None, reason)
+        _with_why(document, "gain_constant", None, reason)
+        document["cancelled"] = []
+        assert analysis.driven is not None
+        driven = analysis.driven
+        step = step_response_of_pencil(driven.g, driven.c, driven.b, driven.output, model)
+        document["step"] = _step_document(step)
+        return document
+    if math.isfinite(model.gain) and model.gain != 0:
+        document["gain_constant"] = model.gain
+    else:
+        _with_why(document, "gain_constant", None,
+                  f"K = ±10^{model.log_gain / math.log(10):.1f} lies outside the floating-point range "
+                  "(the product of many poles); the response and the roots are unaffected")
     document["poles"] = root_table(model.poles_rad_s)
     document["zeros"] = root_table(model.zeros_rad_s)
     document["cancelled"] = [
         {"pole": root_table(np.array([pole]))[0], "zero": root_table(np.array([zero]))[0]}
         for pole, zero in model.cancelled
     ]
-    step = step_response(model)
+    document["step"] = _step_document(step_response(model))
+    return document
+
+
+def _step_document(step: StepResponse) -> dict[str, Any]:
     step_document: dict[str, Any] = {"settle_basis": step.settle_basis}
     for key in ("rise_s", "overshoot_pct", "settle_1pct_s", "settle_0p1pct_s", "final"):
         _with_why(step_document, key, getattr(step, key), step.why.get(key))
-    document["step"] = step_document
-    return document
+    return step_document

@@ -42,7 +42,7 @@ Numer. Anal., vol. 10, pp. 241-256, 1973 (QZ).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -68,6 +68,10 @@ ZERO_RTOL = 1e-10
 # Roots beyond this multiple of the pencil's own frequency scale are numerical debris (an
 # ill-conditioned rank decision sends an infinite eigenvalue there), never circuit dynamics.
 HORIZON = 1e10
+# The model must reproduce the exact response to this relative error (against the response, floored
+# at 1e-9 of its largest value: deep stop-band values carry the solve's own rounding), or its
+# zeros are flagged as ill-conditioned.
+FIT_TOLERANCE = 1e-4
 # A computed root whose imaginary part is below this fraction of its magnitude is real: a double
 # real pole splits into a pair with imaginary part ~sqrt(eps)·|p| under rounding.
 REAL_RTOL = 1e-7
@@ -96,6 +100,15 @@ class PoleZeroModel:
     beyond_horizon : tuple of complex
         Roots (poles or zeros) found beyond ``HORIZON`` times the scale and left out: their
         values are rounding debris of infinite eigenvalues, not dynamics of the circuit.
+    fit_error : float
+        Largest relative difference between this model and the exact solve over the roots'
+        frequency range (NaN: not checked). Above ``FIT_TOLERANCE`` the zeros are not to be
+        trusted: a high relative degree makes them ill-conditioned in any matrix method
+        (rounding δ puts spurious zeros near |s| ~ δ^(−1/r)·ω), though the poles stay exact.
+    log_abs_gain : float
+        ln|K|. A long chain's K (∏|p| over dozens of poles) can exceed the floating-point range;
+        ``gain`` is then ±inf while every evaluation goes through this logarithm. NaN means "take
+        it from ``gain``" (models built by hand).
     """
 
     poles_rad_s: NDArray[np.complex128]
@@ -104,13 +117,29 @@ class PoleZeroModel:
     cancelled: tuple[tuple[complex, complex], ...] = ()
     scale_rad_s: float = 1.0
     beyond_horizon: tuple[complex, ...] = ()
+    log_abs_gain: float = math.nan
+    fit_error: float = math.nan
 
-    def evaluate(self, s: NDArray[np.complex128] | complex) -> NDArray[np.complex128]:
-        """H(s) from the roots (s in rad/s)."""
+    @property
+    def gain_sign(self) -> float:
+        """+1 or −1, the sign of K."""
+        return -1.0 if self.gain < 0 else 1.0
+
+    @property
+    def log_gain(self) -> float:
+        """ln|K|, overflow-free."""
+        if math.isnan(self.log_abs_gain):
+            return math.log(abs(self.gain)) if self.gain != 0 else -math.inf
+        return self.log_abs_gain
+
+    def evaluate(self, s: NDArray[np.complexfloating[Any, Any]] | complex) -> NDArray[np.complex128]:
+        """H(s) from the roots (s in rad/s), summed in logarithms so long chains cannot overflow."""
         points = np.atleast_1d(np.asarray(s, dtype=complex))
-        numerator = np.prod(points[:, None] - self.zeros_rad_s[None, :], axis=1)
-        denominator = np.prod(points[:, None] - self.poles_rad_s[None, :], axis=1)
-        return np.asarray(self.gain * numerator / denominator, dtype=complex)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            logarithm = (self.log_gain
+                         + np.sum(np.log(points[:, None] - self.zeros_rad_s[None, :]), axis=1)
+                         - np.sum(np.log(points[:, None] - self.poles_rad_s[None, :]), axis=1))
+            return np.asarray(self.gain_sign * np.exp(logarithm), dtype=complex)
 
     @property
     def dc_gain(self) -> float | None:
@@ -480,14 +509,43 @@ def pole_zero_model(
     if value == 0:
         raise SingularPencilError("the output does not respond to the input (the response is zero at every "
                                   "frequency)")
-    # K = H(s0)·∏(s0 − p)/∏(s0 − z); products in log form would not help: factors are O(|s0|).
-    ratio = np.prod(point - kept_poles) / np.prod(point - kept_zeros)
-    gain_complex = value * ratio
-    return PoleZeroModel(
+    # K = H(s0)·∏(s0 − p)/∏(s0 − z), in logarithms: over dozens of poles the product leaves the
+    # floating-point range long before K itself is meaningless.
+    logarithm = complex(np.log(value) + np.sum(np.log(point - kept_poles)) - np.sum(np.log(point - kept_zeros)))
+    # K is real; its phase is 0 or π up to rounding.
+    sign = -1.0 if math.cos(logarithm.imag) < 0 else 1.0
+    with np.errstate(over="ignore"):
+        gain = sign * float(np.exp(logarithm.real))
+    model = PoleZeroModel(
         poles_rad_s=kept_poles,
         zeros_rad_s=kept_zeros,
-        gain=float(gain_complex.real),
+        gain=gain,
+        log_abs_gain=logarithm.real,
         cancelled=tuple(cancelled),
         scale_rad_s=scale,
         beyond_horizon=far,
     )
+    return replace(model, fit_error=_fit_error(model, g, c, b, output))
+
+
+def _fit_error(model: PoleZeroModel, g: NDArray[np.float64], c: NDArray[np.float64], b: NDArray[np.float64],
+               output: int) -> float:
+    """Largest relative model error on 48 log-spaced points across the roots' range (one solve)."""
+    roots = np.abs(np.concatenate([model.poles_rad_s, model.zeros_rad_s]))
+    roots = roots[roots > 0]
+    low = float(np.min(roots)) / 10.0 if len(roots) else model.scale_rad_s / 100.0
+    high = float(np.max(roots)) * 10.0 if len(roots) else model.scale_rad_s * 100.0
+    # Off the axis grid a little (×1.0137) so no point lands exactly on a notch.
+    s = 1j * np.logspace(math.log10(low), math.log10(high), 48) * 1.0137
+    try:
+        exact = transfer_at(g, c, b, output, s)
+    except np.linalg.LinAlgError:
+        return math.nan
+    fitted = model.evaluate(s)
+    usable = np.isfinite(exact) & (np.abs(exact) > 0)
+    if not np.any(usable):
+        return math.nan
+    size = np.maximum(np.abs(exact[usable]), 1e-9 * float(np.max(np.abs(exact[usable]))))
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        errors = np.abs(fitted[usable] - exact[usable]) / size
+    return float(np.max(errors)) if np.all(np.isfinite(errors)) else math.inf

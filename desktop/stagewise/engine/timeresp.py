@@ -24,6 +24,8 @@ reason, and the settling band is taken relative to the peak excursion instead.
 Public API
 ----------
 ``step_response(model, t_s=None) -> StepResponse``
+``step_response_of_pencil(g, c, b, output, model, t_s=None) -> StepResponse``
+    From poles and residues only, for models whose zeros failed their check (``fit_error``).
 ``impulse_response(model, t_s=None) -> ImpulseResponse``
 ``time_span_s(model) -> float``
 ``realisation(model) -> (a, b, c, d)``
@@ -52,9 +54,11 @@ __all__ = [
     "ImpulseResponse",
     "StepResponse",
     "impulse_response",
+    "modal_realisation",
     "realisation",
     "refine_crossing",
     "step_response",
+    "step_response_of_pencil",
     "time_span_s",
 ]
 
@@ -193,7 +197,7 @@ def realisation(model: PoleZeroModel) -> tuple[Matrix, Matrix, Matrix, Matrix]:
                 zeros.append(complex(zero))
                 section["room"] = room - 1
                 break
-    gain = model.gain
+    log_gain = model.log_gain  # ln|K| accumulates the section norms: K alone may overflow
     blocks: list[tuple[Matrix, Matrix, Matrix, Matrix]] = []
     for section in sections:
         den = section["den"]
@@ -208,7 +212,7 @@ def realisation(model: PoleZeroModel) -> tuple[Matrix, Matrix, Matrix, Matrix]:
             point = 2j * omega
             value = np.polyval(padded, point) / (point**2 + a1 * point + a0)
             norm = float(abs(value)) if np.isfinite(value) and value != 0 else 1.0
-            gain *= norm
+            log_gain += math.log(norm)
             blocks.append(_second_order(padded / norm, a1, a0, reference))
         else:
             pole = float(den[0])
@@ -216,8 +220,9 @@ def realisation(model: PoleZeroModel) -> tuple[Matrix, Matrix, Matrix, Matrix]:
             omega = abs(pole) if pole != 0 else reference
             value = np.polyval(padded, 1j * omega) / (1j * omega - pole)  # never 0: pole is real
             norm = float(abs(value)) if np.isfinite(value) and value != 0 else 1.0
-            gain *= norm
+            log_gain += math.log(norm)
             blocks.append(_first_order(padded / norm, pole, reference))
+    gain = model.gain_sign * math.exp(log_gain)
     if not blocks:  # no poles and no zeros: a pure gain
         return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), np.array([[gain]])
     system = blocks[0]
@@ -395,22 +400,123 @@ def step_response(model: PoleZeroModel, t_s: NDArray[np.float64] | None = None) 
     StepResponse
         Values in the unit of the response (V for a 1 V step; V per A for a current step).
     """
-    why: dict[str, str] = {}
-    names = ("final", "rise_s", "overshoot_pct", "settle_1pct_s", "settle_0p1pct_s")
     try:
         system = realisation(model)
     except ValueError as error:
         reason = f"{error}; its step response holds an impulse"
         return StepResponse(np.zeros(0), np.zeros(0), None, None, None, None, None,
-                            why=dict.fromkeys(names, reason))
+                            why=dict.fromkeys(_STEP_NAMES, reason))
+    return _step_of_system(system, model, model.dc_gain, t_s)
+
+
+_STEP_NAMES = ("final", "rise_s", "overshoot_pct", "settle_1pct_s", "settle_0p1pct_s")
+
+
+def modal_realisation(
+    g: Matrix, c: Matrix, b: NDArray[np.float64], output: int, poles: NDArray[np.complex128]
+) -> tuple[Matrix, Matrix, Matrix, Matrix]:
+    """A real modal realisation of ``(G + sC)·x = b``, ``y = x[output]``, from its poles alone.
+
+    Near a simple pole p, (G + sC)⁻¹ ≈ v·wᵀ/((s − p)·wᵀCv) with v, w the right and left null
+    vectors of G + pC, so H has the residue r = (e_outᵀv)(wᵀb)/(wᵀCv); a conjugate pair
+    r/(s − p) + r̄/(s − p̄) is the real block [[σ, ω], [−ω, σ]] with B = [1, 0]ᵀ and C = [2·Re r,
+    2·Im r]. The direct term is what the residues leave of H far above the poles. No zeros are
+    needed, so this serves when the zeros are ill-conditioned (a high relative degree).
+
+    Raises
+    ------
+    ValueError
+        When two poles coincide (wᵀCv vanishes: a Jordan block has no simple residues).
+
+    References
+    ----------
+    T. Kailath, *Linear Systems*, Prentice-Hall, 1980, sec. 6.2 (modal forms, residues).
+    """
+    c_norm = float(np.linalg.norm(c)) or 1.0
+    blocks_a: list[Matrix] = []
+    blocks_b: list[Matrix] = []
+    blocks_c: list[Matrix] = []
+    residues: list[complex] = []
+    used: list[complex] = []
+    for pole in poles:
+        if pole.imag < 0:
+            continue
+        u, _, vh = np.linalg.svd(g + pole * c)
+        right = vh[-1].conj()
+        left = u[:, -1].conj()  # wᵀ(G + pC) = 0 with wᵀ = u_lastᴴ
+        coupling = complex(left @ c @ right)
+        if abs(coupling) <= 1e-8 * c_norm:
+            raise ValueError("two poles coincide, so the response has no simple residues")
+        residue = complex(right[output] * (left @ b) / coupling)
+        residues.append(residue)
+        used.append(complex(pole))
+        if pole.imag == 0:
+            blocks_a.append(np.array([[pole.real]]))
+            blocks_b.append(np.array([[1.0]]))
+            blocks_c.append(np.array([[residue.real]]))
+        else:
+            blocks_a.append(np.array([[pole.real, pole.imag], [-pole.imag, pole.real]]))
+            blocks_b.append(np.array([[1.0], [0.0]]))
+            blocks_c.append(np.array([[2.0 * residue.real, 2.0 * residue.imag]]))
+    size = sum(block.shape[0] for block in blocks_a)
+    a = np.zeros((size, size))
+    b_vector = np.zeros((size, 1))
+    c_row = np.zeros((1, size))
+    offset = 0
+    for block_a, block_b, block_c in zip(blocks_a, blocks_b, blocks_c, strict=True):
+        width = block_a.shape[0]
+        a[offset:offset + width, offset:offset + width] = block_a
+        b_vector[offset:offset + width] = block_b
+        c_row[:, offset:offset + width] = block_c
+        offset += width
+    # Direct term: H far above every pole minus the residues' share there.
+    far = 1j * 1e4 * max((abs(p) for p in used), default=1.0)
+    matrix = g + far * c
+    exact = complex(np.linalg.solve(matrix.astype(complex), b.astype(complex))[output])
+    partial = sum(r / (far - p) + (np.conj(r) / (far - np.conj(p)) if p.imag > 0 else 0.0)
+                  for r, p in zip(residues, used, strict=True))
+    direct = (exact - partial).real
+    if abs(direct) <= 1e-9 * max(abs(exact), abs(partial), 1e-300):
+        direct = 0.0
+    return a, b_vector, c_row, np.array([[direct]])
+
+
+def step_response_of_pencil(
+    g: Matrix, c: Matrix, b: NDArray[np.float64], output: int, model: PoleZeroModel,
+    t_s: NDArray[np.float64] | None = None,
+) -> StepResponse:
+    """The step response from the pencil's poles and residues, when the zeros cannot be trusted.
+
+    The final value is the exact H(0) from one solve of G·x = b. See :func:`modal_realisation`.
+    """
+    try:
+        system = modal_realisation(g, c, b, output, model.poles_rad_s)
+    except (ValueError, np.linalg.LinAlgError) as error:
+        return StepResponse(np.zeros(0), np.zeros(0), None, None, None, None, None,
+                            why=dict.fromkeys(_STEP_NAMES, f"{error}; and the zeros are ill-conditioned"))
+    final: float | None
+    try:
+        final = float(np.linalg.solve(g, b)[output]) if not np.any(model.poles_rad_s == 0) else None
+    except np.linalg.LinAlgError:
+        final = None
+    return _step_of_system(system, model, final, t_s)
+
+
+def _step_of_system(system: tuple[Matrix, Matrix, Matrix, Matrix], model: PoleZeroModel, final: float | None,
+                    t_s: NDArray[np.float64] | None) -> StepResponse:
+    why: dict[str, str] = {}
+    names = _STEP_NAMES
     span = time_span_s(model)
     grid = _time_grid(model, span) if t_s is None else np.asarray(t_s, dtype=float)
     y = _step_values(system, grid)
     problem = _instability(model)
     if problem is not None:
         return StepResponse(grid, y, None, None, None, None, None, why=dict.fromkeys(names, problem))
-    final = model.dc_gain
-    assert final is not None  # no pole at 0 here (checked above)
+    if final is None:
+        return StepResponse(grid, y, None, None, None, None, None,
+                            why=dict.fromkeys(names, "the final value could not be computed"))
+    if abs(final) <= 1e-9 * float(np.max(np.abs(y), initial=0.0)):
+        final = 0.0  # an exact solve of a DC-blocked response leaves rounding, not a level
 
     def response(t: NDArray[np.float64]) -> NDArray[np.float64]:
         return _step_values(system, t)
