@@ -14,7 +14,12 @@ Definitions:
 - peaking: peak gain over the band minus the reference gain (never negative).
 - attenuation at f: reference gain minus gain at f (positive when attenuated).
 
-A value that cannot be computed is ``None`` with a sentence under ``"<key>_why"``.
+A value that cannot be computed is ``None`` with a sentence under ``"<key>_why"``. When the
+pole/zero model fails its check against the exact solve (zeros ill-conditioned by a high
+relative degree, see ``PoleZeroModel.fit_error``), the zeros and K are null with that reason,
+the poles are still listed and the step response comes from the poles and their residues.
+
+Current-driven stages (``unit`` Ω) have their gains in dBΩ (20·log10 of the transimpedance).
 
 Public API
 ----------

@@ -28,7 +28,8 @@ The stage engine, module by module
 ``engine.poles``        pole_zero_model(g, c, b, output) -> PoleZeroModel; root_table(roots)
 ``engine.metrics``      stage_metrics(analysis, settings) -> dict ("M" of DESIGN 6);
                         metric_at(analysis, name, at_hz, settings); frequency_response(_at); bandwidth
-``engine.timeresp``     step_response(model) -> StepResponse; impulse_response(model)
+``engine.timeresp``     step_response(model) -> StepResponse; impulse_response(model);
+                        step_response_of_pencil(g, c, b, output, model) (poles and residues only)
 ``engine.symbolic``     symbolic_form(stage, project, time_limit_s=5.0) -> SymbolicForm (.as_dict())
 ``engine.diagnostics``  diagnose(system, current_drive) -> Diagnosis | None
 
@@ -84,7 +85,10 @@ class StageAnalysis:
     unit : str
         ``"V/V"`` or ``"Ω"``.
     poles_rad_s, zeros_rad_s : ndarray of complex or None
-        Roots of the minimal model (cancelled pairs removed), s in rad/s.
+        Roots of the minimal model (cancelled pairs removed), s in rad/s. The poles are exact;
+        the zeros pass a check against the exact solve (``model.fit_error`` below
+        ``poles.FIT_TOLERANCE``) except in deep chains, where ``stage_metrics`` reports them as
+        ill-conditioned instead of showing them.
     gain_constant : float or None
         K in H(s) = K·∏(s − z)/∏(s − p).
     cancelled : tuple of (pole, zero)
