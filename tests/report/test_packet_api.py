@@ -174,3 +174,21 @@ def test_command_exits_cleanly_in_its_own_process(project_file: Path, tmp_path: 
     assert completed.returncode == 0, completed.stderr
     assert output.read_bytes().startswith(b"%PDF")
     assert "recorded in the audit trail" in completed.stdout
+
+
+def test_failed_save_is_one_sentence_and_file_unchanged(project_file: Path, tmp_path: Path,
+                                                       capsys: pytest.CaptureFixture[str],
+                                                       monkeypatch: pytest.MonkeyPatch) -> None:
+    import stagewise.files.project_file as project_file_module
+
+    def refuse(path: object, project: object) -> None:
+        raise PermissionError(13, "Permission denied", str(path))
+
+    monkeypatch.setattr(project_file_module, "save_project", refuse)
+    before = project_file.read_bytes()
+    output = tmp_path / "unrecorded.pdf"
+    status = main(["packet", str(project_file), "-o", str(output), "--by", "Tester"])
+    error = capsys.readouterr().err
+    assert status == 2
+    assert error.count("\n") == 1 and "could not be saved" in error and "Permission denied" in error
+    assert project_file.read_bytes() == before

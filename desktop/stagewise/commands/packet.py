@@ -50,7 +50,11 @@ def run(args: argparse.Namespace) -> int:
                            f"{output} but not recorded, print it again")
     assert result.sha256 is not None
     record_packet(project, result.sha256, who, file_sha256=result.file_sha256)
-    save_project(args.file, project)
+    try:
+        save_project(args.file, project)
+    except OSError as error:
+        raise CommandError(f"the packet was written to {output}, but {args.file} could not be saved to record it "
+                           f"in the audit trail ({error.strerror or error}); the project file is unchanged") from error
     sys.stdout.write(f"{output}: {result.pages} pages, SHA-256 {result.sha256}; recorded in the audit trail of "
                      f"{args.file}\n")
     return 0
