@@ -1,17 +1,31 @@
-"""The chain of stages with loading: the merged whole-chain circuit.
+"""The chain of stages with loading: the merged circuit, the port-relation cascade, the engine.
 
 The active stages (bypassed ones left out) are joined output to input: stage k's output node
-and stage k+1's input node become one node. :func:`merged_system` builds that circuit at the
-matrix level, so circuits and behavioural blocks join the same way: the stage pencils are
-placed block-diagonally, then the two unknowns of every interface are merged (their columns
-added, because the two voltages are one; their rows added, because Kirchhoff's current law of
-the joined node is the sum of both stages' current balances). The project's load R ∥ C is
-stamped at the last output.
+and stage k+1's input node become one node; the project's load R ∥ C sits at the last output
+and its drive (``project.input.drive``, an ideal voltage or current source) at the first input.
 
-The merged circuit is a :class:`~stagewise.engine.mna.StageSystem` like any stage's, so every
-analysis written for a stage (sweeps, poles and zeros, noise, loop gain, tolerances) runs on
-the whole chain unchanged. It is also the exact reference that the fast port-relation cascade
-(:mod:`stagewise.engine.ports`) is tested against.
+Two ways to the same numbers
+----------------------------
+* :func:`merged_system` assembles the whole chain as one circuit, at the matrix level so that
+  circuits and behavioural blocks join alike: the stage pencils are placed block-diagonally,
+  then the two unknowns of every interface are merged (their columns added, because the two
+  voltages are one; their rows added, because Kirchhoff's current law of the joined node is the
+  sum of both stages' current balances). It is a :class:`~stagewise.engine.mna.StageSystem`
+  like any stage's, so every stage analysis (poles and zeros, noise, loop gain, tolerances)
+  runs on the whole chain unchanged, and it is the exact reference of the tests.
+* :class:`ChainEngine` reduces each stage to its port relation (:mod:`stagewise.engine.ports`,
+  cached by stage fingerprint and frequency grid) and solves the chain of relations
+  (:func:`cascade`): the chain response at every interface, each stage in chain against
+  isolated (the loading error), and every interface's Z_out and Z_in, in one batch over all
+  frequencies. After an edit only the edited stage is reduced again.
+
+Public API
+----------
+``merged_system(project) -> MergedChain``
+``ChainEngine().analyze(project, f_hz=None) -> ChainResult`` (any frequencies, in hertz)
+``ChainEngine().isolated(stage, project, f_hz=None) -> IsolatedResponse``
+``ChainEngine().whole_chain(project, f_hz=None) -> StageAnalysis``, ``.step(project)``
+``analyze_chain``, ``isolated_response``, ``stage_port_relation``: the same without a cache.
 
 References
 ----------
@@ -307,7 +321,7 @@ class CascadeSolution:
     """The stacked port relations solved at every frequency (per unit of drive).
 
     Interface ``j`` is the chain input (``j = 0``), the node after stage ``j``, ..., the chain
-    output (``j = K``). ``current_a`` is the current crossing interface ``j`` towards the
+    output (``j = K``). ``current`` is the current crossing interface ``j`` towards the
     output (into stage ``j + 1``, or into the load at ``j = K``).
 
     Attributes
@@ -405,7 +419,7 @@ def cascade(
     References
     ----------
     G. H. Golub and C. F. Van Loan, *Matrix Computations*, 4th ed., Johns Hopkins, 2013,
-    sec. 4.3 (banded systems) and sec. 4.5.1 (block tridiagonal elimination).
+    ch. 4 (banded and block tridiagonal systems).
     """
     if minors is None:
         minors = [relation_minors(relation) for relation in relations]

@@ -12,23 +12,34 @@ How the two equations are found
 -------------------------------
 The stage's MNA rows with the two port currents injected, ``(G + sC)·x − e_in·I_in −
 e_out·I_out = 0``, are ``n`` equations in ``n + 2`` unknowns: a two-dimensional solution space.
-Two terminating rows ``V_in + R0·I_in = t1`` and ``V_out + R0·I_out = t2`` (a source and a load
-of resistance ``R0``) make the system square; solving it once for ``t = (1, 0)`` and once for
-``t = (0, 1)`` gives the port currents as ``I = Y0·t`` with ``t = V + R0·I``, that is::
+Two terminating rows make the system square. Solving it once for ``t = (1, 0)`` and once for
+``t = (0, 1)`` (one stacked LAPACK call over all frequencies) spans the solution space.
 
-    Y0·V + (R0·Y0 − 1)·I = 0        (two rows: the port relation)
+1. A probe at a few frequencies terminates both ports in a resistance R0 (the geometric mean
+   of the stage's resistors): ``V + R0·I = t`` is regular for every well-posed stage, and
+   gives the relation ``Y0·V + (R0·Y0 − 1)·I = 0`` with ``I = Y0·t``. From it the engine reads
+   which two port variables can be imposed (:func:`termination_scores`) and whether the stage
+   by itself holds ``V_in ≡ 0`` or ``I_in ≡ 0`` (:func:`forced_zero`).
+2. The relation itself is solved with two port variables imposed, in the order of preference
+   of :data:`TERMINATIONS` (input voltage and output current for most stages; both currents for
+   an input at a virtual ground), which gives the other two explicitly. Explicit forms carry
+   the stage's exact structure (a shunt stage's ``V_out = V_in``, an ideal output's zero
+   output impedance), so they stay accurate whatever the impedance level of the neighbours,
+   where an R0 form would lose digits in proportion to the mismatch.
+3. Where a neighbour drives a port like a current source (a current drive, a high output
+   impedance), the chain re-reduces the stage imposing the current there instead, frequency by
+   frequency (:func:`reduce_stage_terminated`): computing a small input current for a given
+   voltage cancels digits; computing the voltage for a given current does not.
 
-which holds whatever the terminations were, so ``P`` does not depend on ``R0``; ``R0`` only
-keeps the square system regular (it is the geometric mean of the stage's resistors, so its
-scale matches the stage). All frequencies are solved in one stacked LAPACK call per stage.
+The relation describes the same set of port solutions whichever terminations were used; its
+2 x 2 minors (:func:`relation_minors`) are what the cascade uses.
 
 References
 ----------
 C.-W. Ho, A. E. Ruehli and P. A. Brennan, "The modified nodal approach to network analysis",
 IEEE Trans. Circuits and Systems, vol. 22, no. 6, pp. 504-509, 1975.
-V. Belevitch, *Classical Network Theory*, Holden-Day, 1968, ch. 1 (n-ports described by an
-implicit linear relation between port voltages and currents, which exists where immittance
-matrices do not).
+V. Belevitch, *Classical Network Theory*, Holden-Day, 1968 (multiports described by linear
+relations between port voltages and currents, which exist where immittance matrices do not).
 """
 
 from __future__ import annotations
@@ -122,8 +133,8 @@ def relation_minors(relation: NDArray[np.complex128]) -> NDArray[np.complex128]:
 
     References
     ----------
-    W. V. D. Hodge and D. Pedoe, *Methods of Algebraic Geometry*, vol. 1, Cambridge, 1947,
-    ch. VII (Grassmann/Plücker coordinates of a linear subspace).
+    W. V. D. Hodge and D. Pedoe, *Methods of Algebraic Geometry*, vol. 1, Cambridge, 1947
+    (Grassmann/Plücker coordinates of a linear subspace).
     """
     rows = np.ascontiguousarray(np.moveaxis(relation, 0, -1))  # (2, 4, F)
     return np.stack([rows[0, a] * rows[1, b] - rows[0, b] * rows[1, a] for a, b in MINOR_PAIRS])
