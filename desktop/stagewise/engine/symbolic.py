@@ -526,6 +526,7 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
         Never raises for an unsolvable stage: ``why`` says why and the tuples are empty.
     """
     import sympy
+    from sympy.polys.polyerrors import BasePolynomialError
 
     deadline = time.monotonic() + time_limit_s
     unit = "Ω" if stage.drive == "current" else "V/V"
@@ -577,6 +578,10 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
         return SymbolicForm(tuple(numerator), tuple(denominator), transfer, tuple(sections), values, False, why, unit)
     except _Timeout:
         return _numeric_form(model, unit, f"the symbolic form took longer than {time_limit_s:g} s; "
+                                          "numeric coefficients are shown instead")
+    except (BasePolynomialError, ArithmeticError, ValueError, TypeError) as error:
+        # sympy refusing an expression is a limit of the formula view, never of the analysis.
+        return _numeric_form(model, unit, f"the symbolic form could not be derived ({type(error).__name__}); "
                                           "numeric coefficients are shown instead")
 
 
