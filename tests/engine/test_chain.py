@@ -336,3 +336,19 @@ def test_whole_chain_poles_and_step_from_the_merged_circuit() -> None:
     assert step.overshoot_pct == pytest.approx(0.0, abs=1e-6)
     assert step.rise_s == pytest.approx(crossing(0.9) - crossing(0.1), rel=1e-6)
     assert step.settle_1pct_s == pytest.approx(crossing(0.99), rel=1e-6)
+
+
+def test_current_drive_into_a_high_impedance_input_keeps_full_accuracy() -> None:
+    # A current source into a small series resistor and a small capacitor: the stage's input
+    # impedance is up to 1e8 times its resistor, where the voltage-driven form of its relation
+    # would cancel digits; the engine re-reduces it imposing the input current.
+    r, c = 120.0, 8.2e-12
+    stage = Stage("rc", "RC", drive="current", parts=[r_part("R1", "in", "out", r), c_part("C1", "out", "0", c)])
+    engine = ChainEngine()
+    result = engine.analyze(Project("i", input=InputDrive("current"), stages=[stage]), F_HZ)
+    # Source: Nilsson & Riedel, Electric Circuits: the whole current flows through R and C in
+    # series: V_in = I·(R + 1/(sC)), V_out = I/(sC).
+    close(result.interface_response[:, 0], r + 1 / (S * c))
+    close(result.response, 1 / (S * c))
+    close(result.stages[0].isolated, 1 / (S * c))
+    assert engine.refinements == 1
