@@ -308,3 +308,123 @@ def test_screenshot_size_below_the_minimum_is_refused(sample_path: Path, tmp_pat
                              str(tmp_path / "x.png"), "--size", "800x600"], capture_output=True, text=True,
                             timeout=60, env={**os.environ, "QT_QPA_PLATFORM": "offscreen"})
     assert result.returncode == 2 and "at least 1280x800" in result.stderr
+
+
+def test_stage_from_a_template_brings_its_op_amp_model_and_undoes_cleanly(window) -> None:  # type: ignore[no-untyped-def]
+    from stagewise.files.templates import load_template
+
+    template = load_template("sallen_key_lowpass")
+    models_before = set(window.document.project.opamp_models)
+    window.add_stage_from_template("sallen_key_lowpass")
+    added = window.document.project.stages[-1]
+    assert added.name == template.name and window.document.current_stage_id == added.id
+    assert [p.ref for p in added.parts] == [p.ref for p in template.stage.parts]
+    needed = {p.model for p in added.parts if p.type == "opamp" and p.model != "ideal"}
+    assert needed <= set(window.document.project.opamp_models)
+    window.document.undo_stack.undo()
+    assert [s.id for s in window.document.project.stages] == ["rc", "amp", "adc"]
+    assert set(window.document.project.opamp_models) == models_before
+
+
+def test_block_stage_gain_is_edited_in_place(window) -> None:  # type: ignore[no-untyped-def]
+    select(window, "adc")
+    table = window.parts_table.table
+    gain_row = next(r for r in range(table.rowCount()) if table.item(r, 0).text() == "gain")
+    assert table.item(gain_row, 3).text() == "1"  # model → widget
+    table.item(gain_row, 3).setText("0.5")  # widget → model
+    assert window.document.project.stage("adc").gain.si == 0.5
+    table = window.parts_table.table
+    gain_row = next(r for r in range(table.rowCount()) if table.item(r, 0).text() == "gain")
+    table.item(gain_row, 3).setText("half")
+    assert window.document.project.stage("adc").gain.si == 0.5
+    assert '"half" is not a value' in window.parts_table.feedback.text()
+
+
+def test_baseline_revision_is_overlaid(window, sample_path: Path, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    baseline = tmp_path / "rev-a.stagewise.json"
+    baseline.write_text(sample_path.read_text(encoding="utf-8").replace('"value": "12k"', '"value": "22k"'),
+                        encoding="utf-8")
+    assert window.load_baseline(baseline)
+    assert window.wait_until_idle(60, formula=False)
+    window.response_view.refresh()
+    _f, baseline_db, _ = window.response_view.trace_data("baseline")
+    _f, chain_db, _ = window.response_view.trace_data("chain")
+    # Source: ideal non-inverting gain 1 + R3/R2: 1 + 22k/1k = 23 (27.2 dB) against 13 (22.3 dB);
+    # at 1 Hz the RC stage and the 3 MHz op-amp are flat, so the chains differ by 20·log10(23/13).
+    assert baseline_db[0] - chain_db[0] == pytest.approx(20 * math.log10(23 / 13), abs=0.01)
+    assert window.tree.topLevelItem(0).child(0).text(0).startswith("Baseline:")
+    window.clear_baseline()
+    window.response_view.refresh()
+    assert window.response_view.trace_data("baseline") is None
+
+
+def test_about_box_names_version_licence_and_cautions(window) -> None:  # type: ignore[no-untyped-def]
+    from stagewise import __version__
+    from stagewise.ui.dialogs import AboutDialog
+
+    text = AboutDialog(window).text.text()
+    assert __version__ in text and "MIT" in text
+    for phrase in ("IEC 61010-1", "IEC 60601-1", "does not assess electrical safety", "Verify every design on hardware"):
+        assert phrase in text
+
+
+def test_shortcuts_are_the_platform_ones(window) -> None:  # type: ignore[no-untyped-def]
+    from PySide6.QtGui import QKeySequence
+
+    assert window.undo_action.shortcut() == QKeySequence(QKeySequence.StandardKey.Undo)
+    assert window.redo_action.shortcut() == QKeySequence(QKeySequence.StandardKey.Redo)
+    for name, key in (("saveProject", QKeySequence.StandardKey.Save), ("openProject", QKeySequence.StandardKey.Open),
+                      ("newProject", QKeySequence.StandardKey.New)):
+        assert window.actions_by_name[name].shortcut() == QKeySequence(key)
+
+
+def test_layout_is_remembered(qtbot, sample_path: Path) -> None:  # type: ignore[no-untyped-def]
+    first = make_window(qtbot, sample_path, interactive=True)
+    first.docks["noise"].hide()
+    first.save_layout()
+    first.shutdown()
+    second = make_window(qtbot, sample_path, interactive=True)
+    try:
+        assert second.docks["noise"].isHidden()
+        assert not second.docks["response"].isHidden()
+    finally:
+        second.shutdown()
+
+
+def test_recent_files_menu_lists_opened_projects(window, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    other = tmp_path / "second.stagewise.json"
+    other.write_text(SAMPLE_TEXT(), encoding="utf-8")
+    assert window.open_path(other)
+    assert window.document.path == other
+    names = [action.text() for action in window.recent_menu.actions()]
+    assert names[0] == "second.stagewise.json"
+
+
+def SAMPLE_TEXT() -> str:  # noqa: N802 - reads like a constant
+    return (Path(__file__).resolve().parent / "sample.stagewise.json").read_text(encoding="utf-8")
+
+
+def test_pole_marks_carry_their_values_on_hover(window) -> None:  # type: ignore[no-untyped-def]
+    select(window, "rc")
+    window.pole_zero_view.refresh()
+    scatter = window.pole_zero_view.scatters["rc:isolated:poles"]
+    tips = list(scatter.data["data"])
+    assert len(tips) == 1
+    # Source: RC low-pass pole at s = −1/(RC); |s|/2π = 1/(2π·3.3 kΩ·6.8 nF) = 7.092 kHz.
+    assert "7.092 kHz" in tips[0]
+    assert scatter.opts["hoverable"]
+
+
+def test_signoff_dialog_gathers_and_requires_a_note_for_changes(window) -> None:  # type: ignore[no-untyped-def]
+    from stagewise.ui.dialogs import SignoffDialog
+
+    select(window, "rc")
+    dialog = SignoffDialog("Input RC", "Ines Okafor", "reviewer", window)
+    dialog.verdict.setCurrentIndex(dialog.verdict.findData("changes"))
+    assert not dialog.complete()  # asking for changes needs a note
+    dialog.note.setPlainText("use a 1 % capacitor")
+    assert dialog.complete()
+    dialog.accept()
+    window.review_panel.sign(**dialog.values())
+    assert window.document.project.stage("rc").signoffs[-1].verdict == "changes"
+    assert window.review_panel.state.property("signoffState") == "changes needed"

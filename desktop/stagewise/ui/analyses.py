@@ -251,7 +251,8 @@ def in_chain_response(stage: Stage, project: Project, context: Context) -> Respo
     v_in = solution[:, merged.interface_indices[index]]
     v_out = solution[:, merged.interface_indices[index + 1]]
     if index == 0 and merged.current_drive:
-        raise NotAvailable("the first stage is current-driven; its in-chain response is the chain's (V/A)")
+        # A current-driven first stage is seen as V_out/I_in; the chain's drive is 1 A.
+        return _trace(context.f_hz, v_out, "Ω")
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = v_out / v_in
     return _trace(context.f_hz, ratio, "V/V")
