@@ -66,6 +66,8 @@ PROSE_EDITS = {
     "value with prefix and unit": _set(["stages", 0, "parts", 1, "value"], "4.7nF"),
     "title": _set(["title"], "Another title"),
     "model not used by the stage": _set(["opamp_models", "unused-1M", "gbw_hz"], "2M"),
+    "parts listed in another order": lambda document: document["stages"][0]["parts"].reverse(),
+    "checks listed in another order": lambda document: document["stages"][0]["checks"].reverse(),
 }
 
 

@@ -2,8 +2,8 @@
 
 Parts (type, nodes, values by what they mean, tolerances, control, model), ports, drive, the
 parameters of the op-amp models the stage uses, and the limits of its numeric checks. Not
-names, notes, comments, manual answers or waivers, and not how a value was typed: ``"4k7"`` and
-``4700`` are the same resistor. Sign-offs store this fingerprint and turn stale when it changes;
+names, notes, comments, manual answers or waivers, not the order parts and checks are listed in,
+and not how a value was typed: ``"4k7"`` and ``4700`` are the same resistor. Sign-offs store this fingerprint and turn stale when it changes;
 the engine keys its caches on it.
 """
 
@@ -48,10 +48,11 @@ def behaviour_document(stage: Stage, project: Project | None) -> dict[str, Any]:
         }
     else:
         document["ports"] = [stage.ports.get("in"), stage.ports.get("out")]
+        # Sorted by ref: the order parts are listed in does not change the circuit.
         document["parts"] = [
             {"ref": part.ref, "type": part.type, "nodes": list(part.nodes), "value": _si(part.value),
              "tol": _si(part.tol), "control": part.control, "model": part.model}
-            for part in stage.parts
+            for part in sorted(stage.parts, key=lambda item: item.ref)
         ]
         if project is not None:
             used = sorted({part.model for part in stage.parts
@@ -62,7 +63,7 @@ def behaviour_document(stage: Stage, project: Project | None) -> dict[str, Any]:
     document["checks"] = [
         {"id": check.id, "metric": check.metric, "where": check.where, "at_hz": _si(check.at_hz),
          "min": _si(check.min), "max": _si(check.max)}
-        for check in stage.checks
+        for check in sorted(stage.checks, key=lambda item: item.id)
         if check.metric is not None
     ]
     return document
