@@ -400,7 +400,7 @@ def chain_noise(project: Project, context: Context) -> NoiseTrace:
 
     merged = _merged(project, context)
     result = analyze_noise(merged.system, project, current_drive=merged.current_drive)
-    top = tuple((source.name, source.out_density_v_rthz) for source in result.sources[:4])
+    top = tuple((source.name, source.out_density_v_rthz) for source in result.sources[:3])
     summary = (f"Output noise {format_value(result.out_rms_v, 'V')} rms over "
                f"{format_value(result.band_hz[0], 'Hz')}–{format_value(result.band_hz[1], 'Hz')}; "
                f"{format_value(result.out_density_v_rthz_at_ref, 'V/√Hz')} at "

@@ -39,9 +39,14 @@ def application() -> QApplication:
     existing = QApplication.instance()
     if isinstance(existing, QApplication):
         return existing
+    import warnings
+
     from stagewise.ui.qt_guard import protect_singletons
 
     protect_singletons()
+    # pyqtgraph's log axes compute 10**range before the first autorange and may overflow; that
+    # is harmless (the range is replaced at once) and must not reach the user's terminal.
+    warnings.filterwarnings("ignore", category=RuntimeWarning, module=r"pyqtgraph\.")
     _previous_handler = qInstallMessageHandler(_quiet_offscreen)
     app = QApplication(sys.argv[:1])
     app.setApplicationName("Stagewise")

@@ -52,7 +52,8 @@ class ChainTree(QTreeWidget):
         header.setStretchLastSection(False)
         header.setSectionResizeMode(COLUMN_NAME, QHeaderView.ResizeMode.Stretch)
         header.setMinimumSectionSize(24)
-        for column, width in ((COLUMN_ALONE, 42), (COLUMN_IN_CHAIN, 54), (COLUMN_STATE, 100)):
+        self.setIndentation(14)
+        for column, width in ((COLUMN_ALONE, 40), (COLUMN_IN_CHAIN, 50), (COLUMN_STATE, 92)):
             header.setSectionResizeMode(column, QHeaderView.ResizeMode.Interactive)
             header.resizeSection(column, width)
         self.setTextElideMode(Qt.TextElideMode.ElideRight)

@@ -379,6 +379,7 @@ class StepView(PlotView):
         self.plot.showGrid(x=True, y=True, alpha=0.25)
         self.plot.setLabel("bottom", "Time", units="s")
         self.plot.setLabel("left", "Output per unit step")
+        self._log_time = False
         # No legend of its own: traces keep the colours and line styles of the response legend.
         self.traces = _TraceItems(self.plot, None)
         self.limits = _LimitLayer(self.plot, log_x=False)
@@ -401,6 +402,20 @@ class StepView(PlotView):
                     summaries.append(f"{spec.label}: {computed.value.summary}")
             elif self.outcome is not None:
                 self.note(spec.label, computed)
+        # Traces whose time scales differ a lot (a slow sensor pole beside a fast chain) share a
+        # logarithmic time axis, so that each one's edge stays visible.
+        spans = [float(t[-1]) for _, t, _ in rows if len(t) > 1 and t[-1] > 0]
+        log_time = len(spans) > 1 and max(spans) / min(spans) > 50
+        if log_time != self._log_time:
+            self._log_time = log_time
+            self.plot.setLogMode(x=log_time, y=False)
+            self.plot.getAxis("bottom").enableAutoSIPrefix(not log_time)
+            if log_time:
+                self.plot.setLabel("bottom", "Time (s), logarithmic")
+            else:
+                self.plot.setLabel("bottom", "Time", units="s")
+        if log_time:
+            rows = [(spec, t[t > 0], y[t > 0]) for spec, t, y in rows]
         self.traces.show(rows)
         self.summary.setText("\n".join(summaries))
         shapes = []
@@ -493,7 +508,7 @@ class NoiseView(PlotView):
         self.plot.setLabel("bottom", "Frequency (Hz)")
         self.plot.setLabel("left", "Output noise (V/√Hz)")
         # The legend sits below the plot: the sources are many and the plot is small.
-        self.legend = pg.LegendItem(labelTextSize="8pt", colCount=3, verSpacing=-6)
+        self.legend = pg.LegendItem(labelTextSize="8pt", colCount=2, verSpacing=-6)
         self.graphics.addItem(self.legend, row=1, col=0)
         self.traces = _TraceItems(self.plot, self.legend)
         self.summary = QLabel(self)
