@@ -352,3 +352,12 @@ def test_current_drive_into_a_high_impedance_input_keeps_full_accuracy() -> None
     close(result.response, 1 / (S * c))
     close(result.stages[0].isolated, 1 / (S * c))
     assert engine.refinements == 1
+
+
+def test_an_ideal_output_into_a_virtual_ground_names_the_interface() -> None:
+    buffer = Stage("buf", "Buffer", parts=[r_part("RB", "in", "0", 1e6), follower("U1", "in", "out")])
+    tia = Stage("tia", "TIA", parts=[r_part("RF", "in", "out", 10e3),
+                                     Part("U1", "opamp", ["0", "in", "out"], model="ideal")])
+    # Common practice, no source: an ideal voltage output cannot drive a 0 Ω virtual ground.
+    with pytest.raises(CircuitError, match='output of stage "buf".*virtual ground'):
+        analyze_chain(Project("conflict", stages=[buffer, tia]), F_HZ)

@@ -65,6 +65,23 @@ def opamp_stage(draw: st.DrawFn) -> list[Part]:
 
 
 @st.composite
+def transconductor_stage(draw: st.DrawFn) -> list[Part]:
+    # A current output: high output impedance, so the next stage's input sets the voltage.
+    return [Part("RI", "R", ["in", "0"], draw(resistors)),
+            Part("G1", "vccs", ["0", "out", "in", "0"], draw(value(-5, -2))),
+            Part("RO", "R", ["out", "0"], draw(value(4, 7))), Part("CO", "C", ["out", "0"], draw(value(-12, -10)))]
+
+
+@st.composite
+def transimpedance_stage(draw: st.DrawFn, ideal_allowed: bool) -> list[Part]:
+    # Its input is a virtual ground (exactly so with an ideal op-amp, which a zero-impedance
+    # output before it could not drive: that chain has no solution).
+    model = draw(opamp_models if ideal_allowed else st.just("fast"))
+    return [Part("RF", "R", ["in", "out"], draw(resistors)), Part("CF", "C", ["in", "out"], draw(value(-12, -9))),
+            Part("U1", "opamp", ["0", "in", "out"], model=model)]
+
+
+@st.composite
 def shunt_stage(draw: st.DrawFn) -> list[Part]:
     return [Part("R1", "R", ["n", "0"], draw(resistors)), Part("C1", "C", ["n", "0"], draw(capacitors))]
 
@@ -74,7 +91,7 @@ def chain(draw: st.DrawFn) -> Project:
     count = draw(st.integers(1, 5))
     stages = []
     for index in range(count):
-        kind = draw(st.sampled_from(["rc", "rlc", "opamp", "shunt", "block"]))
+        kind = draw(st.sampled_from(["rc", "rlc", "opamp", "shunt", "block", "gm", "tia"]))
         stage_id = f"s{index}"
         if kind == "shunt":
             stages.append(Stage(stage_id, kind, ports={"in": "n", "out": "n"}, parts=draw(shunt_stage())))
@@ -82,11 +99,15 @@ def chain(draw: st.DrawFn) -> Project:
             stages.append(Stage(stage_id, kind, kind="block", gain=draw(value(-1, 1)),
                                 poles_hz=[draw(value(2, 5))], zin_r_ohm=draw(value(3, 6)),
                                 zin_c_f=draw(value(-12, -9)), zout_ohm=draw(value(0, 3))))
+        elif kind == "tia":
+            soft_before = not stages or stages[-1].name in ("rc", "rlc", "gm")
+            stages.append(Stage(stage_id, kind, parts=draw(transimpedance_stage(soft_before))))
         else:
-            builder = {"rc": rc_stage, "rlc": rlc_stage, "opamp": opamp_stage}[kind]
+            builder = {"rc": rc_stage, "rlc": rlc_stage, "opamp": opamp_stage, "gm": transconductor_stage}[kind]
             stages.append(Stage(stage_id, kind, parts=draw(builder())))
     load = Load(draw(st.none() | resistors), draw(st.none() | capacitors))
-    drive = draw(st.sampled_from(["voltage", "current"]))
+    # A voltage source cannot drive a virtual ground: a chain that starts at one is current-driven.
+    drive = "current" if stages[0].name == "tia" else draw(st.sampled_from(["voltage", "current"]))
     return Project("random chain", input=InputDrive(drive), opamp_models=dict(MODELS), stages=stages, load=load)
 
 

@@ -460,10 +460,11 @@ def cascade(
     singular = ~(np.abs(determinant) > 1e-13 * size)
     if np.any(singular):
         interface, row = (int(index[0]) for index in np.nonzero(singular))
+        interface = _conflict_interface(minors, current_drive, row, default=interface)
         raise CircuitError(
-            f"the chain cannot be solved at {f_hz[row]:.6g} Hz: at the {_interface_words(interface, stage_ids)} "
-            "a source meets a constraint it cannot satisfy (for example a voltage drive into an input at a "
-            "virtual ground, or an ideal output into a short)"
+            f"the chain cannot be solved at {f_hz[row]:.6g} Hz: at the {_interface_words(interface, stage_ids)}, "
+            "what drives the node and what loads it contradict each other (for example a voltage drive or an "
+            "ideal op-amp output into an input at a virtual ground, or an ideal output into a short)"
         )
     voltage = back_gamma * front_b / determinant
     current = -back_gamma * front_a / determinant
@@ -473,6 +474,22 @@ def cascade(
         z_out_ohm=_impedance(back_beta, back_alpha).T,
         z_in_ohm=_impedance(-front_b, front_a).T,
     )
+
+
+def _conflict_interface(minors: list[NDArray[np.complex128]], current_drive: bool, row: int, default: int) -> int:
+    """Where a singular chain's conflict sits: the last interface before the drive's relation
+    degenerates (a stage whose equations cannot take what reaches it, for example an input at a
+    virtual ground fed by a zero-impedance output, or by the voltage drive itself)."""
+    alpha, beta = (0j, 1 + 0j) if current_drive else (1 + 0j, 0j)
+    for index, m in enumerate(minors):
+        m_ac, m_ad, m_bc, m_bd = (complex(m[k, row]) for k in (1, 2, 3, 4))
+        new_alpha, new_beta = m_bc * alpha - m_ac * beta, m_ad * beta - m_bd * alpha
+        scale = max(abs(m_ac), abs(m_ad), abs(m_bc), abs(m_bd)) * max(abs(alpha), abs(beta))
+        if max(abs(new_alpha), abs(new_beta)) <= 1e-12 * scale:
+            return index
+        size = max(abs(new_alpha), abs(new_beta))
+        alpha, beta = new_alpha / size, new_beta / size
+    return default
 
 
 def _interface_words(interface: int, stage_ids: tuple[str, ...]) -> str:
