@@ -428,3 +428,13 @@ def test_signoff_dialog_gathers_and_requires_a_note_for_changes(window) -> None:
     window.review_panel.sign(**dialog.values())
     assert window.document.project.stage("rc").signoffs[-1].verdict == "changes"
     assert window.review_panel.state.property("signoffState") == "changes needed"
+
+
+def test_manual_answer_is_recorded_and_re_evaluated(window) -> None:  # type: ignore[no-untyped-def]
+    select(window, "amp")
+    assert window.review_panel.check_state("layout") == "open"  # model → widget (no answer yet)
+    window.review_panel.answer("layout", "yes", "Ines Okafor", "seen on the layout review")
+    assert window.document.project.stage("amp").checks[1].answer.answer == "yes"
+    assert window.document.project.audit[-1].what == "answer"
+    assert window.wait_until_idle(60, formula=False)
+    assert window.review_panel.check_state("layout") == "met"

@@ -371,7 +371,8 @@ class MainWindow(QMainWindow):
         document.modifiedChanged.connect(self._modified_changed)
         document.pathChanged.connect(self._update_title)
         document.modelEdited.connect(self._edited)
-        document.reviewChanged.connect(lambda _stage_id: self._edited())
+        # A decision changes check states (answers, waivers): evaluate again, and autosave.
+        document.reviewChanged.connect(lambda _stage_id: (self.worker.request(), self._edited()))
         document.currentStageChanged.connect(self._stage_selected)
         document.chainChanged.connect(self._update_actions)
         document.stageChanged.connect(lambda _stage_id: self._update_actions())

@@ -411,7 +411,7 @@ class StepView(PlotView):
             self.plot.setLogMode(x=log_time, y=False)
             self.plot.getAxis("bottom").enableAutoSIPrefix(not log_time)
             if log_time:
-                self.plot.setLabel("bottom", "Time (s), logarithmic")
+                self.plot.setLabel("bottom", "Time (s, log)")
             else:
                 self.plot.setLabel("bottom", "Time", units="s")
         if log_time:
