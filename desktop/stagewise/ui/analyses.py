@@ -258,10 +258,6 @@ def in_chain_response(stage: Stage, project: Project, context: Context) -> Respo
     return _trace(context.f_hz, ratio, "V/V")
 
 
-def in_chain_roots(stage: Stage, project: Project, context: Context) -> RootSet:
-    raise NotAvailable("poles and zeros are shown for stages alone and for the whole chain")
-
-
 @dataclass(frozen=True, slots=True)
 class ReviewSummary:
     """The evaluated checks of a stage (``stagewise.review.checks``) and a one-line summary."""
@@ -272,19 +268,38 @@ class ReviewSummary:
     summary_tip: str
 
 
-def _metric_provider(project: Project, context: Context) -> Any:
-    """The integrator's metric provider over the analysis, or one that says why there is none."""
-    from stagewise.review.checks import UnavailableProvider
+def _project_analysis(project: Project, context: Context) -> Any:
+    """The engine's lazy whole-project analysis of this snapshot (engine/analysis.py), shared by
+    the check evaluation and the in-chain step and poles, so nothing is computed twice."""
+    from stagewise.engine.analysis import ProjectAnalysis
 
-    if "provider" not in context.chain_state:
-        try:
-            from stagewise.engine import analysis as full_analysis
-        except ImportError:
-            context.chain_state["provider"] = UnavailableProvider(
-                "numeric checks need the analysis provider (engine/analysis.py), not in this build yet")
-        else:
-            context.chain_state["provider"] = full_analysis.metric_provider(project)
-    return context.chain_state["provider"]
+    if "project_analysis" not in context.chain_state:
+        context.chain_state["project_analysis"] = ProjectAnalysis(project)
+    return context.chain_state["project_analysis"]
+
+
+def _metric_provider(project: Project, context: Context) -> Any:
+    """The review layer's metric provider: the engine's project analysis."""
+    return _project_analysis(project, context)
+
+
+def _in_chain_analysis(stage: Stage, project: Project, context: Context) -> Any:
+    analysis = _project_analysis(project, context).in_chain(stage.id)
+    why = getattr(analysis, "why", None)
+    if why is not None or getattr(analysis, "model", None) is None:
+        raise NotAvailable(why or "no pole/zero model in chain")
+    return analysis
+
+
+def in_chain_step(stage: Stage, project: Project, context: Context) -> StepTrace:
+    """Unit-step response of the stage where it sits, loaded by the rest of the chain."""
+    return _step(_in_chain_analysis(stage, project, context))
+
+
+def in_chain_poles(stage: Stage, project: Project, context: Context) -> RootSet:
+    """Poles and zeros of the stage where it sits (V_out/V_in with the rest of the chain as load)."""
+    analysis = _in_chain_analysis(stage, project, context)
+    return RootSet(analysis.poles_rad_s, analysis.zeros_rad_s, analysis.cancelled)
 
 
 def stage_review(stage: Stage, project: Project, context: Context) -> ReviewSummary:
@@ -305,6 +320,8 @@ STAGE_ANALYSES: list[tuple[str, int, Any]] = [
     ("poles", 1, isolated_roots),
     ("step", 1, isolated_step),
     ("review", 2, stage_review),
+    ("in_chain_step", 2, in_chain_step),
+    ("in_chain_poles", 2, in_chain_poles),
     ("in_chain_response", 1, in_chain_response),
 ]
 
@@ -395,11 +412,11 @@ def baseline_chain(project: Project, context: Context) -> ResponseTrace:
 
 def chain_noise(project: Project, context: Context) -> NoiseTrace:
     """Output noise of the whole chain: total density and the largest sources (engine/noise.py)."""
-    from stagewise.engine.noise import analyze_noise
     from stagewise.model.values import format_value
 
-    merged = _merged(project, context)
-    result = analyze_noise(merged.system, project, current_drive=merged.current_drive)
+    result = _project_analysis(project, context).noise_result
+    if not hasattr(result, "out_density_v_rthz"):
+        raise NotAvailable(getattr(result, "why", None) or "the noise analysis failed")
     top = tuple((source.name, source.out_density_v_rthz) for source in result.sources[:3])
     summary = (f"Output noise {format_value(result.out_rms_v, 'V')} rms over "
                f"{format_value(result.band_hz[0], 'Hz')}–{format_value(result.band_hz[1], 'Hz')}; "

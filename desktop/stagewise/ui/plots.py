@@ -132,7 +132,9 @@ class PlotView(QWidget):
         raise NotImplementedError
 
     def note(self, label: str, computed: Computed) -> None:
-        """Record why a trace is missing; shown in the header."""
+        """Record why a trace is missing; shown in the header (not while it is still coming)."""
+        if computed.why == "not computed yet" and self.worker.is_busy:
+            return
         if not computed.ok:
             self._problems.append(f"{label}: {computed.why}")
 
@@ -393,8 +395,8 @@ class StepView(PlotView):
         rows = []
         summaries = []
         for spec in self.specs():
-            if spec.view in (BASELINE, IN_CHAIN):
-                continue  # step responses are drawn for stages alone and for the whole chain
+            if spec.view == BASELINE:
+                continue  # the baseline is compared on the response plot
             computed = result_for(self.outcome, spec, "step")
             if computed.ok:
                 rows.append((spec, computed.value.t_s, computed.value.y))
@@ -459,7 +461,7 @@ class PoleZeroView(PlotView):
     def draw(self) -> None:
         wanted: set[str] = set()
         for spec in self.specs():
-            if spec.view in (BASELINE, IN_CHAIN):
+            if spec.view == BASELINE:
                 continue
             computed = result_for(self.outcome, spec, "poles")
             if not computed.ok:
