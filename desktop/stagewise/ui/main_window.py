@@ -130,7 +130,7 @@ class MainWindow(QMainWindow):
         self._wire()
         self._autosave_timer = QTimer(self)
         self._autosave_timer.setInterval(AUTOSAVE_INTERVAL_MS)
-        self._autosave_timer.timeout.connect(self.write_recovery)
+        self._autosave_timer.timeout.connect(self._periodic)
         self._autosave_timer.start()
         self._edit_autosave = QTimer(self)
         self._edit_autosave.setSingleShot(True)
@@ -818,6 +818,18 @@ class MainWindow(QMainWindow):
         self._update_actions()
 
     # ----------------------------------------------------------------- recovery
+    def _periodic(self) -> None:
+        """Every minute: the recovery copy, and the lock's time (so a long session never looks stale)."""
+        self.write_recovery()
+        if self._lock is not None:
+            from stagewise.files.lock import LockError
+
+            try:
+                self._lock.refresh()
+            except (LockError, OSError) as error:
+                self._lock = None
+                self.show_message(f"The edit lock was lost: {error}")
+
     def recovery_file(self) -> Path:
         return recovery_path(self.document.path)
 
