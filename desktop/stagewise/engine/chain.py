@@ -554,7 +554,8 @@ class StageInChain:
         20·log10|in chain / isolated| and the phase of that ratio in degrees (in (−180, 180]),
         comparing the stage's own transfer (``unit``) in chain against isolated.
     loading_error_db_max : float or None
-        The largest |loading_error_db| over the frequencies.
+        The largest |loading_error_db| over the frequencies where it is finite (an exact zero
+        of one response and not the other, a notch on the grid, gives ±∞ dB there).
     loading_error_why : str or None
     z_in_ohm : ndarray (F,), complex
         Looking into this stage's input: the stage, the rest of the chain and the load.
