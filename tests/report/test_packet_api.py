@@ -192,3 +192,44 @@ def test_failed_save_is_one_sentence_and_file_unchanged(project_file: Path, tmp_
     assert status == 2
     assert error.count("\n") == 1 and "could not be saved" in error and "Permission denied" in error
     assert project_file.read_bytes() == before
+
+
+def _positions(path: Path, page_index: int) -> dict[str, tuple[float, float]]:
+    """Where each text run starts on a page, in PDF points (independent of the device resolution)."""
+    found: dict[str, tuple[float, float]] = {}
+
+    def visit(text: str, cm: Any, tm: Any, font: Any, size: Any) -> None:
+        key = re.sub(r"\s+", " ", text).strip()
+        if key and key not in found:
+            # Text space to user space: the text matrix, then the current transformation matrix.
+            x = tm[4] * cm[0] + tm[5] * cm[2] + cm[4]
+            y = tm[4] * cm[1] + tm[5] * cm[3] + cm[5]
+            found[key] = (x, y)
+
+    pypdf.PdfReader(str(path)).pages[page_index].extract_text(visitor_text=visit)
+    return found
+
+
+def test_a_high_resolution_printer_gets_the_same_layout(project_file: Path, tmp_path: Path) -> None:
+    # Source: ISO 32000-1:2008, 8.3 (user space is in points whatever the device resolution):
+    # the same packet painted at 96 and at 300 dpi puts every text run at the same place.
+    ensure_application()
+    from PySide6.QtPrintSupport import QPrinter
+
+    project = load_project(project_file)
+    build_packet(project, project_file, tmp_path / "at96.pdf", printed_utc="2026-12-01T10:00:00Z")
+    printer = QPrinter(QPrinter.PrinterMode.HighResolution)
+    printer.setOutputFormat(QPrinter.OutputFormat.PdfFormat)
+    printer.setOutputFileName(str(tmp_path / "at300.pdf"))
+    printer.setResolution(300)
+    print_packet(project, project_file, printer, printed_utc="2026-12-01T10:00:00Z", resolution_dpi=None)
+    assert printer.resolution() == 300
+    reader = pypdf.PdfReader(str(tmp_path / "at96.pdf"))
+    plot_page = next(index for index, page in enumerate(reader.pages)
+                     if "frequency (Hz)" in re.sub(r"\s+", " ", page.extract_text()))
+    at96 = _positions(tmp_path / "at96.pdf", plot_page)
+    at300 = _positions(tmp_path / "at300.pdf", plot_page)
+    for label in ("frequency (Hz)", "magnitude (dB)", "phase (°)", "Response of the whole chain", "1 k", "10 k"):
+        assert label in at96 and label in at300, label
+        assert abs(at96[label][0] - at300[label][0]) < 1.0, (label, at96[label], at300[label])
+        assert abs(at96[label][1] - at300[label][1]) < 1.0, (label, at96[label], at300[label])

@@ -22,7 +22,7 @@ import numpy as np
 import pyqtgraph as pg
 from numpy.typing import NDArray
 from PySide6.QtCore import QRectF, Qt
-from PySide6.QtGui import QColor, QFont, QFontMetricsF, QPainter, QPen
+from PySide6.QtGui import QColor, QFont, QFontMetricsF, QPainter, QPen, QPicture
 from PySide6.QtWidgets import QGraphicsRectItem
 
 from stagewise.model.values import format_value
@@ -315,16 +315,33 @@ def render_plot(widget: pg.GraphicsLayoutWidget, painter: QPainter, rect: QRectF
     """Paint a plot widget into ``rect`` as vectors (the widget need not be shown).
 
     The widget's layout is set to the rectangle's size first, so fonts and line widths keep
-    their size instead of being scaled.
+    their size instead of being scaled. The scene is recorded into a ``QPicture`` (96 dpi, the
+    resolution pyqtgraph lays its axes out for) and replayed through ``painter``: on a device of
+    another resolution (a 600-dpi printer) the tick labels would otherwise be misplaced. The
+    picture holds painting commands, so the result stays vector.
     """
     width, height = int(round(rect.width())), int(round(rect.height()))
     widget.resize(width, height)
     widget.ci.setGeometry(QRectF(0, 0, width, height))
     widget.ci.layout.activate()
+    picture = QPicture()
+    recorder = QPainter(picture)
+    try:
+        recorder.setRenderHint(QPainter.RenderHint.Antialiasing, True)
+        recorder.setClipRect(QRectF(0, 0, width, height))
+        widget.scene().render(recorder, QRectF(0, 0, width, height), QRectF(0, 0, width, height))
+    finally:
+        recorder.end()
     painter.save()
-    painter.setRenderHint(QPainter.RenderHint.Antialiasing, True)
     painter.setClipRect(rect)
-    widget.scene().render(painter, rect, QRectF(0, 0, width, height))
+    painter.translate(rect.topLeft())
+    # drawPicture scales by (device dpi / picture dpi) by itself; the painter's transform already
+    # maps our 96-dpi units to the device, so that factor is taken back out here.
+    device_dpi = painter.device().logicalDpiX()
+    if device_dpi != picture.logicalDpiX():
+        factor = picture.logicalDpiX() / device_dpi
+        painter.scale(factor, factor)
+    painter.drawPicture(0, 0, picture)
     painter.restore()
     frame = QPen(QColor("#9a9a9a"), 0.5)
     painter.setPen(frame)
