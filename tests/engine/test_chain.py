@@ -361,3 +361,16 @@ def test_an_ideal_output_into_a_virtual_ground_names_the_interface() -> None:
     # Common practice, no source: an ideal voltage output cannot drive a 0 Ω virtual ground.
     with pytest.raises(CircuitError, match='output of stage "buf".*virtual ground'):
         analyze_chain(Project("conflict", stages=[buffer, tia]), F_HZ)
+
+
+def test_thirty_buffered_sections_keep_relative_accuracy_deep_in_the_stop_band() -> None:
+    r, c = 10e3, 10e-9
+    sections = [Stage(f"s{index}", "RC + follower", parts=[
+        r_part("R1", "in", "a", r), c_part("C1", "a", "0", c), follower("U1", "a", "out")]) for index in range(30)]
+    result = analyze_chain(Project("long", stages=sections), F_HZ)
+    # Source: Nilsson & Riedel, Electric Circuits: each buffered section is 1/(1 + sRC); the
+    # ideal followers isolate them, so the chain is (1/(1 + sRC))³⁰: |H| = (1 + (ωRC)²)^−15, about
+    # 1e-84 at 1 MHz (ωRC ≈ 628).
+    expected = (1 / (1 + S * r * c)) ** 30
+    assert np.min(np.abs(expected)) < 1e-80
+    close(result.response, expected)
