@@ -391,3 +391,29 @@ def test_step_from_poles_and_residues_matches_the_closed_form() -> None:
     assert np.max(np.abs(step.y - expected)) < 1e-9
     assert step.final == pytest.approx(1.0, rel=1e-12)
     assert step.overshoot_pct == pytest.approx(100 * math.exp(-math.pi * zeta / math.sqrt(1 - zeta**2)), rel=1e-7)
+
+
+def test_step_from_the_pencil_through_a_jordan_block() -> None:
+    # Source: any control text: 1/(1 + sτ)² steps as 1 − (1 + t/τ)·exp(−t/τ). Two buffered RC sections
+    # form a Jordan block (no simple residues), so the pencil path must fall back to the circuit's own
+    # index-1 ODE form and its exact exponential.
+    from stagewise.engine.poles import index_one_state_space, transfer_at
+    from stagewise.engine.timeresp import step_response_of_pencil
+
+    r, c = 4.7e3, 22e-9
+    tau = r * c
+    analysis, _ = analyse([part("R1", "R", ["in", "a"], r), part("C1", "C", ["a", "0"], c),
+                           part("U1", "opamp", ["a", "b", "b"], model="ideal"),
+                           part("R2", "R", ["b", "d"], r), part("C2", "C", ["d", "0"], c),
+                           part("U2", "opamp", ["d", "out", "out"], model="ideal")])
+    assert analysis.model is not None and analysis.driven is not None
+    driven = analysis.driven
+    times = np.linspace(0.0, 12 * tau, 601)
+    step = step_response_of_pencil(driven.g, driven.c, driven.b, driven.output, analysis.model, times)
+    assert np.max(np.abs(step.y - (1.0 - (1.0 + times / tau) * np.exp(-times / tau)))) < 1e-9
+    # Cross-check inside the engine: the ODE form's C(sI − A)⁻¹B + D against the MNA solve
+    a, b, c_row, d = index_one_state_space(driven.g, driven.c, driven.b, driven.output)
+    s = 1j * TWO_PI * np.logspace(1, 6, 11)
+    ode = np.array([c_row @ np.linalg.solve(point * np.eye(len(b)) - a, b) + d for point in s])
+    exact = transfer_at(driven.g, driven.c, driven.b, driven.output, s)
+    assert np.max(np.abs(ode - exact) / np.abs(exact)) < 1e-9

@@ -404,7 +404,7 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
     if not trusted:
         reason = (f"the zeros are ill-conditioned here (the pole/zero model departs from the exact response by "
                   f"{model.fit_error:.2g}, relative degree {model.relative_degree}); poles and response are exact")
-        document["poles"] = root_table(model.poles_rad_s)
+        document["poles"] = root_table(model.all_poles_rad_s)
         _with_why(document, "zeros", None, reason)
         _with_why(document, "gain_constant", None, reason)
         document["cancelled"] = []

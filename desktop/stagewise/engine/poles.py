@@ -26,6 +26,8 @@ Public API
     Finite values of s with det(a + s·e) = 0 (raises :class:`SingularPencilError`).
 ``transfer_at(g, c, b, output, s) -> ndarray``
     The exact response at complex frequencies s (rad/s), one batched solve.
+``index_one_state_space(g, c, b, output) -> (A, B, C, D)``
+    An ODE form of an index-1 pencil (time responses when the zeros cannot be trusted).
 ``root_table(roots) -> list[dict]``
     Each root as ``{"re", "im", "f_hz", "q"}`` for reports (one entry per conjugate pair member).
 
@@ -52,6 +54,7 @@ __all__ = [
     "PoleZeroModel",
     "SingularPencilError",
     "finite_eigenvalues",
+    "index_one_state_space",
     "origin_multiplicity",
     "pole_zero_model",
     "root_table",
@@ -121,6 +124,12 @@ class PoleZeroModel:
     fit_error: float = math.nan
 
     @property
+    def all_poles_rad_s(self) -> NDArray[np.complex128]:
+        """Every finite pole of the pencil: the kept ones and those of the cancelled pairs."""
+        cancelled = np.array([pole for pole, _ in self.cancelled], dtype=complex)
+        return _tidy(np.concatenate([self.poles_rad_s, cancelled]))
+
+    @property
     def gain_sign(self) -> float:
         """+1 or −1, the sign of K."""
         return -1.0 if self.gain < 0 else 1.0
@@ -175,9 +184,19 @@ def _equilibrate(
     Returns the scaled pencil and the frequency scale ω_s: the eigenvalues of the scaled pencil
     are s/ω_s. Row and column scaling leave the eigenvalues unchanged.
     """
+    scaled_a, scaled_e, scale, _, _ = _equilibrate_with_factors(a, e)
+    return scaled_a, scaled_e, scale
+
+
+def _equilibrate_with_factors(
+    a: NDArray[np.float64], e: NDArray[np.float64]
+) -> tuple[NDArray[np.float64], NDArray[np.float64], float, NDArray[np.float64], NDArray[np.float64]]:
+    """As :func:`_equilibrate`, also returning the row and column factors R, S (â = R·a·S)."""
     scale = _frequency_scale(a, e)
     a = a.copy()
     e = e * scale
+    row_total = np.ones(a.shape[0])
+    column_total = np.ones(a.shape[1])
     for _ in range(8):
         magnitude = np.abs(a) + np.abs(e)
         rows = magnitude.max(axis=1)
@@ -185,17 +204,71 @@ def _equilibrate(
         row_factor = np.exp2(-np.round(np.log2(rows)))
         a *= row_factor[:, None]
         e *= row_factor[:, None]
+        row_total *= row_factor
         magnitude = np.abs(a) + np.abs(e)
         columns = magnitude.max(axis=0)
         columns[columns == 0] = 1.0
         column_factor = np.exp2(-np.round(np.log2(columns)))
         a *= column_factor[None, :]
         e *= column_factor[None, :]
+        column_total *= column_factor
         if np.all(row_factor == 1.0) and np.all(column_factor == 1.0):
             break
     # Re-balance the two halves after the diagonal scaling.
     extra = _frequency_scale(a, e)
-    return a, e * extra, scale * extra
+    return a, e * extra, scale * extra, row_total, column_total
+
+
+def index_one_state_space(
+    g: NDArray[np.float64], c: NDArray[np.float64], b: NDArray[np.float64], output: int
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], float]:
+    """The ODE x' = A·x + B·u, y = C·x + D·u (t in seconds) of an index-1 pencil.
+
+    ``C·x' + G·x = b·u`` is equilibrated, rotated so that C = U·diag(Σ, 0)·Vᵀ, and its algebraic
+    unknowns eliminated (Schur complement of the algebraic block, which index 1 makes regular).
+    Not minimal: uncontrollable and unobservable modes stay, harmlessly, in A.
+
+    Returns
+    -------
+    a, b, c : ndarray
+        Shapes (m, m), (m,), (m,).
+    d : float
+
+    Raises
+    ------
+    ValueError
+        When the pencil has index above 1 (its algebraic block is singular).
+    """
+    a_hat, e_hat, scale, rows, columns = _equilibrate_with_factors(np.asarray(g, dtype=float),
+                                                                  np.asarray(c, dtype=float))
+    b_hat = rows * np.asarray(b, dtype=float)
+    out_hat = np.zeros(len(b_hat))
+    out_hat[output] = columns[output]  # y = e_outᵀ·x = e_outᵀ·S·x̂
+    reference = max(float(np.linalg.norm(a_hat, 2)), float(np.linalg.norm(e_hat, 2)), 1e-300)
+    u, sigma, vt = np.linalg.svd(e_hat)
+    r = _rank(sigma, reference)
+    v = vt.T
+    a_t = u.T @ a_hat @ v
+    b_t = u.T @ b_hat
+    out_t = v.T @ out_hat
+    a11, a12, a21, a22 = a_t[:r, :r], a_t[:r, r:], a_t[r:, :r], a_t[r:, r:]
+    if a22.size and _rank(np.asarray(np.linalg.svd(a22, compute_uv=False), dtype=float), reference) < a22.shape[0]:
+        raise ValueError("the circuit's equations have index above 1 (a loop of capacitors and sources, or a "
+                         "cut of inductors and current sources)")
+    if a22.size:
+        solve_a21 = np.linalg.solve(a22, a21)
+        solve_b2 = np.linalg.solve(a22, b_t[r:])
+        reduced_a = a11 - a12 @ solve_a21
+        reduced_b = b_t[:r] - a12 @ solve_b2
+        reduced_out = out_t[:r] - solve_a21.T @ out_t[r:]
+        direct = float(out_t[r:] @ solve_b2)
+    else:
+        reduced_a, reduced_b, reduced_out, direct = a11, b_t, out_t, 0.0
+    # Σ·x̂₁' = ω_s·(−Ã·x̂₁ + b̃·u): the pencil's s was scaled by ω_s.
+    inverse_sigma = 1.0 / sigma[:r]
+    state = -scale * inverse_sigma[:, None] * reduced_a
+    drive_vector = scale * inverse_sigma * reduced_b
+    return state, drive_vector, reduced_out, direct
 
 
 def _rank(singular_values: NDArray[np.float64], reference: float) -> int:

@@ -43,12 +43,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from numpy.typing import NDArray
 
-from stagewise.engine.poles import PoleZeroModel
+from stagewise.engine.poles import PoleZeroModel, index_one_state_space
 
 __all__ = [
     "ImpulseResponse",
@@ -236,7 +236,9 @@ def realisation(model: PoleZeroModel) -> tuple[Matrix, Matrix, Matrix, Matrix]:
 
 
 def time_span_s(model: PoleZeroModel) -> float:
-    """A span that shows the whole step: ten times the slowest decay time constant.
+    """A span that shows the whole step: ten times the slowest decay time constant, plus twice
+    the poles' low-frequency group delay Σ −Re(1/p) (a long cascade of fast sections delays the
+    edge by the sum of their time constants, beyond any single one).
 
     For poles on the jω axis or in the right half-plane (no decay), ten times the slowest
     period or time constant instead.
@@ -245,7 +247,8 @@ def time_span_s(model: PoleZeroModel) -> float:
     decays = -poles.real
     stable = decays > STABILITY_RTOL * np.abs(poles)
     if np.any(stable):
-        return SPAN_TIME_CONSTANTS / float(np.min(decays[stable]))
+        delay = float(np.sum(decays[stable] / np.abs(poles[stable]) ** 2))
+        return SPAN_TIME_CONSTANTS / float(np.min(decays[stable])) + 2.0 * delay
     magnitudes = np.abs(poles[poles != 0])
     if len(magnitudes):
         return SPAN_TIME_CONSTANTS / float(np.min(magnitudes))
@@ -276,63 +279,77 @@ def _time_grid(model: PoleZeroModel, span_s: float) -> NDArray[np.float64]:
 MODAL_CONDITION_LIMIT = 1e6
 
 
-def _propagate(matrix: Matrix, initial: NDArray[np.float64], output: NDArray[np.float64],
-               t_s: NDArray[np.float64]) -> NDArray[np.float64]:
+class _Propagator:
     """y(t) = output·e^{matrix·t}·initial for every t, without a loop per instant.
 
     When the matrix has a well-conditioned eigenvector basis (distinct poles, the usual case)
     the modal form Σ r_k·w_k·e^{λ_k t} is evaluated for all t at once. Otherwise (repeated poles:
-    Jordan blocks) the instants are split into arithmetic progressions, and along each one the
-    states follow by doubling, Z[2^k..2^(k+1)) = e^{M·h·2^k}·Z[0..2^k), from one expm per
-    progression (scaling and squaring; Moler and Van Loan, 2003).
+    Jordan blocks; long cascades) the instants are split into arithmetic progressions, and along
+    each one the states follow by doubling, Z[2^k..2^(k+1)) = e^{M·h·2^k}·Z[0..2^k), from one
+    expm per progression (scaling and squaring; Moler and Van Loan, 2003). The decomposition is
+    made once per system, so repeated refinements cost only evaluations.
     """
-    t_s = np.asarray(t_s, dtype=float)
-    values, vectors = np.linalg.eig(matrix)
-    if np.linalg.cond(vectors) <= MODAL_CONDITION_LIMIT:
-        weights = np.linalg.solve(vectors, initial.astype(complex))
-        residues = (output @ vectors) * weights
-        return np.asarray(np.real(np.exp(np.outer(t_s, values)) @ residues), dtype=float)
-    order = np.argsort(t_s, kind="stable")
-    sorted_t = t_s[order]
-    result = np.empty(len(sorted_t))
-    start = 0
-    while start < len(sorted_t):
-        if start == len(sorted_t) - 1:
-            length, step = 1, 0.0
-        else:
-            step = float(sorted_t[start + 1] - sorted_t[start])
-            uniform = np.abs(np.diff(sorted_t[start:]) - step) <= 1e-9 * max(step, 1e-300)
-            broken = np.nonzero(~uniform)[0]
-            length = int(broken[0]) + 1 if len(broken) else len(sorted_t) - start
+
+    def __init__(self, matrix: Matrix, initial: NDArray[np.float64], output: NDArray[np.float64]) -> None:
+        self.matrix = matrix
+        self.initial = initial
+        self.output = output
+        self.modal: tuple[NDArray[np.complex128], NDArray[np.complex128]] | None = None
+        values, vectors = np.linalg.eig(matrix)
+        if np.linalg.cond(vectors) <= MODAL_CONDITION_LIMIT:
+            weights = np.linalg.solve(vectors, initial.astype(complex))
+            self.modal = (values, (output @ vectors) * weights)
+
+    def __call__(self, t_s: NDArray[np.float64]) -> NDArray[np.float64]:
+        t_s = np.asarray(t_s, dtype=float)
+        if self.modal is not None:
+            values, residues = self.modal
+            return np.asarray(np.real(np.exp(np.outer(t_s, values)) @ residues), dtype=float)
         import scipy.linalg  # lazily: 0.6 s of import, off the start-up path
 
-        states = (scipy.linalg.expm(matrix * sorted_t[start]) @ initial)[:, None]
-        if length > 1:
-            power = scipy.linalg.expm(matrix * step)
-            while states.shape[1] < length:
-                states = np.hstack([states, power @ states])
-                power = power @ power
-        result[start:start + length] = output @ states[:, :length]
-        start += length
-    unsorted = np.empty_like(result)
-    unsorted[order] = result
-    return unsorted
+        order = np.argsort(t_s, kind="stable")
+        sorted_t = t_s[order]
+        result = np.empty(len(sorted_t))
+        start = 0
+        while start < len(sorted_t):
+            if start == len(sorted_t) - 1:
+                length, step = 1, 0.0
+            else:
+                step = float(sorted_t[start + 1] - sorted_t[start])
+                uniform = np.abs(np.diff(sorted_t[start:]) - step) <= 1e-9 * max(step, 1e-300)
+                broken = np.nonzero(~uniform)[0]
+                length = int(broken[0]) + 1 if len(broken) else len(sorted_t) - start
+            states = (scipy.linalg.expm(self.matrix * sorted_t[start]) @ self.initial)[:, None]
+            if length > 1:
+                power = scipy.linalg.expm(self.matrix * step)
+                while states.shape[1] < length:
+                    states = np.hstack([states, power @ states])
+                    power = power @ power
+            result[start:start + length] = self.output @ states[:, :length]
+            start += length
+        unsorted = np.empty_like(result)
+        unsorted[order] = result
+        return unsorted
 
 
-def _step_values(system: tuple[Matrix, Matrix, Matrix, Matrix], t_s: NDArray[np.float64]) -> NDArray[np.float64]:
-    """y(t) = C·∫₀ᵗ e^{Aτ}dτ·B + D, the last column of expm([[A, B], [0, 0]]·t)."""
+def _step_evaluator(system: tuple[Matrix, Matrix, Matrix, Matrix]) -> Callable[[NDArray[np.float64]], NDArray[np.float64]]:
+    """t -> y(t) = C·∫₀ᵗ e^{Aτ}dτ·B + D, the last column of expm([[A, B], [0, 0]]·t)."""
     a, b, c, d = system
     n = a.shape[0]
-    t_s = np.asarray(t_s, dtype=float)
+    direct = float(d[0, 0])
     if n == 0:
-        return np.full(t_s.shape, float(d[0, 0]))
+        return lambda t_s: np.full(np.asarray(t_s).shape, direct)
     augmented = np.zeros((n + 1, n + 1))
     augmented[:n, :n] = a
     augmented[:n, n] = b[:, 0]
     initial = np.zeros(n + 1)
     initial[n] = 1.0
-    output = np.concatenate([c[0], [0.0]])
-    return _propagate(augmented, initial, output, t_s) + float(d[0, 0])
+    propagator = _Propagator(augmented, initial, np.concatenate([c[0], [0.0]]))
+    return lambda t_s: propagator(t_s) + direct
+
+
+def _step_values(system: tuple[Matrix, Matrix, Matrix, Matrix], t_s: NDArray[np.float64]) -> NDArray[np.float64]:
+    return _step_evaluator(system)(t_s)
 
 
 def _impulse_values(system: tuple[Matrix, Matrix, Matrix, Matrix], t_s: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -340,7 +357,7 @@ def _impulse_values(system: tuple[Matrix, Matrix, Matrix, Matrix], t_s: NDArray[
     t_s = np.asarray(t_s, dtype=float)
     if a.shape[0] == 0:
         return np.zeros(t_s.shape)
-    return _propagate(a, b[:, 0], c[0], t_s)
+    return _Propagator(a, b[:, 0], c[0])(t_s)
 
 
 def refine_crossing(function: Callable[[NDArray[np.float64]], NDArray[np.float64]], low: float, high: float,
@@ -426,7 +443,8 @@ def modal_realisation(
     Raises
     ------
     ValueError
-        When two poles coincide (wᵀCv vanishes: a Jordan block has no simple residues).
+        When a repeated pole forms a Jordan block (no simple residues). Poles repeated by
+        decoupled identical sections are fine: their null space carries the whole residue.
 
     References
     ----------
@@ -438,16 +456,34 @@ def modal_realisation(
     blocks_c: list[Matrix] = []
     residues: list[complex] = []
     used: list[complex] = []
+    groups: list[tuple[complex, int]] = []
     for pole in poles:
         if pole.imag < 0:
             continue
-        u, _, vh = np.linalg.svd(g + pole * c)
-        right = vh[-1].conj()
-        left = u[:, -1].conj()  # wᵀ(G + pC) = 0 with wᵀ = u_lastᴴ
-        coupling = complex(left @ c @ right)
-        if abs(coupling) <= 1e-8 * c_norm:
-            raise ValueError("two poles coincide, so the response has no simple residues")
-        residue = complex(right[output] * (left @ b) / coupling)
+        for index, (known, count) in enumerate(groups):
+            if abs(pole - known) <= 1e-6 * max(abs(known), 1e-300):
+                groups[index] = (known, count + 1)
+                break
+        else:
+            groups.append((complex(pole), 1))
+    import scipy.linalg  # lazily: 0.6 s of import, off the start-up path
+
+    # One QZ with both eigenvector sets serves every pole: (G + λC)·v = 0 and wᵀ(G + λC) = 0.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        values, left_vectors, right_vectors = scipy.linalg.eig(g, -c, left=True, right=True)
+    finite = np.isfinite(values)
+    values = np.where(finite, values, np.inf)
+    for pole, multiplicity in groups:
+        # A pole repeated k times by decoupled identical sections (buffered stages) has a
+        # k-dimensional null space: the residue is e_outᵀ·V·(WᵀCV)⁻¹·Wᵀb. A Jordan block (a
+        # coupled repetition) leaves WᵀCV singular and has no such residue.
+        nearest = np.argsort(np.abs(values - pole))[:multiplicity]
+        right = right_vectors[:, nearest]
+        left = left_vectors[:, nearest].conj().T
+        coupling = left @ c @ right
+        if np.linalg.cond(coupling) > 1e8 or float(np.max(np.abs(coupling))) <= 1e-15 * c_norm:
+            raise ValueError("a repeated pole forms a Jordan block, so the response has no simple residues")
+        residue = complex(right[output] @ np.linalg.solve(coupling, left @ b.astype(complex)))
         residues.append(residue)
         used.append(complex(pole))
         if pole.imag == 0:
@@ -478,7 +514,29 @@ def modal_realisation(
     direct = (exact - partial).real
     if abs(direct) <= 1e-9 * max(abs(exact), abs(partial), 1e-300):
         direct = 0.0
+    _check_modal_fit(g, c, b, output, (a, b_vector, c_row, np.array([[direct]])), used)
     return a, b_vector, c_row, np.array([[direct]])
+
+
+def _check_modal_fit(g: Matrix, c: Matrix, b: NDArray[np.float64], output: int,
+                     system: tuple[Matrix, Matrix, Matrix, Matrix], poles: list[complex]) -> None:
+    """Raise when the modal form misses the exact response (residues too ill-conditioned).
+
+    Residues of long cascades are large and alternate in sign; their sum then loses every digit
+    (the eigenvalues' condition numbers 1/|wᵀCv| reach 1e13). Better no step than a wrong one.
+    """
+    a, b_vector, c_row, d = system
+    magnitudes = [abs(p) for p in poles if p != 0] or [1.0]
+    s = 1j * np.logspace(math.log10(min(magnitudes) / 10.0), math.log10(max(magnitudes) * 10.0), 24) * 1.0137
+    exact = np.linalg.solve(g[None, :, :] + s[:, None, None] * c[None, :, :],
+                            np.broadcast_to(b.astype(complex)[None, :, None], (len(s), len(b), 1)))[:, output, 0]
+    size = a.shape[0]
+    modal = d[0, 0] + (c_row @ np.linalg.solve(s[:, None, None] * np.eye(size)[None] - a[None],
+                                               np.broadcast_to(b_vector.astype(complex)[None], (len(s), size, 1))))[:, 0, 0]
+    scale = np.maximum(np.abs(exact), 1e-9 * float(np.max(np.abs(exact))))
+    error = float(np.max(np.abs(modal - exact) / scale))
+    if not error <= 1e-6:
+        raise ValueError(f"the residues are ill-conditioned here (the modal form misses the response by {error:.2g})")
 
 
 def step_response_of_pencil(
@@ -487,13 +545,26 @@ def step_response_of_pencil(
 ) -> StepResponse:
     """The step response from the pencil's poles and residues, when the zeros cannot be trusted.
 
-    The final value is the exact H(0) from one solve of G·x = b. See :func:`modal_realisation`.
+    The final value is the exact H(0) from one solve of G·x = b. See :func:`modal_realisation`;
+    when the residues are ill-conditioned too (long cascades), the pencil's own index-1 ODE form
+    is used (:func:`~stagewise.engine.poles.index_one_state_space`), checked against the exact
+    response the same way.
     """
+    # All the pencil's poles: with untrusted zeros, a "cancellation" may have paired a true pole
+    # with a spurious zero.
+    poles = model.all_poles_rad_s
+    model = replace(model, poles_rad_s=poles, zeros_rad_s=np.zeros(0, dtype=complex), cancelled=())
     try:
-        system = modal_realisation(g, c, b, output, model.poles_rad_s)
-    except (ValueError, np.linalg.LinAlgError) as error:
-        return StepResponse(np.zeros(0), np.zeros(0), None, None, None, None, None,
-                            why=dict.fromkeys(_STEP_NAMES, f"{error}; and the zeros are ill-conditioned"))
+        system = modal_realisation(g, c, b, output, poles)
+    except (ValueError, np.linalg.LinAlgError) as modal_error:
+        # Residues failed too: fall back to the pencil's own ODE form (exact, not minimal).
+        try:
+            state, drive_vector, out_row, direct = index_one_state_space(g, c, b, output)
+            system = (state, drive_vector[:, None], out_row[None, :], np.array([[direct]]))
+            _check_modal_fit(g, c, b, output, system, list(poles))
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return StepResponse(np.zeros(0), np.zeros(0), None, None, None, None, None,
+                                why=dict.fromkeys(_STEP_NAMES, f"{modal_error}; {error}"))
     final: float | None
     try:
         final = float(np.linalg.solve(g, b)[output]) if not np.any(model.poles_rad_s == 0) else None
@@ -508,7 +579,8 @@ def _step_of_system(system: tuple[Matrix, Matrix, Matrix, Matrix], model: PoleZe
     names = _STEP_NAMES
     span = time_span_s(model)
     grid = _time_grid(model, span) if t_s is None else np.asarray(t_s, dtype=float)
-    y = _step_values(system, grid)
+    evaluate = _step_evaluator(system)
+    y = evaluate(grid)
     problem = _instability(model)
     if problem is not None:
         return StepResponse(grid, y, None, None, None, None, None, why=dict.fromkeys(names, problem))
@@ -519,7 +591,7 @@ def _step_of_system(system: tuple[Matrix, Matrix, Matrix, Matrix], model: PoleZe
         final = 0.0  # an exact solve of a DC-blocked response leaves rounding, not a level
 
     def response(t: NDArray[np.float64]) -> NDArray[np.float64]:
-        return _step_values(system, t)
+        return evaluate(t)
 
     rise: float | None = None
     overshoot: float | None = None
