@@ -374,3 +374,17 @@ def test_thirty_buffered_sections_keep_relative_accuracy_deep_in_the_stop_band()
     expected = (1 / (1 + S * r * c)) ** 30
     assert np.min(np.abs(expected)) < 1e-80
     close(result.response, expected)
+
+
+def test_isolated_matches_the_stage_engine() -> None:
+    from stagewise.engine.stage import analyze_stage
+
+    # Cross-check inside the engine (in addition to the closed forms above): the chain's
+    # isolated responses are the numbers the stage engine shows for the same stages.
+    for project in (rc_into_rc(), sensor_into_buffer(), divider_into_block(), photodiode_into_tia()):
+        result = analyze_chain(project, F_HZ)
+        for stage, entry in zip(project.active_stages, result.stages, strict=True):
+            alone = analyze_stage(stage, project, F_HZ)
+            assert alone.unit == entry.unit
+            assert alone.response is not None and entry.isolated is not None
+            np.testing.assert_allclose(entry.isolated, alone.response, rtol=1e-12)
