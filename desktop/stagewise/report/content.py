@@ -1,10 +1,11 @@
 """What goes into a review packet, gathered without Qt: analysis document, curves and review states.
 
-Every number printed in the packet comes from the ``analyze --json`` document
-(:func:`stagewise.engine.analysis.analyze_project`), so the packet and the command line agree
-by construction. Curves (which that document does not hold) come from the engine's sweep
-functions. Where a piece of the analysis is missing from this build, the packet says so rather
-than showing a number it cannot stand behind.
+Every number printed in the packet comes from one ``engine.analysis.ProjectAnalysis``: its
+``document()`` is the ``analyze --json`` document, and the same object is the metric provider
+the checks are evaluated with, so the packet, ``analyze --json`` and ``check`` agree by
+construction. Curves (which that document does not hold) come from the same object's chain
+result and pole/zero models. Where a piece of the analysis is missing from this build, the
+packet says so rather than showing a number it cannot stand behind.
 """
 
 from __future__ import annotations

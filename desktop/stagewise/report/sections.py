@@ -331,7 +331,8 @@ def _chain(content: PacketContent) -> list[Block]:
     analysis = content.analysis
     chain = analysis.get("chain") if analysis else None
     if chain is None:
-        blocks.append(_unavailable(f"Chain figures: {content.analysis_why or NOT_IN_BUILD}."))
+        why = (analysis or {}).get("chain_why") or content.analysis_why or NOT_IN_BUILD
+        blocks.append(_unavailable(f"Chain figures: {why}."))
         return blocks
     blocks.append(Table([Column("figure"), Column("whole chain", "right")], _metrics_rows([chain])))
     blocks.extend(_noise(chain, project))
