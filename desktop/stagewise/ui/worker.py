@@ -77,22 +77,37 @@ def _run(function: Any, *arguments: Any) -> Computed:
     return Computed(value)
 
 
+class Superseded(Exception):  # noqa: N818 - reads as "superseded by a newer edit"
+    """A newer edit made the running computation pointless."""
+
+
 def compute_outcome(project: Project, baseline: Project | None, generation: int, phase: int,
-                    context: analyses.Context, previous: Outcome | None = None) -> Outcome:
-    """Run the analyses of one phase on a snapshot (the worker thread calls this; tests too)."""
+                    context: analyses.Context, previous: Outcome | None = None,
+                    superseded: Any = None) -> Outcome:
+    """Run the analyses of one phase on a snapshot (the worker thread calls this; tests too).
+
+    ``superseded`` is asked between analyses; when it says so, :class:`Superseded` is raised
+    and the rest is skipped (a newer edit is waiting).
+    """
     start = time.perf_counter()
     outcome = Outcome(generation, phase)
     if previous is not None:
         outcome.stage = {key: dict(value) for key, value in previous.stage.items()}
         outcome.chain = dict(previous.chain)
     context.begin(project, baseline)
+    def check() -> None:
+        if superseded is not None and superseded():
+            raise Superseded
+
     for stage in project.stages:
         results = outcome.stage.setdefault(stage.id, {})
         for name, analysis_phase, function in analyses.STAGE_ANALYSES:
             if analysis_phase == phase:
+                check()
                 results[name] = _run(function, stage, project, context)
     for name, analysis_phase, function in analyses.CHAIN_ANALYSES:
         if analysis_phase == phase:
+            check()
             outcome.chain[name] = _run(function, project, context)
     outcome.elapsed_s = time.perf_counter() - start
     return outcome
@@ -243,10 +258,12 @@ class ComputeWorker(QObject):
             slow_context = self._slow_context
 
             def slow() -> Outcome | None:
-                # A newer edit made this one obsolete while it waited: skip the work.
-                if first.generation != self._generation:
+                # A newer edit makes this one obsolete: skip the rest of the work.
+                try:
+                    return compute_outcome(project, baseline, first.generation, 2, slow_context, previous=first,
+                                           superseded=lambda: first.generation != self._generation)
+                except Superseded:
                     return None
-                return compute_outcome(project, baseline, first.generation, 2, slow_context, previous=first)
 
             self._submit(self._slow_pool, slow, self._slow_done)
         if self._pending:
