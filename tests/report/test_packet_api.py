@@ -233,3 +233,26 @@ def test_a_high_resolution_printer_gets_the_same_layout(project_file: Path, tmp_
         assert label in at96 and label in at300, label
         assert abs(at96[label][0] - at300[label][0]) < 1.0, (label, at96[label], at300[label])
         assert abs(at96[label][1] - at300[label][1]) < 1.0, (label, at96[label], at300[label])
+
+
+def test_unsolvable_stage_gets_reasons_not_numbers(tmp_path: Path) -> None:
+    # An ideal op-amp without feedback has no defined output (any circuits text: the nullor
+    # needs a feedback path); the packet must say why instead of printing a number.
+    import copy
+
+    document = copy.deepcopy(DOCUMENT)
+    document["stages"][2]["parts"] = [
+        {"ref": "R2", "type": "R", "nodes": ["out", "0"], "value": "1k"},
+        {"ref": "U1", "type": "opamp", "nodes": ["in", "0", "out"], "model": "ideal"},
+    ]
+    document["stages"][2]["checks"] = [{"id": "unity", "text": "Unity gain at 100 Hz", "metric": "gain_db",
+                                        "where": "isolated", "at_hz": 100, "min": -0.1, "max": 0.1}]
+    path = tmp_path / "open-loop.stagewise.json"
+    path.write_text(json.dumps(document), encoding="utf-8")
+    output = tmp_path / "open-loop.pdf"
+    assert main(["packet", str(path), "-o", str(output), "--by", "Tester"]) == 0
+    text = " ".join(_text(output))
+    section = text[text.index("Stage 3: Unity buffer"):text.index("Audit trail")]
+    assert "Isolated: " in section
+    assert re.search(r"unity Unity gain at 100 Hz .* -0\.1 dB … 0\.1 dB — no value", section)
+    assert not re.search(r"Gain -?\d", section)  # no gain figure for a stage that has none

@@ -118,25 +118,32 @@ def _analysis(project: Project, path: str | None, sha: str,
         return None, None, f"the analysis failed: {error}"
 
 
-def _curves_from_analysis(analysis: Any, project: Project) -> tuple[Curve, dict[str, StageCurves]] | None:
-    """Chain, isolated and in-chain responses from the analysis object's cascade (same numbers)."""
-    result = getattr(analysis, "chain", None)
-    if result is None or not hasattr(result, "stage"):
-        return None
-    f_hz = np.asarray(result.f_hz)
+def _curves_from_analysis(analysis: Any, project: Project) -> tuple[Curve, dict[str, StageCurves]]:
+    """Chain, isolated and in-chain responses from the analysis object (the same numbers).
+
+    Isolated: the stage analysis's response (or its reason). In chain and the whole chain: the
+    port-relation cascade (or the reason it failed).
+    """
+    result = analysis.chain
+    chain_ok = hasattr(result, "stage")
+    chain_why = None if chain_ok else str(getattr(result, "why", "the chain cannot be analysed"))
+    f_hz = np.asarray(analysis.f_hz)
     stages: dict[str, StageCurves] = {}
     for stage in project.stages:
-        if stage.bypass or stage.id not in result.stage_ids:
-            curves = StageCurves(Curve(why="not computed"), Curve(why="the stage is bypassed: it is not in the chain"))
-            stages[stage.id] = curves
-            continue
-        entry = result.stage(stage.id)
-        isolated = (Curve(f_hz, np.asarray(entry.isolated)) if entry.isolated is not None
-                    else Curve(why=entry.isolated_why or "no isolated response"))
-        in_chain = (Curve(f_hz, np.asarray(entry.in_chain)) if entry.in_chain is not None
-                    else Curve(why=entry.in_chain_why or "no response in chain"))
+        alone = analysis.isolated(stage.id)
+        isolated = (Curve(np.asarray(alone.f_hz), np.asarray(alone.response)) if alone.response is not None
+                    else Curve(why=alone.why or "no isolated response"))
+        if stage.bypass:
+            in_chain = Curve(why="the stage is bypassed: it is not in the chain")
+        elif not chain_ok:
+            in_chain = Curve(why=chain_why)
+        else:
+            entry = result.stage(stage.id)
+            in_chain = (Curve(f_hz, np.asarray(entry.in_chain)) if entry.in_chain is not None
+                        else Curve(why=entry.in_chain_why or "no response in chain"))
         stages[stage.id] = StageCurves(isolated, in_chain)
-    return Curve(f_hz, np.asarray(result.response)), stages
+    chain = Curve(f_hz, np.asarray(result.response)) if chain_ok else Curve(why=chain_why)
+    return chain, stages
 
 
 def _step(stage_analysis: Any) -> Step:
@@ -229,20 +236,17 @@ def gather(project: Project, path_or_sha: str | os.PathLike[str],
     f_hz = frequency_grid(project.settings)
     if not go_on("computing the chain response"):
         return None
-    from_analysis = _curves_from_analysis(analysis, project) if analysis is not None else None
-    if from_analysis is not None:
-        chain, stage_curves = from_analysis
+    if analysis is not None:
+        chain, stage_curves = _curves_from_analysis(analysis, project)
     else:
         chain, in_chain = _chain_curves(project, f_hz)
-        stage_curves = {stage.id: StageCurves(Curve(why="not computed"), in_chain[stage.id])
+        stage_curves = {stage.id: StageCurves(_isolated_curve(stage, project, f_hz), in_chain[stage.id])
                         for stage in project.stages}
     symbolic: dict[str, dict[str, Any]] = {}
     for stage in project.stages:
         if not go_on(f"stage {stage.name}"):
             return None
-        if stage_curves[stage.id].isolated.response is None and stage_curves[stage.id].isolated.why == "not computed":
-            stage_curves[stage.id].isolated = _isolated_curve(stage, project, f_hz)
         if analysis is not None:
             stage_curves[stage.id].step_isolated, stage_curves[stage.id].step_in_chain = _steps(analysis, stage)
         symbolic[stage.id] = _symbolic(stage, project) if not stage.is_block else {}
-    return PacketContent(project, sha, name, analysis and document, why, chain, stage_curves, symbolic, analysis)
+    return PacketContent(project, sha, name, document, why, chain, stage_curves, symbolic, analysis)

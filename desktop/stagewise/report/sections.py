@@ -696,7 +696,10 @@ def _stage_metrics(entry: dict[str, Any] | None, content: PacketContent) -> list
         return blocks
     isolated = entry.get("isolated") if isinstance(entry.get("isolated"), dict) else None
     in_chain = entry.get("in_chain") if isinstance(entry.get("in_chain"), dict) else None
-    rows = _metrics_rows([isolated, in_chain])
+    for label, key, document in (("Isolated", "isolated", isolated), ("In chain", "in_chain", in_chain)):
+        if document is None:
+            blocks.append(_unavailable(f"{label}: {entry.get(f'{key}_why') or 'no figures'}."))
+    rows = _metrics_rows([isolated, in_chain]) if isolated is not None or in_chain is not None else []
     rows.append(["Largest loading error", DASH, _value_or_why(entry, "loading_error_db_max", "dB")])
     rows.append(["Input impedance at the reference frequency", DASH, _value_or_why(entry, "zin_ohm_at_ref", "Ω")])
     rows.append(["Output impedance at the reference frequency", DASH, _value_or_why(entry, "zout_ohm_at_ref", "Ω")])
