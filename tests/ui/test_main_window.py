@@ -438,3 +438,42 @@ def test_manual_answer_is_recorded_and_re_evaluated(window) -> None:  # type: ig
     assert window.document.project.audit[-1].what == "answer"
     assert window.wait_until_idle(60, formula=False)
     assert window.review_panel.check_state("layout") == "met"
+
+
+def test_project_locked_elsewhere_is_offered_read_only_naming_the_holder(qtbot, sample_path: Path,  # type: ignore[no-untyped-def]
+                                                                          monkeypatch) -> None:
+    from stagewise.files.lock import LockInfo, lock_path
+
+    holder = LockInfo(owner="r.lindqvist", host="bench-pc-7", pid=1, time="2099-01-01T00:00:00Z")
+    lock_path(sample_path).write_text(holder.to_json(), encoding="utf-8")
+    shown: list[str] = []
+
+    def answer_open(box):  # type: ignore[no-untyped-def]
+        shown.append(box.text())
+        return QMessageBox.StandardButton.Open
+
+    monkeypatch.setattr(QMessageBox, "exec", answer_open)
+    monkeypatch.setattr(QMessageBox, "information", lambda *args, **kwargs: QMessageBox.StandardButton.Ok)
+    window = make_window(qtbot, sample_path, interactive=True)
+    try:
+        window.attach_file(sample_path)
+        assert "r.lindqvist on host bench-pc-7" in shown[0]
+        assert window.document.read_only and "(read-only)" in window.windowTitle()
+        window.document.set_current_stage("rc")
+        window.parts_table.edit_cell("R1", "value", "1k")
+        assert window.document.project.stage("rc").part("R1").value.raw == "3k3"
+        assert "read-only" in window.parts_table.feedback.text()
+    finally:
+        window.shutdown()
+    assert lock_path(sample_path).is_file()  # someone else's lock is left alone
+
+
+def test_new_project_starts_with_one_solvable_stage(window) -> None:  # type: ignore[no-untyped-def]
+    window.new_project()
+    project = window.document.project
+    assert project.title == "New chain" and [s.name for s in project.stages] == ["First stage"]
+    assert window.document.path is None and window.windowTitle().startswith("untitled.stagewise.json")
+    assert window.wait_until_idle(60, formula=False)
+    _f, mag_db, _ = window.response_view.trace_data("chain")
+    # Common practice, no source: a series resistor into an open output passes the input unchanged (0 dB).
+    assert np.allclose(mag_db, 0.0, atol=1e-9)

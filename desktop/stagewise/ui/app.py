@@ -56,25 +56,12 @@ def application() -> QApplication:
 
 
 def open_window(project: Project, path: Path | None, *, interactive: bool = True):  # type: ignore[no-untyped-def]
-    """A main window on ``project`` (lock taken, recovery offered when interactive)."""
+    """A main window on ``project`` (lock taken and recovery offered when interactive)."""
     from stagewise.ui.main_window import MainWindow
 
-    read_only = False
-    lock = None
     window = MainWindow(project, path, interactive=interactive)
     if path is not None and interactive:
-        from stagewise.ui.document import EditRefused
-
-        try:
-            read_only, lock = window.take_lock(path)
-        except EditRefused:
-            read_only, lock = True, None
-        window._lock = lock  # noqa: SLF001 - the window owns the lock from here on
-        if read_only:
-            window.document.replace_project(project, path, read_only=True)
-        window.offer_recovery(path)
-        window._update_title()  # noqa: SLF001
-        window._update_actions()  # noqa: SLF001
+        window.attach_file(path)
     return window
 
 
@@ -92,11 +79,6 @@ def run(project: Project, path: Path | None) -> int:
             os._exit(0)
 
         window.first_paint.painted.connect(lambda: QTimer.singleShot(0, report))
-    if path is not None:
-        from stagewise.ui.settings import add_recent
-
-        add_recent(path)
-        window._fill_recent()  # noqa: SLF001
     window.resize(1440, 900)
     window.show()
     return int(app.exec())

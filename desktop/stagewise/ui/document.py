@@ -30,7 +30,7 @@ from stagewise.model.project import (
 from stagewise.model.validate import validate_stage
 from stagewise.model.values import Quantity, ValueSyntaxError
 
-__all__ = ["BLOCK_FIELDS", "Document", "EditRefused", "PART_FIELDS"]
+__all__ = ["BLOCK_FIELDS", "PART_FIELDS", "Document", "EditRefused", "blank_stage"]
 
 # Fields of a part that can be edited as text, with what they hold.
 PART_FIELDS: dict[str, str] = {"value": "value", "tol": "tolerance", "nodes": "nodes", "model": "op-amp model"}
@@ -381,13 +381,10 @@ class Document(QObject):
         self._push(f"add stage {stage.name}", insert, take)
 
     def blank_stage(self, name: str = "New stage") -> Stage:
-        """A new circuit stage that solves from the start: one series resistor, 1 kΩ.
-
-        An empty stage would have no input or output node; the resistor gives both, and the
-        user replaces it.
-        """
-        return Stage(id=self.unique_stage_id(name), name=name,
-                     parts=[Part(ref="R1", type="R", nodes=["in", "out"], value=Quantity.of("1k"))])
+        """A new stage for this project (see :func:`blank_stage`), with an unused id."""
+        stage = blank_stage(name)
+        stage.id = self.unique_stage_id(name)
+        return stage
 
     def duplicate_stage(self, stage_id: str) -> None:
         """Insert a copy after the stage: same parts and checks, no sign-offs, comments or answers."""
@@ -483,6 +480,17 @@ class Document(QObject):
         self.reviewChanged.emit(stage_id)
         self._announce_modified()
         return result
+
+
+def blank_stage(name: str = "New stage") -> Stage:
+    """A new circuit stage that solves from the start: one series resistor, 1 kΩ.
+
+    An empty stage would have no input or output node; the resistor gives both, and the user
+    replaces it.
+    """
+    stage_id = _ID_PATTERN.sub("-", name.strip().lower()).strip("-") or "stage"
+    return Stage(id=stage_id, name=name,
+                 parts=[Part(ref="R1", type="R", nodes=["in", "out"], value=Quantity.of("1k"))])
 
 
 def _same(old: object, new: object) -> bool:

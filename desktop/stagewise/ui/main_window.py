@@ -36,7 +36,7 @@ from PySide6.QtWidgets import (
 from stagewise.model.project import Part, Project
 from stagewise.model.values import Quantity, ValueSyntaxError
 from stagewise.ui.chain_tree import ChainTree
-from stagewise.ui.document import Document, EditRefused
+from stagewise.ui.document import Document, EditRefused, blank_stage
 from stagewise.ui.icons import icon
 from stagewise.ui.overlays import IN_CHAIN, ISOLATED, OverlaySelection
 from stagewise.ui.parts_table import FormulaView, PartsTable
@@ -72,9 +72,7 @@ def recovery_path(path: Path | None) -> Path:
 
 def empty_project() -> Project:
     """A new project: one stage with a single series resistor, so that it solves at once."""
-    document = Document(Project(title="New chain", revision="A"))
-    stage = document.blank_stage("First stage")
-    return Project(title="New chain", revision="A", stages=[stage])
+    return Project(title="New chain", revision="A", stages=[blank_stage("First stage")])
 
 
 class _FirstPaint(QObject):
@@ -239,6 +237,7 @@ class MainWindow(QMainWindow):
             a("answerCheck", "&Answer manual check…", lambda: self.answer_dialog(""), None, "check", ""),
             a("commentStage", "&Comment…", lambda: self.comment_dialog(""), None, "comment", ""),
             a("resetLayout", "Reset &layout", self.reset_layout, None, "", ""),
+            a("cautions", "&Cautions", self.show_cautions, None, "", "What Stagewise does not assess"),
             a("about", "&About Stagewise", self.show_about, None, "about", ""),
         ]:
             self.actions_by_name[action.objectName()] = action
@@ -291,6 +290,7 @@ class MainWindow(QMainWindow):
         view_menu.addSeparator()
         view_menu.addAction(names["resetLayout"])
         help_menu = bar.addMenu("&Help")
+        help_menu.addAction(names["cautions"])
         help_menu.addAction(names["about"])
         toolbar = self.addToolBar("Main")
         toolbar.setObjectName("mainToolbar")
@@ -629,6 +629,26 @@ class MainWindow(QMainWindow):
         values = dialog.values()
         self._run_review(lambda: self.review_panel.comment(str(values["author"]), str(values["text"]),
                                                            values["check_id"]))
+
+    def show_cautions(self) -> None:
+        from stagewise.ui.dialogs import CAUTIONS
+
+        QMessageBox.information(self, "Cautions", CAUTIONS)
+
+    def attach_file(self, path: Path) -> None:
+        """At start-up on ``path``: take the edit lock (read-only when held), offer recovery."""
+        try:
+            read_only, lock = self.take_lock(path)
+        except EditRefused:
+            read_only, lock = True, None
+        self._lock = lock
+        if read_only:
+            self.document.replace_project(self.document.project, path, read_only=True)
+        self.offer_recovery(path)
+        add_recent(path)
+        self._fill_recent()
+        self._update_title()
+        self._update_actions()
 
     def show_about(self) -> None:
         from stagewise.ui.dialogs import AboutDialog
