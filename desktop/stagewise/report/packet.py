@@ -58,7 +58,11 @@ def ensure_application() -> None:
     global _APPLICATION
     from PySide6.QtWidgets import QApplication
 
-    if QApplication.instance() is not None:
+    existing = QApplication.instance()
+    if existing is not None:
+        if not isinstance(existing, QApplication):
+            raise RuntimeError("the review packet draws its plots with widgets, which need a QApplication; "
+                               "this process runs a QGuiApplication")
         return
     if not os.environ.get("DISPLAY") and not os.environ.get("WAYLAND_DISPLAY"):
         os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
