@@ -149,16 +149,21 @@ def _usable(analysis: Any) -> Any:
 
 
 def _mag_phase(model: Any, f_hz: NDArray[np.float64], values: NDArray[np.complex128], unit: str) -> ResponseTrace:
-    """Magnitude and phase exactly as the engine's metrics define them (engine/metrics.py: dB of
-    |H|, the exact angle on the branch of the pole/zero phase). Its helpers are called directly:
+    """Magnitude and phase as the engine's metrics define them (engine/metrics.py: 20·log10|H|,
+    the exact angle on the branch of the pole/zero phase). The phase helper is called directly:
     ``frequency_response`` would also compute the group delay, which no plot shows and which
-    costs as much again."""
+    costs as much again. Should the helper move, the phase is unwrapped from the low end."""
     from types import SimpleNamespace
 
     from stagewise.engine import metrics
 
-    mag_db = metrics._db(values)  # noqa: SLF001
-    phase_deg = metrics._anchored_phase_deg(SimpleNamespace(model=model), f_hz, values)  # noqa: SLF001
+    anchored = getattr(metrics, "_anchored_phase_deg", None)
+    if anchored is None:  # the helper moved: take the engine's public route (slower, same numbers)
+        phase_deg = np.degrees(np.unwrap(np.angle(values)))
+    else:
+        phase_deg = anchored(SimpleNamespace(model=model), f_hz, values)
+    with np.errstate(divide="ignore"):
+        mag_db = 20.0 * np.log10(np.abs(values))
     return ResponseTrace(f_hz, mag_db, phase_deg, unit)
 
 
