@@ -188,6 +188,24 @@ def test_high_pass_step_has_no_rise_time_and_settles_against_its_peak() -> None:
     assert document["settle_1pct_s"] == pytest.approx(r * c * math.log(100.0), rel=1e-9)
 
 
+def test_leaky_high_pass_step_settles_against_its_peak() -> None:
+    # Source: any circuits text (first-order step response). C in parallel with a leak R1 in series,
+    # R2 to ground: the step jumps to 1 (C passes it), then decays with τ = C·(R1 ∥ R2) to the
+    # divider R2/(R1 + R2): y(t) = f + (1 − f)·exp(−t/τ). It is inside 1 % of the peak (1) once
+    # (1 − f)·exp(−t/τ) = 0.01, at t = τ·ln((1 − f)/0.01).
+    r_leak, r2, c = 220e3, 10e3, 100e-9
+    analysis, settings = analyse([part("C1", "C", ["in", "out"], c), part("R1", "R", ["in", "out"], r_leak),
+                                  part("R2", "R", ["out", "0"], r2)])
+    document = stage_metrics(analysis, settings)["step"]
+    final = r2 / (r_leak + r2)
+    tau = c * r_leak * r2 / (r_leak + r2)
+    assert document["final"] == pytest.approx(final, rel=1e-9)
+    assert document["rise_s"] is None and "high-pass" in document["rise_s_why"]
+    assert document["overshoot_pct"] is None
+    assert document["settle_basis"] == "peak"
+    assert document["settle_1pct_s"] == pytest.approx(tau * math.log((1 - final) / 0.01), rel=1e-6)
+
+
 def test_integrator_step_has_no_final_value() -> None:
     # Source: any op-amp text: −1/(sRC) has a pole at s = 0, its step response is a ramp
     analysis, settings = analyse([part("R1", "R", ["in", "m"], 10e3), part("C1", "C", ["m", "out"], 1e-9),

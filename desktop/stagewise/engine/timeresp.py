@@ -573,6 +573,10 @@ def step_response_of_pencil(
     return _step_of_system(system, model, final, t_s)
 
 
+# Below this fraction of the peak excursion, a final value is a leak, not the signal's level.
+FAINT_FINAL = 0.1
+
+
 def _step_of_system(system: tuple[Matrix, Matrix, Matrix, Matrix], model: PoleZeroModel, final: float | None,
                     t_s: NDArray[np.float64] | None) -> StepResponse:
     why: dict[str, str] = {}
@@ -596,15 +600,22 @@ def _step_of_system(system: tuple[Matrix, Matrix, Matrix, Matrix], model: PoleZe
     rise: float | None = None
     overshoot: float | None = None
     basis = "final value"
-    if final == 0.0:
-        reason = ("the step response returns to zero (a zero at DC: high-pass or band-pass), so rise time and "
-                  "overshoot are not defined")
+    excursion = float(np.max(np.abs(y), initial=0.0))
+    if final == 0.0 or abs(final) < FAINT_FINAL * excursion:
+        if final == 0.0:
+            reason = ("the step response returns to zero (a zero at DC: high-pass or band-pass), so rise time and "
+                      "overshoot are not defined")
+        else:
+            # A high-pass shape with a small DC path (a leakage resistance): measured against the
+            # level it settles to, the rise and overshoot would describe the leak, not the signal.
+            reason = (f"the step response settles at {abs(final) / excursion:.2g} of its peak (a high-pass shape "
+                      "with a small DC path), so rise time and overshoot against the final value do not apply")
         why["rise_s"] = reason
         why["overshoot_pct"] = reason
         basis = "peak"
-        reference = float(np.max(np.abs(y)))
+        reference = excursion
         normalised = y / reference if reference > 0 else y
-        target = 0.0
+        target = final / reference if reference > 0 else 0.0
     else:
         reference = abs(final)
         normalised = y / final
@@ -650,7 +661,7 @@ def _step_of_system(system: tuple[Matrix, Matrix, Matrix, Matrix], model: PoleZe
             settles.append(None)
             why[name] = f"the step response is still outside ±{band * 100:g} % at the end of the span ({grid[-1]:.4g} s)"
             continue
-        scale = final if final != 0.0 else reference
+        scale = reference if basis == "peak" else final
 
         def deviation(t: NDArray[np.float64], scale: float = scale) -> NDArray[np.float64]:
             return np.abs(response(t) / scale - target)
