@@ -256,3 +256,27 @@ def test_unsolvable_stage_gets_reasons_not_numbers(tmp_path: Path) -> None:
     assert "Isolated: " in section
     assert re.search(r"unity Unity gain at 100 Hz .* -0\.1 dB … 0\.1 dB — no value", section)
     assert not re.search(r"Gain -?\d", section)  # no gain figure for a stage that has none
+
+
+def test_symbolic_forms_follow_part_changes(project_file: Path) -> None:
+    # Source: first-order RC low-pass, f_c = 1/(2πRC) (any circuits text). The packet keeps
+    # symbolic forms by stage fingerprint; after a part change it must show the new corner.
+    import math
+
+    from stagewise.model.values import Quantity
+    from stagewise.report.content import _symbolic
+
+    project = load_project(project_file)
+    stage = project.stages[0]
+
+    def corner() -> float:
+        form = _symbolic(stage, project)["form"]
+        return float(form["sections"][0]["f0_hz_value"])
+
+    first = corner()
+    assert math.isclose(first, 1 / (2 * math.pi * 6.8e3 * 10e-9), rel_tol=1e-9)
+    assert corner() == first  # the same stage again
+    resistor = stage.part("R1")
+    assert resistor is not None
+    resistor.value = Quantity("3k3", 3.3e3)
+    assert math.isclose(corner(), 1 / (2 * math.pi * 3.3e3 * 10e-9), rel_tol=1e-9)

@@ -13,6 +13,7 @@ from __future__ import annotations
 import importlib
 import os
 import re
+from collections import OrderedDict
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,9 +25,10 @@ from numpy.typing import NDArray
 from stagewise.engine.mna import assemble
 from stagewise.engine.sweep import drive, frequency_grid, transfer
 from stagewise.files.project_file import file_sha256
+from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Stage
 
-__all__ = ["Curve", "PacketContent", "gather", "resolve_source"]
+__all__ = ["Curve", "PacketContent", "clear_symbolic_cache", "gather", "resolve_source"]
 
 NOT_IN_BUILD = "not available in this build"
 _SHA256 = re.compile(r"[0-9a-f]{64}")
@@ -204,18 +206,40 @@ def _chain_curves(project: Project, f_hz: NDArray[np.float64]) -> tuple[Curve, d
     return Curve(f_hz, np.asarray(result.response)), in_chain
 
 
+# Symbolic forms as display strings, keyed by stage fingerprint (what decides the stage's
+# behaviour, models included): exporting and then printing, or printing again after an edit of
+# one stage, recomputes only what changed. Bounded; clear_symbolic_cache() empties it.
+_SYMBOLIC_CACHE: OrderedDict[str, dict[str, Any]] = OrderedDict()
+_SYMBOLIC_CACHE_SIZE = 256
+
+
+def clear_symbolic_cache() -> None:
+    """Forget every cached symbolic form (benchmarks time the packet without it)."""
+    _SYMBOLIC_CACHE.clear()
+
+
 def _symbolic(stage: Stage, project: Project) -> dict[str, Any]:
     """The stage's symbolic form as display strings (``SymbolicForm.as_dict``), or why there is none."""
+    key = stage_fingerprint(stage, project)
+    if key in _SYMBOLIC_CACHE:
+        _SYMBOLIC_CACHE.move_to_end(key)
+        return _SYMBOLIC_CACHE[key]
     form = _optional("stagewise.engine.symbolic", "symbolic_form")
     if form is None:
         return {"why": f"the symbolic form is {NOT_IN_BUILD}"}
     try:
         result = form(stage, project)
-        if not result.ok:
-            return {"why": result.why or "no formula for this stage"}
-        return {"form": result.as_dict()}
+        found: dict[str, Any] = {"form": result.as_dict()} if result.ok else {
+            "why": result.why or "no formula for this stage"}
     except (ValueError, ArithmeticError, TimeoutError) as error:
         return {"why": f"no symbolic form: {error}"}
+    # A form that fell back to numbers because the clock ran out depends on the machine's load:
+    # it is not kept, so the next packet tries again.
+    if "took longer than" not in str(found.get("form", {}).get("why") or ""):
+        _SYMBOLIC_CACHE[key] = found
+        while len(_SYMBOLIC_CACHE) > _SYMBOLIC_CACHE_SIZE:
+            _SYMBOLIC_CACHE.popitem(last=False)
+    return found
 
 
 def gather(project: Project, path_or_sha: str | os.PathLike[str],
