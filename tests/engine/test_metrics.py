@@ -316,6 +316,20 @@ def test_butterworth_phase_is_unwrapped() -> None:
     assert phase_deg_at(analysis, 300e3) == pytest.approx(np.interp(300e3, dense, expected), abs=1e-3)
 
 
+def test_all_pass_phase_starts_near_zero_despite_its_right_half_plane_zero() -> None:
+    # Source: first-order all-pass (1 − s/ω0)/(1 + s/ω0): |H| = 1, phase −2·arctan(ω/ω0)
+    # (any filter text). The right-half-plane zero must not add a turn to the plotted phase.
+    f0 = 1.5e3
+    stage = Stage("ap", "all-pass", kind="block", gain=q(1.0), zeros_hz=[q(-f0)], poles_hz=[q(f0)])
+    project = Project("all-pass", stages=[stage])
+    analysis = analyze_stage(stage, project)
+    assert analysis.why is None, analysis.why
+    response = frequency_response(analysis)
+    expected = -2.0 * np.degrees(np.arctan(response.f_hz / f0))
+    np.testing.assert_allclose(response.phase_deg, expected, atol=1e-9)
+    np.testing.assert_allclose(response.mag_db, 0.0, atol=1e-9)
+
+
 def test_inverting_amplifier_phase_is_180_degrees() -> None:
     # Source: any op-amp text: H = −R2/R1 with an ideal op-amp: phase ±180°, gain 20·log10(R2/R1)
     analysis, settings = analyse([part("R1", "R", ["in", "m"], 1e3), part("R2", "R", ["m", "out"], 22e3),

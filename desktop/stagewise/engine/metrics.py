@@ -129,18 +129,25 @@ def _model_phase_rad(analysis: StageAnalysis, f_hz: NDArray[np.float64]) -> NDAr
     model = analysis.model
     omega = TWO_PI * np.asarray(f_hz, dtype=float)
 
-    def factor_angles(roots: NDArray[np.complex128]) -> NDArray[np.float64]:
-        total = np.zeros(omega.shape)
+    def factor_angles(roots: NDArray[np.complex128], angular: NDArray[np.float64]) -> NDArray[np.float64]:
+        total = np.zeros(angular.shape)
         for root in roots:
-            y = omega - root.imag
+            y = angular - root.imag
             if root.real <= 0:
                 total += np.arctan2(y, -root.real)
             else:
                 total += math.pi - np.arctan2(y, root.real)
         return total
 
-    base = 0.0 if model.gain_sign > 0 else math.pi
-    return base + factor_angles(model.zeros_rad_s) - factor_angles(model.poles_rad_s)
+    def phase(angular: NDArray[np.float64]) -> NDArray[np.float64]:
+        base = 0.0 if model.gain_sign > 0 else math.pi
+        return np.asarray(base + factor_angles(model.zeros_rad_s, angular)
+                          - factor_angles(model.poles_rad_s, angular), dtype=float)
+
+    # Each right-half-plane root counts π at DC; shift by whole turns so that the phase at the
+    # start of the analysed band lies in (−180°, 180°], as an engineer reads a Bode plot.
+    start = float(phase(np.array([TWO_PI * float(analysis.f_hz[0])]))[0])
+    return phase(omega) - TWO_PI * round(start / TWO_PI)
 
 
 def _anchored_phase_deg(analysis: StageAnalysis, f_hz: NDArray[np.float64],
