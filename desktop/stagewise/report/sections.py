@@ -810,6 +810,8 @@ def _stage(stage: Stage, number: int, content: PacketContent, results: list[Chec
 def _detail_text(detail: dict[str, Any]) -> str:
     parts = []
     for key, value in detail.items():
+        if value in ("", None, [], {}):
+            continue  # an empty note says nothing
         if isinstance(value, str) and len(value) == 64 and all(c in "0123456789abcdef" for c in value):
             value = value[:16] + "…"
         elif not isinstance(value, str):
