@@ -4,6 +4,6 @@ Public entry points live in :mod:`stagewise.report.packet`: ``build_packet`` (PD
 ``print_packet`` (QPrinter).
 """
 
-from stagewise.report._none_guard import keep_none_alive
+from stagewise.ui.qt_guard import protect_singletons
 
-keep_none_alive()
+protect_singletons()
