@@ -47,6 +47,10 @@ from numpy.typing import NDArray
 from stagewise.engine.cache import ComputeCache, grid_key
 from stagewise.engine.mna import CircuitError, ElementStamp, OpampStates, StageSystem, assemble
 from stagewise.engine.ports import (
+    I_IN,
+    I_OUT,
+    V_IN,
+    V_OUT,
     PortRelation,
     reduce_stage,
     reduce_stage_terminated,
@@ -668,11 +672,20 @@ def isolated_from_system(system: StageSystem, relation: PortRelation, current_dr
     if not current_drive and relation.input_voltage_zero:
         return IsolatedResponse(f_hz, None, unit, "its input sits at a virtual ground (V_in ≡ 0), so a voltage "
                                 "drive cannot be applied; give the stage a current drive")
-    try:
-        response = transfer(drive(system, current=current_drive), f_hz)
-    except np.linalg.LinAlgError:
-        return IsolatedResponse(f_hz, None, unit, "with its own drive and the output unloaded its equations are "
-                                "singular at an analysis frequency")
+    drive_pair = (I_IN, I_OUT) if current_drive else (V_IN, I_OUT)
+    if relation.imposed == drive_pair and not relation.per_frequency and np.array_equal(relation.f_hz, f_hz):
+        # The reduction already solved the stage with exactly this drive imposed (input source,
+        # output open): its second row reads V_out = W·(drive) + W'·I_out, so with I_out = 0 the
+        # isolated response is one division of that row, the same numbers as a fresh solve.
+        source = I_IN if current_drive else V_IN
+        with np.errstate(divide="ignore", invalid="ignore"):
+            response = -relation.p[:, 1, source] / relation.p[:, 1, V_OUT]
+    else:
+        try:
+            response = transfer(drive(system, current=current_drive), f_hz)
+        except np.linalg.LinAlgError:
+            return IsolatedResponse(f_hz, None, unit, "with its own drive and the output unloaded its equations "
+                                    "are singular at an analysis frequency")
     if not np.all(np.isfinite(response)):
         return IsolatedResponse(f_hz, None, unit, "its response is infinite at an analysis frequency")
     return IsolatedResponse(f_hz, response, unit, None)

@@ -192,7 +192,10 @@ def _terminated_solve(system: StageSystem, s: NDArray[np.complex128], imposed: t
     elif imposed is not None:
         g[n, column_of[imposed[0]]] = 1.0
         g[n + 1, column_of[imposed[1]]] = 1.0
-    matrices = g[None, :, :] + s[:, None, None] * c[None, :, :]
+    # Built in place: at a few thousand small matrices, temporaries cost as much as the solve.
+    matrices = np.empty((len(s), size, size), dtype=complex)
+    np.multiply(s[:, None, None], c[None, :, :], out=matrices)
+    matrices += g[None, :, :]
     if per_frequency is not None:
         rows = np.arange(len(s))
         matrices[rows, n, column_of[per_frequency[:, 0]]] = 1.0
