@@ -161,7 +161,7 @@ def _mag_phase(model: Any, f_hz: NDArray[np.float64], values: NDArray[np.complex
     if anchored is None:  # the helper moved: take the engine's public route (slower, same numbers)
         phase_deg = np.degrees(np.unwrap(np.angle(values)))
     else:
-        phase_deg = anchored(SimpleNamespace(model=model), f_hz, values)
+        phase_deg = anchored(SimpleNamespace(model=model, f_hz=f_hz), f_hz, values)
     with np.errstate(divide="ignore"):
         mag_db = 20.0 * np.log10(np.abs(values))
     return ResponseTrace(f_hz, mag_db, phase_deg, unit)
