@@ -71,6 +71,7 @@ class Document(QObject):
     currentStageChanged(str) : the selected stage ("" for none).
     modelEdited : anything that changes the analysis (the worker listens).
     pathChanged, modifiedChanged(bool), baselineChanged.
+    auditRecorded : a project-wide audit event was appended (it is saved with the project).
     """
 
     projectReplaced = Signal()
@@ -82,6 +83,7 @@ class Document(QObject):
     pathChanged = Signal()
     modifiedChanged = Signal(bool)
     baselineChanged = Signal()
+    auditRecorded = Signal()
 
     def __init__(self, project: Project, path: str | Path | None = None, parent: QObject | None = None) -> None:
         super().__init__(parent)
@@ -478,6 +480,19 @@ class Document(QObject):
         result = action(self._project)
         self._review_unsaved = True
         self.reviewChanged.emit(stage_id)
+        self._announce_modified()
+        return result
+
+    def record_event(self, action: Callable[[Project], object]) -> object:
+        """Run an action that appends a project-wide audit event (a printed packet) and announce it.
+
+        Not undoable, like review decisions: the event waits in the project, which now has
+        unsaved changes, and is written with the next save.
+        """
+        self._refuse_if_read_only()
+        result = action(self._project)
+        self._review_unsaved = True
+        self.auditRecorded.emit()
         self._announce_modified()
         return result
 

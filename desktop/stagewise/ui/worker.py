@@ -19,6 +19,7 @@ Analyses plug in through :data:`STAGE_ANALYSES` and :data:`CHAIN_ANALYSES` (see
 from __future__ import annotations
 
 import copy
+import dataclasses
 import time
 from dataclasses import dataclass, field
 from typing import Any
@@ -57,6 +58,9 @@ class Outcome:
     stage: dict[str, dict[str, Computed]] = field(default_factory=dict)
     chain: dict[str, Computed] = field(default_factory=dict)
     elapsed_s: float = 0.0
+    # The engine's ProjectAnalysis these results came from (None when no analysis made one); the
+    # packet reuses it so that nothing is computed twice.
+    analysis: Any = None
 
     def of_stage(self, stage_id: str, name: str) -> Computed:
         return self.stage.get(stage_id, {}).get(name, Computed(None, "not computed yet"))
@@ -94,6 +98,7 @@ def compute_outcome(project: Project, baseline: Project | None, generation: int,
     if previous is not None:
         outcome.stage = {key: dict(value) for key, value in previous.stage.items()}
         outcome.chain = dict(previous.chain)
+        outcome.analysis = previous.analysis
     context.begin(project, baseline)
     def check() -> None:
         if superseded is not None and superseded():
@@ -109,6 +114,7 @@ def compute_outcome(project: Project, baseline: Project | None, generation: int,
         if analysis_phase == phase:
             check()
             outcome.chain[name] = _run(function, project, context)
+    outcome.analysis = context.chain_state.get("project_analysis", outcome.analysis)
     outcome.elapsed_s = time.perf_counter() - start
     return outcome
 
@@ -278,6 +284,23 @@ class ComputeWorker(QObject):
             self.outcomeReady.emit(outcome)
         if not self.is_busy:
             self._set_busy(False)
+
+    def analysis_of(self, project: Project) -> Any:
+        """The engine's ProjectAnalysis of ``project`` as it is now, or ``None``.
+
+        Given only when every analysis of the newest edit has finished (no thread still uses the
+        object) and the analysed snapshot equals ``project``, its audit trail aside (recording
+        an event changes no number).
+        """
+        latest = self._latest
+        if self.is_busy or latest is None or latest.phase != 2 or latest.analysis is None:
+            return None
+        analysed = getattr(latest.analysis, "project", None)
+        if not isinstance(analysed, Project):
+            return None
+        if dataclasses.replace(analysed, audit=[]) != dataclasses.replace(project, audit=[]):
+            return None
+        return latest.analysis
 
     # ----------------------------------------------------------------- formulas
     def request_formula(self, stage_id: str) -> Computed | None:
