@@ -17,6 +17,7 @@ import contextlib
 import copy
 import os
 import tempfile
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -33,7 +34,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from stagewise.model.project import Part, Project
+from stagewise.model.project import Part, Project, Stage
 from stagewise.model.values import Quantity, ValueSyntaxError
 from stagewise.ui.chain_tree import ChainTree
 from stagewise.ui.document import Document, EditRefused, blank_stage
@@ -87,6 +88,14 @@ class _FirstPaint(QObject):
         return False
 
 
+@dataclass(frozen=True)
+class _ImportedStage:
+    """A stage added from element cards and not yet saved: recorded as "import" at the next save."""
+
+    stage: Stage  # as imported, before any later edit
+    detail: dict[str, Any]
+
+
 class MainWindow(QMainWindow):
     """The Stagewise main window.
 
@@ -113,6 +122,8 @@ class MainWindow(QMainWindow):
         self._recovery_written = False
         self._discard_chosen = False
         self._saved_snapshot = copy.deepcopy(project)
+        self._pending_imports: list[_ImportedStage] = []
+        self._packet_author: str | None = None
         self._previous_stage = self.document.current_stage_id
         self.first_paint = _FirstPaint(self)
         self.installEventFilter(self.first_paint)
@@ -214,6 +225,12 @@ class MainWindow(QMainWindow):
             a("openProject", "&Open…", self.open_dialog, key.Open, "open", "Open a project file"),
             a("saveProject", "&Save", self.save, key.Save, "save", "Save the project"),
             a("saveProjectAs", "Save &as…", self.save_as, key.SaveAs, "", "Save under another name"),
+            a("importCards", "&Import element cards…", self.import_cards_dialog, "Ctrl+Shift+I", "cards",
+              "Add a stage typed as element cards, one part per line"),
+            a("exportPacket", "&Export review packet…", self.export_packet_dialog, "Ctrl+Shift+E", "packet",
+              "Write the review packet as a PDF and record it in the audit trail"),
+            a("printPacket", "&Print packet…", self.print_packet_dialog, key.Print, "print",
+              "Send the review packet to a printer"),
             a("loadBaseline", "Compare with &baseline file…", self.load_baseline_dialog, None, "baseline",
               "Overlay the chain of another revision's file"),
             a("clearBaseline", "Stop comparing with baseline", self.clear_baseline, None, "", ""),
@@ -265,6 +282,10 @@ class MainWindow(QMainWindow):
         self._fill_recent()
         for name in ("saveProject", "saveProjectAs"):
             file_menu.addAction(names[name])
+        file_menu.addSeparator()
+        file_menu.addAction(names["importCards"])
+        file_menu.addAction(names["exportPacket"])
+        file_menu.addAction(names["printPacket"])
         file_menu.addSeparator()
         file_menu.addAction(names["loadBaseline"])
         file_menu.addAction(names["clearBaseline"])
@@ -371,6 +392,7 @@ class MainWindow(QMainWindow):
         document.modifiedChanged.connect(self._modified_changed)
         document.pathChanged.connect(self._update_title)
         document.modelEdited.connect(self._edited)
+        document.auditRecorded.connect(self._edited)
         # A decision changes check states (answers, waivers): evaluate again, and autosave.
         document.reviewChanged.connect(lambda _stage_id: (self.worker.request(), self._edited()))
         document.currentStageChanged.connect(self._stage_selected)
@@ -427,7 +449,7 @@ class MainWindow(QMainWindow):
             names[name].setEnabled(has_stage and editable)
         names["addPart"].setEnabled(has_stage and editable and not stage.is_block)  # type: ignore[union-attr]
         names["removePart"].setEnabled(has_stage and editable and not stage.is_block)  # type: ignore[union-attr]
-        for name in ("newStage", "stageFromTemplate"):
+        for name in ("newStage", "stageFromTemplate", "importCards", "exportPacket", "printPacket"):
             names[name].setEnabled(editable)
         index = self.document.project.stages.index(stage) if stage is not None else -1
         names["moveStageUp"].setEnabled(editable and index > 0)
@@ -655,6 +677,227 @@ class MainWindow(QMainWindow):
 
         AboutDialog(self).exec()
 
+    # ----------------------------------------------------------------- packet
+    def packet_source(self) -> Path | None:
+        """The saved, unchanged project file a packet is printed from, or ``None`` (the user was told why).
+
+        With unsaved changes the user is asked to save first: the packet names the fingerprint of
+        the file, so it must show exactly what the file holds.
+        """
+        from stagewise.files.project_file import ProjectFileError, load_project
+        from stagewise.ui.exchange_dialogs import SAVE_BEFORE_PACKET
+
+        document = self.document
+        if document.read_only:
+            self._tell("The project is open read-only, so a printed packet could not be recorded in its audit "
+                       "trail; save a copy under another name first.")
+            return None
+        if document.is_modified or document.path is None:
+            answer = QMessageBox.StandardButton.Cancel
+            if self.interactive:
+                answer = QMessageBox.question(
+                    self, "Save before printing", SAVE_BEFORE_PACKET,
+                    QMessageBox.StandardButton.Save | QMessageBox.StandardButton.Cancel,
+                    QMessageBox.StandardButton.Save)
+            if answer != QMessageBox.StandardButton.Save or not self.save():
+                self.show_message(f"No packet printed. {SAVE_BEFORE_PACKET}")
+                return None
+        path = document.path
+        assert path is not None
+        try:
+            on_disk = load_project(path)
+        except ProjectFileError as error:
+            self._tell(f"No packet printed: {error}")
+            return None
+        if on_disk != document.project:
+            self._tell(f"No packet printed: {path.name} on disk is not the project shown (another program "
+                       "changed it); save the project or open the file again.")
+            return None
+        return path
+
+    def packet_author(self) -> str | None:
+        """Who prints the packet (asked once per session, starting from the reviewer name last used)."""
+        if self._packet_author is None:
+            name, role = reviewer_identity()
+            if self.interactive:
+                text, accepted = QInputDialog.getText(
+                    self, "Who prints the packet", "Your name, recorded in the audit trail with the packet:",
+                    text=name)
+                if not accepted or not text.strip():
+                    return None
+                name = text.strip()
+                remember_reviewer(name, role)
+            self._packet_author = name or "unknown user"
+        return self._packet_author
+
+    def export_packet_dialog(self) -> None:
+        source = self.packet_source()
+        if source is None:
+            return
+        stem = source.name.removesuffix(".stagewise.json").removesuffix(".json")
+        suggested = source.with_name(f"{stem}-rev{self.document.project.revision or 'x'}-packet.pdf")
+        chosen, _filter = QFileDialog.getSaveFileName(self, "Export review packet", str(suggested),
+                                                      "PDF documents (*.pdf)")
+        if not chosen:
+            return
+        if not chosen.lower().endswith(".pdf"):
+            chosen += ".pdf"
+        self.export_packet(Path(chosen))
+
+    def export_packet(self, output: Path) -> Any:
+        """Write the packet to ``output`` and record it in the audit trail (saved with the next save).
+
+        Returns the ``PacketResult``, or ``None`` when nothing was written (refused or cancelled).
+        """
+        from stagewise.report.packet import PacketCancelled, build_packet
+
+        source = self.packet_source()
+        who = self.packet_author() if source is not None else None
+        if source is None or who is None:
+            return None
+        project = self.document.project
+        progress = self._packet_progress("Export review packet")
+        try:
+            result = build_packet(project, source, output, progress, analysis=self.worker.analysis_of(project))
+        except PacketCancelled:
+            self.show_message("Export cancelled; no packet was written.")
+            return None
+        except (OSError, RuntimeError) as error:
+            self._tell(f"The packet was not written: {error}")
+            return None
+        finally:
+            progress.close()
+        self._record_packet(result.sha256, result.file_sha256, who, f"Wrote {output.name} ({result.pages} pages)")
+        return result
+
+    def print_packet_dialog(self) -> Any:
+        """Ask for a printer, then send it the packet (a print to a PDF file is recorded too)."""
+        from PySide6.QtPrintSupport import QPrintDialog, QPrinter
+        from PySide6.QtWidgets import QDialog
+
+        source = self.packet_source()
+        who = self.packet_author() if source is not None else None
+        if source is None or who is None:
+            return None
+        printer = QPrinter(QPrinter.PrinterMode.HighResolution)
+        dialog = QPrintDialog(printer, self)
+        if dialog.exec() != QDialog.DialogCode.Accepted:
+            return None
+        return self.print_packet(printer, source, who)
+
+    def print_packet(self, printer: Any, source: Path, who: str) -> Any:
+        from stagewise.report.packet import PacketCancelled, print_packet
+
+        project = self.document.project
+        progress = self._packet_progress("Print packet")
+        try:
+            result = print_packet(project, source, printer, progress, analysis=self.worker.analysis_of(project))
+        except PacketCancelled:
+            self.show_message("Printing cancelled; the printer may have received some pages.")
+            return None
+        except (OSError, RuntimeError) as error:
+            self._tell(f"The packet was not printed: {error}")
+            return None
+        finally:
+            progress.close()
+        # A packet printed into a PDF file has a fingerprint to record; paper has none.
+        pdf = Path(result.path) if result.path else None
+        if pdf is not None and pdf.is_file():
+            import hashlib
+
+            digest = hashlib.sha256(pdf.read_bytes()).hexdigest()
+            self._record_packet(digest, result.file_sha256, who, f"Printed {result.pages} pages to {pdf.name}")
+        else:
+            self.show_message(f"Sent {result.pages} pages to the printer. A paper print has no fingerprint, "
+                              "so it is not recorded in the audit trail.")
+        return result
+
+    def _packet_progress(self, title: str) -> Any:
+        from stagewise.ui.exchange_dialogs import PacketProgress
+
+        return PacketProgress(title, self)
+
+    def _record_packet(self, packet_sha256: str | None, file_sha256: str, who: str, done: str) -> None:
+        from stagewise.review.actions import ReviewError, record_packet
+
+        if packet_sha256 is None:
+            return
+        try:
+            self.document.record_event(
+                lambda project: record_packet(project, packet_sha256, who, file_sha256=file_sha256))
+        except (ReviewError, EditRefused) as error:
+            self._tell(f"{done}, but it could not be recorded in the audit trail: {error}")
+            return
+        self.show_message(f"{done}, SHA-256 {packet_sha256[:12]}…; recorded in the audit trail, "
+                          "which is written with the next save.")
+
+    def _tell(self, sentence: str) -> None:
+        self.show_message(sentence)
+        if self.interactive:
+            QMessageBox.information(self, "Stagewise", sentence)
+
+    # ----------------------------------------------------------------- element cards
+    def import_cards_dialog(self) -> None:
+        dialog = self.card_import_dialog()
+        if dialog.exec() == dialog.DialogCode.Accepted:
+            self.add_imported_stage(dialog)
+
+    def card_import_dialog(self) -> Any:
+        """The import dialog, building stages against the project as it is when Import is pressed."""
+        from stagewise.files.cards import stage_from_cards
+        from stagewise.ui.exchange_dialogs import CardImportDialog
+
+        def build(text: str, name: str, in_node: str, out_node: str) -> Stage:
+            return stage_from_cards(text, name, in_node, out_node, self.document.project)
+
+        return CardImportDialog(build, self)
+
+    def add_imported_stage(self, dialog: Any) -> bool:
+        """Append the stage an accepted import dialog built (undoable); its import is recorded at save."""
+        stage = dialog.stage
+        if stage is None:
+            return False
+        try:
+            self.document.add_stage(stage)
+        except EditRefused as error:
+            self._refuse(error)
+            return False
+        added = self.document.current_stage
+        assert added is not None
+        detail = {"stage": added.id, "name": added.name, "parts": len(added.parts), **dialog.source()}
+        self._pending_imports.append(_ImportedStage(copy.deepcopy(added), detail))
+        self.show_message(f"Imported stage {added.name} ({len(added.parts)} parts); Undo removes it.")
+        return True
+
+    def _record_imports(self, project: Project, who: str) -> Project:
+        """Append an "import" event for each imported stage this save writes for the first time.
+
+        Returns the last saved state with those stages in it as imported, so that the
+        part-change record of this save lists only what changed after the import (the stage's
+        arrival is the import event, not a second "stage added").
+        """
+        from stagewise.review.audit import append_event
+
+        before = self._saved_snapshot
+        arrived = [entry for entry in self._pending_imports
+                   if project.stage(entry.stage.id) is not None and before.stage(entry.stage.id) is None]
+        if not arrived:
+            return before
+        before = copy.deepcopy(before)
+        order = [stage.id for stage in project.stages]
+        for entry in arrived:
+            try:
+                append_event(project, who, "import", dict(entry.detail))
+            except ValueError as error:
+                self.show_message(f"The import of {entry.stage.name} was not recorded: {error}")
+                continue
+            self._pending_imports.remove(entry)
+            # Keep the saved order of the other stages, so nothing reads as moved.
+            earlier = set(order[:order.index(entry.stage.id)])
+            position = max((index + 1 for index, stage in enumerate(before.stages) if stage.id in earlier), default=0)
+            before.stages.insert(position, copy.deepcopy(entry.stage))
+        return before
+
     # ----------------------------------------------------------------- files
     def _fill_recent(self) -> None:
         self.recent_menu.clear()
@@ -724,6 +967,7 @@ class MainWindow(QMainWindow):
         return True
 
     def _after_switch(self) -> None:
+        self._pending_imports.clear()
         self.overlays.show_only_stage(self.document.current_stage_id)
         self._previous_stage = self.document.current_stage_id
         self._update_title()
@@ -787,7 +1031,8 @@ class MainWindow(QMainWindow):
         project = self.document.project
         name, _role = reviewer_identity()
         try:
-            record_part_changes(self._saved_snapshot, project, name or "unknown user")
+            before = self._record_imports(project, name or "unknown user")
+            record_part_changes(before, project, name or "unknown user")
         except ReviewError as error:
             self.show_message(f"Saved without a change record: {error}")
         try:
