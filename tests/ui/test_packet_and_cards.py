@@ -217,3 +217,37 @@ def test_import_read_from_a_file_is_recorded_once_as_an_import_when_saved(window
     assert len([event for event in audit if event.what == "import"]) == 1
     changed = [change for event in audit if event.what == "part change" for change in event.detail["changes"]]
     assert any(change["stage"] == stage_id and change["subject"] == "part Rin" for change in changed)
+
+
+def test_who_prints_is_asked_once_per_session_and_remembered(window, monkeypatch: pytest.MonkeyPatch) -> None:  # type: ignore[no-untyped-def]
+    from PySide6.QtWidgets import QInputDialog
+
+    from stagewise.ui.settings import remember_reviewer, reviewer_identity
+
+    remember_reviewer("Ines Okafor", "test lead")
+    offered: list[str] = []
+
+    def answer(_parent: object, _title: str, _label: str, text: str = "") -> tuple[str, bool]:
+        offered.append(text)
+        return "Ines Okafor-Berg", True
+
+    monkeypatch.setattr(QInputDialog, "getText", answer)
+    window.interactive = True
+    try:
+        assert window.packet_author() == "Ines Okafor-Berg"
+        assert window.packet_author() == "Ines Okafor-Berg"
+    finally:
+        window.interactive = False
+    assert offered == ["Ines Okafor"]  # the name the sign-off dialog stored, asked once
+    assert reviewer_identity() == ("Ines Okafor-Berg", "test lead")
+
+
+def test_read_only_project_prints_no_packet_it_could_not_record(window, sample_path: Path, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    window.document.replace_project(window.document.project, sample_path, read_only=True)
+    window._update_actions()
+    for name in ("exportPacket", "printPacket", "importCards"):
+        assert not window.actions_by_name[name].isEnabled()
+    output = tmp_path / "read-only.pdf"
+    assert window.export_packet(output) is None
+    assert not output.exists()
+    assert "read-only" in window.statusBar().currentMessage()
