@@ -58,6 +58,17 @@ class Context:
         self._cache: dict[tuple[str, ...], Any] = {}
         self._grid_key: tuple[float, float, int] = (0.0, 0.0, 0)
         self.chain_state: dict[str, Any] = {}
+        self._engine: Any = None
+
+    @property
+    def engine(self) -> Any:
+        """The chain engine of this worker: its stage reductions are cached by fingerprint, so
+        after an edit only the edited stage is reduced again."""
+        if self._engine is None:
+            from stagewise.engine.chain import ChainEngine
+
+            self._engine = ChainEngine()
+        return self._engine
 
     def begin(self, project: Project, baseline: Project | None) -> None:
         """Start work on a snapshot: new grid when the settings changed, keep valid caches."""
@@ -233,34 +244,30 @@ def _merged(project: Project, context: Context) -> Any:
     return merged
 
 
-def _chain_solution(project: Project, context: Context) -> Any:
-    """Every unknown of the driven merged chain at every frequency (one batched solve)."""
-    from stagewise.engine.sweep import solve_batched
-
-    key = "solution" if project is not context.baseline else "baseline_solution"
+def _chain_result(project: Project, context: Context) -> Any:
+    """The chain with loading on this snapshot's grid (engine/chain.py: port relations cached by
+    stage fingerprint, so an edit re-reduces one stage), computed once per snapshot."""
+    key = "chain_result" if project is not context.baseline else "baseline_chain_result"
     if key not in context.chain_state:
-        merged = _merged(project, context)
-        driven = merged.driven()
-        s = 1j * 2.0 * math.pi * context.f_hz
-        context.chain_state[key] = solve_batched(driven.g, driven.c, driven.b.astype(complex), s)
-    return context.chain_state[key]
+        try:
+            context.chain_state[key] = context.engine.analyze(project, context.f_hz)
+        except ValueError as error:
+            context.chain_state[key] = error
+    result = context.chain_state[key]
+    if isinstance(result, Exception):
+        raise NotAvailable(explain(result))
+    return result
 
 
 def in_chain_response(stage: Stage, project: Project, context: Context) -> ResponseTrace:
-    """V_out/V_in of the stage where it sits in the chain, loaded by the next stage."""
+    """The stage where it sits in the chain, loaded by the next stage: V_out/V_in, or V_out/I_in
+    for a current-driven stage (the same unit as the stage alone)."""
     if stage.bypass:
         raise NotAvailable("the stage is bypassed: it is not in the chain")
-    merged = _merged(project, context)
-    index = merged.stage_ids.index(stage.id)
-    solution = _chain_solution(project, context)
-    v_in = solution[:, merged.interface_indices[index]]
-    v_out = solution[:, merged.interface_indices[index + 1]]
-    if index == 0 and merged.current_drive:
-        # A current-driven first stage is seen as V_out/I_in; the chain's drive is 1 A.
-        return _trace(context.f_hz, v_out, "Ω")
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = v_out / v_in
-    return _trace(context.f_hz, ratio, "V/V")
+    entry = _chain_result(project, context).stage(stage.id)
+    if entry.in_chain is None:
+        raise NotAvailable(entry.in_chain_why or "the stage has no response in chain")
+    return _trace(context.f_hz, entry.in_chain, entry.unit)
 
 
 @dataclass(frozen=True, slots=True)
@@ -352,10 +359,8 @@ def _chain_model(project: Project, context: Context) -> Any:
 def chain_response(project: Project, context: Context) -> ResponseTrace:
     """Drive → last output of the whole chain, with loading (the merged circuit, one batched solve
     shared with the in-chain responses)."""
-    merged = _merged(project, context)
-    driven = merged.driven()
-    values = _chain_solution(project, context)[:, driven.output]
-    return _mag_phase(_chain_model(project, context), context.f_hz, values, "Ω" if merged.current_drive else "V/V")
+    result = _chain_result(project, context)
+    return _mag_phase(_chain_model(project, context), context.f_hz, result.response, result.unit)
 
 
 def chain_step(project: Project, context: Context) -> StepTrace:
