@@ -26,7 +26,8 @@ sys.path.insert(0, str(HERE.parent.parent / "desktop"))
 class Benchmark:
     """One entry: ``ours`` and ``baseline`` are callables timed alike.
 
-    ``setup`` runs once before timing and its result is passed to both callables. The goal is
+    ``setup`` runs once before timing and its result is passed to both callables; ``before``, when
+    given, runs before every timed call, outside the timing (a pause a user would make). The goal is
     ``ratio <= goal_ratio`` when ``goal_ratio`` is set; ``goal_seconds`` bounds ``ours_s`` for
     targets stated in seconds on this machine class (the baseline then shows the machine's speed).
     """
@@ -39,12 +40,18 @@ class Benchmark:
     goal_ratio: float | None = None
     goal_seconds: float | None = None
     repeats: int = 5
+    before: Callable[[object], object] | None = None
 
 
-def _median_seconds(function: Callable[[object], object], context: object, repeats: int) -> float:
+def _median_seconds(function: Callable[[object], object], context: object, repeats: int,
+                    before: Callable[[object], object] | None = None) -> float:
+    if before is not None:
+        before(context)
     function(context)  # warm-up: imports, caches of the library (not ours: see each benchmark)
     samples = []
     for _ in range(repeats):
+        if before is not None:
+            before(context)
         start = time.perf_counter()
         function(context)
         samples.append(time.perf_counter() - start)
@@ -67,8 +74,8 @@ def discover() -> list[Benchmark]:
 def run(benchmark: Benchmark, repeats: int | None = None) -> dict[str, object]:
     context = benchmark.setup() if benchmark.setup else None
     count = repeats or benchmark.repeats
-    ours = _median_seconds(benchmark.ours, context, count)
-    baseline = _median_seconds(benchmark.baseline, context, count)
+    ours = _median_seconds(benchmark.ours, context, count, benchmark.before)
+    baseline = _median_seconds(benchmark.baseline, context, count, benchmark.before)
     ratio = ours / baseline if baseline > 0 else float("inf")
     goals = []
     met = True
