@@ -403,7 +403,9 @@ def _refine(
 
     ``evaluate(rows, f)`` gives the function at frequencies ``f`` for those rows (indices into
     the brackets). Rows stop once their step is below 1e-10 in ln f; unfinished NaN brackets
-    stay NaN.
+    stay NaN. A row whose next point lies within 1e-10 of its last one ends at that point
+    without a solve there: the solve would only confirm the stop (a caller needing the value
+    at the root evaluates it once, for all rows together).
     """
     valid = np.isfinite(low_hz) & np.isfinite(high_hz)
     a = np.where(valid, np.log(np.where(valid, low_hz, 1.0)), 0.0)
@@ -418,6 +420,12 @@ def _refine(
         denominator = fb_ - fa_
         safe = np.abs(denominator) > 0
         x = np.where(safe, b_ - fb_ * (b_ - a_) / np.where(safe, denominator, 1.0), b_)
+        converged = np.abs(x - b_) <= 1e-10
+        b[active[converged]] = x[converged]
+        stepping = ~converged
+        active, x, a_, b_, fa_, fb_ = (v[stepping] for v in (active, x, a_, b_, fa_, fb_))
+        if active.size == 0:
+            break
         fx = evaluate(active, np.exp(x))
         crossed = np.sign(fx) != np.sign(fb_)
         # The old b becomes the other end when the root lies between; else halve the retained
@@ -425,8 +433,7 @@ def _refine(
         a[active] = np.where(crossed, b_, a_)
         fa[active] = np.where(crossed, fb_, fa_ / 2.0)
         b[active], fb[active] = x, fx
-        moving = (np.abs(x - b_) > 1e-10) & (fx != 0) & np.isfinite(fx)
-        active = active[moving]
+        active = active[(fx != 0) & np.isfinite(fx)]
     return np.where(valid, np.exp(b), np.nan)
 
 
