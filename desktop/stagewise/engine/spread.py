@@ -398,28 +398,55 @@ def _refine(
     evaluate: Callable[[NDArray[np.intp], NDArray[np.float64]], NDArray[np.float64]],
     low_hz: NDArray[np.float64], high_hz: NDArray[np.float64],
     value_low: NDArray[np.float64], value_high: NDArray[np.float64],
+    estimate: tuple[NDArray[np.float64], NDArray[np.float64]] | None = None,
 ) -> NDArray[np.float64]:
-    """Illinois regula falsi in ln f on every row at once.
+    """Root of every row inside its bracket, in ln f: safeguarded secant, else Illinois regula falsi.
 
     ``evaluate(rows, f)`` gives the function at frequencies ``f`` for those rows (indices into
-    the brackets). Rows stop once their step is below 1e-10 in ln f; unfinished NaN brackets
-    stay NaN. A row whose next point lies within 1e-10 of its last one ends at that point
-    without a solve there: the solve would only confirm the stop (a caller needing the value
-    at the root evaluates it once, for all rows together).
+    the brackets). ``estimate``, when given, is ``(ln f, d ln f / d value)`` at the root of each
+    row as interpolated from the grid (:func:`_inverse_cubic`; NaN where there is none): the
+    first point is that estimate and the second a Newton step from it with that slope. After
+    that each point is the secant through the last two points when it falls strictly inside
+    the bracket, else the Illinois point of the bracket; the bracket (a sign change) is kept
+    throughout, so the root never leaves it. Rows stop once their step is below 1e-10 in ln f;
+    unfinished NaN brackets stay NaN. A row whose next point lies within 1e-10 of its last one
+    ends at that point without a solve there: the solve would only confirm the stop (a caller
+    needing the value at the root evaluates it once, for all rows together).
+
+    References
+    ----------
+    T. J. Dekker, "Finding a zero by means of successive linear interpolation", in
+    Constructive Aspects of the Fundamental Theorem of Algebra, Wiley, 1969 (secant steps kept
+    inside a bracket).
     """
     valid = np.isfinite(low_hz) & np.isfinite(high_hz)
     a = np.where(valid, np.log(np.where(valid, low_hz, 1.0)), 0.0)
     b = np.where(valid, np.log(np.where(valid, high_hz, 1.0)), 0.0)
     fa = np.where(valid, value_low, -1.0)
     fb = np.where(valid, value_high, 1.0)
+    previous = np.full(a.shape, np.nan)  # the point before b and its value (for the secant)
+    f_previous = np.full(a.shape, np.nan)
+    guess = slope = np.full(a.shape, np.nan)
+    if estimate is not None:
+        guess, slope = estimate
     active = np.flatnonzero(valid & (fb != 0))
-    for _ in range(REFINE_STEPS):  # iterations of the root finder, each one batched solve
+    for step in range(REFINE_STEPS):  # iterations of the root finder, each one batched solve
         if active.size == 0:
             break
         a_, b_, fa_, fb_ = a[active], b[active], fa[active], fb[active]
+        p_, fp_ = previous[active], f_previous[active]
         denominator = fb_ - fa_
         safe = np.abs(denominator) > 0
         x = np.where(safe, b_ - fb_ * (b_ - a_) / np.where(safe, denominator, 1.0), b_)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if step == 0:
+                candidate = guess[active]
+            elif step == 1:
+                candidate = np.where(np.isfinite(guess[active]), b_ - fb_ * slope[active], np.nan)
+            else:
+                candidate = b_ - fb_ * (b_ - p_) / (fb_ - fp_)
+        inside = np.isfinite(candidate) & (candidate > np.minimum(a_, b_)) & (candidate < np.maximum(a_, b_))
+        x = np.where(inside, candidate, x)
         converged = np.abs(x - b_) <= 1e-10
         b[active[converged]] = x[converged]
         stepping = ~converged
@@ -432,9 +459,43 @@ def _refine(
         # end's value (Illinois), so the bracket keeps shrinking from both sides.
         a[active] = np.where(crossed, b_, a_)
         fa[active] = np.where(crossed, fb_, fa_ / 2.0)
+        previous[active], f_previous[active] = b_, fb_
         b[active], fb[active] = x, fx
         active = active[(fx != 0) & np.isfinite(fx)]
     return np.where(valid, np.exp(b), np.nan)
+
+
+def _inverse_cubic(ln_f: NDArray[np.float64], values: NDArray[np.float64],
+                   left: NDArray[np.intp]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Estimate of each row's root from the four grid values around its bracket, for ``_refine``.
+
+    ``left`` is the grid index of each row's bracket (root between ``left`` and ``left + 1``).
+    ln f is interpolated as a cubic in the value through the four nearest grid points (inverse
+    Lagrange interpolation) and read at value 0: returns ``(ln f, d ln f / d value)`` there,
+    NaN where those four values are not strictly monotone (the inverse does not exist).
+    """
+    start = np.clip(left - 1, 0, ln_f.size - 4)
+    index = start[:, None] + np.arange(4)[None, :]
+    x = ln_f[index]
+    v = values[np.arange(values.shape[0])[:, None], index]
+    steps = np.diff(v, axis=1)
+    monotone = np.all(steps > 0, axis=1) | np.all(steps < 0, axis=1)
+    root = np.zeros(v.shape[0])
+    slope = np.zeros(v.shape[0])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for i in range(4):
+            # Lagrange basis at 0, L_i(0) = Π_{j≠i} v_j / (v_j − v_i), and its derivative
+            # L_i'(0) = L_i(0)·Σ_{j≠i} −1/v_j.
+            basis = np.ones(v.shape[0])
+            log_derivative = np.zeros(v.shape[0])
+            for j in range(4):
+                if j != i:
+                    basis *= v[:, j] / (v[:, j] - v[:, i])
+                    log_derivative -= 1.0 / v[:, j]
+            root += x[:, i] * basis
+            slope += x[:, i] * basis * log_derivative
+    usable = monotone & np.isfinite(root) & np.isfinite(slope)
+    return np.where(usable, root, np.nan), np.where(usable, slope, np.nan)
 
 
 def corners_3db(
@@ -644,11 +705,16 @@ def _evaluate_samples(
         return evaluate
 
     corners: list[NDArray[np.float64]] = []
+    ln_f = np.log(f_hz)
+    with np.errstate(invalid="ignore"):
+        excess_grid = mag_db - (gain_db[:, None] - HALF_POWER_DB)
     for f_a, f_b, v_a, v_b in ((lo_a, lo_b, lv_a, lv_b), (hi_a, hi_b, hv_a, hv_b)):
         rows = np.flatnonzero(np.isfinite(f_a))
         values = np.full(count, np.nan)
         if rows.size:
-            values[rows] = _refine(excess_at(rows), f_a[rows], f_b[rows], v_a[rows], v_b[rows])
+            left = np.minimum(np.searchsorted(f_hz, f_a[rows]), np.searchsorted(f_hz, f_b[rows]))
+            estimate = _inverse_cubic(ln_f, excess_grid[rows], left)
+            values[rows] = _refine(excess_at(rows), f_a[rows], f_b[rows], v_a[rows], v_b[rows], estimate)
         corners.append(values)
     margins: dict[str, NDArray[np.float64]] = {}
     for opamp in model.opamps:
@@ -710,8 +776,10 @@ def _sampled_phase_margins(model: ToleranceModel, multipliers: NDArray[np.float6
         result: NDArray[np.float64] = np.log(np.abs(loop))
         return result
 
+    with np.errstate(divide="ignore"):
+        estimate = _inverse_cubic(np.log(loop_grid), np.log(magnitude[rows]), index)
     crossover = _refine(log_magnitude, loop_grid[index], loop_grid[index + 1],
-                        np.log(magnitude[rows, index]), np.log(magnitude[rows, index + 1]))
+                        np.log(magnitude[rows, index]), np.log(magnitude[rows, index + 1]), estimate)
     at_crossover = loop_at(slice(None), crossover)
     margin = 180.0 + np.degrees(np.angle(at_crossover))
     margins[rows] = margin - 360.0 * np.round((margin - nominal_margin_deg) / 360.0)
