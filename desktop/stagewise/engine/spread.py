@@ -690,37 +690,32 @@ def _evaluate_samples(
     (lo_a, lo_b, lv_a, lv_b), (hi_a, hi_b, hv_a, hv_b) = corners_3db(f_hz, mag_db, ref_index, gain_db)
 
     dense = _DenseCache(model, multipliers)
-
-    def excess_at(rows: NDArray[np.intp]) -> Callable[[NDArray[np.intp], NDArray[np.float64]], NDArray[np.float64]]:
+    ln_f = np.log(f_hz)
+    with np.errstate(invalid="ignore"):
+        excess_grid = mag_db - (gain_db[:, None] - HALF_POWER_DB)
+    # Both corners of every sample refined together: one batched solve per step.
+    low_rows, high_rows = np.flatnonzero(np.isfinite(lo_a)), np.flatnonzero(np.isfinite(hi_a))
+    rows = np.concatenate([low_rows, high_rows])
+    f_a, f_b = np.concatenate([lo_a[low_rows], hi_a[high_rows]]), np.concatenate([lo_b[low_rows], hi_b[high_rows]])
+    v_a, v_b = np.concatenate([lv_a[low_rows], hv_a[high_rows]]), np.concatenate([lv_b[low_rows], hv_b[high_rows]])
+    found = np.zeros(0)
+    if rows.size:
+        g, c = dense.matrices()
         target = gain_db[rows] - HALF_POWER_DB
-        g_rows, c_rows = dense.rows(rows)
+        output = _unit(model.size, model.output)
 
-        def evaluate(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
-            values = _solve_output(g_rows[subset], c_rows[subset], model.b, lambda x: x[..., model.output],
-                                   frequencies[:, None])[:, 0]
+        def excess(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
+            values = _dense_readout(g, c, rows[subset], rows[subset], model.b, output, frequencies)
             with np.errstate(divide="ignore"):
                 result: NDArray[np.float64] = 20.0 * np.log10(np.abs(values)) - target[subset]
             return result
 
-        return evaluate
-
-    corners: list[NDArray[np.float64]] = []
-    ln_f = np.log(f_hz)
-    with np.errstate(invalid="ignore"):
-        excess_grid = mag_db - (gain_db[:, None] - HALF_POWER_DB)
-    for f_a, f_b, v_a, v_b in ((lo_a, lo_b, lv_a, lv_b), (hi_a, hi_b, hv_a, hv_b)):
-        rows = np.flatnonzero(np.isfinite(f_a))
-        values = np.full(count, np.nan)
-        if rows.size:
-            left = np.minimum(np.searchsorted(f_hz, f_a[rows]), np.searchsorted(f_hz, f_b[rows]))
-            estimate = _inverse_cubic(ln_f, excess_grid[rows], left)
-            values[rows] = _refine(excess_at(rows), f_a[rows], f_b[rows], v_a[rows], v_b[rows], estimate)
-        corners.append(values)
-    margins: dict[str, NDArray[np.float64]] = {}
-    for opamp in model.opamps:
-        if opamp.ref in loop_grids:
-            loop_grid, nominal_margin = loop_grids[opamp.ref]
-            margins[opamp.ref] = _sampled_phase_margins(model, multipliers, dense, opamp, loop_grid, nominal_margin)
+        left = np.minimum(np.searchsorted(f_hz, f_a), np.searchsorted(f_hz, f_b))
+        found = _refine(excess, f_a, f_b, v_a, v_b, _inverse_cubic(ln_f, excess_grid[rows], left))
+    corners = [np.full(count, np.nan), np.full(count, np.nan)]
+    corners[0][low_rows] = found[: low_rows.size]
+    corners[1][high_rows] = found[low_rows.size:]
+    margins = _sampled_phase_margins(model, multipliers, dense, loop_grids)
     return SpreadSamples(
         multipliers=multipliers, f_hz=f_hz, response=response, ref_hz=ref_hz, gain_db=gain_db,
         peak_gain_db=peak, peaking_db=np.maximum(peak - gain_db, 0.0),
@@ -737,52 +732,117 @@ class _DenseCache:
         self.multipliers = multipliers
         self.built: tuple[NDArray[np.float64], NDArray[np.float64]] | None = None
 
-    def rows(self, rows: NDArray[np.intp]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    def matrices(self) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         if self.built is None:
             self.built = self.model.matrices(self.multipliers)
-        return self.built[0][rows], self.built[1][rows]
+        return self.built
+
+
+def _dense_readout(
+    g: NDArray[np.float64], c: NDArray[np.float64], g_index: NDArray[np.intp], c_index: NDArray[np.intp],
+    rhs: NDArray[np.float64], reader: NDArray[np.float64], f_hz: NDArray[np.float64],
+    unsolvable: str = "a sampled circuit cannot be solved (singular matrix): a tolerance drives a part to "
+                      "zero or the circuit floats",
+) -> NDArray[np.complex128]:
+    """``reader_rᵀ·(G_r + j2πf_r·C_r)⁻¹·rhs_r`` for every row r, each at its own frequency.
+
+    ``g`` and ``c`` are stacks (k, n, n) of real matrices; row r uses ``g[g_index[r]]`` and
+    ``c[c_index[r]]``. ``rhs`` and ``reader`` are (n,) for every row or (rows, n) per row.
+    Chunked over rows on the worker threads; a chunk's complex matrices are assembled for that
+    chunk only. ``unsolvable`` is the sentence of the CircuitError for a singular matrix.
+    """
+    count, n = f_hz.size, g.shape[1]
+    rhs_rows = np.broadcast_to(rhs, (count, n))
+    reader_rows = np.broadcast_to(reader, (count, n))
+    out = np.empty(count, dtype=complex)
+
+    def solve_rows(start: int, stop: int) -> None:
+        matrices = np.empty((stop - start, n, n), dtype=complex)
+        matrices.real = g[g_index[start:stop]]
+        matrices.imag = c[c_index[start:stop]] * (TWO_PI * f_hz[start:stop])[:, None, None]
+        try:
+            x = np.linalg.solve(matrices, rhs_rows[start:stop, :, None].astype(complex))[..., 0]
+        except np.linalg.LinAlgError as error:
+            raise CircuitError(unsolvable) from error
+        out[start:stop] = np.einsum("rn,rn->r", x, reader_rows[start:stop])
+
+    _in_chunks(count, max(1, int(CHUNK_BYTES // (n * n * 16))), solve_rows)
+    return out
 
 
 def _sampled_phase_margins(model: ToleranceModel, multipliers: NDArray[np.float64], dense: _DenseCache,
-                           opamp: OpampStates, loop_grid: NDArray[np.float64],
-                           nominal_margin_deg: float) -> NDArray[np.float64]:
-    """Phase margin of one op-amp in every sample: bracket |T| = 1 on the grid, refine, read ∠T.
+                           loop_grids: dict[str, tuple[NDArray[np.float64], float]]) -> dict[str, NDArray[np.float64]]:
+    """Phase margin of every op-amp in every sample: bracket |T| = 1 on the grid, refine, read ∠T.
 
-    The phase branch is the one nearest the nominal margin (tolerances move it by far less than
-    360°). A sample whose crossover leaves the grid (half a decade either side of nominal) gets NaN.
+    ``loop_grids`` maps op-amp ref -> (grid around its nominal crossover, nominal margin); the
+    op-amps without one get no entry. The phase branch is the one nearest the nominal margin
+    (tolerances move it by far less than 360°). A sample whose crossover leaves the grid (half a
+    decade either side of nominal) gets NaN. The crossovers of all op-amps are refined together,
+    one batched solve per step.
     """
-    values = _loop_values(model, multipliers, opamp, loop_grid)
-    magnitude = np.abs(values)
-    above = magnitude >= 1.0
-    downward = above[:, :-1] & ~above[:, 1:]
-    has = downward.any(axis=1)
-    # The highest downward crossing of each sample.
-    last = downward.shape[1] - 1 - np.argmax(downward[:, ::-1], axis=1)
-    rows = np.flatnonzero(has)
-    margins = np.full(multipliers.shape[0], np.nan)
-    if rows.size == 0:
+    count, n = multipliers.shape[0], model.size
+    opamps = [opamp for opamp in model.opamps if opamp.ref in loop_grids]
+    margins = {opamp.ref: np.full(count, np.nan) for opamp in opamps}
+    samples, slots, f_a, f_b, v_a, v_b, guesses, slopes = ([] for _ in range(8))
+    for slot, opamp in enumerate(opamps):
+        loop_grid = loop_grids[opamp.ref][0]
+        magnitude = np.abs(_loop_values(model, multipliers, opamp, loop_grid))
+        above = magnitude >= 1.0
+        downward = above[:, :-1] & ~above[:, 1:]
+        # The highest downward crossing of each sample.
+        last = downward.shape[1] - 1 - np.argmax(downward[:, ::-1], axis=1)
+        rows = np.flatnonzero(downward.any(axis=1))
+        index = last[rows]
+        with np.errstate(divide="ignore"):
+            log_magnitude = np.log(magnitude[rows])
+        guess, slope = _inverse_cubic(np.log(loop_grid), log_magnitude, index)
+        samples.append(rows)
+        slots.append(np.full(rows.size, slot))
+        f_a.append(loop_grid[index])
+        f_b.append(loop_grid[index + 1])
+        v_a.append(log_magnitude[np.arange(rows.size), index])
+        v_b.append(log_magnitude[np.arange(rows.size), index + 1])
+        guesses.append(guess)
+        slopes.append(slope)
+    if not opamps:
         return margins
-    index = last[rows]
-    g_rows, c_rows = dense.rows(rows)
-    g_rows = _broken_g(g_rows, opamp)
-    reader = _returned_vector(model.size, opamp)
+    sample, slot_of = np.concatenate(samples), np.concatenate(slots)
+    if sample.size == 0:
+        return margins
+    g, c = dense.matrices()
+    per_opamp = np.empty((len(opamps), count, n, n))
+    for slot, opamp in enumerate(opamps):
+        per_opamp[slot] = _broken_g(g, opamp)
+    broken = per_opamp.reshape(-1, n, n)  # row slot·count + sample
+    g_index = slot_of * count + sample
+    injections = np.array([_unit(n, opamp.state_row) for opamp in opamps])[slot_of]
+    readers = np.array([_returned_vector(n, opamp) for opamp in opamps])[slot_of]
 
-    def loop_at(subset: NDArray[np.intp] | slice, frequencies: NDArray[np.float64]) -> NDArray[np.complex128]:
-        return _solve_output(g_rows[subset], c_rows[subset], opamp.state_row, lambda x: x @ reader,
-                             frequencies[:, None])[:, 0]
+    # T at each row's last solved point: the refinement stops within 1e-10 (in ln f) of it, the
+    # tolerance of the crossover itself, so the phase is read there without a further solve.
+    last_loop = np.full(sample.size, np.nan, dtype=complex)
 
-    def log_magnitude(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
+    def loop_at(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.complex128]:
+        return _dense_readout(broken, c, g_index[subset], sample[subset], injections[subset], readers[subset],
+                              frequencies)
+
+    def log_magnitude_at(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
         loop = loop_at(subset, frequencies)
+        last_loop[subset] = loop
         result: NDArray[np.float64] = np.log(np.abs(loop))
         return result
 
-    with np.errstate(divide="ignore"):
-        estimate = _inverse_cubic(np.log(loop_grid), np.log(magnitude[rows]), index)
-    crossover = _refine(log_magnitude, loop_grid[index], loop_grid[index + 1],
-                        np.log(magnitude[rows, index]), np.log(magnitude[rows, index + 1]), estimate)
-    at_crossover = loop_at(slice(None), crossover)
-    margin = 180.0 + np.degrees(np.angle(at_crossover))
-    margins[rows] = margin - 360.0 * np.round((margin - nominal_margin_deg) / 360.0)
+    crossover = _refine(log_magnitude_at, np.concatenate(f_a), np.concatenate(f_b), np.concatenate(v_a),
+                        np.concatenate(v_b), (np.concatenate(guesses), np.concatenate(slopes)))
+    unsolved = np.flatnonzero(np.isnan(last_loop))  # a root on a grid point: no solve was needed
+    if unsolved.size:
+        last_loop[unsolved] = loop_at(unsolved, crossover[unsolved])
+    margin = 180.0 + np.degrees(np.angle(last_loop))
+    nominal = np.array([loop_grids[opamp.ref][1] for opamp in opamps])[slot_of]
+    margin -= 360.0 * np.round((margin - nominal) / 360.0)
+    for slot, opamp in enumerate(opamps):
+        mine = slot_of == slot
+        margins[opamp.ref][sample[mine]] = margin[mine]
     return margins
 
 
