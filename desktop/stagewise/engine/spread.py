@@ -867,20 +867,87 @@ def _metric_spread(key: str, unit: str, nominal: float, values: NDArray[np.float
 
 def _default_loop_grids(model: ToleranceModel) -> dict[str, tuple[NDArray[np.float64], float]]:
     """Around each op-amp's nominal crossover: half a decade either side, 10 points per decade; with
-    the nominal phase margin, which fixes the phase branch of every sample."""
-    from stagewise.engine.loops import loop_gain  # the same break as the nominal loop analysis
+    the nominal phase margin, which fixes the phase branch of every sample.
 
-    grids: dict[str, tuple[NDArray[np.float64], float]] = {}
-    for opamp in model.opamps:
+    The nominal crossover is found as the nominal loop analysis defines it (the loop broken at
+    the op-amp's state row, the highest downward crossing of |T| = 1 on a log grid from 1/100 of
+    the dominant pole to 1000 × the gain-bandwidth; none when |T| never falls through 1 there),
+    for all op-amps at once: one batched solve of every search grid, then batched refinement.
+    """
+    opamps = model.opamps
+    if not opamps:
+        return {}
+    n = model.size
+    searches = []
+    for opamp in opamps:
         gbw_hz = 1.0 / (TWO_PI * model.c0[opamp.state_row, opamp.state_row])
-        search = np.logspace(math.log10(gbw_hz / opamp.a0 / 100.0), math.log10(gbw_hz * 1000.0),
-                             int(math.log10(1e5 * opamp.a0)) * 40 + 1)
-        nominal_loop = loop_gain(model.g0, model.c0, opamp, search)
-        if nominal_loop.crossover_hz is None or nominal_loop.phase_margin_deg is None:
-            continue
-        centre = nominal_loop.crossover_hz
+        searches.append(np.logspace(math.log10(gbw_hz / opamp.a0 / 100.0), math.log10(gbw_hz * 1000.0),
+                                    int(math.log10(1e5 * opamp.a0)) * 40 + 1))
+    broken = np.array([_broken_g(model.g0, opamp) for opamp in opamps])
+    c0 = model.c0[None, :, :]
+    injections = np.array([_unit(n, opamp.state_row) for opamp in opamps])
+    readers = np.array([_returned_vector(n, opamp) for opamp in opamps])
+
+    def loops_at(slots: NDArray[np.intp], f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+        return _dense_readout(broken, c0, slots, np.zeros(slots.size, dtype=np.intp), injections[slots],
+                              readers[slots], f_hz)
+
+    slot_of = np.concatenate([np.full(search.size, slot) for slot, search in enumerate(searches)])
+    try:
+        values = loops_at(slot_of, np.concatenate(searches))
+    except CircuitError:
+        for slot, opamp in enumerate(opamps):  # name the op-amp whose broken loop is singular
+            try:
+                loops_at(np.full(searches[slot].size, slot), searches[slot])
+            except CircuitError as error:
+                raise CircuitError(f"{opamp.ref}: the circuit with its loop broken cannot be solved "
+                                   "(a floating node once the op-amp's input dependence is removed)") from error
+        raise
+    found: list[int] = []
+    ends: list[tuple[float, float, float, float]] = []
+    estimates: list[tuple[float, float]] = []
+    branches: list[float] = []
+    offset = 0
+    for slot, search in enumerate(searches):
+        loop = values[offset: offset + search.size]
+        offset += search.size
+        magnitude = np.abs(loop)
+        above = magnitude >= 1.0
+        downward = np.flatnonzero(above[:-1] & ~above[1:])
+        if above[-1] or downward.size == 0:
+            continue  # no crossover on the search grid: no margin to spread
+        top = int(downward[-1])
+        log_magnitude = np.log(magnitude)
+        guess, slope = _inverse_cubic(np.log(search), log_magnitude[None, :], np.array([top]))
+        found.append(slot)
+        ends.append((float(search[top]), float(search[top + 1]), float(log_magnitude[top]),
+                     float(log_magnitude[top + 1])))
+        estimates.append((float(guess[0]), float(slope[0])))
+        branches.append(float(np.unwrap(np.angle(loop))[top]))
+    if not found:
+        return {}
+    slots = np.array(found, dtype=np.intp)
+    low_hz, high_hz, value_low, value_high = (np.array(column) for column in zip(*ends, strict=True))
+    last_loop = np.full(slots.size, np.nan, dtype=complex)
+
+    def log_magnitude_at(subset: NDArray[np.intp], f_hz: NDArray[np.float64]) -> NDArray[np.float64]:
+        loop = loops_at(slots[subset], f_hz)
+        last_loop[subset] = loop
+        result: NDArray[np.float64] = np.log(np.abs(loop))
+        return result
+
+    crossover = _refine(log_magnitude_at, low_hz, high_hz, value_low, value_high,
+                        (np.array([e[0] for e in estimates]), np.array([e[1] for e in estimates])))
+    unsolved = np.flatnonzero(np.isnan(last_loop))
+    if unsolved.size:
+        last_loop[unsolved] = loops_at(slots[unsolved], crossover[unsolved])
+    grids: dict[str, tuple[NDArray[np.float64], float]] = {}
+    for number, slot in enumerate(found):
+        angle = float(np.angle(last_loop[number]))
+        phase = angle + TWO_PI * round((branches[number] - angle) / TWO_PI)  # the grid's unwrapped branch
+        centre = float(crossover[number])
         grid = np.logspace(math.log10(centre) - 0.5, math.log10(centre) + 0.5, 11)
-        grids[opamp.ref] = (grid, nominal_loop.phase_margin_deg)
+        grids[opamps[slot].ref] = (grid, 180.0 + math.degrees(phase))
     return grids
 
 
