@@ -151,6 +151,14 @@ class _Builder:
         if row >= 0 and column >= 0 and value != 0.0:
             self.c_entries.append((row, column, value))
 
+    def voltage_branch(self, row: int, plus: int, minus: int) -> None:
+        """A branch whose current is unknown ``row``, flowing plus -> minus through it; its own
+        row starts ``v(plus) − v(minus)`` (the caller adds what that voltage equals)."""
+        self.g(plus, row, 1.0)
+        self.g(minus, row, -1.0)
+        self.g(row, plus, 1.0)
+        self.g(row, minus, -1.0)
+
     def admittance(self, a: int, b: int, value: float, capacitive: bool) -> None:
         stamp = self.c if capacitive else self.g
         stamp(a, a, value)
@@ -274,17 +282,11 @@ def _stamp(
         builder.admittance(nodes[0], nodes[1], value, capacitive=True)
     elif kind == "L":
         row = branch[part.ref]
-        builder.g(nodes[0], row, 1.0)
-        builder.g(nodes[1], row, -1.0)
-        builder.g(row, nodes[0], 1.0)
-        builder.g(row, nodes[1], -1.0)
+        builder.voltage_branch(row, nodes[0], nodes[1])
         builder.c(row, row, -value)
     elif kind == "vcvs":
         row = branch[part.ref]
-        builder.g(nodes[0], row, 1.0)
-        builder.g(nodes[1], row, -1.0)
-        builder.g(row, nodes[0], 1.0)
-        builder.g(row, nodes[1], -1.0)
+        builder.voltage_branch(row, nodes[0], nodes[1])
         builder.g(row, nodes[2], -value)
         builder.g(row, nodes[3], value)
     elif kind == "vccs":
@@ -298,10 +300,7 @@ def _stamp(
         g_terms, c_terms = _current_of(builder, control, branch)
         if kind == "ccvs":
             row = branch[part.ref]
-            builder.g(nodes[0], row, 1.0)
-            builder.g(nodes[1], row, -1.0)
-            builder.g(row, nodes[0], 1.0)
-            builder.g(row, nodes[1], -1.0)
+            builder.voltage_branch(row, nodes[0], nodes[1])
             for column, coefficient in g_terms:
                 builder.g(row, column, -value * coefficient)
             for column, coefficient in c_terms:
