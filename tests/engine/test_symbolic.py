@@ -174,3 +174,17 @@ def test_as_dict_is_json_ready() -> None:
     # Source: first-order corner ω0 = 1/(RC)
     assert document["sections"][0]["omega0_rad_s_value"] == pytest.approx(1e3, rel=1e-12)
     assert "R1" in document["transfer"] and "C1" in document["transfer"]
+
+
+def test_memo_shares_a_formula_between_equal_topologies_but_not_their_values() -> None:
+    # Source: any circuits text: RC low-pass ω0 = 1/(RC); CR high-pass H = sRC/(1 + sRC), also ω0 = 1/(RC)
+    first = Stage("lp1", "lp1", parts=[part("R1", "R", ["in", "out"], 2.2e3), part("C1", "C", ["out", "0"], 10e-9)])
+    second = Stage("lp2", "lp2", parts=[part("R1", "R", ["in", "out"], 6.8e3), part("C1", "C", ["out", "0"], 3.3e-9)])
+    high = Stage("hp", "hp", parts=[part("C1", "C", ["in", "out"], 4.7e-9), part("R1", "R", ["out", "0"], 15e3)])
+    memo: dict[object, object] = {}
+    forms = [symbolic_form(stage, project_with(stage), formulas=memo) for stage in (first, second, high)]
+    assert len(memo) == 2  # the two low-passes share one formula; the high-pass has its own
+    for form, (r, c) in zip(forms, [(2.2e3, 10e-9), (6.8e3, 3.3e-9), (15e3, 4.7e-9)], strict=True):
+        (section,) = form.as_dict()["sections"]
+        assert section["omega0_rad_s_value"] == pytest.approx(1 / (r * c), rel=1e-12)
+    assert [form.sections[0].kind for form in forms] == ["low-pass", "low-pass", "high-pass"]

@@ -508,7 +508,30 @@ def _empty(why: str, unit: str) -> SymbolicForm:
     return SymbolicForm((), (), None, (), {}, True, why, unit)
 
 
-def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_TIME_LIMIT_S) -> SymbolicForm:
+def _formula_key(poly_ring: Any, matrix: list[list[Any]], rhs: list[Any], output: int,
+                 conductance_of: dict[str, Any], part_symbols: dict[str, Any]) -> Any:
+    """What the formula depends on: the symbolic matrix and right-hand side term by term (exponents
+    per generator and exact coefficients), the generators' names and assumptions, and which
+    symbol each resistor's conductance turns back into. Two stages of the same topology and part
+    refs (and the same op-amp model numbers) have the same key whatever their part values."""
+    def entry(element: Any) -> tuple[Any, ...]:
+        return tuple(sorted(element.items()))
+
+    def symbol(item: Any) -> tuple[str, tuple[tuple[str, Any], ...]]:
+        return str(item), tuple(sorted(item.assumptions0.items()))
+
+    return (
+        tuple(symbol(generator) for generator in poly_ring.symbols),
+        tuple(tuple(entry(element) for element in row) for row in matrix),
+        tuple(entry(element) for element in rhs),
+        output,
+        tuple((ref, symbol(dummy), symbol(part_symbols[ref])) for ref, dummy in sorted(conductance_of.items())),
+        tuple((ref, symbol(item)) for ref, item in sorted(part_symbols.items())),
+    )
+
+
+def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_TIME_LIMIT_S,
+                  formulas: dict[Any, Any] | None = None) -> SymbolicForm:
     """The stage's isolated transfer function in its part symbols (DESIGN 3.3).
 
     Parameters
@@ -519,6 +542,11 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
         Supplies op-amp models (their numbers enter as exact rationals).
     time_limit_s : float
         Past this, numeric coefficients from the pole/zero model are returned with ``why``.
+    formulas : dict, optional
+        A memo the caller keeps over several calls (one per packet, say): a stage whose symbolic
+        matrix equals one already derived (same topology, part refs and op-amp models; any part
+        values) takes that formula instead of deriving it again. Only its ``values`` differ,
+        and numeric sections (of a denominator with no factors of order ≤ 2) are its own.
 
     Returns
     -------
@@ -540,6 +568,13 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
         return _numeric_form(model, unit, "a behavioural block is given by numbers; its coefficients are numeric")
     try:
         poly_ring, matrix, rhs, output, conductance_of, part_symbols, values, s_symbol = _build(stage, project)
+        key = None
+        if formulas is not None:
+            key = _formula_key(poly_ring, matrix, rhs, output, conductance_of, part_symbols)
+            if key in formulas:
+                numerator, denominator, transfer, known_sections, why = formulas[key]
+                sections = _numeric_sections(model) if known_sections is None else known_sections
+                return SymbolicForm(numerator, denominator, transfer, tuple(sections), values, False, why, unit)
         zero, one = poly_ring.zero, poly_ring.one
         denominator_poly = _bareiss_det(matrix, zero, one, deadline)
         replaced = [row[:] for row in matrix]
@@ -564,17 +599,22 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
         transfer = (sympy.Add(*[c * s_symbol**k for k, c in enumerate(reversed(numerator))])
                     / sympy.Add(*[c * s_symbol**k for k, c in enumerate(reversed(denominator))]))
         order = len(denominator) - 1
+        numeric_sections = False  # sections from the numeric poles: the stage's own, never memoised
         if order <= 2:
             sections = _sections_from_coefficients(numerator, denominator)
             why = None
         else:
             factored = _sections_from_factors(denominator_s, s_symbol, deadline)
             if factored is None:
+                numeric_sections = True
                 sections = _numeric_sections(model)
                 why = (f"the denominator of order {order} has no factors of order 1 or 2 in the part symbols; "
                        "its sections are given numerically")
             else:
                 sections, why = factored, None
+        if formulas is not None:
+            formulas[key] = (tuple(numerator), tuple(denominator), transfer,
+                             None if numeric_sections else tuple(sections), why)
         return SymbolicForm(tuple(numerator), tuple(denominator), transfer, tuple(sections), values, False, why, unit)
     except _Timeout:
         return _numeric_form(model, unit, f"the symbolic form took longer than {time_limit_s:g} s; "

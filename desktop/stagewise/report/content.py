@@ -218,8 +218,12 @@ def clear_symbolic_cache() -> None:
     _SYMBOLIC_CACHE.clear()
 
 
-def _symbolic(stage: Stage, project: Project) -> dict[str, Any]:
-    """The stage's symbolic form as display strings (``SymbolicForm.as_dict``), or why there is none."""
+def _symbolic(stage: Stage, project: Project, formulas: dict[Any, Any] | None = None) -> dict[str, Any]:
+    """The stage's symbolic form as display strings (``SymbolicForm.as_dict``), or why there is none.
+
+    ``formulas`` is the packet's memo of derived formulas: a stage with the same topology and
+    part refs as one already derived (two equal filter sections) reuses its formula.
+    """
     key = stage_fingerprint(stage, project)
     if key in _SYMBOLIC_CACHE:
         _SYMBOLIC_CACHE.move_to_end(key)
@@ -228,7 +232,7 @@ def _symbolic(stage: Stage, project: Project) -> dict[str, Any]:
     if form is None:
         return {"why": f"the symbolic form is {NOT_IN_BUILD}"}
     try:
-        result = form(stage, project)
+        result = form(stage, project, formulas=formulas)
         found: dict[str, Any] = {"form": result.as_dict()} if result.ok else {
             "why": result.why or "no formula for this stage"}
     except (ValueError, ArithmeticError, TimeoutError) as error:
@@ -267,10 +271,11 @@ def gather(project: Project, path_or_sha: str | os.PathLike[str],
         stage_curves = {stage.id: StageCurves(_isolated_curve(stage, project, f_hz), in_chain[stage.id])
                         for stage in project.stages}
     symbolic: dict[str, dict[str, Any]] = {}
+    formulas: dict[Any, Any] = {}
     for stage in project.stages:
         if not go_on(f"stage {stage.name}"):
             return None
         if analysis is not None:
             stage_curves[stage.id].step_isolated, stage_curves[stage.id].step_in_chain = _steps(analysis, stage)
-        symbolic[stage.id] = _symbolic(stage, project) if not stage.is_block else {}
+        symbolic[stage.id] = _symbolic(stage, project, formulas) if not stage.is_block else {}
     return PacketContent(project, sha, name, document, why, chain, stage_curves, symbolic, analysis)
