@@ -22,8 +22,11 @@ maximum, the same frequency for every sample); ``peak_gain_db`` the largest gain
 ``f_high_3db_hz`` the half-power points (10·log10 2 ≈ 3.0103 dB below the reference gain)
 nearest the reference on either side; ``phase_margin_deg`` of every finite op-amp, on a window
 of half a decade either side of its nominal crossover. Corners and crossovers are bracketed on
-the grid, then refined per sample by the Illinois variant of regula falsi in ln f, every
-iteration one batched dense solve at each sample's own frequency.
+the grid, then refined per sample in ln f to 1e-10: the first point interpolated from the four
+grid values around the bracket (inverse cubic), then a Newton step with that cubic's slope,
+then secant steps kept inside the bracket (the Illinois point when a secant would leave it);
+every iteration one batched dense solve at each sample's own frequency, for both corners of
+every sample, or the crossovers of all op-amps, at once.
 
 Worst case: the sensitivity sign of each metric to each part (central finite differences at
 nominal, batched like samples) chooses the extreme vertex (every part at +tol or −tol); the
@@ -38,6 +41,8 @@ References
 ----------
 M. Dowell and P. Jarratt, "A modified regula falsi method for computing the root of an
 equation", BIT 11, 168-174 (1971) (the Illinois method).
+T. J. Dekker, "Finding a zero by means of successive linear interpolation", in Constructive
+Aspects of the Fundamental Theorem of Algebra, Wiley, 1969 (secant steps kept in a bracket).
 """
 
 from __future__ import annotations
