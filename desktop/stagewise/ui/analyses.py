@@ -228,35 +228,33 @@ def isolated_roots(stage: Stage, project: Project, context: Context) -> RootSet:
     return RootSet(analysis.poles_rad_s, analysis.zeros_rad_s, analysis.cancelled)
 
 
-def _merged(project: Project, context: Context) -> Any:
-    """The merged whole-chain circuit of this snapshot (computed once per snapshot)."""
-    from stagewise.engine.chain import merged_system
-
-    key = "merged" if project is not context.baseline else "baseline_merged"
+def _once_per_snapshot(name: str, project: Project, context: Context, compute: Any) -> Any:
+    """``compute()`` once per snapshot (the project or its baseline); a ValueError it raises is
+    kept too and reported as NotAvailable each time it is asked for."""
+    key = name if project is not context.baseline else f"baseline_{name}"
     if key not in context.chain_state:
         try:
-            context.chain_state[key] = merged_system(project)
+            context.chain_state[key] = compute()
         except ValueError as error:
             context.chain_state[key] = error
-    merged = context.chain_state[key]
-    if isinstance(merged, Exception):
-        raise NotAvailable(explain(merged))
-    return merged
+    value = context.chain_state[key]
+    if isinstance(value, Exception):
+        raise NotAvailable(explain(value))
+    return value
+
+
+def _merged(project: Project, context: Context) -> Any:
+    """The merged whole-chain circuit of this snapshot."""
+    from stagewise.engine.chain import merged_system
+
+    return _once_per_snapshot("merged", project, context, lambda: merged_system(project))
 
 
 def _chain_result(project: Project, context: Context) -> Any:
     """The chain with loading on this snapshot's grid (engine/chain.py: port relations cached by
-    stage fingerprint, so an edit re-reduces one stage), computed once per snapshot."""
-    key = "chain_result" if project is not context.baseline else "baseline_chain_result"
-    if key not in context.chain_state:
-        try:
-            context.chain_state[key] = context.engine.analyze(project, context.f_hz)
-        except ValueError as error:
-            context.chain_state[key] = error
-    result = context.chain_state[key]
-    if isinstance(result, Exception):
-        raise NotAvailable(explain(result))
-    return result
+    stage fingerprint, so an edit re-reduces one stage)."""
+    return _once_per_snapshot("chain_result", project, context,
+                              lambda: context.engine.analyze(project, context.f_hz))
 
 
 def in_chain_response(stage: Stage, project: Project, context: Context) -> ResponseTrace:
@@ -343,22 +341,16 @@ def _chain_model(project: Project, context: Context) -> Any:
     """The pole/zero model of the whole chain (engine/poles.py on the merged pencil)."""
     from stagewise.engine.poles import pole_zero_model
 
-    key = "model" if project is not context.baseline else "baseline_model"
-    if key not in context.chain_state:
+    def compute() -> Any:
         driven = _merged(project, context).driven()
-        try:
-            context.chain_state[key] = pole_zero_model(driven.g, driven.c, driven.b, driven.output)
-        except ValueError as error:
-            context.chain_state[key] = error
-    model = context.chain_state[key]
-    if isinstance(model, Exception):
-        raise NotAvailable(explain(model))
-    return model
+        return pole_zero_model(driven.g, driven.c, driven.b, driven.output)
+
+    return _once_per_snapshot("model", project, context, compute)
 
 
 def chain_response(project: Project, context: Context) -> ResponseTrace:
-    """Drive → last output of the whole chain, with loading (the merged circuit, one batched solve
-    shared with the in-chain responses)."""
+    """Drive → last output of the whole chain, with loading (the cascade shared with the in-chain
+    responses; its phase follows the merged chain's pole/zero model)."""
     result = _chain_result(project, context)
     return _mag_phase(_chain_model(project, context), context.f_hz, result.response, result.unit)
 
