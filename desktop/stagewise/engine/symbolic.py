@@ -454,7 +454,7 @@ def _sections_from_factors(denominator_poly: Any, s_symbol: Any, deadline: float
 
     if time.monotonic() > deadline:
         raise _Timeout
-    _, factors = sympy.factor_list(denominator_poly.as_expr(), s_symbol)
+    _, factors = sympy.factor_list(denominator_poly)  # a Poly in s over the part symbols: no re-parsing
     sections: list[Section] = []
     for factor, multiplicity in factors:
         poly = sympy.Poly(factor, s_symbol)
