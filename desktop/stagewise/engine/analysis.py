@@ -37,7 +37,7 @@ from stagewise.engine.chain import (
     merge_systems,
     merged_system,
 )
-from stagewise.engine.metrics import metric_at, stage_metrics
+from stagewise.engine.metrics import metric_at, put_with_why, stage_metrics
 from stagewise.engine.mna import CircuitError, StageSystem
 from stagewise.engine.stage import StageAnalysis, analyze_stage, analyze_system
 from stagewise.engine.sweep import TWO_PI, DrivenSystem, drive, frequency_grid, solve_batched
@@ -522,13 +522,13 @@ class ProjectAnalysis:
             metrics["loops"] = self.stage_chain_loops(stage.id)
             document["in_chain"] = metrics
         value, why = self.metric_value("loading_error_db_max", "in_chain", stage.id, None)
-        _put(document, "loading_error_db_max", value, why)
+        put_with_why(document, "loading_error_db_max", value, why)
         for key, metric in (("zin_ohm_at_ref", "zin_ohm"), ("zout_ohm_at_ref", "zout_ohm")):
             if stage.bypass:
-                _put(document, key, None, f'stage "{stage.id}" is bypassed, so it is not in the chain')
+                put_with_why(document, key, None, f'stage "{stage.id}" is bypassed, so it is not in the chain')
                 continue
             value, why = self.metric_value(metric, "in_chain", stage.id, None)
-            _put(document, key, value, why)
+            put_with_why(document, key, value, why)
         document["checks"] = [self.check_document(stage, check) for check in stage.checks]
         return document
 
@@ -569,19 +569,19 @@ class ProjectAnalysis:
                 document[key] = piece
         noise = document.get("noise")
         if isinstance(noise, dict):
-            _put(document, "snr_db", noise.get("snr_db"), noise.get("snr_db_why"))
+            put_with_why(document, "snr_db", noise.get("snr_db"), noise.get("snr_db_why"))
         else:
-            _put(document, "snr_db", None, document.get("noise_why"))
+            put_with_why(document, "snr_db", None, document.get("noise_why"))
         value, why = self.metric_value("alias_attenuation_db", "chain", self.project.stages[0].id, None)
-        _put(document, "alias_attenuation_db", value, why)
+        put_with_why(document, "alias_attenuation_db", value, why)
         if self.with_spread:
             spread = self.spread
             if isinstance(spread, _Failure):
-                _put(document, "spread", None, spread.why)
+                put_with_why(document, "spread", None, spread.why)
             else:
                 document["spread"] = spread
         else:
-            _put(document, "spread", None, "the spread analysis was not asked for")
+            put_with_why(document, "spread", None, "the spread analysis was not asked for")
         return document
 
     def document(self, path: str | Path | None = None, sha256: str | None = None) -> dict[str, Any]:
@@ -606,12 +606,6 @@ class ProjectAnalysis:
 
 def _reference_hz(project: Project) -> float | None:
     return None if project.settings.ref_hz is None else project.settings.ref_hz.si
-
-
-def _put(document: dict[str, Any], key: str, value: Any, why: str | None) -> None:
-    document[key] = value
-    if value is None:
-        document[f"{key}_why"] = why or "not computed"
 
 
 def _document_value(document: dict[str, Any], key: str) -> tuple[float | None, str | None]:

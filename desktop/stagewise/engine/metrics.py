@@ -69,6 +69,7 @@ __all__ = [
     "group_delay_s_at",
     "metric_at",
     "phase_deg_at",
+    "put_with_why",
     "stage_metrics",
 ]
 
@@ -373,7 +374,8 @@ def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
 # -- the "M" document -------------------------------------------------------------------------
 
 
-def _with_why(document: dict[str, Any], key: str, value: Any, why: str | None) -> None:
+def put_with_why(document: dict[str, Any], key: str, value: Any, why: str | None) -> None:
+    """Set ``document[key]``; beside a ``None`` value, ``"<key>_why"`` says why (DESIGN section 6)."""
     document[key] = value
     if value is None:
         document[f"{key}_why"] = why or "not computed"
@@ -395,15 +397,15 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
     """
     document: dict[str, Any] = {"unit": analysis.unit}
     limits = bandwidth(analysis, settings)
-    _with_why(document, "gain_db", limits.gain_db, limits.why.get("gain_db"))
+    put_with_why(document, "gain_db", limits.gain_db, limits.why.get("gain_db"))
     document["ref_hz"] = limits.ref_hz
-    _with_why(document, "peak_gain_db", limits.peak_gain_db, limits.why.get("peak_gain_db"))
+    put_with_why(document, "peak_gain_db", limits.peak_gain_db, limits.why.get("peak_gain_db"))
     document["peak_hz"] = limits.peak_hz
     for key in ("f_low_3db_hz", "f_high_3db_hz", "peaking_db"):
-        _with_why(document, key, getattr(limits, key), limits.why.get(key))
+        put_with_why(document, key, getattr(limits, key), limits.why.get(key))
     if analysis.why is not None or analysis.model is None:
         for key in ("gain_constant", "poles", "zeros", "step"):
-            _with_why(document, key, None, analysis.why)
+            put_with_why(document, key, None, analysis.why)
         document["cancelled"] = []
         return document
     model = analysis.model
@@ -412,8 +414,8 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
         reason = (f"the zeros are ill-conditioned here (the pole/zero model departs from the exact response by "
                   f"{model.fit_error:.2g}, relative degree {model.relative_degree}); poles and response are exact")
         document["poles"] = root_table(model.all_poles_rad_s)
-        _with_why(document, "zeros", None, reason)
-        _with_why(document, "gain_constant", None, reason)
+        put_with_why(document, "zeros", None, reason)
+        put_with_why(document, "gain_constant", None, reason)
         document["cancelled"] = []
         assert analysis.driven is not None
         driven = analysis.driven
@@ -423,7 +425,7 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
     if math.isfinite(model.gain) and model.gain != 0:
         document["gain_constant"] = model.gain
     else:
-        _with_why(document, "gain_constant", None,
+        put_with_why(document, "gain_constant", None,
                   f"K = ±10^{model.log_gain / math.log(10):.1f} lies outside the floating-point range "
                   "(the product of many poles); the response and the roots are unaffected")
     document["poles"] = root_table(model.poles_rad_s)
@@ -439,5 +441,5 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
 def _step_document(step: StepResponse) -> dict[str, Any]:
     step_document: dict[str, Any] = {"settle_basis": step.settle_basis}
     for key in ("rise_s", "overshoot_pct", "settle_1pct_s", "settle_0p1pct_s", "final"):
-        _with_why(step_document, key, getattr(step, key), step.why.get(key))
+        put_with_why(step_document, key, getattr(step, key), step.why.get(key))
     return step_document
