@@ -77,7 +77,7 @@ def build_parser() -> argparse.ArgumentParser:
     verify = commands.add_parser("verify", help="audit-trail integrity (exit 0 intact, 1 broken)")
     verify.add_argument("file", metavar="FILE")
 
-    diff = commands.add_parser("diff", help="what changed, part by part, and which sign-offs it stales")
+    diff = commands.add_parser("diff", help="what changed, part by part, and which sign-offs it puts out of date")
     diff.add_argument("old", metavar="OLD")
     diff.add_argument("new", metavar="NEW")
 

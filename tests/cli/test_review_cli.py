@@ -143,7 +143,7 @@ def test_check_verify_exit_2_when_the_file_cannot_be_read(tmp_path: Path, capsys
 def _reviewed(tmp_path: Path) -> Path:
     path = _write(tmp_path, DOCUMENT)
     project = load_project(path)
-    actions.sign(project, "rc", "Ana Ruiz", "design lead", "approve", time=T)
+    actions.sign(project, "rc", "Ana Ruiz", "design lead", "accept", time=T)
     actions.comment(project, "rc", "Ben Okafor", "Is 10n available in C0G?", check_id="fit", time=T)
     actions.answer(project, "rc", "fit", "yes", "Ben Okafor", time=T)
     save_project(path, project)
@@ -176,7 +176,7 @@ def test_verify_intact_and_every_kind_of_hand_edit(tmp_path: Path, capsys: pytes
         signoff = dict(document["stages"][0]["signoffs"][0], name="Someone Else")
         document["stages"][0]["signoffs"].append(signoff)
     status, out = edited(paste)
-    assert status == 1 and "intact" in out and "sign-off 2 (approve by Someone Else) has no matching audit event" in out
+    assert status == 1 and "intact" in out and "sign-off 2 (accepted by Someone Else) has no matching audit event" in out
 
 
 def test_verify_names_a_signoff_refreshed_by_hand(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -207,7 +207,7 @@ def test_diff_names_the_change_and_the_stale_signoff(tmp_path: Path, capsys: pyt
     status, out, _ = _run(capsys, "diff", str(old_path), str(new_path))
     assert status == 1
     assert "stage rc, part C1: value changed 10n → 12n" in out
-    assert "stale: stage rc, approve by Ana Ruiz, design lead" in out
+    assert "out of date: stage rc, accepted by Ana Ruiz, design lead" in out
     status, out, _ = _run(capsys, "diff", str(old_path), str(old_path))
     assert status == 0 and "no differences" in out
     status, _, err = _run(capsys, "diff", str(old_path), str(tmp_path / "missing.json"))

@@ -29,7 +29,7 @@ PROJECTS = Path(__file__).resolve().parents[2] / "projects"
 
 def full_featured() -> dict[str, Any]:
     """A canonical document that uses every kind of record, in the codec's key order."""
-    signoff = {"name": "Ines Varga", "role": "reviewer", "verdict": "approve", "note": "Checked by hand.",
+    signoff = {"name": "Ines Varga", "role": "reviewer", "verdict": "accept", "note": "Checked by hand.",
                "time": "2026-11-30T10:00:00Z", "fingerprint": "0" * 64}
     return {
         "format": "stagewise-project",

@@ -172,7 +172,7 @@ CASES: list[tuple[str, Callable[[dict[str, Any]], None], str, str]] = [
      "stages[0].comments[0].check", '"nope" names no check'),
     ("sign-off verdict", _set((*S0, "signoffs"), [{"name": "A", "role": "r", "verdict": "maybe", "note": "",
                                                    "time": "t", "fingerprint": "f"}]),
-     "stages[0].signoffs[0].verdict", "approve"),
+     "stages[0].signoffs[0].verdict", "accept, rework"),
     ("block without gain", _delete((*ADC, "gain")), "stages[1].gain", "needs a gain"),
     ("block with parts", _set((*ADC, "parts"), []), "stages[1].parts", "block stage takes no"),
     ("circuit with a gain", _set((*S0, "gain"), 2), "stages[0].gain", "circuit stage takes no"),

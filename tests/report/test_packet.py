@@ -51,8 +51,8 @@ def _review(project_path: Path) -> dict[str, Any]:
     """Give the project review records; returns what the tests expect to find."""
     project = load_project(project_path)
     first, second = project.stages[0], project.stages[1]
-    actions.sign(project, first.id, "Ada Reviewer", "analog lead", "approve", "looked fine", time=TIME)
-    actions.sign(project, second.id, "Ben Checker", "test engineer", "approve", "bench-checked", time=TIME)
+    actions.sign(project, first.id, "Ada Reviewer", "analog lead", "accept", "looked fine", time=TIME)
+    actions.sign(project, second.id, "Ben Checker", "test engineer", "accept", "bench-checked", time=TIME)
     actions.comment(project, second.id, "Ben Checker", "Bench result attached to the ticket.", time=TIME)
     manual = next((check for stage in project.stages for check in stage.checks if check.metric is None), None)
     if manual is not None:
@@ -162,9 +162,9 @@ def test_stale_signoff_is_marked(printed: dict[str, Any]) -> None:
     # signed the second stage as it is (current).
     if printed["stale_stage"] is not None:
         stale = stage_text(printed["stale_stage"])
-        assert f"Ada Reviewer analog lead {TIME} STALE" in stale
+        assert f"Ada Reviewer analog lead {TIME} OUT OF DATE" in stale
     current = stage_text(printed["current_stage"])
-    assert f"Ben Checker test engineer {TIME} approved" in current
+    assert f"Ben Checker test engineer {TIME} accepted" in current
     assert "Bench result attached to the ticket." in current
     # Every other sign-off in the demo file: marked exactly when the review layer calls it stale.
     for stage_id, state in signoff_states(project).items():
@@ -174,7 +174,7 @@ def test_stale_signoff_is_marked(printed: dict[str, Any]) -> None:
             row_start = _normal(f"{signoff.name} {signoff.role} {signoff.time} ")
             assert row_start in text
             following = text[text.index(row_start) + len(row_start):]
-            assert following.startswith("STALE") == view.stale, (stage_id, signoff.name)
+            assert following.startswith("OUT OF DATE") == view.out_of_date, (stage_id, signoff.name)
 
 
 def test_check_values_and_states_match_the_check_command(printed: dict[str, Any],

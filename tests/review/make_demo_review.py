@@ -55,11 +55,11 @@ def build(current: Project) -> Project:
     actions.answer(p, "buffer", "protect", "yes", LEAD[0],
                    "Low-leakage clamp diodes to the rails behind a series resistor, on sheet 2.",
                    time="2026-11-16T09:12:00Z")
-    actions.sign(p, "buffer", *LEAD, "approve", "Follower and input protection reviewed.", time="2026-11-16T09:20:00Z")
+    actions.sign(p, "buffer", *LEAD, "accept", "Follower and input protection reviewed.", time="2026-11-16T09:20:00Z")
     actions.answer(p, "gain", "film", "yes", LEAD[0], "Polyester film part on the BOM.", time="2026-11-16T10:02:00Z")
-    actions.sign(p, "gain", *LEAD, "approve", "Gain and coupling corner as intended.", time="2026-11-16T10:05:00Z")
+    actions.sign(p, "gain", *LEAD, "accept", "Gain and coupling corner as intended.", time="2026-11-16T10:05:00Z")
     actions.answer(p, "aaf1", "c0g", "yes", LEAD[0], time="2026-11-16T10:31:00Z")
-    actions.sign(p, "aaf1", *LEAD, "approve", time="2026-11-16T10:33:00Z")
+    actions.sign(p, "aaf1", *LEAD, "accept", time="2026-11-16T10:33:00Z")
     actions.comment(p, "aaf2", QUALITY[0], "Which section comes first on the board? The order check depends on it.",
                     check_id="order", time="2026-11-17T14:40:00Z")
 
@@ -79,7 +79,7 @@ def build(current: Project) -> Project:
     actions.comment(p, "sensor", QUALITY[0],
                     "In chain the buffer bias and the element capacitance put a corner near 21 Hz; "
                     "see the stage notes. 22 MOhm is proposed.", check_id="lf-20hz", time="2026-11-20T09:05:00Z")
-    actions.sign(p, "sensor", *QUALITY, "changes",
+    actions.sign(p, "sensor", *QUALITY, "rework",
                  "The 20 Hz check is not met in chain: raise the buffer bias resistor, or show the counter "
                  "does not need 20 Hz.", time="2026-11-20T09:15:00Z")
     actions.answer(p, "sensor", "c-measured", "no", QUALITY[0],
@@ -88,7 +88,7 @@ def build(current: Project) -> Project:
     actions.waive(p, "driver", "c0g", *QUALITY,
                   "The trial boards are hand-built with an X7R part; C0G is on the production BOM. "
                   "Accepted for the river trial only.", time="2026-11-20T10:00:00Z")
-    actions.sign(p, "driver", *QUALITY, "approve", "Driver and RC reviewed with the waiver on C1.",
+    actions.sign(p, "driver", *QUALITY, "accept", "Driver and RC reviewed with the waiver on C1.",
                  time="2026-11-20T10:04:00Z")
 
     if _without_records(p) != _without_records(current):

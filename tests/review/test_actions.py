@@ -22,20 +22,20 @@ def test_sign_binds_the_current_fingerprint_and_records_an_event() -> None:
     project = base_project()
     stage = project.stage("rc")
     assert stage is not None
-    signoff = actions.sign(project, "rc", "Ana Ruiz", "analog lead", "approve", "looks right", time=T)
+    signoff = actions.sign(project, "rc", "Ana Ruiz", "analog lead", "accept", "looks right", time=T)
     assert signoff.fingerprint == stage_fingerprint(stage, project)
     assert stage.signoffs == [signoff]
     event = project.audit[-1]
     assert (event.what, event.who, event.time) == ("signoff", "Ana Ruiz", T)
     assert event.detail["fingerprint"] == signoff.fingerprint and event.detail["stage"] == "rc"
-    assert signoff_state(project, "rc").state is SignoffState.APPROVED
+    assert signoff_state(project, "rc").state is SignoffState.ACCEPTED
     assert signoff_state(project, "buf").state is SignoffState.NONE
 
 
 def test_a_part_change_makes_the_signoff_stale_and_signing_again_clears_it() -> None:
     project = base_project()
-    actions.sign(project, "rc", "Ana Ruiz", "analog lead", "approve", time=T)
-    actions.sign(project, "buf", "Ana Ruiz", "analog lead", "approve", time=T)
+    actions.sign(project, "rc", "Ana Ruiz", "analog lead", "accept", time=T)
+    actions.sign(project, "buf", "Ana Ruiz", "analog lead", "accept", time=T)
     saved = copy.deepcopy(project)
     stage = project.stage("rc")
     assert stage is not None
@@ -46,20 +46,20 @@ def test_a_part_change_makes_the_signoff_stale_and_signing_again_clears_it() -> 
                                         "old": "3k3", "new": "3k6"}]
     assert [item["stage"] for item in event.detail["stale_signoffs"]] == ["rc"]
     states = signoff_states(project)
-    assert states["rc"].state is SignoffState.STALE and states["rc"].stale_count == 1
-    assert states["buf"].state is SignoffState.APPROVED
-    actions.sign(project, "rc", "Ana Ruiz", "analog lead", "approve", time=T)
+    assert states["rc"].state is SignoffState.OUT_OF_DATE and states["rc"].out_of_date_count == 1
+    assert states["buf"].state is SignoffState.ACCEPTED
+    actions.sign(project, "rc", "Ana Ruiz", "analog lead", "accept", time=T)
     again = signoff_state(project, "rc")
-    assert again.state is SignoffState.APPROVED
-    assert [view.superseded for view in again.signoffs] == [True, False]
+    assert again.state is SignoffState.ACCEPTED
+    assert [view.replaced for view in again.signoffs] == [True, False]
     assert verify_trail(project.audit).intact
 
 
 def test_changes_verdict_wins_over_an_approval() -> None:
     project = base_project()
-    actions.sign(project, "rc", "Ana Ruiz", "analog lead", "approve", time=T)
-    actions.sign(project, "rc", "Ben Okafor", "quality", "changes", "add the tolerance of C1 to the BOM", time=T)
-    assert signoff_state(project, "rc").state is SignoffState.CHANGES
+    actions.sign(project, "rc", "Ana Ruiz", "analog lead", "accept", time=T)
+    actions.sign(project, "rc", "Ben Okafor", "quality", "rework", "add the tolerance of C1 to the BOM", time=T)
+    assert signoff_state(project, "rc").state is SignoffState.REWORK
 
 
 def test_record_part_changes_ignores_prose_and_no_change() -> None:
@@ -73,11 +73,11 @@ def test_record_part_changes_ignores_prose_and_no_change() -> None:
 
 
 @pytest.mark.parametrize(("call", "message"), [
-    (lambda p: actions.sign(p, "nope", "Ana", "lead", "approve"), "no stage"),
-    (lambda p: actions.sign(p, "rc", " ", "lead", "approve"), "name"),
+    (lambda p: actions.sign(p, "nope", "Ana", "lead", "accept"), "no stage"),
+    (lambda p: actions.sign(p, "rc", " ", "lead", "accept"), "name"),
     (lambda p: actions.sign(p, "rc", "Ana", "lead", "maybe"), "verdict"),
-    (lambda p: actions.sign(p, "rc", "Ana", "lead", "changes", "  "), "what must change"),
-    (lambda p: actions.sign(p, "rc", "Ana", "lead", "approve", time="noon"), "ISO 8601"),
+    (lambda p: actions.sign(p, "rc", "Ana", "lead", "rework", "  "), "what must change"),
+    (lambda p: actions.sign(p, "rc", "Ana", "lead", "accept", time="noon"), "ISO 8601"),
     (lambda p: actions.waive(p, "rc", "corner", "Ana", "quality", ""), "justification"),
     (lambda p: actions.waive(p, "rc", "corner", "Ana", "quality", "   \n"), "justification"),
     (lambda p: actions.waive(p, "rc", "nope", "Ana", "quality", "fine"), "no check"),

@@ -30,8 +30,8 @@ def test_reordered_keys_and_retyped_equal_values() -> None:
 
 def test_part_changes_and_the_stale_signoff_are_named() -> None:
     old = base_project()
-    actions.sign(old, "rc", "Ana Ruiz", "analog lead", "approve", time=T)
-    actions.sign(old, "buf", "Ben Okafor", "quality", "approve", time=T)
+    actions.sign(old, "rc", "Ana Ruiz", "analog lead", "accept", time=T)
+    actions.sign(old, "buf", "Ben Okafor", "quality", "accept", time=T)
     new = copy.deepcopy(old)
     rc = new.stage("rc")
     assert rc is not None
@@ -48,17 +48,17 @@ def test_part_changes_and_the_stale_signoff_are_named() -> None:
     assert "stage buf, part R2: removed (R in 0 100k)" in lines
     assert "stage buf, part R3: added (R in 0 47k)" in lines
     assert {(item.stage_id, item.name) for item in result.stale} == {("rc", "Ana Ruiz"), ("buf", "Ben Okafor")}
-    assert any(line.strip().startswith("stale: stage rc, approve by Ana Ruiz") for line in lines)
+    assert any(line.strip().startswith("out of date: stage rc, accepted by Ana Ruiz") for line in lines)
 
 
 def test_signoff_not_staled_by_prose_and_already_stale_not_repeated() -> None:
     old = base_project()
-    actions.sign(old, "rc", "Ana Ruiz", "analog lead", "approve", time=T)
+    actions.sign(old, "rc", "Ana Ruiz", "analog lead", "accept", time=T)
     new = copy.deepcopy(old)
     new.stages[0].name = "Input RC"
     result = diff_projects(old, new)
     assert result.stale == ()
-    assert "no sign-off is made stale by these changes" in result.lines()
+    assert "no sign-off is made out of date by these changes" in result.lines()
     # A sign-off that was stale before the change is not reported as made stale by it.
     old.stages[0].signoffs[0].fingerprint = "0" * 64
     new.stages[0].signoffs[0].fingerprint = "0" * 64
@@ -83,7 +83,7 @@ def test_stages_added_removed_and_moved() -> None:
 
 def test_model_parameter_change_is_listed_and_stales_the_stage_using_it() -> None:
     old = base_project()
-    actions.sign(old, "buf", "Ben Okafor", "quality", "approve", time=T)
+    actions.sign(old, "buf", "Ben Okafor", "quality", "accept", time=T)
     new = copy.deepcopy(old)
     new.opamp_models["test-5M"].gbw_hz = Quantity.of("8M")
     result = diff_projects(old, new)

@@ -56,7 +56,7 @@ PROSE_EDITS = {
     "check text": _set(["stages", 0, "checks", 0, "text"], "Corner frequency high enough"),
     "comment": _set(["stages", 0, "comments"], [{"author": "Ana", "time": "2026-11-02T08:00:00Z",
                                                  "text": "why 3k3?", "resolved": False}]),
-    "sign-off": _set(["stages", 0, "signoffs"], [{"name": "Ana", "role": "lead", "verdict": "approve", "note": "",
+    "sign-off": _set(["stages", 0, "signoffs"], [{"name": "Ana", "role": "lead", "verdict": "accept", "note": "",
                                                   "time": "2026-11-02T08:00:00Z", "fingerprint": "0" * 64}]),
     "manual answer": _set(["stages", 0, "checks", 2, "answer"], {"answer": "yes", "by": "Ana",
                                                                  "time": "2026-11-02T08:00:00Z"}),

@@ -143,22 +143,22 @@ def test_add_and_remove_a_part(window) -> None:  # type: ignore[no-untyped-def]
     assert [p.ref for p in window.document.project.stage("rc").parts] == ["R1", "C1"]
 
 
-def test_signoff_records_an_audit_event_and_turns_stale_after_an_edit(window) -> None:  # type: ignore[no-untyped-def]
+def test_signoff_records_an_audit_event_and_is_out_of_date_after_an_edit(window) -> None:  # type: ignore[no-untyped-def]
     from stagewise.review.audit import verify_trail
 
     select(window, "amp")
     before = len(window.document.project.audit)
-    window.review_panel.sign("Ines Okafor", "design reviewer", "approve", "gain and loop checked")
+    window.review_panel.sign("Ines Okafor", "design reviewer", "accept", "gain and loop checked")
     audit = window.document.project.audit
     assert len(audit) == before + 1 and audit[-1].what == "signoff" and audit[-1].who == "Ines Okafor"
     assert verify_trail(audit).intact
-    assert window.review_panel.state.property("signoffState") == "approved"
-    assert window.tree._stage_items["amp"].text(3).startswith("approved")
+    assert window.review_panel.state.property("signoffState") == "accepted"
+    assert window.tree._stage_items["amp"].text(3).startswith("accepted")
     assert window.isWindowModified()
     window.parts_table.edit_cell("R3", "value", "15k")
-    assert window.review_panel.state.property("signoffState") == "stale"
-    assert window.review_panel.state.text().startswith("Stale")
-    assert window.tree._stage_items["amp"].text(3).startswith("stale")
+    assert window.review_panel.state.property("signoffState") == "out of date"
+    assert window.review_panel.state.text().startswith("Out of date")
+    assert window.tree._stage_items["amp"].text(3).startswith("out of date")
 
 
 def test_waiver_needs_a_justification(window) -> None:  # type: ignore[no-untyped-def]
@@ -415,19 +415,19 @@ def test_pole_marks_carry_their_values_on_hover(window) -> None:  # type: ignore
     assert scatter.opts["hoverable"]
 
 
-def test_signoff_dialog_gathers_and_requires_a_note_for_changes(window) -> None:  # type: ignore[no-untyped-def]
+def test_signoff_dialog_gathers_and_requires_a_note_for_rework(window) -> None:  # type: ignore[no-untyped-def]
     from stagewise.ui.dialogs import SignoffDialog
 
     select(window, "rc")
     dialog = SignoffDialog("Input RC", "Ines Okafor", "reviewer", window)
-    dialog.verdict.setCurrentIndex(dialog.verdict.findData("changes"))
-    assert not dialog.complete()  # asking for changes needs a note
+    dialog.verdict.setCurrentIndex(dialog.verdict.findData("rework"))
+    assert not dialog.complete()  # returning for rework needs a note
     dialog.note.setPlainText("use a 1 % capacitor")
     assert dialog.complete()
     dialog.accept()
     window.review_panel.sign(**dialog.values())
-    assert window.document.project.stage("rc").signoffs[-1].verdict == "changes"
-    assert window.review_panel.state.property("signoffState") == "changes needed"
+    assert window.document.project.stage("rc").signoffs[-1].verdict == "rework"
+    assert window.review_panel.state.property("signoffState") == "returned for rework"
 
 
 def test_manual_answer_is_recorded_and_re_evaluated(window) -> None:  # type: ignore[no-untyped-def]

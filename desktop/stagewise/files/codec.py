@@ -37,6 +37,7 @@ from stagewise.model.project import (
     Waiver,
 )
 from stagewise.model.values import Quantity, ValueSyntaxError
+from stagewise.review.words import OLDER_VERDICTS, VERDICTS, current_verdict
 
 __all__ = ["JsonObject", "ProjectFileError", "decode", "dumps", "encode"]
 
@@ -249,6 +250,13 @@ def _choice(*choices: str) -> Callable[[object], str]:
         return str(value)
 
     return read
+
+
+def _verdict(value: object) -> str:
+    """A sign-off's verdict; an older release's word is read as today's (the file is migrated)."""
+    if value not in VERDICTS and value not in OLDER_VERDICTS:
+        raise ValueError(f"{_describe(value)} is not one of {', '.join(VERDICTS)}")
+    return current_verdict(str(value))
 
 
 def _pair(read: Callable[[object], T]) -> Callable[[object], tuple[T, T]]:
@@ -470,7 +478,7 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
             stage.signoffs.append(Signoff(
                 name=reader.field(signoff_fields, "name", _name, ""),
                 role=reader.field(signoff_fields, "role", _text, ""),
-                verdict=reader.field(signoff_fields, "verdict", _choice("approve", "changes"), "changes"),
+                verdict=reader.field(signoff_fields, "verdict", _verdict, "rework"),
                 time=reader.field(signoff_fields, "time", _text, ""),
                 fingerprint=reader.field(signoff_fields, "fingerprint", _text, ""),
                 note=reader.field(signoff_fields, "note", _text, ""),

@@ -146,7 +146,7 @@ class Signoff:
 
     name: str
     role: str
-    verdict: str  # "approve" or "changes"
+    verdict: str  # "accept" or "rework" (review.words.VERDICTS)
     time: str
     fingerprint: str
     note: str = ""

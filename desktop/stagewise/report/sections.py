@@ -50,7 +50,15 @@ from stagewise.review.audit import EVENT_LABELS, verify_trail
 from stagewise.review.checks import CheckResult, CheckTotals, totals
 from stagewise.review.metrics import METRICS
 from stagewise.review.signoff import StageSignoffs
-from stagewise.review.words import SIGNOFF_STATE_MEANINGS, VERDICT_WORDS, WHERE_WORDS, CheckState
+from stagewise.review.words import (
+    REPLACED_WORD,
+    SIGNOFF_STATE_MEANINGS,
+    VERDICT_WORDS,
+    WHERE_WORDS,
+    CheckState,
+    SignoffState,
+    current_verdict,
+)
 
 __all__ = ["CAUTIONS", "build_blocks"]
 
@@ -196,7 +204,8 @@ def _cover(content: PacketContent, results: list[CheckResult], states: dict[str,
          Column("no value", "right"), Column("n/a", "right"), Column("total", "right")],
         [[str(counts.met), str(counts.not_met), str(counts.waived), str(counts.open), str(counts.no_value),
           str(counts.not_applicable), str(counts.total)]], size_px=12.0))
-    verdict = ("Every check is met, waived or not applicable." if counts.all_passing else
+    verdict = ("The chain has no checks yet: nothing here is verified against a limit." if counts.total == 0 else
+               "Every check is met, waived or not applicable." if counts.all_passing else
                "Not every check passes: see the checks of each stage for values and reasons.")
     blocks.append(Paragraph(verdict, 11.5, space_after=10.0))
     blocks.append(Heading("Sign-off state of each stage", 2))
@@ -204,12 +213,13 @@ def _cover(content: PacketContent, results: list[CheckResult], states: dict[str,
     marks = []
     for stage in project.stages:
         state = states[stage.id]
-        latest = [view for view in state.signoffs if not view.superseded]
+        latest = [view for view in state.signoffs if not view.replaced]
         who = "; ".join(f"{view.signoff.name} ({view.word}, {view.signoff.time[:10]})" for view in latest) or DASH
         name = stage.name + (" (bypassed)" if stage.bypass else "")
-        word = str(state.state).upper() if state.state == "stale" else str(state.state)
+        word = str(state.state).upper() if state.state == SignoffState.OUT_OF_DATE else str(state.state)
         rows_signed.append([stage.id, name, word, who])
-        marks.append("bad" if state.state in ("stale", "changes needed") else "muted" if stage.bypass else "")
+        marks.append("bad" if state.state in (SignoffState.OUT_OF_DATE, SignoffState.REWORK)
+                     else "muted" if stage.bypass else "")
     blocks.append(Table([Column("stage", wrap=False), Column("name"), Column("state", wrap=False),
                          Column("latest sign-off of each reviewer")], rows_signed, row_marks=marks))
     blocks.append(Paragraph("; ".join(f"{state}: {meaning}" for state, meaning in SIGNOFF_STATE_MEANINGS.items())
@@ -227,7 +237,8 @@ def _cautions(content: PacketContent) -> list[Block]:
         "Isolated: the stage alone, driven by an ideal source, output unloaded. In chain: the stage where it "
         "sits, driven by the stages before it and loaded by the stages after it. Check states are computed "
         "from the analysis when the packet is printed, never stored. A sign-off is bound to the fingerprint "
-        "of the stage it approved; it is marked STALE when the stage has changed since.", 11.5))
+        f"of the stage it was given to; it is marked {str(SignoffState.OUT_OF_DATE).upper()} when the stage has "
+        f"changed since, and {REPLACED_WORD} when the same reviewer signed the stage again later.", 11.5))
     if content.analysis is None:
         blocks.append(_unavailable(
             f"In this packet the computed figures are missing because {content.analysis_why}. The sections "
@@ -748,7 +759,8 @@ def _checks(stage: Stage, results: list[CheckResult]) -> list[Block]:
 
 def _signoffs(stage: Stage, state: StageSignoffs) -> list[Block]:
     blocks: list[Block] = [Heading("Sign-offs", 3)]
-    blocks.append(Paragraph(f"Stage state: {str(state.state).upper() if state.state == 'stale' else state.state}. "
+    shown = str(state.state).upper() if state.state == SignoffState.OUT_OF_DATE else str(state.state)
+    blocks.append(Paragraph(f"Stage state: {shown}. "
                             f"Current fingerprint {state.fingerprint[:16]}…", 11.5))
     if not state.signoffs:
         blocks.append(Paragraph("Nobody has signed this stage.", 11.5))
@@ -757,13 +769,13 @@ def _signoffs(stage: Stage, state: StageSignoffs) -> list[Block]:
     marks = []
     for view in state.signoffs:
         signoff = view.signoff
-        status = VERDICT_WORDS.get(signoff.verdict, signoff.verdict)
-        if view.stale:
-            status = f"STALE ({status} an earlier version)"
-        if view.superseded:
-            status += "; superseded"
+        status = view.verdict_word
+        if view.out_of_date:
+            status = f"{str(SignoffState.OUT_OF_DATE).upper()} ({status}, given to an earlier design)"
+        if view.replaced:
+            status += f"; {REPLACED_WORD}"
         rows.append([signoff.name, signoff.role, signoff.time, status, signoff.fingerprint[:12] + "…", signoff.note])
-        marks.append("bad" if view.stale and not view.superseded else "muted" if view.superseded else "")
+        marks.append("bad" if view.out_of_date and not view.replaced else "muted" if view.replaced else "")
     blocks.append(Table([Column("reviewer"), Column("role"), Column("time (UTC)", wrap=False), Column("verdict"),
                          Column("fingerprint", wrap=False, mono=True), Column("note")], rows, size_px=10.5,
                         row_marks=marks))
@@ -812,7 +824,9 @@ def _detail_text(detail: dict[str, Any]) -> str:
     for key, value in detail.items():
         if value in ("", None, [], {}):
             continue  # an empty note says nothing
-        if isinstance(value, str) and len(value) == 64 and all(c in "0123456789abcdef" for c in value):
+        if key == "verdict" and isinstance(value, str):
+            value = VERDICT_WORDS.get(current_verdict(value), value)  # older events hold older words
+        elif isinstance(value, str) and len(value) == 64 and all(c in "0123456789abcdef" for c in value):
             value = value[:16] + "…"
         elif not isinstance(value, str):
             value = json.dumps(value, ensure_ascii=False, separators=(", ", ": "))

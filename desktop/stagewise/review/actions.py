@@ -14,6 +14,7 @@ from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import AuditEvent, Check, Comment, ManualAnswer, Project, Signoff, Stage, Waiver
 from stagewise.review.audit import append_event, now_utc
 from stagewise.review.diff import diff_projects
+from stagewise.review.words import VERDICTS
 
 __all__ = [
     "ReviewError",
@@ -27,7 +28,6 @@ __all__ = [
     "withdraw_waiver",
 ]
 
-VERDICTS = ("approve", "changes")
 ANSWERS = ("yes", "no", "n/a")
 _HEX64 = re.compile(r"[0-9a-f]{64}")
 
@@ -68,8 +68,8 @@ def sign(project: Project, stage_id: str, name: str, role: str, verdict: str, no
 
     Parameters
     ----------
-    verdict : {"approve", "changes"}
-        ``changes`` needs a note saying what must change.
+    verdict : {"accept", "rework"}
+        Accepted, or returned for rework; ``rework`` needs a note saying what must change.
 
     Returns
     -------
@@ -79,9 +79,9 @@ def sign(project: Project, stage_id: str, name: str, role: str, verdict: str, no
     stage = _stage(project, stage_id)
     name = _person(name, "the reviewer's name")
     if verdict not in VERDICTS:
-        raise ReviewError(f'"{verdict}" is not a verdict; use "approve" or "changes"')
-    if verdict == "changes" and not note.strip():
-        raise ReviewError("asking for changes needs a note saying what must change")
+        raise ReviewError(f'"{verdict}" is not a verdict; use "accept" or "rework"')
+    if verdict == "rework" and not note.strip():
+        raise ReviewError("returning a stage for rework needs a note saying what must change")
     fingerprint = stage_fingerprint(stage, project)
     stamp = _time(time)
     event = append_event(project, name, "signoff",

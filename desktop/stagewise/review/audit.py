@@ -29,6 +29,7 @@ from datetime import UTC, datetime
 from typing import Any, Final
 
 from stagewise.model.project import AuditEvent, Project
+from stagewise.review.words import VERDICT_WORDS, current_verdict
 
 __all__ = [
     "EVENT_LABELS",
@@ -233,9 +234,13 @@ def unrecorded_decisions(project: Project) -> list[str]:
 
     for stage in project.stages:
         for index, signoff in enumerate(stage.signoffs):
-            if not found("signoff", signoff.name, signoff.time, stage=stage.id, verdict=signoff.verdict,
-                         fingerprint=signoff.fingerprint):
-                problems.append(f'stage "{stage.id}", sign-off {index + 1} ({signoff.verdict} by {signoff.name}) '
+            # An event recorded by an earlier release holds that release's verdict word; the
+            # event is never rewritten (its hash covers it), so compare in today's words.
+            if not any(_matches(event, "signoff", signoff.name, signoff.time, stage=stage.id,
+                                fingerprint=signoff.fingerprint)
+                       and current_verdict(str(event.detail.get("verdict"))) == current_verdict(signoff.verdict)
+                       for event in events):
+                problems.append(f'stage "{stage.id}", sign-off {index + 1} ({VERDICT_WORDS.get(signoff.verdict, signoff.verdict)} by {signoff.name}) '
                                 f"has no matching audit event")
         for check in stage.checks:
             if check.waiver is not None and not found("waiver", check.waiver.by, check.waiver.time, stage=stage.id,

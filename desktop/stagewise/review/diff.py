@@ -15,7 +15,7 @@ from stagewise.files.codec import encode_opamp
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Check, Part, Project, Stage
 from stagewise.model.values import Quantity
-from stagewise.review.words import SignoffState
+from stagewise.review.words import VERDICT_WORDS, SignoffState
 
 __all__ = ["Change", "ProjectDiff", "StaleSignoff", "diff_projects"]
 
@@ -90,7 +90,7 @@ class StaleSignoff:
 
     def sentence(self) -> str:
         role = f", {self.role}" if self.role else ""
-        return (f"{SignoffState.STALE}: stage {self.stage_id}, {self.verdict} by {self.name}{role} "
+        return (f"{SignoffState.OUT_OF_DATE}: stage {self.stage_id}, {VERDICT_WORDS.get(self.verdict, self.verdict)} by {self.name}{role} "
                 f"at {self.time}")
 
     def as_json(self) -> dict[str, Any]:
@@ -116,11 +116,11 @@ class ProjectDiff:
         out = [change.sentence() for change in self.changes]
         if self.stale:
             out.append("")
-            out.append(f"sign-offs made {SignoffState.STALE} by these changes ({len(self.stale)}):")
+            out.append(f"sign-offs made {SignoffState.OUT_OF_DATE} by these changes ({len(self.stale)}):")
             out.extend("  " + item.sentence() for item in self.stale)
         else:
             out.append("")
-            out.append("no sign-off is made stale by these changes")
+            out.append(f"no sign-off is made {SignoffState.OUT_OF_DATE} by these changes")
         return out
 
     def as_json(self) -> dict[str, Any]:
@@ -211,8 +211,9 @@ def _stage_changes(old: Stage, new: Stage, new_print: str) -> list[Change]:
     if old.notes != new.notes:
         changes.append(Change("changed", sid, "stage", "notes", None, None, behaviour=False))
     for signoff in new.signoffs[len(old.signoffs):] if _prefix(old.signoffs, new.signoffs) else new.signoffs:
-        stale = f", {SignoffState.STALE}" if signoff.fingerprint != new_print else ""
-        changes.append(Change("added", sid, "sign-off", new=f"{signoff.verdict} by {signoff.name}{stale}",
+        stale = f", {SignoffState.OUT_OF_DATE}" if signoff.fingerprint != new_print else ""
+        word = VERDICT_WORDS.get(signoff.verdict, signoff.verdict)
+        changes.append(Change("added", sid, "sign-off", new=f"{word} by {signoff.name}{stale}",
                               behaviour=False))
     if len(new.comments) != len(old.comments) or any(a.resolved != b.resolved for a, b in zip(old.comments, new.comments,
                                                                                             strict=False)):

@@ -1,10 +1,12 @@
-"""Sign-off states: which sign-offs still hold, which are stale, and each stage's overall state.
+"""Sign-off states: which sign-offs still hold, which are out of date, and each stage's overall state.
 
 A sign-off stores the stage fingerprint it saw (:func:`stagewise.model.fingerprint.stage_fingerprint`);
-it is **stale** as soon as the stage's current fingerprint differs. A stage's state looks at
-each reviewer's latest sign-off that is still current: any asking for changes makes the stage
-``changes needed``; otherwise any approval makes it ``approved``; sign-offs that are all stale
-make it ``stale``; none at all is ``not signed``.
+it is **out of date** as soon as the stage's current fingerprint differs. A sign-off followed by a
+later one of the same reviewer on the same stage is **replaced**. A stage's state looks at each
+reviewer's latest sign-off that is still current: any returning it for rework makes the stage
+``returned for rework``; otherwise any acceptance makes it ``accepted``; sign-offs that are all out
+of date make it ``out of date``; none at all is ``not signed``. The words come from
+:mod:`stagewise.review.words`.
 """
 
 from __future__ import annotations
@@ -13,33 +15,40 @@ from dataclasses import dataclass
 
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Signoff, Stage
-from stagewise.review.words import SignoffState
+from stagewise.review.words import SignoffState, current_verdict
 
-__all__ = ["SignoffView", "StageSignoffs", "is_stale", "signoff_state", "signoff_states"]
+__all__ = ["SignoffView", "StageSignoffs", "is_out_of_date", "signoff_state", "signoff_states"]
 
 
 @dataclass(frozen=True, slots=True)
 class SignoffView:
-    """One recorded sign-off with its position in ``stage.signoffs`` and whether it is stale."""
+    """One recorded sign-off with its position in ``stage.signoffs``, whether it is out of date
+    (given to an earlier design of the stage) and whether it is replaced (the same reviewer
+    signed the stage again later)."""
 
     index: int
     signoff: Signoff
-    stale: bool
-    superseded: bool
+    out_of_date: bool
+    replaced: bool
+
+    @property
+    def verdict_word(self) -> str:
+        """The verdict in words: ``accepted`` or ``returned for rework``."""
+        return str(SignoffState.ACCEPTED if current_verdict(self.signoff.verdict) == "accept" else SignoffState.REWORK)
 
     @property
     def word(self) -> str:
-        """``approved``, ``changes needed``, or ``stale`` when the stage changed since."""
-        if self.stale:
-            return str(SignoffState.STALE)
-        return str(SignoffState.APPROVED if self.signoff.verdict == "approve" else SignoffState.CHANGES)
+        """``accepted``, ``returned for rework``, or ``out of date`` when the stage changed since."""
+        if self.out_of_date:
+            return str(SignoffState.OUT_OF_DATE)
+        return self.verdict_word
 
 
 @dataclass(frozen=True, slots=True)
 class StageSignoffs:
-    """A stage's sign-off state, its current fingerprint and every sign-off with its staleness.
+    """A stage's sign-off state, its current fingerprint and every sign-off with its standing.
 
-    ``superseded`` sign-offs are earlier sign-offs of a reviewer who signed again later; they
+    ``replaced`` sign-offs are earlier sign-offs of a reviewer who signed again later; they
     stay in the record and do not count towards the state.
     """
 
@@ -49,12 +58,13 @@ class StageSignoffs:
     signoffs: tuple[SignoffView, ...]
 
     @property
-    def stale_count(self) -> int:
-        return sum(1 for view in self.signoffs if view.stale and not view.superseded)
+    def out_of_date_count(self) -> int:
+        """Sign-offs that are out of date and not replaced (they ask for a new sign-off)."""
+        return sum(1 for view in self.signoffs if view.out_of_date and not view.replaced)
 
 
-def is_stale(signoff: Signoff, stage: Stage, project: Project) -> bool:
-    """True when ``signoff`` was given to a different version of ``stage`` than the current one."""
+def is_out_of_date(signoff: Signoff, stage: Stage, project: Project) -> bool:
+    """True when ``signoff`` was given to a different design of ``stage`` than the current one."""
     return signoff.fingerprint != stage_fingerprint(stage, project)
 
 
@@ -68,13 +78,13 @@ def _state_of(stage: Stage, project: Project) -> StageSignoffs:
         SignoffView(index, signoff, signoff.fingerprint != current, index not in latest)
         for index, signoff in enumerate(stage.signoffs)
     )
-    live = [view for view in views if not view.superseded and not view.stale]
-    if any(view.signoff.verdict == "changes" for view in live):
-        state = SignoffState.CHANGES
+    live = [view for view in views if not view.replaced and not view.out_of_date]
+    if any(current_verdict(view.signoff.verdict) == "rework" for view in live):
+        state = SignoffState.REWORK
     elif live:
-        state = SignoffState.APPROVED
+        state = SignoffState.ACCEPTED
     elif views:
-        state = SignoffState.STALE
+        state = SignoffState.OUT_OF_DATE
     else:
         state = SignoffState.NONE
     return StageSignoffs(stage.id, state, current, views)

@@ -13,11 +13,15 @@ __all__ = [
     "ANSWER_WORDS",
     "CHECK_STATE_MEANINGS",
     "PASSING_STATES",
+    "OLDER_VERDICTS",
+    "REPLACED_WORD",
     "SIGNOFF_STATE_MEANINGS",
+    "VERDICTS",
     "VERDICT_WORDS",
     "WHERE_WORDS",
     "CheckState",
     "SignoffState",
+    "current_verdict",
 ]
 
 
@@ -55,23 +59,43 @@ ANSWER_WORDS: Final[dict[str, str]] = {
 class SignoffState(StrEnum):
     """A stage's sign-off state. The value is the word shown to users."""
 
-    APPROVED = "approved"
-    CHANGES = "changes needed"
-    STALE = "stale"
+    ACCEPTED = "accepted"
+    REWORK = "returned for rework"
+    OUT_OF_DATE = "out of date"
     NONE = "not signed"
 
 
 SIGNOFF_STATE_MEANINGS: Final[dict[SignoffState, str]] = {
-    SignoffState.APPROVED: "a reviewer approved the stage as it is now",
-    SignoffState.CHANGES: "a reviewer asked for changes to the stage as it is now",
-    SignoffState.STALE: "every sign-off was given to an earlier version of the stage; sign again",
+    SignoffState.ACCEPTED: "a reviewer accepted the stage as it is now",
+    SignoffState.REWORK: "a reviewer returned the stage as it is now for rework",
+    SignoffState.OUT_OF_DATE: "every sign-off was given to an earlier design of the stage; sign again",
     SignoffState.NONE: "nobody has signed this stage",
 }
 
+# The verdicts a reviewer gives, as stored in the file, and the words shown for them.
+VERDICTS: Final = ("accept", "rework")
 VERDICT_WORDS: Final[dict[str, str]] = {
-    "approve": "approved",
-    "changes": "changes needed",
+    "accept": str(SignoffState.ACCEPTED),
+    "rework": str(SignoffState.REWORK),
 }
+
+# Verdicts written by earlier releases: files holding them still load, read as the new ones.
+# Audit events recorded with them are never rewritten (their hashes cover the old words);
+# a sign-off is matched to its event through this table.
+OLDER_VERDICTS: Final[dict[str, str]] = {
+    "approve": "accept",
+    "changes": "rework",
+}
+
+# A sign-off followed by a later one of the same reviewer on the same stage: it stays in the
+# record and no longer counts towards the stage's state.
+REPLACED_WORD: Final = "replaced"
+
+
+def current_verdict(word: str) -> str:
+    """The stored verdict ``word`` in today's words (an older word is translated; others kept)."""
+    return OLDER_VERDICTS.get(word, word)
+
 
 # Where a numeric check takes its metric.
 WHERE_WORDS: Final[dict[str, str]] = {

@@ -192,7 +192,7 @@ class ChainTree(QTreeWidget):
             self.blockSignals(False)
 
     def _fill_states(self) -> None:
-        """Sign-off state (read now, so an edit shows a stale sign-off at once) and check totals
+        """Sign-off state (read now, so an edit shows an out-of-date sign-off at once) and check totals
         from the latest analysis; the words come from stagewise.review."""
         from stagewise.review.signoff import signoff_state
         from stagewise.review.words import SignoffState
@@ -215,8 +215,8 @@ class ChainTree(QTreeWidget):
                         child.setText(COLUMN_STATE, states.get(child.data(0, ROLE_KEY)) or "")
             item.setText(COLUMN_STATE, " · ".join(words).replace(" pass", ""))
             item.setToolTip(COLUMN_STATE, "\n".join(tips))
-            colour = {SignoffState.STALE: "#8a4b00", SignoffState.CHANGES: "#b54a00",
-                      SignoffState.APPROVED: "#00704f"}.get(state, "#505050")
+            colour = {SignoffState.OUT_OF_DATE: "#8a4b00", SignoffState.REWORK: "#b54a00",
+                      SignoffState.ACCEPTED: "#00704f"}.get(state, "#505050")
             item.setForeground(COLUMN_STATE, QBrush(QColor(colour)))
 
     def _sync_ticks(self) -> None:

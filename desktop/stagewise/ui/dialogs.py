@@ -23,6 +23,7 @@ from PySide6.QtWidgets import (
 
 from stagewise import __version__
 from stagewise.model.project import PART_TYPES, Check
+from stagewise.review.words import VERDICT_WORDS, VERDICTS
 
 __all__ = [
     "CAUTIONS",
@@ -83,16 +84,16 @@ class SignoffDialog(_Form):
     def __init__(self, stage_name: str, name: str = "", role: str = "", parent: QWidget | None = None) -> None:
         super().__init__(f"Sign {stage_name}",
                          "Your verdict is bound to the stage as it is now; any later change to its "
-                         "parts or check limits marks it stale. It is recorded in the audit trail "
+                         "parts or check limits marks it out of date. It is recorded in the audit trail "
                          "and cannot be undone.", parent)
         self.name = QLineEdit(name)
         self.role = QLineEdit(role)
         self.role.setPlaceholderText("for instance: analog design reviewer")
         self.verdict = QComboBox()
-        self.verdict.addItem("Approve", "approve")
-        self.verdict.addItem("Ask for changes", "changes")
+        for verdict in VERDICTS:
+            self.verdict.addItem(VERDICT_WORDS[verdict].capitalize(), verdict)
         self.note = QPlainTextEdit()
-        self.note.setPlaceholderText("What you looked at; what must change (required when asking for changes).")
+        self.note.setPlaceholderText("What you looked at; what must change (required when returning it for rework).")
         self.form.addRow("Name", self.name)
         self.form.addRow("Role", self.role)
         self.form.addRow("Verdict", self.verdict)
@@ -104,7 +105,7 @@ class SignoffDialog(_Form):
     def complete(self) -> bool:
         if not self.name.text().strip():
             return False
-        return not (self.verdict.currentData() == "changes" and not self.note.toPlainText().strip())
+        return not (self.verdict.currentData() == "rework" and not self.note.toPlainText().strip())
 
     def values(self) -> dict[str, str]:
         return {"name": self.name.text().strip(), "role": self.role.text().strip(),

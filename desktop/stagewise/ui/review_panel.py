@@ -2,7 +2,7 @@
 
 Check states come from the worker (evaluated by ``stagewise.review.checks`` against the
 analysis); sign-off states are read from ``stagewise.review.signoff`` each time the stage or its
-records change, so a sign-off turns *stale* the moment a part is edited. Every decision goes
+records change, so a sign-off turns *out of date* the moment a part is edited. Every decision goes
 through ``stagewise.review.actions``, which appends its audit event.
 """
 
@@ -28,6 +28,7 @@ from PySide6.QtWidgets import (
 
 from stagewise.review.words import (
     ANSWER_WORDS,
+    REPLACED_WORD,
     SIGNOFF_STATE_MEANINGS,
     WHERE_WORDS,
     CheckState,
@@ -49,9 +50,9 @@ STATE_COLOURS = {
     str(CheckState.NOT_APPLICABLE): "#606060",
 }
 SIGNOFF_COLOURS = {
-    SignoffState.APPROVED: "#00704f",
-    SignoffState.CHANGES: "#b54a00",
-    SignoffState.STALE: "#8a4b00",
+    SignoffState.ACCEPTED: "#00704f",
+    SignoffState.REWORK: "#b54a00",
+    SignoffState.OUT_OF_DATE: "#8a4b00",
     SignoffState.NONE: "#505050",
 }
 CHECK_COLUMNS = ("Check", "State", "Value", "Limits", "What and why")
@@ -182,17 +183,17 @@ class ReviewPanel(QWidget):
         self.state.setProperty("signoffState", str(state.state))
         for view in reversed(state.signoffs):
             signoff = view.signoff
-            text = (f"{view.word.upper() if view.stale else view.word}: {signoff.name}"
+            text = (f"{view.word.upper() if view.out_of_date else view.word}: {signoff.name}"
                     f"{', ' + signoff.role if signoff.role else ''}, {signoff.time}")
-            if view.superseded:
-                text += " (superseded by a later sign-off of the same reviewer)"
-            if view.stale:
-                text += " (given to an earlier version of the stage)"
+            if view.out_of_date:
+                text += f" ({view.verdict_word}, given to an earlier design of the stage)"
+            if view.replaced:
+                text += f" ({REPLACED_WORD} by a later sign-off of the same reviewer)"
             if signoff.note:
                 text += f"\n{signoff.note}"
             item = QListWidgetItem(text)
-            item.setForeground(QBrush(QColor("#8a4b00" if view.stale else "#202020")))
-            item.setData(Qt.ItemDataRole.UserRole, "stale" if view.stale else "current")
+            item.setForeground(QBrush(QColor("#8a4b00" if view.out_of_date else "#202020")))
+            item.setData(Qt.ItemDataRole.UserRole, "out of date" if view.out_of_date else "current")
             self.signoffs.addItem(item)
         if not state.signoffs:
             self.signoffs.addItem(QListWidgetItem("No sign-offs yet."))
