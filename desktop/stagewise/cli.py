@@ -11,12 +11,14 @@ from __future__ import annotations
 import argparse
 import importlib
 import os
+import re
 import sys
 from collections.abc import Sequence
+from typing import Any, TextIO
 
 from stagewise import __version__
 
-__all__ = ["CommandError", "build_parser", "main"]
+__all__ = ["CommandError", "build_parser", "main", "printable"]
 
 EXIT_OK = 0
 EXIT_FAILED = 1
@@ -27,6 +29,54 @@ SUBCOMMANDS = ("gui", "analyze", "response", "check", "packet", "verify", "diff"
 
 class CommandError(Exception):
     """An error to report as one sentence on stderr, exit status 2."""
+
+
+# Characters a terminal may act on instead of showing: C0 controls, DEL, C1 controls (0x9b is
+# a one-byte CSI), the bidirectional overrides and isolates (they reorder what is shown), and
+# lone surrogates (not text at all; they cannot even be encoded for output).
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f\u200e\u200f\u202a-\u202e\u2066-\u2069\ud800-\udfff]")
+_NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
+
+
+def _escape(match: re.Match[str]) -> str:
+    character = match.group()
+    named = _NAMED.get(character)
+    if named is not None:
+        return named
+    code = ord(character)
+    return f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}"
+
+
+def printable(text: object) -> str:
+    """``text`` safe to print: every control character escaped as Python writes it (``\\n``,
+    ``\\x1b``, ``\\u202e``), so that text from a file (an id, a title, a check's text, a key
+    name) can neither drive the terminal nor start a line of its own.
+
+    Every command prints text that came from a file through this helper; the streams of
+    :func:`main` escape whatever slips through (except line ends and tabs of our own layout).
+    """
+    return _CONTROL.sub(_escape, str(text))
+
+
+# What the output streams escape: all of the above except the line ends and tabs our own
+# printers lay out text with. Escaped as \uXXXX, which is also a valid escape inside a JSON
+# string, so JSON output stays the same document.
+_STREAM_CONTROL = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f\u200e\u200f\u202a-\u202e\u2066-\u2069"
+                             "\ud800-\udfff]")
+
+
+class _EscapingStream:
+    """Wraps stdout or stderr for the duration of a command (see :func:`printable`)."""
+
+    def __init__(self, stream: TextIO) -> None:
+        self._stream = stream
+
+    def write(self, text: str) -> int:
+        self._stream.write(_STREAM_CONTROL.sub(lambda match: f"\\u{ord(match.group()):04x}", text))
+        return len(text)
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._stream, name)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -102,6 +152,15 @@ def main(argv: Sequence[str] | None = None) -> int:
         arguments = ["gui"]
     parser = build_parser()
     args = parser.parse_args(arguments)
+    stdout, stderr = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = _EscapingStream(stdout), _EscapingStream(stderr)  # type: ignore[assignment]
+    try:
+        return _run(args)
+    finally:
+        sys.stdout, sys.stderr = stdout, stderr
+
+
+def _run(args: argparse.Namespace) -> int:
     module_name = "stagewise.commands." + str(args.command).replace("-", "_")
     try:
         module = importlib.import_module(module_name)
@@ -128,7 +187,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def _report(message: str) -> None:
-    text = " ".join(message.split())
+    text = printable(" ".join(message.split()))
     if not text.endswith((".", "?", "!")):
         text += "."
     sys.stderr.write(f"stagewise: {text}\n")

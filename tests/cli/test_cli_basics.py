@@ -169,7 +169,7 @@ def test_missing_and_oversized_files(tmp_path: Path, capsys: pytest.CaptureFixtu
     with huge.open("wb") as stream:
         stream.truncate(MAX_FILE_BYTES + 1)
     status, _, err = _run(capsys, "check", str(huge))
-    assert status == 2 and "over 20 MB are refused" in _one_sentence(err)
+    assert status == 2 and "over 20 MiB (20,971,520 bytes) are refused" in _one_sentence(err)
     status, _, err = _run(capsys, "verify", str(tmp_path))
     assert status == 2 and "folder" in _one_sentence(err)
 

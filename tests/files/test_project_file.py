@@ -214,8 +214,8 @@ def test_migrate_leaves_current_and_unusable_versions_to_the_decoder() -> None:
 def test_file_over_20_mb_is_refused_without_parsing(tmp_path: Path) -> None:
     path = tmp_path / "huge.stagewise.json"
     with path.open("wb") as stream:
-        stream.truncate(MAX_FILE_BYTES + 1)  # sparse: no 20 MB actually written
-    with pytest.raises(ProjectFileError, match="over 20 MB are refused"):
+        stream.truncate(MAX_FILE_BYTES + 1)  # sparse: no 20 MiB actually written
+    with pytest.raises(ProjectFileError, match=r"over 20 MiB \(20,971,520 bytes\) are refused"):
         load_project(path)
 
 

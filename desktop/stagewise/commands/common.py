@@ -7,14 +7,21 @@ sentence, which ``cli.main`` prints on stderr with exit status 2.
 from __future__ import annotations
 
 import json
+import os
+import stat
 import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
 from typing import Any
 
+from stagewise.files.lock import LockError, ProjectLock, acquire_lock
 from stagewise.files.project_file import load_project
 from stagewise.model.project import Project, Stage
 from stagewise.model.values import ValueSyntaxError, parse_value
 
-__all__ = ["MAX_FREQUENCIES", "load", "parse_frequencies", "print_json", "stage_by_id"]
+__all__ = ["MAX_FREQUENCIES", "load", "locked", "note", "parse_frequencies", "print_json", "read_input_file",
+           "stage_by_id"]
 
 MAX_FREQUENCIES = 100_000
 
@@ -22,6 +29,91 @@ MAX_FREQUENCIES = 100_000
 def load(path: str) -> Project:
     """Load a project; a ProjectFileError reaches the user as one sentence (exit 2)."""
     return load_project(path)
+
+
+@contextmanager
+def locked(path: str | os.PathLike[str], who: str) -> Iterator[ProjectLock]:
+    """Hold the edit lock of project ``path`` while a command writes it.
+
+    A stale lock (its process gone on this host, or past the age limit of
+    :mod:`stagewise.files.lock`) is taken over with a line on stderr saying whose it was and why
+    it was stale. A held lock is refused with one sentence naming who holds it.
+
+    Raises
+    ------
+    CommandError
+        The project is open for editing elsewhere, or the lock cannot be written.
+    """
+    from stagewise.cli import CommandError
+
+    try:
+        lock = acquire_lock(path, who)
+    except LockError as error:
+        if error.state is None:
+            raise CommandError(str(error)) from error
+        raise CommandError(f"{error}; close it there and try again") from error
+    if lock.note is not None:
+        note(lock.note)
+    try:
+        yield lock
+    finally:
+        lock.release()
+
+
+def note(message: str) -> None:
+    """One line for the user on stderr (``stagewise: note: ...``), control characters escaped."""
+    from stagewise.cli import printable
+
+    sys.stderr.write(f"stagewise: note: {printable(message)}\n")
+
+
+def read_input_file(path: str | os.PathLike[str], what: str, max_bytes: int) -> bytes:
+    """The bytes of an input file that is a regular file no larger than ``max_bytes``.
+
+    A device (``/dev/zero``), a pipe or a socket is refused before anything is read (it could
+    give bytes without end or block forever); the file is opened without blocking and checked
+    again once open, so a file swapped for a pipe in between is refused too.
+
+    Raises
+    ------
+    CommandError
+        One sentence naming the file: missing, a folder, not a regular file, too large, unreadable.
+    """
+    from stagewise.cli import CommandError
+
+    where = Path(path)
+    try:
+        descriptor = os.open(where, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+    except FileNotFoundError as error:
+        raise CommandError(f"{where}: no such file") from error
+    except IsADirectoryError as error:
+        raise CommandError(f"{where}: this is a folder, not {what}") from error
+    except OSError as error:
+        raise CommandError(f"{where}: cannot be read ({error.strerror})") from error
+    try:
+        status = os.fstat(descriptor)
+        if stat.S_ISDIR(status.st_mode):
+            raise CommandError(f"{where}: this is a folder, not {what}")
+        if not stat.S_ISREG(status.st_mode):
+            raise CommandError(f"{where}: not a regular file (a device, a pipe or a socket); give {what}")
+        if status.st_size > max_bytes:
+            raise CommandError(f"{where}: {status.st_size} bytes is too large for {what} "
+                               f"(at most {max_bytes} bytes)")
+        chunks: list[bytes] = []
+        total = 0
+        while True:  # bounded even if the file grows while it is read
+            chunk = os.read(descriptor, min(1 << 20, max_bytes + 1 - total))
+            if not chunk:
+                break
+            chunks.append(chunk)
+            total += len(chunk)
+            if total > max_bytes:
+                raise CommandError(f"{where}: over {max_bytes} bytes is too large for {what}")
+    except OSError as error:
+        raise CommandError(f"{where}: cannot be read ({error.strerror})") from error
+    finally:
+        os.close(descriptor)
+    return b"".join(chunks)
 
 
 def parse_frequencies(text: str, option: str = "--freqs") -> list[float]:

@@ -4,7 +4,9 @@ Appends a stage built from element-card text (format in :mod:`stagewise.files.ca
 an audit event ``import`` ("stage imported") with the stage id and the SHA-256 of the cards file,
 validates the whole project and saves it atomically. On any error the project file is left
 byte for byte as it was and the command exits with status 2 and one sentence. The project's
-edit lock is held during the import; a project open for editing elsewhere is refused.
+edit lock is held during the import; a project open for editing elsewhere is refused, a stale
+lock is taken over with a line saying so. The cards file is read (a regular file, bounded)
+before the lock is taken.
 """
 
 from __future__ import annotations
@@ -15,9 +17,8 @@ import hashlib
 from pathlib import Path
 
 from stagewise.cli import CommandError
-from stagewise.commands.common import load
+from stagewise.commands.common import load, locked, read_input_file
 from stagewise.files.cards import CardError, stage_from_cards
-from stagewise.files.lock import LockError, acquire_lock
 from stagewise.files.project_file import save_project
 from stagewise.model.validate import validate
 from stagewise.review.audit import append_event
@@ -38,32 +39,14 @@ def run(args: argparse.Namespace) -> int:
     # Hold the edit lock while reading and writing, so an import never lands under a project
     # someone has open in the desktop program (their next save would drop it).
     load(args.file)  # a missing or invalid project is reported before any lock file is made
-    try:
-        lock = acquire_lock(args.file, _who(args), take_stale=False)
-    except LockError as error:
-        if error.state is None:
-            raise CommandError(str(error)) from error
-        raise CommandError(f"{error}; close it there, or import the cards in the program") from error
-    try:
-        return _import(args)
-    finally:
-        lock.release()
-
-
-def _import(args: argparse.Namespace) -> int:
-    project = load(args.file)
     cards_path = Path(args.cards)
-    try:
-        size = cards_path.stat().st_size
-        if size > MAX_CARDS_BYTES:
-            raise CommandError(f"{cards_path}: {size} bytes is too large for an element-card file")
-        data = cards_path.read_bytes()
-    except FileNotFoundError as error:
-        raise CommandError(f"{cards_path}: no such file") from error
-    except IsADirectoryError as error:
-        raise CommandError(f"{cards_path}: this is a folder, not an element-card file") from error
-    except OSError as error:
-        raise CommandError(f"{cards_path}: cannot be read ({error.strerror})") from error
+    data = read_input_file(cards_path, "an element-card file", MAX_CARDS_BYTES)  # never while locked
+    with locked(args.file, _who(args)):
+        return _import(args, cards_path, data)
+
+
+def _import(args: argparse.Namespace, cards_path: Path, data: bytes) -> int:
+    project = load(args.file)
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as error:

@@ -156,9 +156,9 @@ def _describe(value: object) -> str:
         shown = value if len(value) <= 40 else value[:37] + "…"
         return f'"{shown}"'
     if isinstance(value, list):
-        return "a list"
+        return "a list" if value else "an empty list"
     if isinstance(value, dict):
-        return "an object"
+        return "an object" if value else "an empty object"
     return repr(value)
 
 
@@ -323,9 +323,12 @@ def decode(document: object, source: str = "") -> Project:
     if "format" in data and data["format"] != FORMAT_NAME:
         with reader.at("format"):
             reader.problem(f'{_describe(data["format"])} is not a Stagewise project (expected "{FORMAT_NAME}")')
-    if "version" in data and data["version"] != FORMAT_VERSION:
+    version = data.get("version")
+    # `true` and `1.0` compare equal to 1 in Python; the format's version is the integer itself.
+    if "version" in data and (type(version) is not int or version != FORMAT_VERSION):
         with reader.at("version"):
-            reader.problem(f"{_describe(data['version'])} is not version {FORMAT_VERSION}")
+            reader.problem(f"{_describe(version)} is not version {FORMAT_VERSION}; write the whole number "
+                           f"{FORMAT_VERSION}")
     project = Project(title=reader.field(data, "title", _name, ""))
     project.revision = reader.field(data, "revision", _text, "")
     with reader.at("settings"):
@@ -721,5 +724,15 @@ def encode_event(event: AuditEvent) -> dict[str, Any]:
 
 
 def dumps(project: Project) -> str:
-    """The canonical file text: UTF-8 JSON, 2-space indent, keys in fixed order, final newline."""
-    return json.dumps(encode(project), indent=2, ensure_ascii=False) + "\n"
+    """The canonical file text: UTF-8 JSON, 2-space indent, keys in fixed order, final newline.
+
+    Raises
+    ------
+    ValueError
+        A number in the project is not finite (JSON has no such number; it is never written).
+    """
+    try:
+        return json.dumps(encode(project), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+    except ValueError as error:
+        raise ValueError(f"a number that is not finite (NaN or infinity) cannot be written to a project file "
+                         f"({error})") from error

@@ -1040,6 +1040,9 @@ class MainWindow(QMainWindow):
         except OSError as error:
             self._refuse(EditRefused(f"{path}: not saved ({error.strerror or error}); the old file is unchanged"))
             return False
+        except ValueError as error:  # SaveRefused: what would be written does not load again
+            self._refuse(EditRefused(str(error)))
+            return False
         old_path = self.document.path
         if old_path is not None and old_path != path:
             self.remove_recovery()
@@ -1113,6 +1116,9 @@ class MainWindow(QMainWindow):
             self._recovery_written = True
         except OSError as error:
             self.show_message(f"Autosave failed: {error.strerror or error}.")
+            return None
+        except ValueError as error:  # a number that is not finite: never written
+            self.show_message(f"Autosave failed: {error}.")
             return None
         return target
 
