@@ -30,11 +30,14 @@ def _who(by: str | None) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    from stagewise.files.project_file import file_sha256, save_project
+    from stagewise.files.project_file import file_sha256, is_project_or_companion, save_project
     from stagewise.report.packet import build_packet
     from stagewise.review.actions import record_packet
 
     output = Path(args.output)
+    if is_project_or_companion(output, args.file):
+        raise CommandError(f"{args.output} is the project file {args.file} itself (or its backup or lock), which "
+                           "the packet would overwrite; give another name for the PDF")
     if output.suffix.lower() != ".pdf":
         raise CommandError(f"{args.output}: the packet is a PDF; give an output name ending in .pdf")
     if output.exists() and output.is_dir():
