@@ -24,7 +24,22 @@ EXIT_OK = 0
 EXIT_FAILED = 1
 EXIT_ERROR = 2
 
-SUBCOMMANDS = ("gui", "analyze", "response", "check", "packet", "verify", "diff", "import-cards")
+SUBCOMMANDS = ("gui", "analyze", "response", "check", "packet", "verify", "diff", "import-cards", "measure")
+
+
+MEASURE_HELP = """\
+Attach a bench measurement to a stage or to the whole chain.
+
+DATA is a Touchstone 1.x two-port file (.s2p: S21 read as V_out/V_in; Z or Y parameters
+converted to the open-output transfer) or a CSV file with a header row: frequency with magnitude
+(dB or linear) and phase (deg or rad), or with real and imaginary parts, for a frequency
+response; time and voltage for a step capture (time zero at the input edge). The points are
+embedded in the project with the file's name and SHA-256; an audit event records the import.
+
+Exit status: 0 attached (the project file is rewritten, its previous version kept as .bak);
+2 the data or the project cannot be read, or the project is open for editing elsewhere
+(nothing is changed).
+"""
 
 
 class CommandError(Exception):
@@ -139,6 +154,21 @@ def build_parser() -> argparse.ArgumentParser:
     cards.add_argument("--out", dest="out_node", metavar="NODE", default="out", help="output port node (default out)")
     cards.add_argument("--id", dest="stage_id", metavar="ID", help="id of the new stage (default: from the name)")
     cards.add_argument("--by", metavar="NAME", help="who imported it (recorded in the audit trail)")
+
+    measure = commands.add_parser("measure", help="attach a bench measurement to a stage or the chain",
+                                  description=MEASURE_HELP, formatter_class=argparse.RawDescriptionHelpFormatter)
+    measure.add_argument("file", metavar="FILE")
+    measure.add_argument("data", metavar="DATA", help="Touchstone .s2p or CSV measurement file")
+    measure.add_argument("--stage", metavar="ID", help="the stage measured (isolated unless --in-chain)")
+    measure.add_argument("--in-chain", action="store_true", help="with --stage: measured where it sits in the chain")
+    measure.add_argument("--chain", action="store_true", help="the whole chain was measured, drive to last output")
+    measure.add_argument("--by", metavar="NAME", help="who attached it (recorded in the audit trail)")
+    measure.add_argument("--note", metavar="TEXT", help="a note kept with the measurement")
+    measure.add_argument("--instrument", metavar="TEXT", help="the instrument used")
+    measure.add_argument("--setup", metavar="TEXT", help="the set-up: probes, levels, bandwidth, averaging")
+    measure.add_argument("--columns", metavar="LIST", help="CSV columns in order, e.g. f_khz,mag_db,phase_deg "
+                         "(also f_hz, mag, phase_rad, re, im, t_s, t_ms, t_us, v, v_mv, - to skip)")
+    measure.add_argument("--id", dest="measurement_id", metavar="ID", help="id of the measurement (default: from DATA)")
     return parser
 
 

@@ -20,6 +20,7 @@ REQUIRED_KEYS = {
     "group_delay_s", "rise_s", "overshoot_pct", "settle_1pct_s", "settle_01pct_s", "phase_margin_deg",
     "gain_margin_db", "crossover_hz", "loading_error_db_max", "zin_ohm", "zout_ohm", "noise_out_rms_v",
     "noise_in_rms", "snr_db", "alias_attenuation_db", "headroom_v", "slew_margin", "yield_pct",
+    "measured_dev_db_max", "measured_dev_deg_max", "measured_inside_spread_pct",
 }
 
 

@@ -464,12 +464,43 @@ class ProjectAnalysis:
             return _document_value(converter, "alias_attenuation_db")
         if metric in ("headroom_v", "slew_margin"):
             return self._headroom_value(metric, where, stage_id)
+        if metric in ("measured_dev_db_max", "measured_dev_deg_max", "measured_inside_spread_pct"):
+            return self._measured_value(metric, where, stage_id)
         if metric == "yield_pct":
             spread = self.spread
             if isinstance(spread, _Failure):
                 return None, spread.why
             return _document_value(spread, "yield_pct")
         return None, f'"{metric}" is not a metric Stagewise computes'
+
+    @cached_property
+    def measurements(self) -> list[Any]:
+        """Every bench measurement compared with the prediction at its place
+        (:class:`~stagewise.engine.measured.MeasurementComparison`, in file order)."""
+        from stagewise.engine.measured import compare_measurement  # noqa: PLC0415
+
+        return [compare_measurement(self.project, item, self.engine) for item in self.project.measurements]
+
+    def _measured_value(self, metric: str, where: str, stage_id: str) -> tuple[float | None, str | None]:
+        place = "the whole chain" if where == "chain" else f'stage "{stage_id}" {where.replace("_", " ")}'
+        found = [item for item in self.measurements
+                 if item.measurement.kind == "response" and item.measurement.where == where
+                 and (where == "chain" or item.measurement.stage == stage_id)]
+        if not found:
+            return None, f"no frequency-response measurement is attached to {place}"
+        current = [item for item in found if not item.stale]
+        if not current:
+            names = ", ".join(f'"{item.measurement.id}"' for item in found)
+            return None, (f"the measurement {names} of {place} is out of date: the circuit changed after it was "
+                          "measured; measure the board again")
+        key = {"measured_dev_db_max": "dev_db_max", "measured_dev_deg_max": "dev_deg_max",
+               "measured_inside_spread_pct": "inside_spread_pct"}[metric]
+        values = [getattr(item, key) for item in current]
+        if any(value is None for value in values):
+            item = current[values.index(None)]
+            return None, f'measurement "{item.measurement.id}": {item.why.get(key, "no value")}'
+        worst = min(values) if key == "inside_spread_pct" else max(values)
+        return float(worst), None
 
     def _headroom_value(self, metric: str, where: str, stage_id: str) -> tuple[float | None, str | None]:
         headroom = self.headroom
@@ -600,6 +631,9 @@ class ProjectAnalysis:
             document["chain_why"] = failure.why if isinstance(failure, _Failure) else "the chain cannot be analysed"
         else:
             document["chain"] = chain
+        from stagewise.engine.measured import comparison_to_json  # noqa: PLC0415
+
+        document["measurements"] = [comparison_to_json(item) for item in self.measurements]
         ready: dict[str, Any] = _json_ready(document)
         return ready
 

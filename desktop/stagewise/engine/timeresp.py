@@ -30,6 +30,8 @@ Public API
 ``time_span_s(model) -> float``
 ``realisation(model) -> (a, b, c, d)``
 ``refine_crossing(function, low, high, level, rounds=6, points=33) -> float``
+``step_metrics(grid, y, final, response) -> StepResponse``
+    The metrics alone, for a response known by samples (a bench capture) or by an evaluator.
 
 References
 ----------
@@ -57,6 +59,7 @@ __all__ = [
     "modal_realisation",
     "realisation",
     "refine_crossing",
+    "step_metrics",
     "step_response",
     "step_response_of_pencil",
     "time_span_s",
@@ -579,7 +582,6 @@ FAINT_FINAL = 0.1
 
 def _step_of_system(system: tuple[Matrix, Matrix, Matrix, Matrix], model: PoleZeroModel, final: float | None,
                     t_s: NDArray[np.float64] | None) -> StepResponse:
-    why: dict[str, str] = {}
     names = _STEP_NAMES
     span = time_span_s(model)
     grid = _time_grid(model, span) if t_s is None else np.asarray(t_s, dtype=float)
@@ -593,10 +595,18 @@ def _step_of_system(system: tuple[Matrix, Matrix, Matrix, Matrix], model: PoleZe
                             why=dict.fromkeys(names, "the final value could not be computed"))
     if abs(final) <= 1e-9 * float(np.max(np.abs(y), initial=0.0)):
         final = 0.0  # an exact solve of a DC-blocked response leaves rounding, not a level
+    return step_metrics(grid, y, final, evaluate)
 
-    def response(t: NDArray[np.float64]) -> NDArray[np.float64]:
-        return evaluate(t)
 
+def step_metrics(grid: NDArray[np.float64], y: NDArray[np.float64], final: float,
+                 response: Callable[[NDArray[np.float64]], NDArray[np.float64]]) -> StepResponse:
+    """Rise time, overshoot and settling of a step response sampled on ``grid`` (definitions above).
+
+    ``response`` evaluates the response at any instants of the span; crossings are refined on it.
+    The predicted step passes its exact evaluator; a bench capture passes linear interpolation
+    between its samples, so both are measured by the same rules.
+    """
+    why: dict[str, str] = {}
     rise: float | None = None
     overshoot: float | None = None
     basis = "final value"

@@ -28,6 +28,7 @@ from stagewise.model.project import (
     InputDrive,
     Load,
     ManualAnswer,
+    Measurement,
     OpampModel,
     Part,
     Project,
@@ -293,7 +294,7 @@ def _root(value: object) -> Quantity | tuple[Quantity, Quantity]:
 # -- decode ----------------------------------------------------------------------------------
 
 _TOP_KEYS = ("format", "version", "title", "revision", "settings", "input", "converter", "load",
-             "opamp_models", "stages", "audit")
+             "opamp_models", "stages", "measurements", "audit")
 _SETTINGS_KEYS = ("f_min_hz", "f_max_hz", "points_per_decade", "temperature_c", "ref_hz",
                   "noise_band_hz", "seed", "mc_samples", "mc_distribution")
 _OPAMP_KEYS = ("description", "a0_db", "gbw_hz", "p2_hz", "rout_ohm", "rin_ohm", "cin_diff_f",
@@ -306,6 +307,9 @@ _CHECK_KEYS = ("id", "text", "metric", "where", "at_hz", "min", "max", "answer",
 _SIGNOFF_KEYS = ("name", "role", "verdict", "note", "time", "fingerprint")
 _COMMENT_KEYS = ("author", "time", "text", "check", "resolved")
 _EVENT_KEYS = ("seq", "time", "who", "what", "detail", "prev", "hash")
+_MEASUREMENT_KEYS = ("id", "kind", "where", "stage", "file", "sha256", "source", "by", "time", "instrument",
+                     "setup", "note", "fingerprint", "data")
+_MEASUREMENT_COLUMNS = {"response": ("f_hz", "re", "im"), "step": ("t_s", "v")}
 
 
 def decode(document: object, source: str = "") -> Project:
@@ -351,6 +355,10 @@ def decode(document: object, source: str = "") -> Project:
         stage = _decode_stage(reader, stage_data)
         if stage is not None:
             project.stages.append(stage)
+    for _, measurement_data in reader.items(data, "measurements"):
+        measurement = _decode_measurement(reader, measurement_data)
+        if measurement is not None:
+            project.measurements.append(measurement)
     for _, event_data in reader.items(data, "audit"):
         event = _decode_event(reader, event_data)
         if event is not None:
@@ -549,6 +557,46 @@ def _decode_check(reader: _Reader, data: object) -> Check | None:
     return check
 
 
+def _numbers(value: object) -> list[float]:
+    if not isinstance(value, list):
+        raise ValueError(f"expected a list of numbers, found {_describe(value)}")
+    numbers: list[float] = []
+    for index, item in enumerate(value):
+        if isinstance(item, bool) or not isinstance(item, int | float):
+            raise ValueError(f"item {index + 1} is {_describe(item)}, not a number")
+        numbers.append(item)
+    return numbers
+
+
+def _decode_measurement(reader: _Reader, data: object) -> Measurement | None:
+    fields = reader.mapping(data, _MEASUREMENT_KEYS, ("id", "kind", "where", "file", "sha256", "by", "time",
+                                                      "fingerprint", "data"))
+    if fields is None:
+        return None
+    measurement = Measurement(
+        id=reader.field(fields, "id", _name, ""),
+        kind=reader.field(fields, "kind", _choice("response", "step"), "response"),
+        where=reader.field(fields, "where", _choice("isolated", "in_chain", "chain"), "chain"),
+        stage=reader.field(fields, "stage", _optional_text, None),
+        file=reader.field(fields, "file", _name, ""),
+        sha256=reader.field(fields, "sha256", _text, ""),
+        by=reader.field(fields, "by", _name, ""),
+        time=reader.field(fields, "time", _text, ""),
+        fingerprint=reader.field(fields, "fingerprint", _text, ""),
+    )
+    for key in ("source", "instrument", "setup", "note"):
+        setattr(measurement, key, reader.field(fields, key, _text, ""))
+    if "data" in fields:
+        with reader.at("data"):
+            columns = _MEASUREMENT_COLUMNS.get(measurement.kind, ())
+            table = reader.mapping(fields["data"], columns, columns)
+            if table is not None:
+                for key in columns:
+                    empty: list[float] = []
+                    setattr(measurement, key, reader.field(table, key, _numbers, empty))
+    return measurement
+
+
 def _decode_event(reader: _Reader, data: object) -> AuditEvent | None:
     fields = reader.mapping(data, _EVENT_KEYS, _EVENT_KEYS)
     if fields is None:
@@ -612,8 +660,10 @@ def encode(project: Project) -> dict[str, Any]:
         "load": {"r_ohm": _raw(project.load.r_ohm), "c_f": _raw(project.load.c_f)},
         "opamp_models": {name: encode_opamp(model) for name, model in project.opamp_models.items()},
         "stages": [encode_stage(stage) for stage in project.stages],
-        "audit": [encode_event(event) for event in project.audit],
     }
+    if project.measurements:
+        document["measurements"] = [encode_measurement(item) for item in project.measurements]
+    document["audit"] = [encode_event(event) for event in project.audit]
     return document
 
 
@@ -714,6 +764,22 @@ def encode_stage(stage: Stage) -> dict[str, Any]:
         out["comments"] = comments
     if not stage.is_block or stage.notes:
         out["notes"] = stage.notes
+    return out
+
+
+def encode_measurement(measurement: Measurement) -> dict[str, Any]:
+    """A measurement as a JSON-ready dict in canonical key order (empty texts left out)."""
+    out: dict[str, Any] = {"id": measurement.id, "kind": measurement.kind, "where": measurement.where,
+                           "stage": measurement.stage, "file": measurement.file, "sha256": measurement.sha256}
+    if measurement.source:
+        out["source"] = measurement.source
+    out["by"] = measurement.by
+    out["time"] = measurement.time
+    for key in ("instrument", "setup", "note"):
+        if getattr(measurement, key):
+            out[key] = getattr(measurement, key)
+    out["fingerprint"] = measurement.fingerprint
+    out["data"] = {key: list(getattr(measurement, key)) for key in _MEASUREMENT_COLUMNS[measurement.kind]}
     return out
 
 

@@ -16,7 +16,7 @@ from typing import Any
 from stagewise.model.project import IDEAL_OPAMP, OpampModel, Project, Stage
 from stagewise.model.values import Quantity
 
-__all__ = ["behaviour_document", "stage_fingerprint"]
+__all__ = ["behaviour_document", "measurement_fingerprint", "stage_fingerprint"]
 
 
 def _si(quantity: Quantity | tuple[Quantity, Quantity] | None) -> Any:
@@ -72,4 +72,43 @@ def behaviour_document(stage: Stage, project: Project | None) -> dict[str, Any]:
 def stage_fingerprint(stage: Stage, project: Project | None) -> str:
     """SHA-256 (hex) of the canonical JSON (sorted keys, no spaces) of :func:`behaviour_document`."""
     text = json.dumps(behaviour_document(stage, project), sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def measurement_fingerprint(project: Project, where: str, stage_id: str | None) -> str:
+    """SHA-256 (hex) of what a measured response depends on, in the canonical JSON of
+    :func:`stage_fingerprint` but without check limits (a new limit does not change the board).
+
+    ``isolated``: the stage alone. ``in_chain``: the stage and every active stage after it, and
+    the load (V_out/V_in where it sits does not depend on what drives it). ``chain``: the drive
+    and every active stage, and the load.
+
+    Raises
+    ------
+    ValueError
+        ``stage_id`` names no stage (for ``isolated`` and ``in_chain``).
+    """
+    def circuit(stage: Stage) -> dict[str, Any]:
+        document = behaviour_document(stage, project)
+        document.pop("checks", None)
+        return document
+
+    def load() -> list[Any]:
+        return [_si(project.load.r_ohm), _si(project.load.c_f)]
+
+    if where == "chain":
+        document: dict[str, Any] = {"drive": project.input.drive, "load": load(),
+                                    "stages": [circuit(stage) for stage in project.active_stages]}
+    else:
+        stage = project.stage(stage_id or "")
+        if stage is None:
+            raise ValueError(f'there is no stage "{stage_id}"')
+        if where == "isolated":
+            document = {"stages": [circuit(stage)]}
+        else:
+            active = project.active_stages
+            ids = [item.id for item in active]
+            rest = active[ids.index(stage.id):] if stage.id in ids else [stage]
+            document = {"load": load(), "stages": [circuit(item) for item in rest]}
+    text = json.dumps(document, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()

@@ -23,6 +23,7 @@ __all__ = [
     "InputDrive",
     "Load",
     "ManualAnswer",
+    "Measurement",
     "OpampModel",
     "Part",
     "Project",
@@ -257,6 +258,39 @@ class AuditEvent:
 
 
 @dataclass(slots=True)
+class Measurement:
+    """A bench measurement attached to a stage (``isolated`` or ``in_chain``) or to the chain.
+
+    ``kind`` is ``"response"`` (``f_hz`` with the complex response as ``re``/``im``, in the
+    stage's own unit: V/V, or Ω for a current-driven stage) or ``"step"`` (``t_s`` and ``v``,
+    a capture in volts). The points are embedded; ``file`` and ``sha256`` name the instrument
+    file they were read from, ``source`` says how it was read. ``fingerprint`` is what the
+    measured response depended on when it was attached (see
+    :func:`stagewise.model.fingerprint.measurement_fingerprint`); the measurement is stale when
+    that changes. ``stage`` is ``None`` for a measurement of the whole chain.
+    """
+
+    id: str
+    kind: str
+    where: str
+    stage: str | None
+    file: str
+    sha256: str
+    by: str
+    time: str
+    fingerprint: str
+    source: str = ""
+    instrument: str = ""
+    setup: str = ""
+    note: str = ""
+    f_hz: list[float] = field(default_factory=list)
+    re: list[float] = field(default_factory=list)
+    im: list[float] = field(default_factory=list)
+    t_s: list[float] = field(default_factory=list)
+    v: list[float] = field(default_factory=list)
+
+
+@dataclass(slots=True)
 class Project:
     """A whole project: settings, the chain of stages and the audit trail."""
 
@@ -268,6 +302,7 @@ class Project:
     load: Load = field(default_factory=Load)
     opamp_models: dict[str, OpampModel] = field(default_factory=dict)
     stages: list[Stage] = field(default_factory=list)
+    measurements: list[Measurement] = field(default_factory=list)
     audit: list[AuditEvent] = field(default_factory=list)
 
     def stage(self, stage_id: str) -> Stage | None:

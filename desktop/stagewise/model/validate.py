@@ -72,6 +72,50 @@ def validate(project: Project) -> list[str]:
             problems.append(f'stages[{index}].id: "{stage.id}" is used by another stage')
         seen_ids.add(stage.id)
         problems.extend(validate_stage(stage, project, f"stages[{index}]"))
+    problems.extend(_measurement_problems(project))
+    return problems
+
+
+# Must match stagewise.files.measurements.MAX_POINTS (the model does not import the file layer).
+MAX_MEASUREMENT_POINTS = 20_000
+
+
+def _measurement_problems(project: Project) -> list[str]:
+    """Measurements: unique ids, a stage that exists where one is needed, columns of equal length,
+    finite numbers, an axis that rises, a SHA-256 that looks like one."""
+    problems: list[str] = []
+    seen: set[str] = set()
+    for index, measurement in enumerate(project.measurements):
+        path = f"measurements[{index}]"
+        if measurement.id in seen:
+            problems.append(f'{path}.id: "{measurement.id}" is used by another measurement')
+        seen.add(measurement.id)
+        if measurement.where == "chain":
+            if measurement.stage is not None:
+                problems.append(f'{path}.stage: a measurement of the whole chain names no stage; write null')
+        elif measurement.stage is None or project.stage(measurement.stage) is None:
+            problems.append(f'{path}.stage: "{measurement.stage}" is not a stage of this project')
+        if len(measurement.sha256) != 64 or any(ch not in "0123456789abcdef" for ch in measurement.sha256):
+            problems.append(f"{path}.sha256: not 64 lower-case hexadecimal digits")
+        columns = ("f_hz", "re", "im") if measurement.kind == "response" else ("t_s", "v")
+        lengths = {len(getattr(measurement, key)) for key in columns}
+        if len(lengths) != 1:
+            problems.append(f"{path}.data: the columns {', '.join(columns)} differ in length")
+            continue
+        count = lengths.pop()
+        if not 2 <= count <= MAX_MEASUREMENT_POINTS:
+            problems.append(f"{path}.data: {count} points; a measurement holds 2 to {MAX_MEASUREMENT_POINTS}")
+        for key in columns:
+            values = getattr(measurement, key)
+            bad = next((position for position, value in enumerate(values) if not math.isfinite(value)), None)
+            if bad is not None:
+                problems.append(f"{path}.data.{key}[{bad}]: not a finite number")
+        axis = getattr(measurement, columns[0])
+        if measurement.kind == "response" and any(value <= 0 for value in axis):
+            problems.append(f"{path}.data.f_hz: frequencies must be greater than zero")
+        step = next((position for position in range(1, len(axis)) if not axis[position] > axis[position - 1]), None)
+        if step is not None:
+            problems.append(f"{path}.data.{columns[0]}[{step}]: does not rise above the value before it")
     return problems
 
 

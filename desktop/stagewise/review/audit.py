@@ -57,6 +57,7 @@ EVENT_LABELS: Final[dict[str, str]] = {
     "part change": "parts changed when saved",
     "packet": "review packet printed",
     "import": "stage imported",
+    "measurement": "bench measurement attached",
 }
 
 _HEX64 = re.compile(r"[0-9a-f]{64}")
@@ -261,4 +262,8 @@ def unrecorded_decisions(project: Project) -> list[str]:
                 for event in events
             ):
                 problems.append(f'stage "{stage.id}", comment {index + 1} is marked resolved without an audit event')
+    for measurement in project.measurements:
+        if not found("measurement", measurement.by, measurement.time, measurement=measurement.id,
+                     sha256=measurement.sha256, fingerprint=measurement.fingerprint):
+            problems.append(f'measurement "{measurement.id}" ({measurement.file}) has no matching audit event')
     return problems

@@ -106,6 +106,14 @@ _TABLE: Final[tuple[Metric, ...]] = (
            "Smallest ratio of an op-amp's slew rate to the 2πf·V_peak its output needs across the band."),
     Metric("yield_pct", "Yield over tolerances", "%", "unused", _CHAIN_ONLY,
            "Share of tolerance samples that meet every numeric check of the project."),
+    # Bench measurements at the check's place (the worst of those attached there, none stale).
+    Metric("measured_dev_db_max", "Largest measured gain deviation", "dB", "unused", _ALL,
+           "Largest |measured − predicted| gain over the frequencies of the bench measurements taken there."),
+    Metric("measured_dev_deg_max", "Largest measured phase deviation", "°", "unused", _ALL,
+           "Largest |measured − predicted| phase over the frequencies of the bench measurements taken there."),
+    Metric("measured_inside_spread_pct", "Measured points inside the predicted spread", "%", "unused", _ALL,
+           "Share of measured frequencies where gain and phase lie within the Monte Carlo envelope of the "
+           "prediction; 100 % means the board is within the predicted spread."),
 )
 
 METRICS: Final[dict[str, Metric]] = {entry.key: entry for entry in _TABLE}

@@ -1,0 +1,148 @@
+"""`stagewise measure FILE DATA (--stage ID [--in-chain] | --chain) [--by NAME] [--note TEXT] ...`.
+
+Reads a bench measurement (Touchstone ``.s2p`` or CSV, see :mod:`stagewise.files.measurements`),
+attaches it to a stage (isolated or in chain) or to the whole chain with the file's name and
+SHA-256, who attached it and when, the instrument and set-up text, and the fingerprint of what
+the measured response depends on; records an audit event ``measurement``; validates and saves
+the project atomically. The project's edit lock is held meanwhile. On any error the project file
+is left byte for byte as it was and the command exits with status 2 and one sentence.
+"""
+
+from __future__ import annotations
+
+import argparse
+import getpass
+import re
+from pathlib import Path
+
+from stagewise.cli import CommandError
+from stagewise.commands.common import load, stage_by_id
+from stagewise.files.lock import LockError, acquire_lock
+from stagewise.files.measurements import MeasurementError, read_measurement
+from stagewise.files.project_file import save_project
+from stagewise.model.fingerprint import measurement_fingerprint
+from stagewise.model.project import Measurement, Project
+from stagewise.model.validate import validate
+from stagewise.review.audit import append_event, now_utc
+
+
+def _who(args: argparse.Namespace) -> str:
+    if args.by and str(args.by).strip():
+        return str(args.by).strip()
+    try:
+        return getpass.getuser()
+    except (OSError, KeyError):
+        return "unknown user"
+
+
+def _place(args: argparse.Namespace) -> tuple[str, str | None]:
+    if args.chain:
+        if args.stage or args.in_chain:
+            raise CommandError("--chain measures the whole chain; leave out --stage and --in-chain")
+        return "chain", None
+    if not args.stage:
+        raise CommandError("say where the measurement was taken: --stage ID (with --in-chain where it sits) "
+                           "or --chain")
+    return ("in_chain" if args.in_chain else "isolated"), args.stage
+
+
+def _unique_id(project: Project, wanted: str | None, data_path: Path) -> str:
+    if wanted is not None:
+        if not wanted.strip():
+            raise CommandError("--id must not be empty")
+        if any(item.id == wanted for item in project.measurements):
+            raise CommandError(f'a measurement "{wanted}" is already attached; choose another --id')
+        return wanted
+    stem = data_path.name.split(".")[0] or "measurement"
+    base = re.sub(r"[^A-Za-z0-9_-]+", "-", stem).strip("-") or "measurement"
+    taken = {item.id for item in project.measurements}
+    candidate, number = base, 2
+    while candidate in taken:
+        candidate, number = f"{base}-{number}", number + 1
+    return candidate
+
+
+def run(args: argparse.Namespace) -> int:
+    where, stage_id = _place(args)
+    project = load(args.file)  # a missing or invalid project is reported before any lock file is made
+    if stage_id is not None:
+        stage = stage_by_id(project, stage_id, args.file)
+        if where == "in_chain" and stage.bypass:
+            raise CommandError(f'stage "{stage_id}" is bypassed, so it has no place in the chain to measure')
+    try:
+        lock = acquire_lock(args.file, _who(args), take_stale=False)
+    except LockError as error:
+        if error.state is None:
+            raise CommandError(str(error)) from error
+        raise CommandError(f"{error}; close it there, or attach the measurement later") from error
+    try:
+        return _attach(args, where, stage_id)
+    finally:
+        lock.release()
+
+
+def _attach(args: argparse.Namespace, where: str, stage_id: str | None) -> int:
+    project = load(args.file)
+    stage = None if stage_id is None else project.stage(stage_id)
+    drive = project.input.drive if stage is None else stage.drive
+    data_path = Path(args.data)
+    try:
+        data = read_measurement(data_path, drive=drive, columns=args.columns)
+    except MeasurementError as error:
+        raise CommandError(str(error)) from error
+    who = _who(args)
+    time = now_utc()
+    measurement = Measurement(
+        id=_unique_id(project, args.measurement_id, data_path), kind=data.kind, where=where, stage=stage_id,
+        file=data.file, sha256=data.sha256, by=who, time=time,
+        fingerprint=measurement_fingerprint(project, where, stage_id), source=data.source,
+        instrument=args.instrument or "", setup=args.setup or "", note=args.note or "",
+    )
+    if data.kind == "response":
+        measurement.f_hz = [float(value) for value in data.f_hz]
+        measurement.re = [float(value) for value in data.response.real]
+        measurement.im = [float(value) for value in data.response.imag]
+    else:
+        measurement.t_s = [float(value) for value in data.t_s]
+        measurement.v = [float(value) for value in data.v]
+    project.measurements.append(measurement)
+    detail = {"measurement": measurement.id, "kind": measurement.kind, "where": where, "stage": stage_id,
+              "file": measurement.file, "sha256": measurement.sha256, "points": data.points,
+              "fingerprint": measurement.fingerprint}
+    try:
+        append_event(project, who, "measurement", detail, time=time)
+    except ValueError as error:
+        raise CommandError(f"the audit event could not be recorded: {error}") from error
+    problems = validate(project)
+    if problems:
+        raise CommandError(f"{args.file}: after attaching the measurement the project is not valid: "
+                           + "; ".join(problems))
+    save_project(args.file, project)
+    place = "the whole chain" if stage_id is None else f'stage "{stage_id}" {where.replace("_", " ")}'
+    print(f'Attached measurement "{measurement.id}" ({data.points} points, {data.kind}) to {place} in {args.file}.')
+    print(f"  read: {data.source}; SHA-256 {data.sha256}")
+    _print_comparison(project, measurement)
+    return 0
+
+
+def _print_comparison(project: Project, measurement: Measurement) -> None:
+    from stagewise.engine.measured import compare_measurement  # noqa: PLC0415
+
+    comparison = compare_measurement(project, measurement)
+    if measurement.kind == "step":
+        step = comparison.step
+        if step is None:
+            print(f"  step: {comparison.why.get('step', 'not measurable')}")
+            return
+        rise = "—" if step.rise_s is None else f"{step.rise_s:.4g} s"
+        overshoot = "—" if step.overshoot_pct is None else f"{step.overshoot_pct:.3g} %"
+        settle = "—" if step.settle_1pct_s is None else f"{step.settle_1pct_s:.4g} s"
+        print(f"  step: rise {rise}, overshoot {overshoot}, settling (1 %) {settle}")
+        return
+    if comparison.dev_db_max is None:
+        print(f"  deviation: {comparison.why.get('dev_db_max', 'could not be computed')}")
+        return
+    inside = ("—" if comparison.inside_spread_pct is None
+              else f"{comparison.inside_spread_pct:.1f} % of points inside the predicted spread")
+    print(f"  deviation from the prediction: largest {comparison.dev_db_max:.3g} dB and "
+          f"{comparison.dev_deg_max:.3g}°; {inside}")
