@@ -56,6 +56,10 @@ STEP_KEYS = {"rise_s": "rise_s", "overshoot_pct": "overshoot_pct", "settle_1pct_
              "settle_01pct_s": "settle_0p1pct_s"}
 BAND_KEYS = ("peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz")
 POINT_KEYS = ("phase_deg", "attenuation_db", "group_delay_s")
+# DC budget metrics of the table -> keys of the place's ``dc`` document.
+DC_KEYS = {"dc_gain": "gain", "gain_error_pct": "gain_error_pct", "offset_out_v": "offset_out_v",
+           "drift_out_v_per_c": "drift_out_v_per_c", "total_wc_v": "total_wc_v", "total_rss_v": "total_rss_v",
+           "total_wc_lsb": "total_wc_lsb", "total_rss_lsb": "total_rss_lsb", "total_wc_pct_fs": "total_wc_pct_fs"}
 
 
 def _finite(value: float | None) -> float | None:
@@ -293,6 +297,39 @@ class ProjectAnalysis:
         return converter_to_json(result)
 
     @cached_property
+    def dc(self) -> Any:
+        """The DC accuracy budgets of every place (:class:`~stagewise.engine.dc.DcBudgets`), or why not."""
+        from stagewise.engine.dc import dc_budgets  # noqa: PLC0415
+
+        merged = self.merged
+        try:
+            return dc_budgets(self.project, None if isinstance(merged, _Failure) else merged)
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return _Failure(f"the DC budget failed: {error}")
+
+    def dc_budget(self, where: str, stage_id: str) -> Any:
+        """The :class:`~stagewise.engine.dc.DcBudget` of one place, or a :class:`_Failure`."""
+        budgets = self.dc
+        if isinstance(budgets, _Failure):
+            return budgets
+        if where == "chain":
+            budget = budgets.chain
+        else:
+            table = {"isolated": budgets.isolated, "in_chain": budgets.in_chain,
+                     "from_input": budgets.from_input}.get(where, {})
+            budget = table.get(stage_id, f'stage "{stage_id}" has no DC budget {where}')
+        return _Failure(budget) if isinstance(budget, str) else budget
+
+    def dc_document(self, where: str, stage_id: str) -> tuple[dict[str, Any] | None, str | None]:
+        """The ``dc`` object of a place in ``analyze --json`` (the chain's with converter units)."""
+        from stagewise.engine.dc import budget_to_json  # noqa: PLC0415
+
+        budget = self.dc_budget(where, stage_id)
+        if isinstance(budget, _Failure):
+            return None, budget.why
+        return budget_to_json(budget, self.project.converter if where == "chain" else None), None
+
+    @cached_property
     def spread(self) -> Any:
         """Monte Carlo spread of the chain with the yield against the applicable checks."""
         from stagewise.engine.spread import monte_carlo, spread_to_json  # noqa: PLC0415
@@ -466,6 +503,11 @@ class ProjectAnalysis:
             return self._headroom_value(metric, where, stage_id)
         if metric in ("measured_dev_db_max", "measured_dev_deg_max", "measured_inside_spread_pct"):
             return self._measured_value(metric, where, stage_id)
+        if metric in DC_KEYS:
+            budget, why = self.dc_document(where, stage_id)
+            if budget is None:
+                return None, why
+            return _document_value(budget, DC_KEYS[metric])
         if metric == "yield_pct":
             spread = self.spread
             if isinstance(spread, _Failure):
@@ -543,6 +585,8 @@ class ProjectAnalysis:
         else:
             metrics = dict(self._metrics_document("isolated", stage.id, isolated))
             metrics["loops"] = self.isolated_loops.get(stage.id, [])
+            dc, dc_why = self.dc_document("isolated", stage.id)
+            put_with_why(metrics, "dc", dc, dc_why)
             document["isolated"] = metrics
         in_chain = self.in_chain(stage.id)
         if isinstance(in_chain, _Failure):
@@ -551,6 +595,8 @@ class ProjectAnalysis:
         else:
             metrics = dict(self._metrics_document("in_chain", stage.id, in_chain))
             metrics["loops"] = self.stage_chain_loops(stage.id)
+            dc, dc_why = self.dc_document("in_chain", stage.id)
+            put_with_why(metrics, "dc", dc, dc_why)
             document["in_chain"] = metrics
         value, why = self.metric_value("loading_error_db_max", "in_chain", stage.id, None)
         put_with_why(document, "loading_error_db_max", value, why)
@@ -605,6 +651,8 @@ class ProjectAnalysis:
             put_with_why(document, "snr_db", None, document.get("noise_why"))
         value, why = self.metric_value("alias_attenuation_db", "chain", self.project.stages[0].id, None)
         put_with_why(document, "alias_attenuation_db", value, why)
+        dc, dc_why = self.dc_document("chain", "")
+        put_with_why(document, "dc", dc, dc_why)
         if self.with_spread:
             spread = self.spread
             if isinstance(spread, _Failure):

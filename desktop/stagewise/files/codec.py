@@ -21,6 +21,7 @@ from stagewise.model.project import (
     CIRCUIT_KIND,
     FORMAT_NAME,
     FORMAT_VERSION,
+    INPUT_TYPES,
     AuditEvent,
     Check,
     Comment,
@@ -296,13 +297,15 @@ def _root(value: object) -> Quantity | tuple[Quantity, Quantity]:
 _TOP_KEYS = ("format", "version", "title", "revision", "settings", "input", "converter", "load",
              "opamp_models", "stages", "measurements", "audit")
 _SETTINGS_KEYS = ("f_min_hz", "f_max_hz", "points_per_decade", "temperature_c", "ref_hz",
-                  "noise_band_hz", "seed", "mc_samples", "mc_distribution")
+                  "noise_band_hz", "seed", "mc_samples", "mc_distribution", "temp_range_c",
+                  "supply_variation_v")
 _OPAMP_KEYS = ("description", "a0_db", "gbw_hz", "p2_hz", "rout_ohm", "rin_ohm", "cin_diff_f",
                "cin_cm_f", "en_v_rthz", "en_corner_hz", "in_a_rthz", "in_corner_hz", "swing_v",
-               "slew_v_per_s")
+               "slew_v_per_s", "input_type", "vos_v", "vos_drift_v_per_c", "ib_a", "ios_a", "cmrr_db",
+               "psrr_db")
 _STAGE_KEYS = ("id", "name", "kind", "drive", "bypass", "ports", "parts", "gain", "zeros_hz",
-               "poles_hz", "zin", "zout_ohm", "checks", "signoffs", "comments", "notes")
-_PART_KEYS = ("ref", "type", "nodes", "value", "tol", "control", "model")
+               "poles_hz", "zin", "zout_ohm", "offset_v", "gain_error", "checks", "signoffs", "comments", "notes")
+_PART_KEYS = ("ref", "type", "nodes", "value", "tol", "tc_ppm_per_c", "control", "model")
 _CHECK_KEYS = ("id", "text", "metric", "where", "at_hz", "min", "max", "answer", "waiver")
 _SIGNOFF_KEYS = ("name", "role", "verdict", "note", "time", "fingerprint")
 _COMMENT_KEYS = ("author", "time", "text", "check", "resolved")
@@ -384,6 +387,9 @@ def _decode_settings(reader: _Reader, data: object) -> Settings:
     settings.mc_samples = reader.field(fields, "mc_samples", _integer, settings.mc_samples)
     settings.mc_distribution = reader.field(fields, "mc_distribution", _choice("uniform", "normal"),
                                             settings.mc_distribution)
+    settings.temp_range_c = reader.field(fields, "temp_range_c",
+                                         lambda v: None if v is None else _pair(_quantity)(v), None)
+    settings.supply_variation_v = reader.field(fields, "supply_variation_v", _optional_nonnegative, None)
     return settings
 
 
@@ -432,6 +438,15 @@ def _decode_opamp(reader: _Reader, data: object) -> OpampModel | None:
     for key in ("rout_ohm", "cin_diff_f", "cin_cm_f", "en_v_rthz", "in_a_rthz"):
         setattr(model, key, reader.field(fields, key, _optional_nonnegative, None))
     model.swing_v = reader.field(fields, "swing_v", lambda v: None if v is None else _pair(_quantity)(v), None)
+    model.input_type = reader.field(fields, "input_type",
+                                    lambda v: None if v is None else _choice(*INPUT_TYPES)(v), None)
+    # Offset, drift and offset current are bounds of either sign; the bias current keeps its
+    # sign (positive into the pins); CMRR and PSRR are positive ratios in dB.
+    for key in ("vos_v", "vos_drift_v_per_c", "ios_a"):
+        setattr(model, key, reader.field(fields, key, _optional_nonnegative, None))
+    model.ib_a = reader.field(fields, "ib_a", _optional_quantity, None)
+    for key in ("cmrr_db", "psrr_db"):
+        setattr(model, key, reader.field(fields, key, _optional_positive, None))
     return model
 
 
@@ -445,13 +460,15 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
     stage.bypass = reader.field(fields, "bypass", _boolean, False)
     stage.notes = reader.field(fields, "notes", _text, "")
     # Keys of the other kind are refused rather than silently ignored.
-    foreign = ("ports", "parts") if stage.kind == BLOCK_KIND else ("gain", "zeros_hz", "poles_hz", "zin", "zout_ohm")
+    foreign = (("ports", "parts") if stage.kind == BLOCK_KIND
+               else ("gain", "zeros_hz", "poles_hz", "zin", "zout_ohm", "offset_v", "gain_error"))
     for key in foreign:
         if key in fields:
             with reader.at(key):
                 reader.problem(f'a {stage.kind} stage takes no "{key}"; '
                                + ('ports and parts belong to kind "circuit"' if stage.kind == BLOCK_KIND
-                                  else 'gain, zeros, poles, zin and zout belong to kind "block"'))
+                                  else 'gain, zeros, poles, zin, zout, offset_v and gain_error belong to '
+                                       'kind "block"'))
     if "ports" in fields:
         with reader.at("ports"):
             ports = reader.mapping(fields["ports"], ("in", "out"), ("in", "out"))
@@ -479,6 +496,8 @@ def _decode_stage(reader: _Reader, data: object) -> Stage | None:
                 stage.zin_r_ohm = reader.field(zin, "r_ohm", _optional_positive, None)
                 stage.zin_c_f = reader.field(zin, "c_f", _optional_nonnegative, None)
     stage.zout_ohm = reader.field(fields, "zout_ohm", _optional_nonnegative, None)
+    stage.offset_v = reader.field(fields, "offset_v", _optional_nonnegative, None)
+    stage.gain_error = reader.field(fields, "gain_error", _tolerance, None)
     for _, check_data in reader.items(fields, "checks"):
         check = _decode_check(reader, check_data)
         if check is not None:
@@ -518,6 +537,7 @@ def _decode_part(reader: _Reader, data: object) -> Part | None:
     )
     part.value = reader.field(fields, "value", _optional_quantity, None)
     part.tol = reader.field(fields, "tol", _tolerance, None)
+    part.tc_ppm_per_c = reader.field(fields, "tc_ppm_per_c", _optional_nonnegative, None)
     part.control = reader.field(fields, "control", _optional_text, None)
     part.model = reader.field(fields, "model", _optional_text, None)
     return part
@@ -645,6 +665,10 @@ def encode(project: Project) -> dict[str, Any]:
         settings_out["mc_samples"] = settings.mc_samples
     if settings.mc_distribution != Settings().mc_distribution:
         settings_out["mc_distribution"] = settings.mc_distribution
+    if settings.temp_range_c is not None:
+        settings_out["temp_range_c"] = [q.raw for q in settings.temp_range_c]
+    if settings.supply_variation_v is not None:
+        settings_out["supply_variation_v"] = settings.supply_variation_v.raw
     document: dict[str, Any] = {
         "format": FORMAT_NAME,
         "version": FORMAT_VERSION,
@@ -676,7 +700,10 @@ def encode_opamp(model: OpampModel) -> dict[str, Any]:
         value = getattr(model, key)
         if value is None:
             continue
-        out[key] = [q.raw for q in value] if key == "swing_v" else value.raw
+        if isinstance(value, str):  # input_type
+            out[key] = value
+        else:
+            out[key] = [q.raw for q in value] if key == "swing_v" else value.raw
     return out
 
 
@@ -693,6 +720,8 @@ def encode_part(part: Part) -> dict[str, Any]:
         out["value"] = part.value.raw
     if part.tol is not None:
         out["tol"] = part.tol.raw
+    if part.tc_ppm_per_c is not None:
+        out["tc_ppm_per_c"] = part.tc_ppm_per_c.raw
     if part.control is not None:
         out["control"] = part.control
     if part.model is not None:
@@ -742,6 +771,10 @@ def encode_stage(stage: Stage) -> dict[str, Any]:
         out["gain"] = _raw(stage.gain)
         out["zin"] = {"r_ohm": _raw(stage.zin_r_ohm), "c_f": _raw(stage.zin_c_f)}
         out["zout_ohm"] = _raw(stage.zout_ohm)
+        if stage.offset_v is not None:
+            out["offset_v"] = stage.offset_v.raw
+        if stage.gain_error is not None:
+            out["gain_error"] = stage.gain_error.raw
     else:
         out["ports"] = {"in": stage.ports["in"], "out": stage.ports["out"]}
         out["parts"] = [encode_part(part) for part in stage.parts]

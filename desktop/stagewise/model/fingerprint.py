@@ -13,7 +13,7 @@ import hashlib
 import json
 from typing import Any
 
-from stagewise.model.project import IDEAL_OPAMP, OpampModel, Project, Stage
+from stagewise.model.project import IDEAL_OPAMP, OpampModel, Part, Project, Stage
 from stagewise.model.values import Quantity
 
 __all__ = ["behaviour_document", "measurement_fingerprint", "stage_fingerprint"]
@@ -31,8 +31,27 @@ _MODEL_FIELDS = ("a0_db", "gbw_hz", "p2_hz", "rout_ohm", "rin_ohm", "cin_diff_f"
                  "en_corner_hz", "in_a_rthz", "in_corner_hz", "swing_v", "slew_v_per_s")
 
 
+# DC budget parameters: in the document only where given, so that adding them to the format
+# left every earlier fingerprint (and the sign-offs bound to it) as it was.
+_DC_MODEL_FIELDS = ("vos_v", "vos_drift_v_per_c", "ib_a", "ios_a", "cmrr_db", "psrr_db")
+
+
 def _model_document(model: OpampModel) -> dict[str, Any]:
-    return {name: _si(getattr(model, name)) for name in _MODEL_FIELDS}
+    document = {name: _si(getattr(model, name)) for name in _MODEL_FIELDS}
+    for name in _DC_MODEL_FIELDS:
+        if getattr(model, name) is not None:
+            document[name] = _si(getattr(model, name))
+    if model.input_type is not None:
+        document["input_type"] = model.input_type
+    return document
+
+
+def _part_document(part: Part) -> dict[str, Any]:
+    document = {"ref": part.ref, "type": part.type, "nodes": list(part.nodes), "value": _si(part.value),
+                "tol": _si(part.tol), "control": part.control, "model": part.model}
+    if part.tc_ppm_per_c is not None:
+        document["tc_ppm_per_c"] = _si(part.tc_ppm_per_c)
+    return document
 
 
 def behaviour_document(stage: Stage, project: Project | None) -> dict[str, Any]:
@@ -46,14 +65,13 @@ def behaviour_document(stage: Stage, project: Project | None) -> dict[str, Any]:
             "zin": [_si(stage.zin_r_ohm), _si(stage.zin_c_f)],
             "zout_ohm": _si(stage.zout_ohm),
         }
+        for key in ("offset_v", "gain_error"):
+            if getattr(stage, key) is not None:
+                document["block"][key] = _si(getattr(stage, key))
     else:
         document["ports"] = [stage.ports.get("in"), stage.ports.get("out")]
         # Sorted by ref: the order parts are listed in does not change the circuit.
-        document["parts"] = [
-            {"ref": part.ref, "type": part.type, "nodes": list(part.nodes), "value": _si(part.value),
-             "tol": _si(part.tol), "control": part.control, "model": part.model}
-            for part in sorted(stage.parts, key=lambda item: item.ref)
-        ]
+        document["parts"] = [_part_document(part) for part in sorted(stage.parts, key=lambda item: item.ref)]
         if project is not None:
             used = sorted({part.model for part in stage.parts
                            if part.type == "opamp" and part.model not in (None, IDEAL_OPAMP)})

@@ -53,6 +53,8 @@ PART_TYPES: Final[dict[str, tuple[tuple[str, ...], str, str]]] = {
 VALUED_TYPES: Final = frozenset({"R", "C", "L", "vcvs", "vccs", "ccvs", "cccs"})
 CURRENT_CONTROLLED_TYPES: Final = frozenset({"ccvs", "cccs"})
 IDEAL_OPAMP: Final = "ideal"
+# Op-amp input stage kinds; they decide how the input bias current follows temperature.
+INPUT_TYPES: Final = ("cmos", "jfet", "bipolar")
 
 
 @dataclass(slots=True)
@@ -74,6 +76,8 @@ class Part:
     tol: Quantity | None = None
     control: str | None = None
     model: str | None = None
+    # Temperature coefficient of ``value`` in ppm/°C, a bound of either sign (DC budget).
+    tc_ppm_per_c: Quantity | None = None
 
 
 @dataclass(slots=True)
@@ -94,6 +98,15 @@ class OpampModel:
     swing_v: tuple[Quantity, Quantity] | None = None
     slew_v_per_s: Quantity | None = None
     description: str = ""
+    # DC errors (the DC accuracy budget, ``engine/dc.py``): bounds at 25 °C unless said.
+    # ``input_type`` (cmos | jfet | bipolar) chooses the bias current's temperature law.
+    input_type: str | None = None
+    vos_v: Quantity | None = None  # input offset voltage, magnitude
+    vos_drift_v_per_c: Quantity | None = None  # its drift, magnitude
+    ib_a: Quantity | None = None  # input bias current, positive into the pins
+    ios_a: Quantity | None = None  # input offset current |Ib+ − Ib−|
+    cmrr_db: Quantity | None = None
+    psrr_db: Quantity | None = None
 
 
 @dataclass(slots=True)
@@ -191,6 +204,9 @@ class Stage:
     zin_r_ohm: Quantity | None = None
     zin_c_f: Quantity | None = None
     zout_ohm: Quantity | None = None
+    # Block stages, DC budget: output offset bound (V) and gain error bound (a fraction).
+    offset_v: Quantity | None = None
+    gain_error: Quantity | None = None
 
     @property
     def is_block(self) -> bool:
@@ -217,6 +233,10 @@ class Settings:
     seed: int = 1
     mc_samples: int = 500
     mc_distribution: str = "uniform"  # or "normal" (tolerance = 3 sigma)
+    # Operating temperature range [min, max] in °C for drift (DC budget); None: 25 °C only.
+    temp_range_c: tuple[Quantity, Quantity] | None = None
+    # Largest change of the op-amps' supply voltage from nominal, V (with psrr_db).
+    supply_variation_v: Quantity | None = None
 
 
 @dataclass(slots=True)

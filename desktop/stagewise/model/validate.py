@@ -55,6 +55,13 @@ def validate(project: Project) -> list[str]:
         problems.append(f"settings.mc_samples: {settings.mc_samples} must be between 1 and 1000000")
     if settings.seed < 0:
         problems.append(f"settings.seed: {settings.seed} must not be negative")
+    if settings.temp_range_c is not None:
+        low, high = settings.temp_range_c
+        if low.si >= high.si:
+            problems.append(f"settings.temp_range_c: the low end ({low.raw} °C) must be below the high end "
+                            f"({high.raw} °C)")
+        elif low.si <= ABSOLUTE_ZERO_C:
+            problems.append(f"settings.temp_range_c: {low.raw} °C is at or below absolute zero (−273.15 °C)")
     converter = project.converter
     if converter.bits is not None and not 1 <= converter.bits <= 32:
         problems.append(f"converter.bits: {converter.bits} must be between 1 and 32")

@@ -114,6 +114,26 @@ _TABLE: Final[tuple[Metric, ...]] = (
     Metric("measured_inside_spread_pct", "Measured points inside the predicted spread", "%", "unused", _ALL,
            "Share of measured frequencies where gain and phase lie within the Monte Carlo envelope of the "
            "prediction; 100 % means the board is within the predicted spread."),
+    # DC accuracy budget (engine/dc.py); values at the place's output.
+    Metric("dc_gain", "DC gain", "V/V", "unused", _ALL,
+           "Gain at 0 Hz with the op-amps' finite open-loop gain (Ω for a current drive)."),
+    Metric("gain_error_pct", "DC gain error (worst case)", "%", "unused", _ALL,
+           "Worst-case DC gain error at 25 °C: finite open-loop gain, part tolerances, CMRR, block gain errors."),
+    Metric("offset_out_v", "Output offset (worst case)", "V", "unused", _ALL,
+           "Worst-case DC offset at the output at 25 °C from offset voltages, bias and offset currents, supply "
+           "variation and block offsets."),
+    Metric("drift_out_v_per_c", "Output drift", "V/°C", "unused", _ALL,
+           "Worst-case change of the output error over the temperature range, divided by its distance from 25 °C."),
+    Metric("total_wc_v", "DC error (worst case)", "V", "unused", _ALL,
+           "Every DC error source added by magnitude, over the temperature range, at the reference signal level."),
+    Metric("total_rss_v", "DC error (RSS)", "V", "unused", _ALL,
+           "Every DC error source added as the root-sum-square, over the temperature range."),
+    Metric("total_wc_lsb", "DC error at the converter (worst case)", "LSB", "unused", _CHAIN_ONLY,
+           "Worst-case DC error at the converter input in least significant bits (full scale / 2^bits)."),
+    Metric("total_rss_lsb", "DC error at the converter (RSS)", "LSB", "unused", _CHAIN_ONLY,
+           "Root-sum-square DC error at the converter input in least significant bits."),
+    Metric("total_wc_pct_fs", "DC error at the converter (% of full scale)", "%", "unused", _CHAIN_ONLY,
+           "Worst-case DC error at the converter input in percent of its full-scale span."),
 )
 
 METRICS: Final[dict[str, Metric]] = {entry.key: entry for entry in _TABLE}
@@ -137,6 +157,8 @@ def metric_unit(key: str, drive: str = "voltage") -> str:
     """The unit of ``key``'s value; input-referred noise is in amperes when the chain is current-driven."""
     if key == "noise_in_rms" and drive == "current":
         return "A"
+    if key == "dc_gain" and drive == "current":
+        return "Ω"
     return metric(key).unit
 
 

@@ -1,0 +1,281 @@
+"""DC accuracy budget against the op-amp handbook formulas for offsets, bias currents and gain errors."""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from stagewise.engine.dc import DcBudget, bias_current_factor, budget_to_json, dc_budgets
+from stagewise.engine.mna import assemble
+from stagewise.engine.sweep import drive
+from stagewise.files.codec import decode
+from stagewise.model.project import Project
+
+# Component values of our own choosing.
+RS, RG, RF = 27e3, 3.3e3, 47e3
+VOS, IB, IOS = 1.3e-3, 85e-9, 7e-9
+HUGE_GAIN_DB = 220  # A0 = 1e11: the handbook formulas assume an ideal loop
+
+
+def model(**keys: Any) -> dict[str, Any]:
+    return {"a0_db": HUGE_GAIN_DB, "gbw_hz": "1G", **keys}
+
+
+def make_project(parts: list[dict[str, Any]], *, models: dict[str, Any] | None = None,
+                 settings_keys: dict[str, Any] | None = None, converter: dict[str, Any] | None = None,
+                 stages: list[dict[str, Any]] | None = None, amplitude: Any = None) -> Project:
+    document = {
+        "format": "stagewise-project", "version": 1, "title": "dc test",
+        "settings": {"f_min_hz": 1, "f_max_hz": 1e6, **(settings_keys or {})},
+        "input": {"drive": "voltage", "amplitude": amplitude},
+        "converter": converter or {},
+        "opamp_models": models or {"op": model(vos_v=VOS, ib_a=IB, ios_a=IOS)},
+        "stages": stages or [{"id": "s", "name": "stage", "ports": {"in": "in", "out": "out"}, "parts": parts}],
+    }
+    return decode(document)
+
+
+def non_inverting(rs: float = RS, rg: float = RG, rf: float = RF, **extra: Any) -> list[dict[str, Any]]:
+    return [
+        {"ref": "Rs", "type": "R", "nodes": ["in", "p"], "value": rs, **extra.get("Rs", {})},
+        {"ref": "Rg", "type": "R", "nodes": ["n", "0"], "value": rg, **extra.get("Rg", {})},
+        {"ref": "Rf", "type": "R", "nodes": ["n", "out"], "value": rf, **extra.get("Rf", {})},
+        {"ref": "U1", "type": "opamp", "nodes": ["p", "n", "out"], "model": "op"},
+    ]
+
+
+def inverting(r1: float, rf: float, rp: float) -> list[dict[str, Any]]:
+    return [
+        {"ref": "R1", "type": "R", "nodes": ["in", "n"], "value": r1},
+        {"ref": "Rf", "type": "R", "nodes": ["n", "out"], "value": rf},
+        {"ref": "Rp", "type": "R", "nodes": ["p", "0"], "value": rp},
+        {"ref": "U1", "type": "opamp", "nodes": ["p", "n", "out"], "model": "op"},
+    ]
+
+
+def budget(project: Project, where: str = "isolated", stage: str = "s") -> DcBudget:
+    budgets = dc_budgets(project)
+    place = budgets.chain if where == "chain" else getattr(budgets, where)[stage]
+    assert isinstance(place, DcBudget), place
+    return place
+
+
+def by_kind(result: DcBudget, kind: str, ref: str | None = None) -> Any:
+    found = [item for item in result.contributions if item.kind == kind and (ref is None or item.ref == ref)]
+    assert len(found) == 1, (kind, result.contributions)
+    return found[0]
+
+
+@pytest.mark.parametrize("place", ["isolated", "in_chain", "chain"])
+def test_non_inverting_offset_matches_the_handbook_formula(place: str) -> None:
+    result = budget(make_project(non_inverting()), place)
+    noise_gain = 1 + RF / RG
+    # Source: S. Franco, Design with Operational Amplifiers and Analog Integrated Circuits, 3rd ed.,
+    # sec. 5.1-5.2 (value from memory): Vout = Vos·(1 + Rf/Rg) + Ib−·Rf − Ib+·Rs·(1 + Rf/Rg).
+    assert by_kind(result, "vos").out_v == pytest.approx(VOS * noise_gain, rel=1e-9)
+    ib = by_kind(result, "ib")
+    assert dict(ib.via)["in-"] == pytest.approx(IB * RF, rel=1e-9)
+    assert dict(ib.via)["in+"] == pytest.approx(-IB * RS * noise_gain, rel=1e-9)
+    assert ib.out_v == pytest.approx(IB * RF - IB * RS * noise_gain, rel=1e-9)
+    # Ib+ = Ib + Ios/2, Ib− = Ib − Ios/2: the offset current's share is (Ios/2)·(Rf + Rs·(1 + Rf/Rg)).
+    assert by_kind(result, "ios").out_v == pytest.approx(IOS / 2 * (RF + RS * noise_gain), rel=1e-9)
+    assert result.offset_out_v == pytest.approx(
+        VOS * noise_gain + abs(IB * RF - IB * RS * noise_gain) + IOS / 2 * (RF + RS * noise_gain), rel=1e-9)
+
+
+def test_inverting_offset_matches_the_handbook_formula() -> None:
+    r1, rf, rp = 12e3, 150e3, 6.8e3
+    result = budget(make_project(inverting(r1, rf, rp)))
+    noise_gain = 1 + rf / r1
+    # Source: S. Franco, 3rd ed., sec. 5.1-5.2 (value from memory): the same formula with the input
+    # resistor R1 (its source end grounded, the drive zeroed) in place of Rg and Rp at the + input.
+    assert by_kind(result, "vos").out_v == pytest.approx(VOS * noise_gain, rel=1e-9)
+    assert by_kind(result, "ib").out_v == pytest.approx(IB * rf - IB * rp * noise_gain, rel=1e-9)
+    assert result.gain == pytest.approx(-rf / r1, rel=1e-9)
+
+
+def test_bias_current_cancelling_resistor_leaves_only_the_offset_current() -> None:
+    balance = RF * RG / (RF + RG)
+    result = budget(make_project(non_inverting(rs=balance)))
+    # Source: S. Franco, 3rd ed., sec. 5.2 (value from memory): with Rs = Rf ∥ Rg equal bias currents
+    # cancel at the output and the error is Ios·Rf.
+    assert abs(by_kind(result, "ib").out_v) < 1e-9 * IB * RF
+    assert by_kind(result, "ios").out_v == pytest.approx(IOS * RF, rel=1e-9)
+
+
+@pytest.mark.parametrize("a0_db", [40, 60, 86])
+def test_finite_open_loop_gain_error_of_a_non_inverting_stage(a0_db: float) -> None:
+    project = make_project(non_inverting(), models={"op": {"a0_db": a0_db, "gbw_hz": "10M"}})
+    result = budget(project)
+    a0 = 10 ** (a0_db / 20)
+    beta = RG / (RG + RF)
+    # Source: H. S. Black's feedback formula, closed-loop gain (1/β)·1/(1 + 1/(A·β)); e.g. Franco,
+    # 3rd ed., sec. 1.3 (value from memory).
+    exact = 1 / (1 + 1 / (a0 * beta))
+    assert result.gain == pytest.approx(exact / beta, rel=1e-12)
+    assert result.gain_ideal == pytest.approx(1 / beta, rel=1e-12)
+    assert by_kind(result, "finite_gain").gain_error_pct == pytest.approx(100 * (exact - 1), rel=1e-9)
+
+
+def test_tolerance_gain_error_against_the_exact_extremes() -> None:
+    tol = 0.001
+    parts = non_inverting(Rg={"tol": tol}, Rf={"tol": tol})
+    result = budget(make_project(parts))
+    nominal = 1 + RF / RG
+    # Common practice, no source: the exact extremes of 1 + Rf/Rg lie at the vertices (Rf high, Rg low)
+    # and (Rf low, Rg high); the linearised worst case agrees to first order in tol.
+    high = (1 + RF * (1 + tol) / (RG * (1 - tol))) / nominal - 1
+    low = 1 - (1 + RF * (1 - tol) / (RG * (1 + tol))) / nominal
+    assert result.gain_error_pct / 100 == pytest.approx(max(high, low), rel=2 * tol)
+    assert result.gain_error_pct / 100 == pytest.approx(min(high, low), rel=2 * tol)
+    # Each part alone, evaluated exactly; root-sum-square of independent errors (common practice).
+    only_rf = (1 + RF * (1 + tol) / RG) / nominal - 1
+    only_rg = (1 + RF / (RG * (1 - tol))) / nominal - 1
+    assert by_kind(result, "tol", "Rf").gain_error_pct / 100 == pytest.approx(only_rf, rel=tol)
+    assert result.gain_error_rss_pct / 100 == pytest.approx(math.hypot(only_rf, only_rg), rel=tol)
+
+
+def test_drift_from_tempco_vos_drift_and_cmos_bias_current() -> None:
+    tc_ppm = 50
+    models = {"op": model(vos_v=VOS, vos_drift_v_per_c=4e-6, ib_a=2e-12, input_type="cmos")}
+    parts = non_inverting(Rf={"tc_ppm_per_c": tc_ppm})
+    project = make_project(parts, models=models, settings_keys={"temp_range_c": [-40, 85]},
+                           converter={"full_scale_vpp": 5, "bits": 16})
+    result = budget(project, "chain")
+    noise_gain = 1 + RF / RG
+    delta_t = 65  # the farther end of [-40, 85] from 25 °C
+    assert by_kind(result, "vos_drift").out_v == pytest.approx(4e-6 * delta_t * noise_gain, rel=1e-9)
+    # Common practice, no source: CMOS and JFET input bias currents double about every 10 °C.
+    assert bias_current_factor("cmos", 85) == pytest.approx(2**6)
+    ib_change = 2e-12 * (2**6 - 1) * (RF - RS * noise_gain)
+    assert by_kind(result, "ib_drift").out_v == pytest.approx(ib_change, rel=1e-9)
+    # Gain change Rf·tc·ΔT through the sensitivity ∂ln(1 + Rf/Rg)/∂ln Rf = Rf/(Rf + Rg); the level
+    # is the converter's positive full scale, 2.5 V (common practice, no source).
+    sensitivity = RF / (RF + RG)
+    assert by_kind(result, "tempco").out_v == pytest.approx(2.5 * sensitivity * tc_ppm * 1e-6 * delta_t, rel=1e-9)
+    drift_terms = abs(ib_change) + 4e-6 * delta_t * noise_gain + 2.5 * sensitivity * tc_ppm * 1e-6 * delta_t
+    assert result.drift_out_v_per_c == pytest.approx(drift_terms / delta_t, rel=1e-9)
+
+
+def test_bipolar_bias_current_falls_with_temperature() -> None:
+    # Source: Gray, Hurst, Lewis and Meyer, Analysis and Design of Analog Integrated Circuits, ch. 1:
+    # β rises about +7000 ppm/°C (value from memory), so Ib = Ic/β falls by that rate.
+    assert bias_current_factor("bipolar", 35) == pytest.approx(math.exp(-0.07))
+    assert bias_current_factor(None, 35) is None
+
+
+def test_lsb_percent_and_ppm_of_full_scale() -> None:
+    project = make_project(non_inverting(), converter={"full_scale_vpp": 4.096, "bits": 12})
+    result = budget(project, "chain")
+    document = budget_to_json(result, project.converter)
+    # Source: IEEE Std 1241 (ideal code width Q = FSR / 2^N); % and ppm of the full-scale span are
+    # common practice, no source.
+    assert document["lsb_v"] == pytest.approx(4.096 / 4096)
+    assert document["total_wc_lsb"] == pytest.approx(result.total_wc_v / 1e-3)
+    assert document["total_wc_pct_fs"] == pytest.approx(100 * result.total_wc_v / 4.096)
+    assert document["total_wc_ppm_fs"] == pytest.approx(1e6 * result.total_wc_v / 4.096)
+
+
+def test_worst_case_and_rss_totals_add_the_contributions() -> None:
+    parts = non_inverting(Rf={"tol": "0.5%"})
+    project = make_project(parts, converter={"full_scale_vpp": 5, "bits": 16})
+    result = budget(project, "chain")
+    magnitudes = [abs(item.out_v) for item in result.contributions]
+    # Common practice, no source: worst case adds magnitudes, RSS adds squares of independent terms.
+    assert result.total_wc_v == pytest.approx(sum(magnitudes), rel=1e-12)
+    assert result.total_rss_v == pytest.approx(math.sqrt(sum(m * m for m in magnitudes)), rel=1e-12)
+
+
+def test_high_pass_stage_has_no_dc_gain_and_says_why() -> None:
+    parts = [{"ref": "C1", "type": "C", "nodes": ["in", "out"], "value": "100n"},
+             {"ref": "R1", "type": "R", "nodes": ["out", "0"], "value": "10k", "tol": "1%"}]
+    result = budget(make_project(parts))
+    # Common practice, no source: a series capacitor passes no DC, so the DC gain is 0 and its error undefined.
+    assert result.gain is None and result.gain_error_pct is None
+    assert "blocks DC" in result.why["gain_error_pct"]
+
+
+def test_block_offset_and_gain_error_reach_the_next_stage() -> None:
+    stages = [
+        {"id": "b", "name": "block", "kind": "block", "gain": 4, "poles_hz": [1e5], "zeros_hz": [],
+         "zin": {"r_ohm": None, "c_f": None}, "zout_ohm": 0, "offset_v": "2m", "gain_error": "0.2%"},
+        {"id": "s", "name": "follower", "ports": {"in": "in", "out": "out"},
+         "parts": [{"ref": "R1", "type": "R", "nodes": ["in", "0"], "value": "10k"},
+                   {"ref": "U1", "type": "opamp", "nodes": ["in", "out", "out"], "model": "ideal"}]},
+    ]
+    project = make_project([], stages=stages, amplitude="0.1")
+    result = budget(project, "chain")
+    # Common practice, no source: a block's output offset passes a unity follower unchanged, and a
+    # gain error ε at the 0.4 V level (0.1 V × 4) is 0.4·ε volts.
+    assert by_kind(result, "block_offset").out_v == pytest.approx(2e-3, rel=1e-12)
+    assert by_kind(result, "block_gain").out_v == pytest.approx(0.4 * 0.002, rel=1e-12)
+
+
+# -- adjoint sensitivities against central differences ---------------------------------------
+
+
+def dc_gain(project: Project) -> float:
+    stage = project.stages[0]
+    driven = drive(assemble(stage, project), False)
+    x = np.linalg.solve(driven.g, driven.b)
+    return float(x[driven.output])
+
+
+@settings(max_examples=40, deadline=None)
+@given(values=st.lists(st.floats(min_value=100, max_value=1e6), min_size=5, max_size=5),
+       a0_db=st.floats(min_value=40, max_value=120))
+def test_adjoint_sensitivities_agree_with_central_differences(values: list[float], a0_db: float) -> None:
+    r1, r2, r3, r4, r5 = values
+    tol = 0.01
+
+    def parts(scale: dict[str, float]) -> list[dict[str, Any]]:
+        return [
+            {"ref": "R1", "type": "R", "nodes": ["in", "a"], "value": r1 * scale.get("R1", 1), "tol": tol},
+            {"ref": "R2", "type": "R", "nodes": ["a", "0"], "value": r2 * scale.get("R2", 1), "tol": tol},
+            {"ref": "R3", "type": "R", "nodes": ["a", "p"], "value": r3 * scale.get("R3", 1), "tol": tol},
+            {"ref": "R4", "type": "R", "nodes": ["n", "0"], "value": r4 * scale.get("R4", 1), "tol": tol},
+            {"ref": "R5", "type": "R", "nodes": ["n", "out"], "value": r5 * scale.get("R5", 1), "tol": tol},
+            {"ref": "U1", "type": "opamp", "nodes": ["p", "n", "out"], "model": "op"},
+        ]
+
+    models = {"op": {"a0_db": a0_db, "gbw_hz": "1M", "rout_ohm": 60, "rin_ohm": "1M"}}
+    result = budget(make_project(parts({}), models=models))
+    nominal = dc_gain(make_project(parts({}), models=models))
+    step = 1e-4
+    refs = ("R1", "R2", "R3", "R4", "R5")
+    central = []
+    for ref in refs:
+        plus = dc_gain(make_project(parts({ref: 1 + step}), models=models))
+        minus = dc_gain(make_project(parts({ref: 1 - step}), models=models))
+        # Reference: central difference of the exact solve (truncation error O(step²) ≈ 1e-8).
+        central.append(abs(plus - minus) / (2 * step) / abs(nominal))
+    adjoint = [by_kind(result, "tol", ref).gain_error_pct / 100 / tol for ref in refs]
+    # Agreement to 1e-6 of the largest sensitivity (a tiny one is lost in the difference's rounding).
+    assert np.max(np.abs(np.subtract(adjoint, central))) <= 1e-6 * max(central)
+
+
+def test_analyze_document_and_checks_carry_the_budget() -> None:
+    from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
+
+    project = make_project(non_inverting(Rf={"tol": "1%"}), converter={"full_scale_vpp": 5, "bits": 16})
+    analysis = ProjectAnalysis(project, spread=False)
+    document = analysis.document()
+    stage = document["stages"][0]
+    for place in (stage["isolated"], stage["in_chain"], document["chain"]):
+        dc = place["dc"]
+        for key in ("gain", "gain_error_pct", "offset_out_v", "drift_out_v_per_c", "contributions",
+                    "total_wc_v", "total_rss_v"):
+            assert key in dc
+        assert {"source", "kind", "out_v"} <= set(dc["contributions"][0])
+    assert {"total_wc_lsb", "total_rss_lsb", "total_wc_pct_fs"} <= set(document["chain"]["dc"])
+    # Source: Franco, 3rd ed., sec. 5.1 (value from memory): the Vos term is Vos·(1 + Rf/Rg), so the
+    # worst-case offset is at least that.
+    value, why = analysis.metric_value("offset_out_v", "isolated", "s", None)
+    assert why is None and value >= VOS * (1 + RF / RG)
+    value, why = analysis.metric_value("drift_out_v_per_c", "chain", "s", None)
+    assert value is None and "temp_range_c" in why
