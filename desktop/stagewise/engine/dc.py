@@ -86,7 +86,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from stagewise.engine.chain import MergedChain, merged_system
+from stagewise.engine.chain import MergedChain, load_admittance, merge_systems
 from stagewise.engine.metrics import put_with_why
 from stagewise.engine.mna import CircuitError, ElementStamp, OpampStates, StageSystem, assemble
 from stagewise.engine.sweep import drive
@@ -273,6 +273,19 @@ class _Collector:
     delta_t: float | None
     injections: list[_Injection] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    _matrices: tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]] | None = None
+
+    def matrices(self) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+        """Every source's vector, and its in+ and in− paths (zero where none), as (n, sources)."""
+        if self._matrices is None or self._matrices[0].shape[1] != len(self.injections):
+            empty = np.zeros(self.size)
+            paths = [dict(injection.via) for injection in self.injections]
+            self._matrices = (
+                np.column_stack([injection.vector for injection in self.injections] or [empty])[:, :len(paths)],
+                np.column_stack([path.get("in+", empty) for path in paths] or [empty])[:, :len(paths)],
+                np.column_stack([path.get("in-", empty) for path in paths] or [empty])[:, :len(paths)],
+            )
+        return self._matrices
 
     def add(self, source: str, kind: str, stage_id: str, ref: str, vector: NDArray[np.float64], *,
             signed: bool = False, hot: bool = False, gain_like: bool = False,
@@ -404,6 +417,21 @@ class _Solved:
     x: NDArray[np.float64]
     adjoint: dict[int, NDArray[np.float64]]  # output index -> z with Gᵀ z = e_out
     state_columns: dict[int, NDArray[np.float64]]  # state row -> G⁻¹ e_state
+    alone: dict[int, NDArray[np.float64] | None] = field(default_factory=dict)  # state row -> x, that op-amp ideal
+    transfers: dict[int, tuple[NDArray[np.float64], ...]] = field(default_factory=dict)
+
+    def transfer(self, output: int, collector: _Collector) -> tuple[NDArray[np.float64], ...]:
+        """zᵀ·(every source, its in+ path, its in− path) for one output: three (sources,) arrays."""
+        if output not in self.transfers:
+            z = self.adjoint[output]
+            self.transfers[output] = tuple(z @ matrix for matrix in collector.matrices())
+        return self.transfers[output]
+
+    def ideal_alone(self, opamp: OpampStates) -> NDArray[np.float64] | None:
+        """x with only this op-amp ideal (Sherman–Morrison), cached: many places ask for it."""
+        if opamp.state_row not in self.alone:
+            self.alone[opamp.state_row] = _with_ideal(self, [opamp])
+        return self.alone[opamp.state_row]
 
 
 def _solve(g: NDArray[np.float64], b: NDArray[np.float64], outputs: list[int], states: list[int]) -> _Solved:
@@ -434,8 +462,9 @@ def _with_ideal(solved: _Solved, opamps: list[OpampStates]) -> NDArray[np.float6
     rows = [opamp.state_row for opamp in opamps]
     columns = np.column_stack([solved.state_columns[row] for row in rows])  # G⁻¹ U
     core = np.diag([opamp.a0 for opamp in opamps]) - columns[rows, :]  # D⁻¹ − Uᵀ G⁻¹ U
-    singular = np.linalg.svd(core, compute_uv=False)
-    if singular[-1] <= 1e-9 * max(opamp.a0 for opamp in opamps):
+    # Singular core: with infinite gain the circuit has no solution (an op-amp without DC feedback).
+    smallest = abs(core[0, 0]) if len(rows) == 1 else np.linalg.svd(core, compute_uv=False)[-1]
+    if smallest <= 1e-9 * max(opamp.a0 for opamp in opamps):
         return None
     result: NDArray[np.float64] = solved.x + columns @ np.linalg.solve(core, solved.x[rows])
     return result
@@ -471,35 +500,35 @@ def _budget(place: _Place, solved: _Solved, collector: _Collector, project: Proj
     if gain_defined and abs(x[place.output]) <= 1e-12 * scale:
         gain_defined = False
     gain = _gain(x, place) if gain_defined else 0.0
-    z_out = solved.adjoint[place.output]
-    z_in = solved.adjoint[place.denominator] if place.denominator >= 0 else None
+    through_out, plus_out, minus_out = solved.transfer(place.output, collector)
+    through_in = solved.transfer(place.denominator, collector)[0] if place.denominator >= 0 else None
     zero_gain = ("no DC signal passes here (a series capacitor or a zero at 0 Hz blocks DC), so the DC gain and "
                  "its error are undefined; offsets are still counted")
     level = place.level_v if gain_defined else None
     contributions: list[DcContribution] = []
 
-    def relative(vector: NDArray[np.float64]) -> float:
+    def relative(index: int) -> float:
         # d ln(gain) = dx_out/x_out − dx_in/x_in, each dx = zᵀ·vector.
-        change = float(z_out @ vector) / float(x[place.output])
-        if z_in is not None:
-            change -= float(z_in @ vector) / float(x[place.denominator])
+        change = float(through_out[index]) / float(x[place.output])
+        if through_in is not None:
+            change -= float(through_in[index]) / float(x[place.denominator])
         return change
 
-    for injection in collector.injections:
+    for index, injection in enumerate(collector.injections):
         if injection.stage_id not in place.stages:
             continue
         if injection.gain_like:
             if not gain_defined:
                 continue
-            epsilon = relative(injection.vector)
+            epsilon = relative(index)
             out = None if level is None else epsilon * level
             contributions.append(DcContribution(injection.source, injection.kind, injection.stage_id, injection.ref,
                                                 out if injection.signed or out is None else abs(out),
                                                 injection.signed, injection.over_temperature,
                                                 100.0 * (epsilon if injection.signed else abs(epsilon))))
             continue
-        value = float(z_out @ injection.vector)
-        via = tuple((label, float(z_out @ vector)) for label, vector in injection.via)
+        value = float(through_out[index])
+        via = (("in+", float(plus_out[index])), ("in-", float(minus_out[index]))) if injection.via else ()
         contributions.append(DcContribution(injection.source, injection.kind, injection.stage_id, injection.ref,
                                             value if injection.signed else abs(value), injection.signed,
                                             injection.over_temperature, None, via))
@@ -507,7 +536,7 @@ def _budget(place: _Place, solved: _Solved, collector: _Collector, project: Proj
     finite_total: float | None = None
     if gain_defined and place.opamps:
         for opamp in place.opamps:
-            alone = _with_ideal(solved, [opamp])
+            alone = solved.ideal_alone(opamp)
             if alone is None or _gain(alone, place) == 0:
                 notes.append(f"{opamp.ref}: with infinite gain the circuit has no DC solution (no DC feedback), "
                              "so its finite-gain error is not counted")
@@ -621,9 +650,24 @@ def dc_budgets(project: Project, merged: MergedChain | None = None) -> DcBudgets
     from_input: dict[str, DcBudget | str] = {}
     chain: DcBudget | str
     levels: dict[str, tuple[float | None, str | None]] = {}
+    systems: dict[str, StageSystem | str] = {}
+    for stage in project.stages:
+        try:
+            systems[stage.id] = assemble(stage, project)
+        except CircuitError as error:
+            systems[stage.id] = f'stage "{stage.id}": {error}'
     try:
-        merged = merged or merged_system(project)
-        chain, levels = _chain_places(project, merged, delta_t, in_chain, from_input)
+        if merged is None:
+            active = [systems[stage.id] for stage in project.active_stages]
+            failed = next((item for item in active if isinstance(item, str)), None)
+            if failed is not None or not active:
+                raise CircuitError(failed or "the chain has no active stage")
+            load_r, load_c = load_admittance(project)
+            merged = merge_systems([stage.id for stage in project.active_stages],
+                                   [item for item in active if not isinstance(item, str)],
+                                   current_drive=project.input.drive == "current", load_r_ohm=load_r,
+                                   load_c_f=load_c)
+        chain, levels = _chain_places(project, merged, delta_t, in_chain, from_input, systems)
     except CircuitError as error:
         chain = str(error)
         for stage in project.active_stages:
@@ -635,16 +679,19 @@ def dc_budgets(project: Project, merged: MergedChain | None = None) -> DcBudgets
                                                        "reference signal level"))
         if stage.bypass:
             level, level_why = None, f'stage "{stage.id}" is bypassed, so it has no signal level in the chain'
+        system = systems[stage.id]
+        if isinstance(system, str):
+            isolated[stage.id] = system
+            continue
         try:
-            isolated[stage.id] = _isolated_place(stage, project, delta_t, level, level_why)
+            isolated[stage.id] = _isolated_place(stage, system, project, delta_t, level, level_why)
         except CircuitError as error:
             isolated[stage.id] = f'stage "{stage.id}": {error}'
     return DcBudgets(isolated=isolated, in_chain=in_chain, from_input=from_input, chain=chain)
 
 
-def _isolated_place(stage: Stage, project: Project, delta_t: float | None, level: float | None,
-                    level_why: str | None) -> DcBudget:
-    system = assemble(stage, project)
+def _isolated_place(stage: Stage, system: StageSystem, project: Project, delta_t: float | None,
+                    level: float | None, level_why: str | None) -> DcBudget:
     driven = drive(system, stage.drive == "current")
     states = [opamp.state_row for opamp in system.opamps]
     probe = _solve(driven.g, driven.b, [driven.output], states)
@@ -655,8 +702,8 @@ def _isolated_place(stage: Stage, project: Project, delta_t: float | None, level
 
 
 def _chain_places(project: Project, merged: MergedChain, delta_t: float | None,
-                  in_chain: dict[str, DcBudget | str], from_input: dict[str, DcBudget | str]
-                  ) -> tuple[DcBudget, dict[str, tuple[float | None, str | None]]]:
+                  in_chain: dict[str, DcBudget | str], from_input: dict[str, DcBudget | str],
+                  systems: dict[str, StageSystem | str]) -> tuple[DcBudget, dict[str, tuple[float | None, str | None]]]:
     driven = merged.driven()
     interfaces = list(merged.interface_indices)
     states = [opamp.state_row for opamp in merged.system.opamps]
@@ -665,9 +712,10 @@ def _chain_places(project: Project, merged: MergedChain, delta_t: float | None,
     drive_level, drive_why = _reference_drive(project, float(x[interfaces[-1]]))
     collector = _Collector(driven.g.shape[0], project, delta_t)
     stages = {stage.id: stage for stage in project.active_stages}
-    systems = {stage.id: assemble(stage, project) for stage in project.active_stages}
     for position, stage_id in enumerate(merged.stage_ids):
-        collector.stage(stages[stage_id], systems[stage_id], list(merged.local_to_merged[position]), x)
+        system = systems[stage_id]
+        assert not isinstance(system, str)  # the merged chain was built from it
+        collector.stage(stages[stage_id], system, list(merged.local_to_merged[position]), x)
     levels: dict[str, tuple[float | None, str | None]] = {}
     for position, stage_id in enumerate(merged.stage_ids):
         output = interfaces[position + 1]
