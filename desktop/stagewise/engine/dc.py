@@ -657,16 +657,7 @@ def dc_budgets(project: Project, merged: MergedChain | None = None) -> DcBudgets
         except CircuitError as error:
             systems[stage.id] = f'stage "{stage.id}": {error}'
     try:
-        if merged is None:
-            active = [systems[stage.id] for stage in project.active_stages]
-            failed = next((item for item in active if isinstance(item, str)), None)
-            if failed is not None or not active:
-                raise CircuitError(failed or "the chain has no active stage")
-            load_r, load_c = load_admittance(project)
-            merged = merge_systems([stage.id for stage in project.active_stages],
-                                   [item for item in active if not isinstance(item, str)],
-                                   current_drive=project.input.drive == "current", load_r_ohm=load_r,
-                                   load_c_f=load_c)
+        merged = merged or _merge(project, systems)
         chain, levels = _chain_places(project, merged, delta_t, in_chain, from_input, systems)
     except CircuitError as error:
         chain = str(error)
@@ -688,6 +679,18 @@ def dc_budgets(project: Project, merged: MergedChain | None = None) -> DcBudgets
         except CircuitError as error:
             isolated[stage.id] = f'stage "{stage.id}": {error}'
     return DcBudgets(isolated=isolated, in_chain=in_chain, from_input=from_input, chain=chain)
+
+
+def _merge(project: Project, systems: dict[str, StageSystem | str]) -> MergedChain:
+    """The merged chain from the stages assembled here (each stage assembled once)."""
+    active = [systems[stage.id] for stage in project.active_stages]
+    failed = next((item for item in active if isinstance(item, str)), None)
+    if failed is not None or not active:
+        raise CircuitError(failed or "the chain has no active stage")
+    load_r, load_c = load_admittance(project)
+    return merge_systems([stage.id for stage in project.active_stages],
+                         [item for item in active if not isinstance(item, str)],
+                         current_drive=project.input.drive == "current", load_r_ohm=load_r, load_c_f=load_c)
 
 
 def _isolated_place(stage: Stage, system: StageSystem, project: Project, delta_t: float | None,
