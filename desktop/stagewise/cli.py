@@ -13,6 +13,7 @@ import importlib
 import os
 import re
 import sys
+import textwrap
 from collections.abc import Sequence
 from typing import Any, TextIO
 
@@ -102,57 +103,136 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(EXIT_ERROR)
 
 
+_EXITS_READ = "exit status: 0 done; 2 the file cannot be read or an option is wrong (one sentence on stderr)."
+
+CARD_SYNTAX = """\
+element cards: one part per line, in the netlist line form of the trade
+  R|C|L<ref>  node node value          resistor, capacitor, inductor
+  E<ref>  out+ out- in+ in- gain       voltage-controlled voltage source
+  G<ref>  out+ out- in+ in- siemens    voltage-controlled current source
+  U<ref>  in+ in- out model            op-amp: "ideal" or a model of the project
+  * comment line      ; comment (also after a card)      .end (optional, ends the deck)
+node 0 is the common reference. Values: a number, an optional scale factor and an optional unit,
+case-insensitive: T 1e12, G 1e9, MEG 1e6, K 1e3, M 1e-3 (M is MILLI in cards), U or µ 1e-6,
+N 1e-9, P 1e-12, F 1e-15 (femto). 4k7 and 2R2 (IEC 60062) are read too; 1M5 is refused as
+ambiguous. Values are stored in the project file's own notation (1M in a card becomes 1m).
+
+example (cards.txt):
+  * input RC and a follower
+  R1  in   a    10K      ; series resistor
+  C1  a    0    4.7N
+  Rb  a    0    1MEG     ; bias, one megohm
+  U1  a    out  out  ideal
+
+  stagewise import-cards chain.stagewise.json cards.txt --name "Input RC" --in in --out out --after sensor
+"""
+
+
+def _command(commands: argparse._SubParsersAction,  # type: ignore[type-arg]
+             name: str, summary: str, writes: str, exits: str) -> argparse.ArgumentParser:
+    """A subcommand whose --help says what it does, what it writes and its exit statuses."""
+    return commands.add_parser(  # type: ignore[no-any-return]
+        name, help=summary, description=f"{summary[0].upper()}{summary[1:]}.",
+        epilog=_wrapped(f"writes: {writes}", exits), formatter_class=argparse.RawDescriptionHelpFormatter)
+
+
+def _wrapped(*paragraphs: str) -> str:
+    return "\n".join(textwrap.fill(paragraph, 96, subsequent_indent="  ") for paragraph in paragraphs)
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every subcommand of DESIGN section 6."""
     parser = _Parser(
         prog="stagewise",
         description="Design review of analog signal chains. With no command, opens the desktop "
         "program on FILE (the bundled demo when no FILE is given).",
-        epilog="Small-signal linear analysis only; it does not assess electrical safety. "
-        "See the README's cautions.",
+        epilog="Every command: exit status 2 and one sentence on stderr when a file cannot be read or an "
+        "option is wrong; 'stagewise COMMAND --help' gives each command's output and exit statuses. "
+        "Small-signal linear analysis only; it does not assess electrical safety. See the README's cautions.",
     )
     parser.add_argument("--version", action="version", version=f"stagewise {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
-    gui = commands.add_parser("gui", help="open the desktop program on FILE")
+    gui = _command(commands, "gui", "open the desktop program on FILE",
+                   "nothing on its own; with --screenshot, the PNG (and its size on stdout)",
+                   "exit status: 0 closed normally or screenshot written; 2 no display, a file that cannot be "
+                   "read, or a screenshot that could not be made.")
     gui.add_argument("file", metavar="FILE", nargs="?", help="project file (.stagewise.json)")
     gui.add_argument("--screenshot", metavar="PNG", help="render the main window offscreen to PNG and exit")
-    gui.add_argument("--size", metavar="WxH", default="1440x900", help="window size for --screenshot (default 1440x900)")
+    gui.add_argument("--size", metavar="WxH", default="1440x900",
+                     help="window size for --screenshot (default 1440x900); a window cannot be smaller than its "
+                     "contents allow, and the size written is printed")
 
-    analyze = commands.add_parser("analyze", help="all metrics, per stage and for the chain")
+    analyze = _command(commands, "analyze", "all metrics, per stage and for the chain",
+                       "a JSON document on stdout (DESIGN section 6: stages with isolated and in-chain metrics, "
+                       "the chain with noise, converter figures and spread); nothing is written to files",
+                       _EXITS_READ)
     analyze.add_argument("file", metavar="FILE")
     analyze.add_argument("--json", action="store_true", help="print JSON (the only format for now)")
 
-    response = commands.add_parser("response", help="frequency response at chosen frequencies")
+    response = _command(commands, "response", "frequency response at chosen frequencies",
+                        "a table on stdout (frequency, magnitude in dB, phase in degrees, real and imaginary "
+                        "parts), or with --json {\"what\", \"unit\", \"points\": [{\"f_hz\", \"re\", \"im\", "
+                        "\"mag_db\", \"phase_deg\"}]}",
+                        "exit status: 0 printed; 1 the response is undefined (the reason is printed); "
+                        "2 the file cannot be read or an option is wrong.")
     response.add_argument("file", metavar="FILE")
     response.add_argument("--stage", metavar="ID", help="one stage, isolated (default: the whole chain)")
     response.add_argument("--in-chain", action="store_true", help="with --stage: V_out/V_in where the stage sits")
     response.add_argument("--freqs", metavar="LIST", required=True, help="comma-separated frequencies, e.g. 10,1k,20k")
-    response.add_argument("--json", action="store_true", help="print JSON")
+    response.add_argument("--json", action="store_true", help="print JSON instead of a table")
 
-    check = commands.add_parser("check", help="checklist status (exit 0 all met or waived, 1 otherwise)")
+    check = _command(commands, "check", "checklist status (exit 0 all met or waived, 1 otherwise)",
+                     "a table on stdout (stage, check, state, value, limits, metric, text), the reasons, the "
+                     "totals and each stage's sign-off state; or JSON with --json",
+                     "exit status: 0 every check met, waived or not applicable; 1 any check not met, without "
+                     "a value or open; 2 the file cannot be read.")
     check.add_argument("file", metavar="FILE")
     check.add_argument("--json", action="store_true", help="print JSON instead of a table")
 
-    packet = commands.add_parser("packet", help="print the PDF review packet")
+    packet = _command(commands, "packet", "print the PDF review packet",
+                      "the PDF review packet into OUT.pdf (cover with the file's SHA-256 and totals, cautions, "
+                      "chain plots and tables, a section per stage, the audit trail), replaced whole when complete; "
+                      "then a 'review packet printed' event naming the PDF's SHA-256 is appended to FILE's audit "
+                      "trail and FILE is saved (the previous version kept as FILE.bak); one line on stdout",
+                      "exit status: 0 written and recorded; 2 the file cannot be read, OUT.pdf cannot be "
+                      "written, or FILE could not be saved (then the PDF exists but is not recorded).")
     packet.add_argument("file", metavar="FILE")
-    packet.add_argument("-o", "--output", metavar="OUT.pdf", required=True)
+    packet.add_argument("-o", "--output", metavar="OUT.pdf", required=True, help="the PDF to write")
     packet.add_argument("--by", metavar="NAME", help="who printed it (recorded in the audit trail)")
 
-    verify = commands.add_parser("verify", help="audit-trail integrity (exit 0 intact, 1 broken)")
+    verify = _command(commands, "verify", "audit-trail integrity (exit 0 intact, 1 broken)",
+                      "one line on stdout per finding: the chain's verdict, then every review record without "
+                      "an audit event; nothing is written to files",
+                      "exit status: 0 intact; 1 broken, or a record without its event; 2 the file cannot be read.")
     verify.add_argument("file", metavar="FILE")
 
-    diff = commands.add_parser("diff", help="what changed, part by part, and which sign-offs it puts out of date")
+    diff = _command(commands, "diff", "what changed, part by part, and which sign-offs it puts out of date",
+                    "one line per change on stdout (values as typed, old → new), then the sign-offs the changes "
+                    "put out of date; nothing is written to files",
+                    "exit status: 0 no differences; 1 differences; 2 a file cannot be read.")
     diff.add_argument("old", metavar="OLD")
     diff.add_argument("new", metavar="NEW")
 
-    cards = commands.add_parser("import-cards", help="append a stage built from element-card text")
+    cards = commands.add_parser(
+        "import-cards", help="add a stage built from element-card text",
+        description="Add a stage built from element-card text to FILE: at the end of the chain, or after "
+        "(or before) the stage given.",
+        epilog=CARD_SYNTAX + "\n" + _wrapped(
+            "writes: FILE, saved with the new stage and an 'import' event in its audit trail (the previous "
+            "version kept as FILE.bak); one line on stdout, and a note for every value read with M as milli.",
+            "exit status: 0 imported; 2 a card or the project cannot be read, or FILE is open for editing "
+            "elsewhere (FILE is then left unchanged)."),
+        formatter_class=argparse.RawDescriptionHelpFormatter)
     cards.add_argument("file", metavar="FILE")
     cards.add_argument("cards", metavar="CARDS", help="element-card text file, one part per line")
     cards.add_argument("--name", required=True, help="name of the new stage")
     cards.add_argument("--in", dest="in_node", metavar="NODE", default="in", help="input port node (default in)")
     cards.add_argument("--out", dest="out_node", metavar="NODE", default="out", help="output port node (default out)")
     cards.add_argument("--id", dest="stage_id", metavar="ID", help="id of the new stage (default: from the name)")
+    place = cards.add_mutually_exclusive_group()
+    place.add_argument("--after", metavar="ID", help="put the new stage right after stage ID (default: at the end)")
+    place.add_argument("--before", metavar="ID", help="put the new stage right before stage ID")
     cards.add_argument("--by", metavar="NAME", help="who imported it (recorded in the audit trail)")
 
     measure = commands.add_parser("measure", help="attach a bench measurement to a stage or the chain",
@@ -194,7 +274,14 @@ def _run(args: argparse.Namespace) -> int:
     module_name = "stagewise.commands." + str(args.command).replace("-", "_")
     try:
         module = importlib.import_module(module_name)
-        return int(module.run(args))
+        status = int(module.run(args))
+        sys.stdout.flush()  # a reader that stopped early is met here, not at interpreter exit
+        return status
+    except BrokenPipeError:
+        # The reader stopped reading (`stagewise analyze FILE | head`): not an error. Point stdout
+        # at the null device so the interpreter's final flush does not complain either.
+        _silence_stdout()
+        return EXIT_OK
     except CommandError as error:
         _report(str(error))
         return EXIT_ERROR
@@ -214,6 +301,15 @@ def _run(args: argparse.Namespace) -> int:
         _report(f"internal error ({type(error).__name__}: {error}); this is a fault in Stagewise, "
                 "not in your file; run with STAGEWISE_DEBUG=1 to see where")
         return EXIT_ERROR
+
+
+def _silence_stdout() -> None:
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, ValueError):  # stdout without a file descriptor (a test's capture)
+        pass
 
 
 def _report(message: str) -> None:

@@ -9,7 +9,7 @@ import pytest
 
 from stagewise.engine.mna import assemble
 from stagewise.engine.sweep import drive, transfer
-from stagewise.files.cards import CardError, parse_cards, stage_from_cards
+from stagewise.files.cards import CardError, parse_card_value, parse_cards, stage_from_cards
 from stagewise.model.project import OpampModel, Project, Stage
 from stagewise.model.values import Quantity
 
@@ -112,3 +112,66 @@ def test_stage_ids_are_unique_in_the_project() -> None:
     assert second.id == "input-filter-2"
     with pytest.raises(CardError, match="already used"):
         stage_from_cards(deck, "x", "in", "out", project, stage_id="input-filter")
+
+
+# Common practice, no source (value from memory): in the trade's netlist line convention the scale
+# factors are case-insensitive, M is milli and MEG mega, F is femto, a unit may follow the scale
+# factor, and ";" starts a comment. One case per suffix; the expected numbers are the SI values.
+@pytest.mark.parametrize(
+    ("text", "si", "stored"),
+    [
+        ("1MEG", 1e6, "1M"),
+        ("1meg", 1e6, "1M"),
+        ("2.2Meg", 2.2e6, "2.2M"),
+        ("1M", 1e-3, "1m"),
+        ("1m", 1e-3, "1m"),
+        ("10N", 1e-8, "10n"),
+        ("10n", 1e-8, "10n"),
+        ("4.7K", 4.7e3, "4.7k"),
+        ("4.7k", 4.7e3, "4.7k"),
+        ("3.3U", 3.3e-6, "3.3u"),
+        ("3.3µ", 3.3e-6, "3.3u"),
+        ("22P", 22e-12, "22p"),
+        ("5F", 5e-15, "5f"),
+        ("1.5G", 1.5e9, "1.5G"),
+        ("2T", 2e12, 2e12),
+        ("10nF", 1e-8, "10n"),
+        ("47kohm", 47e3, "47k"),
+        ("1MEGΩ", 1e6, "1M"),
+        ("100mH", 0.1, "100m"),
+        ("4k7", 4.7e3, "4k7"),
+        ("2R2", 2.2, "2R2"),
+        ("4N7", 4.7e-9, "4n7"),
+        ("1e-3", 1e-3, "1e-3"),
+    ],
+)
+def test_card_values_follow_the_netlist_convention(text: str, si: float, stored: str | float) -> None:
+    value = parse_card_value(text)
+    assert value.si == pytest.approx(si, rel=1e-15)
+    # Stored in the project file's notation (M mega, m milli), which reads back the same number.
+    assert value.raw == stored
+    assert Quantity.of(value.raw).si == value.si
+
+
+@pytest.mark.parametrize(("text", "words"), [("1M5", "ambiguous"), ("4n7x", "is not a value"), ("1X", "is not a value"),
+                                             ("k", "is not a value")])
+def test_card_values_that_cannot_be_read_are_refused(text: str, words: str) -> None:
+    with pytest.raises(ValueError, match=words):
+        parse_card_value(text)
+
+
+def test_semicolon_comments_and_milli_notes() -> None:
+    # Common practice, no source: ";" starts a comment at the start of a line or after a card.
+    deck = ("; a deck with comments of both kinds\n"
+            "R1 in out 1MEG ; bias resistor\n"
+            "C1 out 0 10N;no space before the comment\n"
+            "L1 out x 1M    ; one millihenry\n"
+            "Rx x 0 1k\n"
+            "U1 x y y quiet 5 MHz ; the project's model\n")
+    notes: list[str] = []
+    parts = parse_cards(deck, _project(), notes)
+    assert [part.ref for part in parts] == ["R1", "C1", "L1", "Rx", "U1"]
+    values = [part.value.si for part in parts[:3] if part.value is not None]
+    assert values == [pytest.approx(1e6), pytest.approx(1e-8), pytest.approx(1e-3)]
+    assert parts[4].model == "quiet 5 MHz"
+    assert len(notes) == 1 and notes[0].startswith('line 4: L1 "1M" is read as milli (1m)')

@@ -303,11 +303,23 @@ def test_screenshot_command_writes_a_png(tmp_path: Path, sample_path: Path) -> N
     assert (image.width(), image.height()) == (1280, 800)
 
 
-def test_screenshot_size_below_the_minimum_is_refused(sample_path: Path, tmp_path: Path) -> None:
+def test_screenshot_size_below_the_window_minimum_is_taken_at_the_nearest_size(sample_path: Path,
+                                                                               tmp_path: Path) -> None:
+    png = tmp_path / "x.png"
     result = subprocess.run([sys.executable, "-m", "stagewise", "gui", str(sample_path), "--screenshot",
-                             str(tmp_path / "x.png"), "--size", "800x600"], capture_output=True, text=True,
-                            timeout=60, env={**os.environ, "QT_QPA_PLATFORM": "offscreen"})
-    assert result.returncode == 2 and "at least 1280x800" in result.stderr
+                             str(png), "--size", "10x10"], capture_output=True, text=True,
+                            timeout=120, env={**os.environ, "QT_QPA_PLATFORM": "offscreen"})
+    assert result.returncode == 0, result.stderr
+    from PySide6.QtGui import QImage
+
+    image = QImage(str(png))
+    # What the user reads on stdout is the size of the PNG written.
+    assert f"{image.width()}x{image.height()} pixels" in result.stdout
+    assert "cannot be 10x10" in result.stdout and image.width() >= 10 and image.height() >= 10
+    refused = subprocess.run([sys.executable, "-m", "stagewise", "gui", str(sample_path), "--screenshot",
+                              str(png), "--size", "0x600"], capture_output=True, text=True, timeout=60,
+                             env={**os.environ, "QT_QPA_PLATFORM": "offscreen"})
+    assert refused.returncode == 2 and "from 1 to" in refused.stderr
 
 
 def test_stage_from_a_template_brings_its_op_amp_model_and_undoes_cleanly(window) -> None:  # type: ignore[no-untyped-def]

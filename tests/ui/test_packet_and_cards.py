@@ -251,3 +251,26 @@ def test_read_only_project_prints_no_packet_it_could_not_record(window, sample_p
     assert window.export_packet(output) is None
     assert not output.exists()
     assert "read-only" in window.statusBar().currentMessage()
+
+
+def test_import_dialog_places_the_stage_and_tells_how_it_read_milli(window, qtbot) -> None:  # type: ignore[no-untyped-def]
+    from PySide6.QtCore import Qt
+
+    first = window.document.project.stages[0]
+    dialog = window.card_import_dialog()
+    dialog.text.clear()
+    for line in ("R1 in out 1MEG ; bias", "C1 out 0 10N", "L1 out 0 1M"):
+        qtbot.keyClicks(dialog.text, line)
+        qtbot.keyClick(dialog.text, Qt.Key.Key_Return)
+    dialog.name.clear()
+    qtbot.keyClicks(dialog.name, "Typed deck")
+    dialog.place.setCurrentIndex(dialog.place.findText(f"After {first.name} ({first.id})"))
+    qtbot.mouseClick(dialog.buttons.button(dialog.buttons.StandardButton.Ok), Qt.MouseButton.LeftButton)
+    assert dialog.result() == QDialog.DialogCode.Accepted
+    assert window.add_imported_stage(dialog)
+    stages = window.document.project.stages
+    assert stages[1].name == "Typed deck"
+    values = {part.ref: part.value.si for part in stages[1].parts if part.value is not None}
+    # Common practice, no source (value from memory): netlist cards read MEG as mega, N nano, M milli.
+    assert values == {"R1": pytest.approx(1e6), "C1": pytest.approx(1e-8), "L1": pytest.approx(1e-3)}
+    assert 'L1 "1M" is read as milli' in window.statusBar().currentMessage()

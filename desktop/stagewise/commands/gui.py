@@ -18,7 +18,7 @@ from stagewise.cli import CommandError
 HEADLESS_HINT = ("no display is available for the desktop program; use the headless commands "
                  "'stagewise packet', 'stagewise check' or 'stagewise analyze' instead, or set "
                  "QT_QPA_PLATFORM=offscreen")
-MIN_SIZE = (1280, 800)
+MAX_SIDE_PX = 16384
 
 
 def display_available(environ: dict[str, str] | None = None, platform: str | None = None) -> bool:
@@ -33,14 +33,25 @@ def display_available(environ: dict[str, str] | None = None, platform: str | Non
 
 
 def parse_size(text: str) -> tuple[int, int]:
-    match = re.fullmatch(r"\s*(\d{3,5})\s*[xX×]\s*(\d{3,5})\s*", text or "")
+    """WIDTHxHEIGHT in pixels, each from 1 to 16384.
+
+    Any size is taken: a window that cannot be that small is rendered at the smallest size its
+    contents allow, and the command prints the size it wrote.
+    """
+    match = re.fullmatch(r"\s*(\d{1,5})\s*[xX×]\s*(\d{1,5})\s*", text or "")
     if match is None:
         raise CommandError(f'--size "{text}" is not WIDTHxHEIGHT (for instance 1440x900)')
     width, height = int(match[1]), int(match[2])
-    if width < MIN_SIZE[0] or height < MIN_SIZE[1]:
-        raise CommandError(f"--size {width}x{height} is too small; the window needs at least "
-                           f"{MIN_SIZE[0]}x{MIN_SIZE[1]}")
+    if not (1 <= width <= MAX_SIDE_PX and 1 <= height <= MAX_SIDE_PX):
+        raise CommandError(f"--size {width}x{height}: each side must be from 1 to {MAX_SIDE_PX} pixels")
     return width, height
+
+
+def png_size(path: Path) -> tuple[int, int]:
+    """Width and height written in a PNG's header chunk."""
+    with path.open("rb") as stream:
+        header = stream.read(24)
+    return int.from_bytes(header[16:20], "big"), int.from_bytes(header[20:24], "big")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -69,6 +80,12 @@ def run(args: argparse.Namespace) -> int:
         problem = render(project, path.resolve(), Path(screenshot), *size)
         if problem:
             raise CommandError(problem)
+        written = png_size(Path(screenshot))
+        if written != size:
+            print(f"{screenshot}: {written[0]}x{written[1]} pixels (the window cannot be {size[0]}x{size[1]}; "
+                  f"this is the nearest size its contents allow)")
+        else:
+            print(f"{screenshot}: {written[0]}x{written[1]} pixels")
         return 0
     from stagewise.ui.app import run as run_window
 

@@ -1,6 +1,8 @@
-"""`stagewise import-cards FILE CARDS --name NAME [--in NODE] [--out NODE] [--id ID] [--by NAME]`.
+"""`stagewise import-cards FILE CARDS --name NAME [--in NODE] [--out NODE] [--id ID] [--after ID | --before ID] [--by NAME]`.
 
-Appends a stage built from element-card text (format in :mod:`stagewise.files.cards`), records
+Adds a stage built from element-card text (format in :mod:`stagewise.files.cards`) at the end of
+the chain, or right after (``--after``) or before (``--before``) a stage; prints a note for each
+value read with ``M`` as milli (the cards' convention, unlike the project file's); records
 an audit event ``import`` ("stage imported") with the stage id and the SHA-256 of the cards file,
 validates the whole project and saves it atomically. On any error the project file is left
 byte for byte as it was and the command exits with status 2 and one sentence. The project's
@@ -17,7 +19,7 @@ import hashlib
 from pathlib import Path
 
 from stagewise.cli import CommandError
-from stagewise.commands.common import load, locked, read_input_file
+from stagewise.commands.common import load, locked, read_input_file, stage_by_id
 from stagewise.files.cards import CardError, stage_from_cards
 from stagewise.files.project_file import save_project
 from stagewise.model.validate import validate
@@ -51,15 +53,23 @@ def _import(args: argparse.Namespace, cards_path: Path, data: bytes) -> int:
         text = data.decode("utf-8")
     except UnicodeDecodeError as error:
         raise CommandError(f"{cards_path}: not UTF-8 text (byte {error.start})") from error
+    position = len(project.stages)
+    for option, anchor, offset in (("--after", getattr(args, "after", None), 1),
+                                   ("--before", getattr(args, "before", None), 0)):
+        if anchor is not None:
+            stage_by_id(project, anchor, f"{args.file}: {option}")
+            position = [candidate.id for candidate in project.stages].index(anchor) + offset
+    notes: list[str] = []
     try:
-        stage = stage_from_cards(text, args.name, args.in_node, args.out_node, project, args.stage_id)
+        stage = stage_from_cards(text, args.name, args.in_node, args.out_node, project, args.stage_id, notes)
     except CardError as error:
         raise CommandError(f"{cards_path}: {error}") from error
-    project.stages.append(stage)
+    project.stages.insert(position, stage)
     detail = {
         "stage": stage.id,
         "name": stage.name,
         "parts": len(stage.parts),
+        "position": position + 1,
         "cards_file": cards_path.name,
         "cards_sha256": hashlib.sha256(data).hexdigest(),
     }
@@ -71,5 +81,9 @@ def _import(args: argparse.Namespace, cards_path: Path, data: bytes) -> int:
     if problems:
         raise CommandError(f"{args.file}: after the import the project is not valid: " + "; ".join(problems))
     save_project(args.file, project)
-    print(f"Imported stage \"{stage.id}\" ({len(stage.parts)} parts) into {args.file}.")
+    for note in notes:
+        print(f"{cards_path}: note: {note}.")
+    where = f"after stage {project.stages[position - 1].id}" if position > 0 else "first in the chain"
+    print(f"Imported stage \"{stage.id}\" ({len(stage.parts)} parts) into {args.file}, {where} "
+          f"(stage {position + 1} of {len(project.stages)}).")
     return 0

@@ -1,6 +1,8 @@
-"""``stagewise response FILE [--stage ID [--in-chain]] --freqs 10,1k,20k --json``.
+"""``stagewise response FILE [--stage ID [--in-chain]] --freqs 10,1k,20k [--json]``.
 
-Prints ``{"points": [{"f_hz", "re", "im", "mag_db", "phase_deg"}, …]}`` for the chain (drive →
+Without ``--json`` prints a table for people: what is shown and its unit, then one row per
+frequency (frequency, magnitude in dB, phase in degrees, real and imaginary parts). With
+``--json`` prints ``{"points": [{"f_hz", "re", "im", "mag_db", "phase_deg"}, …]}`` for the chain (drive →
 last output) by default, for a stage isolated with ``--stage``, and in chain with ``--in-chain``
 (V_out/V_in of that stage where it sits; V_out/I_in for a current-driven stage). ``unit`` and
 ``what`` say which. Where the response is undefined, ``points`` is null with ``why`` beside it
@@ -16,6 +18,7 @@ import numpy as np
 
 from stagewise.cli import CommandError
 from stagewise.commands.common import load, parse_frequencies, print_json, stage_by_id
+from stagewise.model.values import format_value
 
 
 def run(args: argparse.Namespace) -> int:
@@ -36,7 +39,10 @@ def run(args: argparse.Namespace) -> int:
     if values is None:
         document["points"] = None
         document["why"] = why
-        print_json(document)
+        if args.json:
+            print_json(document)
+        else:
+            print(f"{args.file}: {what}: no response, because {why}.")
         return 1
     points = []
     for f_hz, value in zip(frequencies, np.asarray(values, dtype=complex), strict=True):
@@ -49,5 +55,27 @@ def run(args: argparse.Namespace) -> int:
             "phase_deg": math.degrees(math.atan2(value.imag, value.real)),
         })
     document["points"] = points
-    print_json(document)
+    if args.json:
+        print_json(document)
+    else:
+        _print_table(str(args.file), what, unit, points)
     return 0
+
+
+def _number(value: float | None, digits: int) -> str:
+    if value is None:
+        return "—"
+    text = f"{value:.{digits}f}"
+    return text.lstrip("-") if float(text) == 0 else text  # no "-0.000"
+
+
+def _print_table(path: str, what: str, unit: str, points: list[dict[str, float | None]]) -> None:
+    """One row per frequency, columns aligned, units in the header."""
+    print(f"{path}: {what} ({unit})")
+    header = ("frequency", "magnitude (dB)", "phase (°)", "real", "imaginary")
+    rows = [(format_value(float(point["f_hz"] or 0.0), "Hz"), _number(point["mag_db"], 3),
+             _number(point["phase_deg"], 2), f"{point['re']:.6g}", f"{point['im']:.6g}") for point in points]
+    widths = [max(len(header[column]), *(len(row[column]) for row in rows)) for column in range(len(header))]
+    print("  ".join(text.rjust(width) for text, width in zip(header, widths, strict=True)))
+    for row in rows:
+        print("  ".join(text.rjust(width) for text, width in zip(row, widths, strict=True)))

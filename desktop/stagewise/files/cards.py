@@ -1,40 +1,52 @@
-"""Element-card text: a stage typed as one part per line.
+"""Element-card text: a stage typed as one part per line, in the trade's netlist line form.
 
-The format (our own, deliberately small)::
+The format::
 
-    * a comment line starts with an asterisk; blank lines are ignored
-    R1  in  a    4k7          resistor, capacitor or inductor: ref, two nodes, value
-    C1  a   0    10n
-    L1  a   out  2.2m
-    E1  o+  o-  i+  i-  10    voltage-controlled voltage source: ref, out+, out-, in+, in-, gain
-    G1  o+  o-  i+  i-  1m    voltage-controlled current source: ..., transconductance (S)
-    U1  in+ in- out  ideal    op-amp: ref, in+, in-, out, model ("ideal" or a project model)
-    .end                      optional; anything after it is ignored
+    * a line that starts with an asterisk is a comment; blank lines are ignored
+    R1  in  a    4.7k        ; resistor, capacitor or inductor: ref, two nodes, value
+    C1  a   0    10n         ; a semicolon starts a comment, at the start or the end of a line
+    L1  a   out  2.2M        ; M is milli in cards: 2.2 mH
+    R2  out 0    1MEG        ; MEG is mega: 1 MΩ
+    E1  o+  o-  i+  i-  10   ; voltage-controlled voltage source: ref, out+, out-, in+, in-, gain
+    G1  o+  o-  i+  i-  1m   ; voltage-controlled current source: ..., transconductance (S)
+    U1  in+ in- out  ideal   ; op-amp: ref, in+, in-, out, model ("ideal" or a project model)
+    .end                     ; optional; anything after it is ignored
 
 The ref is the whole first word (``R1``, ``Rload``); its first letter gives the part type (upper
 or lower case). Node ``0`` is the common reference. An op-amp model name may contain spaces
-(everything after the output node is the name) and may be written in double quotes. Values use
-the program's engineering notation (``4k7``, ``10n``, ``1Meg``; see
-:func:`stagewise.model.values.parse_value`).
+(everything after the output node up to a ``;`` is the name) and may be written in double quotes.
+
+**Values follow the netlist convention of the trade, not the project file's**: a number, an
+optional scale factor and an optional unit, all case-insensitive. Scale factors: ``T`` 1e12,
+``G`` 1e9, ``MEG`` 1e6, ``K`` 1e3, ``M`` 1e-3 (milli, in either case), ``U`` or ``µ`` 1e-6,
+``N`` 1e-9, ``P`` 1e-12, ``F`` 1e-15 (femto: ``10F`` is 10 fF, write a farad value without a
+suffix). A unit after the scale factor (``F``, ``H``, ``Ω``, ``ohm``, ``V``, ``A``, ``S``, ``Hz``)
+is checked for spelling and ignored: ``10nF``, ``4.7kohm``, ``1MEGΩ``. The letter-and-digit code of
+IEC 60062 is read too (``4k7``, ``2R2``, ``4n7``), except with ``M``, which would mean mega there
+and milli here (``1M5`` is refused: write ``1.5MEG`` or ``1.5M``). Each imported value is stored in
+the project file's own notation (where ``M`` is mega and ``m`` milli), so ``1M`` in a card is
+stored as ``1m`` and ``1MEG`` as ``1M``.
 
 Any line that cannot be read refuses the whole import, naming its line number: an unsupported
 element letter, a wrong number of fields, a missing node, a bad value (quoted), an unknown
 op-amp model or a duplicate ref. Nothing is half-imported.
 
 The command line (``stagewise import-cards``) and the desktop program's "import element cards"
-both call :func:`stage_from_cards`; the caller then appends the stage, records the audit event
+both call :func:`stage_from_cards`; the caller then inserts the stage, records the audit event
 and saves.
 """
 
 from __future__ import annotations
 
+import math
+import re
 from typing import Final
 
 from stagewise.model.project import GROUND, IDEAL_OPAMP, Part, Project, Stage
 from stagewise.model.validate import validate_stage
 from stagewise.model.values import Quantity, ValueSyntaxError
 
-__all__ = ["CARD_LETTERS", "CardError", "parse_cards", "stage_from_cards"]
+__all__ = ["CARD_LETTERS", "CARD_SCALE_FACTORS", "CardError", "parse_card_value", "parse_cards", "stage_from_cards"]
 
 MAX_CARD_LINES: Final = 10_000
 
@@ -48,6 +60,89 @@ CARD_LETTERS: Final[dict[str, tuple[str, tuple[str, ...], str, str]]] = {
     "U": ("opamp", ("in+", "in-", "out"), "model", "op-amp"),
 }
 _SUPPORTED = "R, C, L, E (voltage-controlled voltage source), G (voltage-controlled current source), U (op-amp)"
+
+
+# The trade's netlist scale factors (case-insensitive) -> (power of ten, the project file's prefix
+# for it, or "" where the project file has none and the value is stored as a plain number).
+CARD_SCALE_FACTORS: Final[dict[str, tuple[int, str]]] = {
+    "T": (12, ""),
+    "G": (9, "G"),
+    "MEG": (6, "M"),
+    "K": (3, "k"),
+    "M": (-3, "m"),
+    "U": (-6, "u"),
+    "µ": (-6, "u"),  # U+00B5 MICRO SIGN
+    "μ": (-6, "u"),  # U+03BC GREEK SMALL LETTER MU
+    "N": (-9, "n"),
+    "P": (-12, "p"),
+    "F": (-15, "f"),
+}
+_CARD_UNITS = ("OHMS", "OHM", "Ω", "Ω", "HZ", "F", "H", "V", "A", "S")
+_CARD_SCALE_PATTERN = "MEG|[TGKMUµμNPF]"
+_CARD_DECIMAL = re.compile(
+    rf"(?P<number>[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]{{1,3}})?)"
+    rf"(?P<scale>{_CARD_SCALE_PATTERN})?(?P<unit>{'|'.join(_CARD_UNITS)})?",
+    re.IGNORECASE,
+)
+_CARD_LETTER_DIGIT = re.compile(r"(?P<whole>[0-9]+)(?P<letter>[RKGUµμNPF])(?P<fraction>[0-9]+)(?P<unit>OHMS?|Ω|Ω|F|H)?",
+                                re.IGNORECASE)
+_MILLI = re.compile(r"[0-9.]M(?!EG)", re.IGNORECASE)
+CARD_VALUE_FORMS: Final = ("a number with an optional scale factor T G MEG K M U N P F (case-insensitive; "
+                           "M is milli, MEG mega) and unit, such as 4.7k, 10nF, 1MEG, 2.2M or 4k7")
+
+
+def parse_card_value(text: str) -> Quantity:
+    """Read an element card's value in the netlist convention; stored in the project's notation.
+
+    Parameters
+    ----------
+    text : str
+        The value field of a card, e.g. ``"1MEG"``, ``"10n"``, ``"1M"`` (milli), ``"4k7"``.
+
+    Returns
+    -------
+    Quantity
+        ``raw`` in the project file's notation (``"1M"`` → ``"1m"``, ``"1MEG"`` → ``"1M"``), or a
+        plain number where that notation has no prefix for the scale; ``si`` in SI base units.
+
+    Raises
+    ------
+    ValueSyntaxError
+        The text is not a card value; the message quotes it and says what is accepted.
+    """
+    match = _CARD_DECIMAL.fullmatch(text)
+    if match is not None:
+        number = match["number"]
+        scale = (match["scale"] or "").upper() if match["scale"] not in ("µ", "μ") else match["scale"]
+        exponent, prefix = CARD_SCALE_FACTORS[scale] if scale else (0, "")
+        has_exponent = "e" in number.lower()
+        # Shift the decimal exponent rather than multiply, so "4.7n" is the float nearest 4.7e-9.
+        si = float(number) * 10.0**exponent if has_exponent else float(f"{number}e{exponent}")
+        raw: str | float
+        if not scale:
+            raw = number
+        elif prefix and not has_exponent:
+            raw = number + prefix
+        else:
+            raw = si
+    else:
+        code = _CARD_LETTER_DIGIT.fullmatch(text)
+        if code is None:
+            if re.fullmatch(r"[0-9]+M[0-9]+\w*", text, re.IGNORECASE):
+                raise ValueSyntaxError(f'"{text}" is ambiguous in element cards, where M is milli and MEG '
+                                       f"mega: write {text.upper().replace('M', '.', 1)}MEG for mega or "
+                                       f"{text.upper().replace('M', '.', 1)}M for milli")
+            raise ValueSyntaxError(f'"{text}" is not a value; expected {CARD_VALUE_FORMS}')
+        letter = code["letter"] if code["letter"] in ("µ", "μ") else code["letter"].upper()
+        exponent, prefix = (0, "R") if letter == "R" else CARD_SCALE_FACTORS[letter]
+        si = float(f"{code['whole']}.{code['fraction']}e{exponent}")
+        raw = f"{code['whole']}{prefix}{code['fraction']}"
+    if not math.isfinite(si):
+        raise ValueSyntaxError(f'"{text}" is out of range')
+    stored = Quantity.of(raw)
+    if stored.si != si:  # the project's notation must read back the same number
+        stored = Quantity(si, si)
+    return stored
 
 
 class CardError(ValueError):
@@ -70,7 +165,7 @@ def _usage(letter: str) -> str:
     return f"{letter}<ref> {' '.join(roles)} {meaning}"
 
 
-def _parse_line(number: int, words: list[str], line: str, project: Project) -> Part:
+def _parse_line(number: int, words: list[str], line: str, project: Project, notes: list[str] | None) -> Part:
     ref = words[0]
     letter = ref[0].upper()
     if letter not in CARD_LETTERS:
@@ -87,7 +182,7 @@ def _parse_line(number: int, words: list[str], line: str, project: Project) -> P
                 number,
             )
         nodes = words[1 : 1 + len(roles)]
-        model = line.split(None, len(roles) + 1)[-1].strip()
+        model = line.split(None, len(roles) + 1)[-1].strip()  # the line comes without its comment
         if len(model) >= 2 and model[0] == model[-1] == '"':
             model = model[1:-1].strip()
         model = " ".join(model.split())
@@ -114,15 +209,18 @@ def _parse_line(number: int, words: list[str], line: str, project: Project) -> P
         )
     text = words[-1]
     try:
-        value = Quantity.of(text)
+        value = parse_card_value(text)
     except ValueSyntaxError as error:
         raise CardError(f"{ref}: {error}", number) from error
+    if notes is not None and _MILLI.search(text):
+        notes.append(f'line {number}: {ref} "{text}" is read as milli ({value.raw}), as cards write it; '
+                     f"mega is written MEG")
     if part_type in ("R", "C", "L") and not value.si > 0:
         raise CardError(f'{ref}: the {meaning} "{text}" must be greater than zero', number)
     return Part(ref=ref, type=part_type, nodes=list(words[1:-1]), value=value)
 
 
-def parse_cards(text: str, project: Project) -> list[Part]:
+def parse_cards(text: str, project: Project, notes: list[str] | None = None) -> list[Part]:
     """Read element-card text into parts.
 
     Parameters
@@ -131,6 +229,9 @@ def parse_cards(text: str, project: Project) -> list[Part]:
         The deck, one card per line (see the module documentation).
     project : Project
         Supplies the op-amp models a ``U`` card may name.
+    notes : list of str, optional
+        Receives one sentence per value read with ``M`` as milli, so the caller can show the
+        reading to someone used to the project file's notation (where ``M`` is mega).
 
     Returns
     -------
@@ -148,7 +249,7 @@ def parse_cards(text: str, project: Project) -> list[Part]:
     if len(lines) > MAX_CARD_LINES:
         raise CardError(f"the deck has {len(lines)} lines; at most {MAX_CARD_LINES} are read")
     for number, raw in enumerate(lines, start=1):
-        line = raw.strip().lstrip("\ufeff")
+        line = raw.split(";", 1)[0].strip().lstrip("\ufeff")
         if not line or line.startswith("*"):
             continue
         words = line.split()
@@ -156,7 +257,7 @@ def parse_cards(text: str, project: Project) -> list[Part]:
             if words[0].lower() == ".end" and len(words) == 1:
                 break
             raise CardError(f'"{words[0]}" is not supported; the only dot line is .end', number)
-        part = _parse_line(number, words, line, project)
+        part = _parse_line(number, words, line, project, notes)
         if part.ref in first_line:
             raise CardError(f'duplicate ref "{part.ref}", already used on line {first_line[part.ref]}', number)
         first_line[part.ref] = number
@@ -171,6 +272,7 @@ def stage_from_cards(
     out_node: str,
     project: Project,
     stage_id: str | None = None,
+    notes: list[str] | None = None,
 ) -> Stage:
     """Build a circuit stage from element-card text; the project is not changed.
 
@@ -187,6 +289,8 @@ def stage_from_cards(
     stage_id : str, optional
         The new stage's id; by default derived from ``name`` (lower case, words joined by
         ``-``) and made unique with ``-2``, ``-3``...
+    notes : list of str, optional
+        Receives the notes of :func:`parse_cards`.
 
     Raises
     ------
@@ -196,7 +300,7 @@ def stage_from_cards(
     """
     if not name.strip():
         raise CardError("the new stage needs a name")
-    parts = parse_cards(text, project)
+    parts = parse_cards(text, project, notes)
     if not parts:
         raise CardError("the deck holds no cards; nothing to import")
     nodes = {node for part in parts for node in part.nodes}

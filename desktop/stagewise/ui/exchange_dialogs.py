@@ -15,6 +15,7 @@ from PySide6.QtCore import Qt
 from PySide6.QtGui import QFontDatabase, QTextCursor
 from PySide6.QtWidgets import (
     QApplication,
+    QComboBox,
     QDialog,
     QDialogButtonBox,
     QFileDialog,
@@ -40,7 +41,7 @@ MAX_CARDS_BYTES = 2 * 1024 * 1024
 SAVE_BEFORE_PACKET = ("The packet names the SHA-256 fingerprint of the saved project file it was printed from, "
                       "so save your changes before printing it.")
 
-StageBuilder = Callable[[str, str, str, str], Stage]
+StageBuilder = Callable[[str, str, str, str, list[str]], Stage]
 """``build(text, name, in_node, out_node) -> Stage``; raises CardError."""
 
 
@@ -89,11 +90,13 @@ class CardImportDialog(QDialog):
     :meth:`source` says where the cards came from (for the audit trail).
     """
 
-    def __init__(self, build: StageBuilder, parent: QWidget | None = None) -> None:
+    def __init__(self, build: StageBuilder, parent: QWidget | None = None,
+                 stages: list[tuple[str, str]] | None = None) -> None:
         super().__init__(parent)
         self.setWindowTitle("Import element cards")
         self._build = build
         self.stage: Stage | None = None
+        self.notes: list[str] = []
         self._file_name = ""
         self._file_text = ""
         self._file_sha256 = ""
@@ -101,8 +104,9 @@ class CardImportDialog(QDialog):
             "One part per line. R, C, L: ref, two nodes, value. E (voltage gain) and G "
             "(transconductance): ref, out+, out−, in+, in−, value. U (op-amp): ref, in+, in−, out, "
             "model (\"ideal\" or a model already in this project). Node 0 is the common reference; "
-            "lines starting with * are comments. The stage is added at the end of the chain; Undo "
-            "removes it.")
+            "lines starting with * and text after ; are comments. Values follow the netlist "
+            "convention, case-insensitive: MEG is mega, M is milli (1M = 1 m), N nano, U micro, "
+            "P pico, F femto. Undo removes the stage.")
         intro.setWordWrap(True)
         self.text = QPlainTextEdit()
         self.text.setFont(QFontDatabase.systemFont(QFontDatabase.SystemFont.FixedFont))
@@ -122,6 +126,11 @@ class CardImportDialog(QDialog):
         form.addRow("Stage name", self.name)
         form.addRow("Input node", self.in_node)
         form.addRow("Output node", self.out_node)
+        self.place = QComboBox()
+        self.place.addItem("At the end of the chain", None)
+        for index, (stage_id, stage_name) in enumerate(stages or [], start=1):
+            self.place.addItem(f"After {stage_name} ({stage_id})", index)
+        form.addRow("Place", self.place)
         self.problem = QLabel("")
         self.problem.setWordWrap(True)
         self.problem.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
@@ -184,8 +193,9 @@ class CardImportDialog(QDialog):
 
     def accept(self) -> None:
         try:
+            notes: list[str] = []
             stage = self._build(self.text.toPlainText(), self.name.text(), self.in_node.text().strip(),
-                                self.out_node.text().strip())
+                                self.out_node.text().strip(), notes)
         except CardError as error:
             self.show_problem(f"Not imported: {str(error).rstrip('.')}.")
             if error.line is not None:
@@ -197,5 +207,6 @@ class CardImportDialog(QDialog):
             self.text.setFocus()
             return
         self.stage = stage
+        self.notes = notes
         self.problem.hide()
         super().accept()

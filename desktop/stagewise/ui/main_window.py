@@ -847,10 +847,10 @@ class MainWindow(QMainWindow):
         from stagewise.files.cards import stage_from_cards
         from stagewise.ui.exchange_dialogs import CardImportDialog
 
-        def build(text: str, name: str, in_node: str, out_node: str) -> Stage:
-            return stage_from_cards(text, name, in_node, out_node, self.document.project)
+        def build(text: str, name: str, in_node: str, out_node: str, notes: list[str]) -> Stage:
+            return stage_from_cards(text, name, in_node, out_node, self.document.project, notes=notes)
 
-        return CardImportDialog(build, self)
+        return CardImportDialog(build, self, [(stage.id, stage.name) for stage in self.document.project.stages])
 
     def add_imported_stage(self, dialog: Any) -> bool:
         """Append the stage an accepted import dialog built (undoable); its import is recorded at save."""
@@ -858,7 +858,7 @@ class MainWindow(QMainWindow):
         if stage is None:
             return False
         try:
-            self.document.add_stage(stage)
+            self.document.add_stage(stage, dialog.place.currentData())
         except EditRefused as error:
             self._refuse(error)
             return False
@@ -866,7 +866,8 @@ class MainWindow(QMainWindow):
         assert added is not None
         detail = {"stage": added.id, "name": added.name, "parts": len(added.parts), **dialog.source()}
         self._pending_imports.append(_ImportedStage(copy.deepcopy(added), detail))
-        self.show_message(f"Imported stage {added.name} ({len(added.parts)} parts); Undo removes it.")
+        notes = "".join(f" Note: {note}." for note in dialog.notes)
+        self.show_message(f"Imported stage {added.name} ({len(added.parts)} parts); Undo removes it.{notes}")
         return True
 
     def _record_imports(self, project: Project, who: str) -> Project:
