@@ -235,8 +235,13 @@ def build_parser() -> argparse.ArgumentParser:
     place.add_argument("--before", metavar="ID", help="put the new stage right before stage ID")
     cards.add_argument("--by", metavar="NAME", help="who imported it (recorded in the audit trail)")
 
-    measure = commands.add_parser("measure", help="attach a bench measurement to a stage or the chain",
-                                  description=MEASURE_HELP, formatter_class=argparse.RawDescriptionHelpFormatter)
+    measure = commands.add_parser(
+        "measure", help="attach a bench measurement to a stage or the chain", description=MEASURE_HELP,
+        epilog=_wrapped("writes: FILE, saved with the measurement and a 'measurement' event in its audit trail "
+                        "(the previous version kept as FILE.bak); one line on stdout.",
+                        "exit status: 0 attached; 2 the project or DATA cannot be read, or FILE is open for "
+                        "editing elsewhere (FILE is then left unchanged)."),
+        formatter_class=argparse.RawDescriptionHelpFormatter)
     measure.add_argument("file", metavar="FILE")
     measure.add_argument("data", metavar="DATA", help="Touchstone .s2p or CSV measurement file")
     measure.add_argument("--stage", metavar="ID", help="the stage measured (isolated unless --in-chain)")
