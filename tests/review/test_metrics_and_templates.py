@@ -60,7 +60,7 @@ def test_unknown_metric_fails_loading_with_its_path() -> None:
 
 def test_templates_load_and_use_only_known_metrics() -> None:
     templates = check_templates()
-    assert set(templates) == {"amplifier", "filter", "sensor_interface", "converter_driver"}
+    assert set(templates) == {"amplifier", "filter", "sensor_interface", "converter_driver", "bench"}
     for name, checks in templates.items():
         assert checks, name
         assert len({check.id for check in checks}) == len(checks)

@@ -1,7 +1,9 @@
 """Check templates: checklists a new stage can start from (``resources/checks/*.json``).
 
 Each file is a JSON list of checks in the project format (DESIGN section 5), named after the
-kind of stage it suits (``amplifier``, ``filter``, ``sensor_interface``, ``converter_driver``).
+kind of stage it suits (``amplifier``, ``filter``, ``sensor_interface``, ``converter_driver``), or
+``bench`` (checks of a bench measurement against the prediction: the "measured within the predicted
+spread" check).
 Numeric checks in templates carry only limits that hold for most designs (phase margin, loading
 error, headroom); limits that belong to one design (gain, corner frequency, settling time)
 appear as manual questions reminding the reviewer to add them.

@@ -434,6 +434,11 @@ def chain_noise(project: Project, context: Context) -> NoiseTrace:
     return NoiseTrace(result.f_hz, result.out_density_v_rthz, top, summary)
 
 
+def measurements(project: Project, context: Context) -> list[Any]:
+    """Every bench measurement against the prediction at its place (engine/measured.py)."""
+    return list(_project_analysis(project, context).measurements)
+
+
 CHAIN_ANALYSES: list[tuple[str, int, Any]] = [
     ("response", 1, chain_response),
     ("poles", 1, chain_roots),
@@ -441,6 +446,7 @@ CHAIN_ANALYSES: list[tuple[str, int, Any]] = [
     ("step", 2, chain_step),
     ("noise", 2, chain_noise),
     ("spread", 2, chain_spread),
+    ("measurements", 2, measurements),
 ]
 
 

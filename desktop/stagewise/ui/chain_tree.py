@@ -116,6 +116,14 @@ class ChainTree(QTreeWidget):
                 root.addChild(item)
             for index, stage in enumerate(project.stages, start=1):
                 root.addChild(self._stage_item(index, stage, stage.id in expanded or first_build and index == 1))
+            for measurement in project.measurements:
+                where = "whole chain" if measurement.stage is None else f"{measurement.stage}, {measurement.where}"
+                item = QTreeWidgetItem([f"Measured: {measurement.id} ({where.replace('_', ' ')})", "", "", ""])
+                item.setData(0, ROLE_KIND, "measurement")
+                item.setData(0, ROLE_KEY, measurement.id)
+                item.setToolTip(0, f"{measurement.file}, SHA-256 {measurement.sha256}; tick to overlay it on the "
+                                   "predicted trace of its place")
+                root.addChild(item)
             root.setExpanded(True)
             self._sync_ticks()
             self._fill_states()
@@ -231,6 +239,8 @@ class ChainTree(QTreeWidget):
                 kind = child.data(0, ROLE_KIND)
                 if kind == "baseline":
                     child.setCheckState(COLUMN_IN_CHAIN, _tick(self.overlays.baseline_shown()))
+                elif kind == "measurement":
+                    child.setCheckState(COLUMN_IN_CHAIN, _tick(self.overlays.measurement_shown(child.data(0, ROLE_KEY))))
                 elif kind == "stage":
                     stage_id = child.data(0, ROLE_STAGE)
                     child.setCheckState(COLUMN_ALONE, _tick(self.overlays.stage_shown(stage_id, ISOLATED)))
@@ -268,6 +278,8 @@ class ChainTree(QTreeWidget):
             self.overlays.set_chain(checked)
         elif kind == "baseline" and column == COLUMN_IN_CHAIN:
             self.overlays.set_baseline(checked)
+        elif kind == "measurement" and column == COLUMN_IN_CHAIN:
+            self.overlays.set_measurement(item.data(0, ROLE_KEY), checked)
         elif kind == "stage" and column in (COLUMN_ALONE, COLUMN_IN_CHAIN):
             self.overlays.set_stage(item.data(0, ROLE_STAGE), ISOLATED if column == COLUMN_ALONE else IN_CHAIN,
                                     checked)

@@ -39,6 +39,7 @@ from stagewise.model.values import Quantity, ValueSyntaxError
 from stagewise.ui.chain_tree import ChainTree
 from stagewise.ui.document import Document, EditRefused, blank_stage
 from stagewise.ui.icons import icon
+from stagewise.ui.measured_view import MeasurementView
 from stagewise.ui.overlays import IN_CHAIN, ISOLATED, OverlaySelection
 from stagewise.ui.parts_table import FormulaView, PartsTable
 from stagewise.ui.plots import NoiseView, PlotView, PoleZeroView, ResponseView, SpreadView, StepView
@@ -176,6 +177,7 @@ class MainWindow(QMainWindow):
         self.pole_zero_view = PoleZeroView(document, worker, overlays)
         self.noise_view = NoiseView(document, worker, overlays)
         self.spread_view = SpreadView(document, worker, overlays)
+        self.measurement_view = MeasurementView(document, worker, overlays)
         self.review_panel = ReviewPanel(document, worker)
         self.parts_table = PartsTable(document)
         self.formula_view = FormulaView(document, worker)
@@ -186,6 +188,7 @@ class MainWindow(QMainWindow):
             "poles": self._dock("polesDock", "Poles and zeros", self.pole_zero_view),
             "noise": self._dock("noiseDock", "Noise", self.noise_view),
             "spread": self._dock("spreadDock", "Spread over tolerances", self.spread_view),
+            "measured": self._dock("measuredDock", "Bench measurements", self.measurement_view),
             "review": self._dock("reviewDock", "Review", self.review_panel),
             "parts": self._dock("partsDock", "Parts", self.parts_table),
             "formula": self._dock("formulaDock", "Formula", self.formula_view),
@@ -196,7 +199,8 @@ class MainWindow(QMainWindow):
         self.setCentralWidget(placeholder)
 
     def plot_views(self) -> list[PlotView]:
-        return [self.response_view, self.step_view, self.pole_zero_view, self.noise_view, self.spread_view]
+        return [self.response_view, self.step_view, self.pole_zero_view, self.noise_view, self.spread_view,
+                self.measurement_view]
 
     def _action(self, name: str, text: str, slot: Any, shortcut: Any = None, icon_name: str = "",
                 tip: str = "") -> QAction:
@@ -341,6 +345,7 @@ class MainWindow(QMainWindow):
         self.splitDockWidget(d["step"], d["poles"], Qt.Orientation.Horizontal)
         self.splitDockWidget(d["poles"], d["noise"], Qt.Orientation.Horizontal)
         self.tabifyDockWidget(d["noise"], d["spread"])
+        self.tabifyDockWidget(d["spread"], d["measured"])
         d["noise"].raise_()
         self.splitDockWidget(d["review"], d["formula"], Qt.Orientation.Vertical)
         self._default_sizes()

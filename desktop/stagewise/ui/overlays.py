@@ -45,12 +45,25 @@ class OverlaySelection(QObject):
         self._baseline = True
         self._stages: set[tuple[str, str]] = set()
         self._follow_selection = True
+        self._hidden_measurements: set[str] = set()  # measurements are shown unless unticked
 
     def chain_shown(self) -> bool:
         return self._chain
 
     def baseline_shown(self) -> bool:
         return self._baseline
+
+    def measurement_shown(self, measurement_id: str) -> bool:
+        """Whether a bench measurement is drawn (beside the predicted trace of its place, when shown)."""
+        return measurement_id not in self._hidden_measurements
+
+    def set_measurement(self, measurement_id: str, shown: bool) -> None:
+        if shown != self.measurement_shown(measurement_id):
+            if shown:
+                self._hidden_measurements.discard(measurement_id)
+            else:
+                self._hidden_measurements.add(measurement_id)
+            self.changed.emit()
 
     def stage_shown(self, stage_id: str, view: str) -> bool:
         return (stage_id, view) in self._stages

@@ -16,7 +16,16 @@ from dataclasses import dataclass
 from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
 
-__all__ = ["LINE_STYLES", "OKABE_ITO", "TraceStyle", "limit_brush_colour", "trace_style"]
+__all__ = [
+    "LINE_STYLES",
+    "MEASUREMENT_MARKERS",
+    "OKABE_ITO",
+    "MarkerStyle",
+    "TraceStyle",
+    "limit_brush_colour",
+    "measurement_style",
+    "trace_style",
+]
 
 # Okabe & Ito (2008), in their order, black first; yellow is left to the end because it is
 # faint on white.
@@ -69,3 +78,36 @@ def limit_brush_colour(alpha: int = 50) -> QColor:
     colour = QColor(OKABE_ITO[6][1])
     colour.setAlpha(alpha)
     return colour
+
+
+# Bench measurements are drawn as markers without a line (they are sampled data, not a model),
+# with their own colour order (vermillion first, which no predicted trace takes before the third)
+# and a marker shape per measurement, so they stay distinguishable without colour.
+MEASUREMENT_MARKERS: tuple[tuple[str, str], ...] = (
+    ("circle", "o"),
+    ("square", "s"),
+    ("triangle", "t"),
+    ("diamond", "d"),
+)
+_MEASUREMENT_COLOURS = (2, 5, 3, 4, 6, 1)  # indices into OKABE_ITO
+
+
+@dataclass(frozen=True, slots=True)
+class MarkerStyle:
+    """Colour and marker shape of one measured trace, with their names for the legend and tests."""
+
+    colour: str
+    colour_name: str
+    symbol: str
+    symbol_name: str
+    size: float
+
+    def qcolor(self) -> QColor:
+        return QColor(self.colour)
+
+
+def measurement_style(index: int, size: float = 6.0) -> MarkerStyle:
+    """The style of the ``index``-th measured trace: colour and marker both change with the index."""
+    colour_name, colour = OKABE_ITO[_MEASUREMENT_COLOURS[index % len(_MEASUREMENT_COLOURS)]]
+    symbol_name, symbol = MEASUREMENT_MARKERS[index % len(MEASUREMENT_MARKERS)]
+    return MarkerStyle(colour, colour_name, symbol, symbol_name, size)

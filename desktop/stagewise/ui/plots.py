@@ -22,6 +22,7 @@ from stagewise.model.project import Check, Project
 from stagewise.model.values import format_value
 from stagewise.ui.analyses import ResponseTrace, finite
 from stagewise.ui.document import Document
+from stagewise.ui.measured_plots import MeasuredOverlay
 from stagewise.ui.overlays import BASELINE, CHAIN, IN_CHAIN, ISOLATED, OverlaySelection, TraceSpec
 from stagewise.ui.palette import OKABE_ITO, limit_brush_colour
 from stagewise.ui.subscriptions import Subscriptions
@@ -287,6 +288,7 @@ class ResponseView(PlotView):
         self.phase_traces = _TraceItems(self.phase, None)
         self.magnitude_limits = _LimitLayer(self.magnitude, log_x=True)
         self.phase_limits = _LimitLayer(self.phase, log_x=True)
+        self.measured = MeasuredOverlay(self.magnitude, self.phase, self.legend)
         self.cursor_lines = [pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen("#808080", width=1))
                              for _ in (self.magnitude, self.phase)]
         for plot, line in zip((self.magnitude, self.phase), self.cursor_lines, strict=True):
@@ -318,6 +320,8 @@ class ResponseView(PlotView):
         self.phase_traces.show((spec, trace.f_hz, finite(trace.phase_deg)) for spec, trace in shown)
         units = {trace.unit for _, trace in shown}
         self.magnitude.setLabel("left", "Magnitude", units="dB Ω" if units == {"V/A"} else "dB")
+        measured = self.outcome.of_chain("measurements") if self.outcome is not None else None
+        self.measured.draw(measured.value if measured is not None and measured.ok else [], shown, self.overlays)
         self._draw_limits()
 
     def _draw_limits(self) -> None:

@@ -1,0 +1,63 @@
+"""Bench measurements in the GUI: markers over the prediction, toggled in the tree, the deviation view."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from PySide6.QtCore import Qt
+
+from conftest import make_window
+from stagewise.cli import main
+from stagewise.engine.analysis import response_points
+from stagewise.files.project_file import load_project
+
+F_HZ = np.logspace(1, 5, 41)
+
+
+def _attach(sample_path: Path, tmp_path: Path) -> np.ndarray:
+    project = load_project(sample_path)
+    _, chain, _ = response_points(project, list(F_HZ))
+    assert chain is not None
+    board = chain * 1.05 * np.exp(1j * np.radians(2.0))  # a board 0.42 dB high with 2° of extra lead
+    rows = [f"{float(f)!r},{float(v.real)!r},{float(v.imag)!r}" for f, v in zip(F_HZ, board, strict=True)]
+    data = tmp_path / "board.csv"
+    data.write_text("f_hz,re,im\n" + "\n".join(rows) + "\n", encoding="utf-8")
+    assert main(["measure", str(sample_path), str(data), "--chain", "--by", "GUI test"]) == 0
+    return board
+
+
+def test_measured_markers_follow_the_tree_tick_and_the_deviation_view(qtbot, sample_path: Path,  # type: ignore[no-untyped-def]
+                                                                     tmp_path: Path) -> None:
+    board = _attach(sample_path, tmp_path)
+    window = make_window(qtbot, sample_path)
+    try:
+        view = window.response_view
+        drawn = view.measured.data("board")
+        assert drawn is not None
+        f_hz, mag_db, phase_deg = drawn
+        # Reference library: numpy, 20·log10|H| of the measured points as written in the file.
+        np.testing.assert_allclose(f_hz, F_HZ)
+        np.testing.assert_allclose(mag_db, 20 * np.log10(np.abs(board)), atol=1e-9)
+        # The phase is drawn beside the predicted chain trace: 2° above it at each frequency
+        # (Common practice, no source: a phase is known modulo 360°).
+        chain = view.trace_data("chain")
+        assert chain is not None
+        predicted = np.interp(np.log(F_HZ), np.log(chain[0]), chain[2])
+        np.testing.assert_allclose(phase_deg - predicted, 2.0, atol=0.05)
+        # The tree row toggles it like the other traces.
+        tree = window.tree
+        root = tree.topLevelItem(0)
+        row = next(root.child(i) for i in range(root.childCount()) if root.child(i).text(0).startswith("Measured: board"))
+        row.setCheckState(2, Qt.CheckState.Unchecked)
+        assert view.measured.data("board") is None
+        row.setCheckState(2, Qt.CheckState.Checked)
+        assert view.measured.data("board") is not None
+        # The deviation view: 20·log10(1.05) ≈ 0.424 dB and 2° at every point (Source: definition of the decibel).
+        deviation = window.measurement_view
+        text = deviation.summary.text()
+        assert "board (whole chain, 41 points)" in text and "0.42 dB and 2.0°" in text
+        (shown,) = deviation.shown
+        np.testing.assert_allclose(shown.dev_db, 20 * np.log10(1.05), atol=1e-9)
+    finally:
+        window.shutdown()
