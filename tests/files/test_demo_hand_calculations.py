@@ -11,6 +11,7 @@ import math
 from pathlib import Path
 
 import numpy as np
+import pytest
 from numpy.typing import NDArray
 
 from stagewise.files.project_file import load_project
@@ -105,3 +106,27 @@ def test_greenhouse_tia_phase_margin_is_met_alone_and_not_in_chain() -> None:
     # The figures written in the stage's notes: about 79 deg alone, about 20 deg in chain.
     assert abs(margin_alone - 79) < 2 and abs(margin_chain - 20) < 2
     assert "about 20 deg" in tia.notes and "79 deg" in tia.notes
+
+
+def test_greenhouse_gain_stage_offset_is_dominated_by_the_bias_current() -> None:
+    project = load_project(PROJECTS / "greenhouse.stagewise.json")
+    stage = _stage(project, "gain")
+    model = project.opamp_models["general-5M"]
+    assert model.vos_v is not None and model.ib_a is not None and model.ios_a is not None
+    r1, r2 = _value(stage, "R1"), _value(stage, "R2")
+    # Source: S. Franco, Design with Operational Amplifiers and Analog Integrated Circuits, 3rd ed.,
+    # sec. 5.1-5.2 (value from memory): Vout = Vos·(1 + R2/R1) + Ib−·R2 − Ib+·Rp·(1 + R2/R1), Rp = 0 here;
+    # with Ib± = Ib ± Ios/2 the offset current's share is Ios/2·R2.
+    ib_term = model.ib_a.si * r2
+    hand = model.vos_v.si * (1 + r2 / r1) + ib_term + model.ios_a.si / 2 * r2
+    assert ib_term > 0.5 * hand  # the story: the bias current dominates
+    lsb = project.converter.full_scale_vpp.si / 2**project.converter.bits  # IEEE Std 1241: Q = FSR / 2^N
+    assert "14.9 LSB" in stage.notes and round(ib_term / lsb, 1) == 14.9
+    assert "15.0 mV" in stage.notes and round(hand * 1e3, 1) == 15.0
+    from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
+
+    value, why = ProjectAnalysis(project, spread=False).metric_value("offset_out_v", "in_chain", "gain", None)
+    supply = project.settings.supply_variation_v.si / 10 ** (model.psrr_db.si / 20) * (1 + r2 / r1)
+    assert why is None and value == pytest.approx(hand + supply, rel=1e-3)
+    check = _check(stage, "dc_offset")
+    assert check.max is not None and value > check.max.si  # not met: the review asks for the cancelling resistor
