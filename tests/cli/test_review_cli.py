@@ -77,9 +77,10 @@ def _run(capsys: pytest.CaptureFixture[str], *argv: str) -> tuple[int, str, str]
 
 def test_check_exit_0_when_met_or_answered(tmp_path: Path, capsys: pytest.CaptureFixture[str], closed_form: None) -> None:
     document = copy.deepcopy(DOCUMENT)
-    document["stages"][0]["checks"][1]["answer"] = {"answer": "yes", "by": "Ana", "time": T}
+    path = _write(tmp_path, document)
+    _record(path, lambda project: actions.answer(project, "rc", "fit", "yes", "Ana", time=T))
     # 2k2 and 10n: f_c = 1/(2π·2200·1e-8) ≈ 7.23 kHz, inside 6…8 kHz.
-    status, out, err = _run(capsys, "check", str(_write(tmp_path, document)))
+    status, out, err = _run(capsys, "check", str(path))
     assert status == 0, out + err
     assert "met" in out and "7.234 kHz" in out
     assert "2 checks: 2 met, 0 not met" in out
@@ -93,16 +94,17 @@ def test_check_exit_1_when_not_met_open_or_answered_no(tmp_path: Path, capsys: p
     # Corner not met: 10n -> 22n gives f_c ≈ 3.29 kHz.
     document = copy.deepcopy(DOCUMENT)
     document["stages"][0]["parts"][1]["value"] = "22n"
-    document["stages"][0]["checks"][1]["answer"] = {"answer": "yes", "by": "Ana", "time": T}
-    status, out, _ = _run(capsys, "check", str(_write(tmp_path, document)))
+    path = _write(tmp_path, document)
+    _record(path, lambda project: actions.answer(project, "rc", "fit", "yes", "Ana", time=T))
+    status, out, _ = _run(capsys, "check", str(path))
     assert status == 1 and "not met" in out and "below the minimum" in out
     # The same not-met check waived passes.
-    document["stages"][0]["checks"][0]["waiver"] = {"by": "Ben", "time": T, "justification": "accepted lower band"}
-    status, out, _ = _run(capsys, "check", str(_write(tmp_path, document)))
+    _record(path, lambda project: actions.waive(project, "rc", "corner", "Ben", "", "accepted lower band", time=T))
+    status, out, _ = _run(capsys, "check", str(path))
     assert status == 0 and "waived" in out
     # A manual check answered no fails.
-    document["stages"][0]["checks"][1]["answer"]["answer"] = "no"
-    status, _, _ = _run(capsys, "check", str(_write(tmp_path, document)))
+    _record(path, lambda project: actions.answer(project, "rc", "fit", "no", "Ana", time=T))
+    status, _, _ = _run(capsys, "check", str(path))
     assert status == 1
 
 
@@ -138,6 +140,12 @@ def test_check_verify_exit_2_when_the_file_cannot_be_read(tmp_path: Path, capsys
         assert err.startswith("stagewise: ") and len(err.strip().splitlines()) == 1
     status, _, err = _run(capsys, "check", str(tmp_path / "missing.stagewise.json"))
     assert status == 2 and "no such file" in err
+
+
+def _record(path: Path, action: Any) -> None:
+    project = load_project(path)
+    action(project)
+    save_project(path, project)
 
 
 def _reviewed(tmp_path: Path) -> Path:

@@ -9,6 +9,8 @@ from review_helpers import base_document, base_project, project_from
 
 from stagewise.model.project import Project
 from stagewise.model.values import Quantity
+from stagewise.review.actions import answer as record_answer
+from stagewise.review.actions import waive
 from stagewise.review.checks import CheckResult, UnavailableProvider, evaluate_check, evaluate_project, totals
 from stagewise.review.words import CheckState
 
@@ -97,9 +99,10 @@ def test_no_value_carries_the_providers_reason() -> None:
 def test_waived_counts_as_waived_even_when_not_met() -> None:
     document = base_document()
     document["stages"][0]["parts"][1]["value"] = "6n8"
-    document["stages"][0]["checks"][0]["waiver"] = {"by": "Ana Ruiz", "role": "quality", "time": "2026-11-02T08:00:00Z",
-                                                    "justification": "the next stage limits the band anyway"}
-    result = _result(project_from(document), "rc", "corner")
+    project = project_from(document)
+    waive(project, "rc", "corner", "Ana Ruiz", "quality", "the next stage limits the band anyway",
+          time="2026-11-02T08:00:00Z")
+    result = _result(project, "rc", "corner")
     assert result.state is CheckState.WAIVED
     assert result.value is not None  # the value is still shown
     assert "the next stage limits the band anyway" in (result.why or "")
@@ -110,10 +113,10 @@ def test_waived_counts_as_waived_even_when_not_met() -> None:
 @pytest.mark.parametrize(("answer", "state"), [(None, CheckState.OPEN), ("yes", CheckState.MET),
                                                ("no", CheckState.NOT_MET), ("n/a", CheckState.NOT_APPLICABLE)])
 def test_manual_checks(answer: str | None, state: CheckState) -> None:
-    document = base_document()
+    project = base_project()
     if answer is not None:
-        document["stages"][0]["checks"][2]["answer"] = {"answer": answer, "by": "Ana", "time": "2026-11-02T08:00:00Z"}
-    result = _result(project_from(document), "rc", "layout")
+        record_answer(project, "rc", "layout", answer, "Ana", time="2026-11-02T08:00:00Z")
+    result = _result(project, "rc", "layout")
     assert result.state is state
     assert result.value is None and result.metric is None
 
@@ -181,3 +184,19 @@ def test_totals_for_the_cover() -> None:
     assert (counted.met, counted.not_met, counted.open, counted.no_value, counted.waived) == (1, 1, 1, 1, 0)
     assert counted.total == 4 and not counted.all_passing
     assert counted.sentence().startswith("4 checks: 1 met, 1 not met, 0 waived, 1 open, 1 no value")
+
+
+def test_a_waiver_or_answer_written_outside_the_program_never_makes_a_check_pass() -> None:
+    # Common practice, no source: a record no audit event holds is not a decision.
+    document = base_document()
+    document["stages"][0]["parts"][1]["value"] = "6n8"
+    document["stages"][0]["checks"][0]["waiver"] = {"by": "Ana Ruiz", "role": "quality", "time": "2026-11-02T08:00:00Z",
+                                                    "justification": "pasted by hand"}
+    document["stages"][0]["checks"][2]["answer"] = {"answer": "yes", "by": "Ana", "time": "2026-11-02T08:00:00Z"}
+    project = project_from(document)
+    corner = _result(project, "rc", "corner")
+    assert corner.state is CheckState.NOT_MET
+    assert "waiver in the file is unrecorded" in (corner.why or "")
+    layout = _result(project, "rc", "layout")
+    assert layout.state is CheckState.OPEN
+    assert "answer in the file is unrecorded" in (layout.why or "")

@@ -11,11 +11,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Protocol
 
 from stagewise.model.project import Check, Project, Stage
 from stagewise.model.values import format_value
+from stagewise.review.audit import RecordsCheck, check_records, trusted_check
 from stagewise.review.metrics import METRICS, metric_unit
 from stagewise.review.words import ANSWER_WORDS, PASSING_STATES, WHERE_WORDS, CheckState
 
@@ -180,14 +181,25 @@ def _evaluate_manual(check: Check, stage: Stage) -> CheckResult:
     return CheckResult(stage.id, check.id, check.text, None, None, None, None, "", "", state, why)
 
 
-def evaluate_stage(stage: Stage, project: Project, provider: MetricProvider) -> list[CheckResult]:
-    """Every check of ``stage``, in order."""
-    return [evaluate_check(check, stage, project, provider) for check in stage.checks]
+def evaluate_stage(stage: Stage, project: Project, provider: MetricProvider,
+                   records: RecordsCheck | None = None) -> list[CheckResult]:
+    """Every check of ``stage``, in order. A waiver or answer no audit event accounts for
+    (``records``, computed when not given) is ignored, with a sentence saying so."""
+    records = check_records(project) if records is None else records
+    results = []
+    for check in stage.checks:
+        trusted, ignored = trusted_check(check, stage.id, records)
+        result = evaluate_check(trusted, stage, project, provider)
+        if ignored is not None:
+            result = replace(result, why=f"{result.why}; {ignored}" if result.why else ignored)
+        results.append(result)
+    return results
 
 
 def evaluate_project(project: Project, provider: MetricProvider) -> list[CheckResult]:
     """Every check of every stage (bypassed stages included: their checks still stand), in order."""
-    return [result for stage in project.stages for result in evaluate_stage(stage, project, provider)]
+    records = check_records(project)
+    return [result for stage in project.stages for result in evaluate_stage(stage, project, provider, records)]
 
 
 @dataclass(frozen=True, slots=True)

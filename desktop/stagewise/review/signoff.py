@@ -5,8 +5,10 @@ it is **out of date** as soon as the stage's current fingerprint differs. A sign
 later one of the same reviewer on the same stage is **replaced**. A stage's state looks at each
 reviewer's latest sign-off that is still current: any returning it for rework makes the stage
 ``returned for rework``; otherwise any acceptance makes it ``accepted``; sign-offs that are all out
-of date make it ``out of date``; none at all is ``not signed``. The words come from
-:mod:`stagewise.review.words`.
+of date make it ``out of date``; none at all is ``not signed``. A sign-off that no audit event
+accounts for (written or edited outside the program, :func:`stagewise.review.audit.check_records`)
+is **unrecorded**: it never counts as a verdict, and a stage holding one is ``unrecorded`` until
+it is signed again or the record is removed. The words come from :mod:`stagewise.review.words`.
 """
 
 from __future__ import annotations
@@ -15,6 +17,7 @@ from dataclasses import dataclass
 
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Signoff, Stage
+from stagewise.review.audit import RecordsCheck, check_records
 from stagewise.review.words import SignoffState, current_verdict
 
 __all__ = ["SignoffView", "StageSignoffs", "is_out_of_date", "signoff_state", "signoff_states"]
@@ -30,6 +33,7 @@ class SignoffView:
     signoff: Signoff
     out_of_date: bool
     replaced: bool
+    unrecorded: bool = False
 
     @property
     def verdict_word(self) -> str:
@@ -38,7 +42,10 @@ class SignoffView:
 
     @property
     def word(self) -> str:
-        """``accepted``, ``returned for rework``, or ``out of date`` when the stage changed since."""
+        """``accepted``, ``returned for rework``, ``out of date`` when the stage changed since, or
+        ``unrecorded`` when no audit event accounts for it."""
+        if self.unrecorded:
+            return str(SignoffState.UNRECORDED)
         if self.out_of_date:
             return str(SignoffState.OUT_OF_DATE)
         return self.verdict_word
@@ -68,18 +75,23 @@ def is_out_of_date(signoff: Signoff, stage: Stage, project: Project) -> bool:
     return signoff.fingerprint != stage_fingerprint(stage, project)
 
 
-def _state_of(stage: Stage, project: Project) -> StageSignoffs:
+def _state_of(stage: Stage, project: Project, records: RecordsCheck) -> StageSignoffs:
     current = stage_fingerprint(stage, project)
+    unrecorded = {index for index in range(len(stage.signoffs)) if records.is_unrecorded("signoff", stage.id, index)}
     latest_by_reviewer: dict[str, int] = {}
     for index, signoff in enumerate(stage.signoffs):
-        latest_by_reviewer[signoff.name.strip().casefold()] = index
+        if index not in unrecorded:  # a record written outside the program replaces nothing
+            latest_by_reviewer[signoff.name.strip().casefold()] = index
     latest = set(latest_by_reviewer.values())
     views = tuple(
-        SignoffView(index, signoff, signoff.fingerprint != current, index not in latest)
+        SignoffView(index, signoff, signoff.fingerprint != current, index not in latest and index not in unrecorded,
+                    index in unrecorded)
         for index, signoff in enumerate(stage.signoffs)
     )
-    live = [view for view in views if not view.replaced and not view.out_of_date]
-    if any(current_verdict(view.signoff.verdict) == "rework" for view in live):
+    live = [view for view in views if not view.replaced and not view.out_of_date and not view.unrecorded]
+    if unrecorded:
+        state = SignoffState.UNRECORDED
+    elif any(current_verdict(view.signoff.verdict) == "rework" for view in live):
         state = SignoffState.REWORK
     elif live:
         state = SignoffState.ACCEPTED
@@ -101,9 +113,10 @@ def signoff_state(project: Project, stage_id: str) -> StageSignoffs:
     stage = project.stage(stage_id)
     if stage is None:
         raise KeyError(f'the project has no stage "{stage_id}"')
-    return _state_of(stage, project)
+    return _state_of(stage, project, check_records(project))
 
 
 def signoff_states(project: Project) -> dict[str, StageSignoffs]:
     """Every stage's sign-off state, in chain order, keyed by stage id."""
-    return {stage.id: _state_of(stage, project) for stage in project.stages}
+    records = check_records(project)
+    return {stage.id: _state_of(stage, project, records) for stage in project.stages}

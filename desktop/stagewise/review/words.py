@@ -62,6 +62,7 @@ class SignoffState(StrEnum):
     ACCEPTED = "accepted"
     REWORK = "returned for rework"
     OUT_OF_DATE = "out of date"
+    UNRECORDED = "unrecorded"
     NONE = "not signed"
 
 
@@ -69,6 +70,8 @@ SIGNOFF_STATE_MEANINGS: Final[dict[SignoffState, str]] = {
     SignoffState.ACCEPTED: "a reviewer accepted the stage as it is now",
     SignoffState.REWORK: "a reviewer returned the stage as it is now for rework",
     SignoffState.OUT_OF_DATE: "every sign-off was given to an earlier design of the stage; sign again",
+    SignoffState.UNRECORDED: ("a sign-off on this stage has no audit event that holds it: it was written or "
+                              "edited outside the program and counts as no verdict; sign again"),
     SignoffState.NONE: "nobody has signed this stage",
 }
 

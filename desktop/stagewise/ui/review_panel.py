@@ -26,6 +26,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
+from stagewise.review.audit import check_records, trusted_check
 from stagewise.review.words import (
     ANSWER_WORDS,
     REPLACED_WORD,
@@ -53,6 +54,7 @@ SIGNOFF_COLOURS = {
     SignoffState.ACCEPTED: "#00704f",
     SignoffState.REWORK: "#b54a00",
     SignoffState.OUT_OF_DATE: "#8a4b00",
+    SignoffState.UNRECORDED: "#b00020",
     SignoffState.NONE: "#505050",
 }
 CHECK_COLUMNS = ("Check", "State", "Value", "Limits", "What and why")
@@ -192,7 +194,10 @@ class ReviewPanel(QWidget):
             if signoff.note:
                 text += f"\n{signoff.note}"
             item = QListWidgetItem(text)
-            item.setForeground(QBrush(QColor("#8a4b00" if view.out_of_date else "#202020")))
+            if view.unrecorded:
+                text += " (no audit event holds this record: written or edited outside the program)"
+            item.setForeground(QBrush(QColor(SIGNOFF_COLOURS[SignoffState.UNRECORDED] if view.unrecorded
+                                             else "#8a4b00" if view.out_of_date else "#202020")))
             item.setData(Qt.ItemDataRole.UserRole, "out of date" if view.out_of_date else "current")
             self.signoffs.addItem(item)
         if not state.signoffs:
@@ -220,12 +225,16 @@ class ReviewPanel(QWidget):
             self.totals.setText("Evaluating the checks…" if review is None or self.worker.is_busy
                                 else f"Checks not evaluated: {review.why}")
         self.checks.setRowCount(len(stage.checks))
+        records = check_records(self.document.project)
         for row, check in enumerate(stage.checks):
             result = results.get(check.id)
             where = "manual" if check.is_manual else WHERE_WORDS.get(check.where, check.where)
             state = str(result.state) if result is not None else "…"
             record = ""
-            if check.waiver is not None:
+            _trusted, ignored = trusted_check(check, stage.id, records)
+            if ignored is not None:
+                record = result.why if result is not None and result.why else ignored
+            elif check.waiver is not None:
                 record = f"waived by {check.waiver.by}: {check.waiver.justification}"
             elif check.answer is not None:
                 record = (f"{ANSWER_WORDS.get(check.answer.answer, check.answer.answer)} by {check.answer.by}"
