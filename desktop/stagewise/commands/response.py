@@ -23,6 +23,7 @@ from stagewise.model.values import format_value
 
 def run(args: argparse.Namespace) -> int:
     from stagewise.engine.analysis import response_points  # noqa: PLC0415
+    from stagewise.engine.mna import CircuitError  # noqa: PLC0415
 
     frequencies = parse_frequencies(args.freqs)
     if args.in_chain and args.stage is None:
@@ -30,7 +31,10 @@ def run(args: argparse.Namespace) -> int:
     project = load(args.file)
     if args.stage is not None:
         stage_by_id(project, args.stage, args.file)
-    unit, values, why = response_points(project, frequencies, args.stage, args.in_chain)
+    try:
+        unit, values, why = response_points(project, frequencies, args.stage, args.in_chain)
+    except CircuitError as error:  # a circuit without a response: documented as null with why, exit 1
+        unit, values, why = None, None, f"{args.file}: {error}"
     if args.stage is None:
         what = "chain"
     else:

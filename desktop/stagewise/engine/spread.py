@@ -573,7 +573,8 @@ class SpreadSamples:
             return values
         if key == "phase_margin_deg":
             if opamp is not None:
-                return self.phase_margin_deg[opamp]
+                # An op-amp whose loop has no margin (no crossover, no loop) has no value in any sample.
+                return self.phase_margin_deg.get(opamp, np.full(self.gain_db.shape, np.nan))
             if not self.phase_margin_deg:
                 return np.full(self.gain_db.shape, np.nan)
             return np.asarray(np.min(np.vstack(list(self.phase_margin_deg.values())), axis=0), dtype=float)

@@ -71,6 +71,8 @@ POINTS_PER_DECADE = 60
 # A pole counts as being on the jω axis (or in the right half-plane) beyond this fraction of its
 # magnitude: rounding of the pencil leaves ~1e-12 relative.
 STABILITY_RTOL = 1e-9
+# An unstable response is shown until its fastest growing mode reaches e^GROWTH_LIMIT.
+GROWTH_LIMIT = 20.0
 
 Matrix = NDArray[np.float64]
 
@@ -244,18 +246,25 @@ def time_span_s(model: PoleZeroModel) -> float:
     edge by the sum of their time constants, beyond any single one).
 
     For poles on the jω axis or in the right half-plane (no decay), ten times the slowest
-    period or time constant instead.
+    period or time constant instead. With a pole in the right half-plane the span ends where its
+    growth reaches e^GROWTH_LIMIT (about 5e8): enough to show the response running away, and
+    short of the overflow of e^709 that a longer span would reach.
     """
     poles = model.poles_rad_s
     decays = -poles.real
     stable = decays > STABILITY_RTOL * np.abs(poles)
+    magnitudes = np.abs(poles[poles != 0])
     if np.any(stable):
         delay = float(np.sum(decays[stable] / np.abs(poles[stable]) ** 2))
-        return SPAN_TIME_CONSTANTS / float(np.min(decays[stable])) + 2.0 * delay
-    magnitudes = np.abs(poles[poles != 0])
-    if len(magnitudes):
-        return SPAN_TIME_CONSTANTS / float(np.min(magnitudes))
-    return SPAN_TIME_CONSTANTS / model.scale_rad_s
+        span = SPAN_TIME_CONSTANTS / float(np.min(decays[stable])) + 2.0 * delay
+    elif len(magnitudes):
+        span = SPAN_TIME_CONSTANTS / float(np.min(magnitudes))
+    else:
+        span = SPAN_TIME_CONSTANTS / model.scale_rad_s
+    growth = poles.real[poles.real > STABILITY_RTOL * np.abs(poles)]
+    if len(growth):
+        span = min(span, GROWTH_LIMIT / float(np.max(growth)))
+    return span
 
 
 def _time_grid(model: PoleZeroModel, span_s: float) -> NDArray[np.float64]:

@@ -194,6 +194,19 @@ def _optional_positive(value: object) -> Quantity | None:
     return None if value is None else _positive(value)
 
 
+# No amplifier's gain-bandwidth or pole comes near 1 THz; past it the model's time constants
+# fall below what a double resolves beside the other parts' (1e300 Hz gave NaN everywhere).
+MAX_AMPLIFIER_HZ = 1e12
+
+
+def _amplifier_frequency(value: object) -> Quantity:
+    quantity = _positive(value)
+    if quantity.si > MAX_AMPLIFIER_HZ:
+        raise ValueError(f"{_describe(value)} Hz is beyond any amplifier (at most 1 THz); use the model "
+                         '"ideal" for an amplifier much faster than the circuit')
+    return quantity
+
+
 def _nonnegative(value: object) -> Quantity:
     quantity = _quantity(value)
     if quantity.si < 0:
@@ -366,9 +379,56 @@ def decode(document: object, source: str = "") -> Project:
         event = _decode_event(reader, event_data)
         if event is not None:
             project.audit.append(event)
+    if not reader.problems:
+        reader.problems.extend(_range_problems(project))
     if reader.problems:
         raise ProjectFileError(reader.problems, source)
     return project
+
+
+# Every value the engine computes with lies within these magnitudes (0 where a field allows it).
+# No part, amplifier, frequency or signal of a front-end comes near them (the value parser's
+# prefixes span f … G), and within them no product or square of the engine overflows or
+# underflows a double; past them (1e300 Ω, 1e-300 F) results turned to NaN and infinity.
+MIN_MAGNITUDE = 1e-24
+MAX_MAGNITUDE = 1e24
+
+
+def _quantities(item: object, path: str) -> Iterator[tuple[str, Quantity]]:
+    """(path, quantity) for every Quantity field of a model dataclass (pairs as path[0], path[1])."""
+    for name in getattr(item, "__slots__", ()):
+        value = getattr(item, name, None)
+        if isinstance(value, Quantity):
+            yield f"{path}.{name}" if path else name, value
+        elif isinstance(value, tuple | list):
+            for index, element in enumerate(value):
+                if isinstance(element, Quantity):
+                    yield f"{path}.{name}[{index}]" if path else f"{name}[{index}]", element
+                elif isinstance(element, tuple):  # a complex root [f0_hz, Q]
+                    for inner, quantity in enumerate(element):
+                        if isinstance(quantity, Quantity):
+                            yield f"{path}.{name}[{index}][{inner}]", quantity
+
+
+def _range_problems(project: Project) -> list[str]:
+    """A problem for every computed-with value outside MIN_MAGNITUDE … MAX_MAGNITUDE."""
+    found: list[tuple[str, Quantity]] = []
+    for path, section in (("settings", project.settings), ("input", project.input),
+                          ("converter", project.converter), ("load", project.load)):
+        found.extend(_quantities(section, path))
+    for name, model in project.opamp_models.items():
+        found.extend(_quantities(model, f"opamp_models.{name}"))
+    for index, stage in enumerate(project.stages):
+        found.extend(_quantities(stage, f"stages[{index}]"))  # gain, roots, zin, zout (checks are not computed with)
+        for number, part in enumerate(stage.parts):
+            found.extend(_quantities(part, f"stages[{index}].parts[{number}]"))
+    problems = []
+    for path, quantity in found:
+        magnitude = abs(quantity.si)
+        if magnitude != 0 and not MIN_MAGNITUDE <= magnitude <= MAX_MAGNITUDE:
+            problems.append(f"{path}: {_describe(quantity.raw)} is beyond any real part or signal; Stagewise "
+                            f"computes with magnitudes from {MIN_MAGNITUDE:g} to {MAX_MAGNITUDE:g}")
+    return problems
 
 
 def _decode_settings(reader: _Reader, data: object) -> Settings:
@@ -430,10 +490,11 @@ def _decode_opamp(reader: _Reader, data: object) -> OpampModel | None:
         return None
     model = OpampModel(
         a0_db=reader.field(fields, "a0_db", _positive, Quantity(100, 100.0)),
-        gbw_hz=reader.field(fields, "gbw_hz", _positive, Quantity(1, 1.0)),
+        gbw_hz=reader.field(fields, "gbw_hz", _amplifier_frequency, Quantity(1, 1.0)),
     )
     model.description = reader.field(fields, "description", _text, "")
-    for key in ("p2_hz", "rin_ohm", "en_corner_hz", "in_corner_hz", "slew_v_per_s"):
+    model.p2_hz = reader.field(fields, "p2_hz", lambda v: None if v is None else _amplifier_frequency(v), None)
+    for key in ("rin_ohm", "en_corner_hz", "in_corner_hz", "slew_v_per_s"):
         setattr(model, key, reader.field(fields, key, _optional_positive, None))
     for key in ("rout_ohm", "cin_diff_f", "cin_cm_f", "en_v_rthz", "in_a_rthz"):
         setattr(model, key, reader.field(fields, key, _optional_nonnegative, None))
