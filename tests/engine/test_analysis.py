@@ -99,10 +99,9 @@ def test_check_values_follow_the_metric_table() -> None:
     analysis = ProjectAnalysis(project, spread=False)
     value, why = analysis.metric_value("f_high_3db_hz", "isolated", "first", None)
     assert why is None
-    # The corner is where |H|² falls to half its value at the reference (10 Hz):
-    # 1 + (f/fc)² = 2·(1 + (f_ref/fc)²)  =>  f = fc·√(1 + 2·(f_ref/fc)²).
+    # A low-pass corner is where |H|² falls to half its DC value, whatever ref_hz (10 Hz) says.
     f_c = 1 / (2 * math.pi * R1 * C1)
-    assert value == pytest.approx(f_c * math.sqrt(1 + 2 * (10 / f_c) ** 2), rel=1e-6)
+    assert value == pytest.approx(f_c, rel=1e-9)
     value, why = analysis.metric_value("gain_db", "in_chain", "first", 1000.0)
     _, first = _closed_forms(np.array([1000.0]))
     assert value == pytest.approx(20 * math.log10(abs(first[0])), abs=1e-9)
@@ -200,6 +199,23 @@ def test_greenhouse_transimpedance_margin_fails_only_in_chain() -> None:
     in_chain, _ = analysis.metric_value("phase_margin_deg", "in_chain", "tia", None)
     assert isolated is not None and in_chain is not None
     assert isolated > 45.0 > in_chain
+
+
+def test_greenhouse_photodiode_corner_is_referred_to_its_dc_transimpedance() -> None:
+    # Source: first-order corner 1/(2πRC), any circuits text: the diode model (200 MΩ ∥ 470 pF, read from
+    # the demo file) is a 1.69 Hz low-pass; its corner is 3 dB below its DC transimpedance of 200 MΩ
+    # (166 dBΩ), not 3 dB below its gain at ref_hz = 1 kHz (which put it at 1.41 kHz with 54 dB of peaking).
+    project = load_project(DEMOS[1])
+    stage = project.stage("diode")
+    assert stage is not None
+    values = {part.ref: part.value.si for part in stage.parts if part.value is not None}
+    corner = 1 / (2 * math.pi * values["R1"] * values["C1"])
+    analysis = ProjectAnalysis(project, spread=False)
+    document = analysis.stage_document(stage)["isolated"]
+    assert document["f_high_3db_hz"] == pytest.approx(corner, rel=1e-9)
+    assert document["peaking_db"] == pytest.approx(0.0, abs=1e-9)
+    assert document["ref"]["kind"] == "dc"
+    assert document["ref"]["gain_db"] == pytest.approx(20 * math.log10(values["R1"]), abs=1e-9)
 
 
 def test_analyze_command_prints_the_document() -> None:

@@ -230,22 +230,55 @@ def test_unstable_stage_step_says_so() -> None:
 # -- frequency-domain metrics ----------------------------------------------------------------
 
 
-def test_rc_corner_relative_to_the_reference_gain() -> None:
-    # Source: first-order corner f_c = 1/(2πRC) (any circuits text); relative to the gain at f_ref the
-    # half-power point solves 1 + (f/fc)² = 2(1 + (f_ref/fc)²)
-    r, c, f_ref = 2.7e3, 10e-9, 100.0
+@pytest.mark.parametrize("f_ref", [None, 10.0, 1e3])
+def test_rc_corner_is_at_one_over_two_pi_rc_whatever_ref_hz_says(f_ref: float | None) -> None:
+    # Source: first-order corner f_c = 1/(2πRC) (any circuits text): the low-pass corner is 3 dB
+    # below the DC gain. With ref_hz = 1 kHz on a 159 Hz corner, the gain at ref_hz is −16 dB and a
+    # corner taken against it would land at fc·√(1 + 2(f_ref/fc)²) = 1.42 kHz: not the corner.
+    r, c = 1e3, 1e-6
     fc = 1.0 / (TWO_PI * r * c)
     analysis, settings = analyse(rc_low_pass(r, c), ref_hz=f_ref)
     limits = bandwidth(analysis, settings)
-    assert limits.f_high_3db_hz == pytest.approx(fc * math.sqrt(1 + 2 * (f_ref / fc) ** 2), rel=1e-9)
-    assert limits.gain_db == pytest.approx(-10 * math.log10(1 + (f_ref / fc) ** 2), abs=1e-12)
-    assert limits.f_low_3db_hz is None
-    assert "no low-frequency corner" in limits.why["f_low_3db_hz"]
-    # Source: same formula: attenuation relative to the reference gain
+    assert limits.f_high_3db_hz == pytest.approx(fc, rel=1e-9)
+    assert limits.gain_db == pytest.approx(0.0, abs=1e-12)
+    assert limits.reference is not None and limits.reference.kind == "dc" and limits.reference.f_hz == 0.0
+    assert limits.f_low_3db_hz is None and "DC" in limits.why["f_low_3db_hz"]
+    assert limits.peaking_db == pytest.approx(0.0, abs=1e-12)
+    document = stage_metrics(analysis, settings)
+    assert document["ref"]["kind"] == "dc" and document["ref"]["gain_db"] == pytest.approx(0.0, abs=1e-12)
+    if f_ref is not None:
+        assert "ref_hz" in document["ref"]["note"] and "not used" in document["ref"]["note"]
+        # Source: same: |H(f_ref)|² = 1/(1 + (f_ref/fc)²), the point value gain_db at ref_hz
+        assert document["gain_db"] == pytest.approx(-10 * math.log10(1 + (f_ref / fc) ** 2), abs=1e-10)
+    # Source: same formula: attenuation at f relative to the DC gain is 10·log10(1 + (f/fc)²)
     f = 20e3
-    expected = 10 * math.log10((1 + (f / fc) ** 2) / (1 + (f_ref / fc) ** 2))
     value = metric_at(analysis, "attenuation_db", f, settings)
-    assert value.value == pytest.approx(expected, rel=1e-10)
+    assert value.value == pytest.approx(10 * math.log10(1 + (f / fc) ** 2), rel=1e-10)
+
+
+def test_rc_corner_below_the_analysed_band_is_still_found() -> None:
+    # Source: first-order corner 1/(2πRC), any circuits text: 10 MΩ and 22 nF give 0.72 Hz, below the
+    # band's 1 Hz start; the corner is a property of the response, found on the exact solve.
+    r, c = 10e6, 22e-9
+    analysis, settings = analyse(rc_low_pass(r, c), ref_hz=1e3)
+    assert analysis.f_hz[0] == pytest.approx(1.0)
+    limits = bandwidth(analysis, settings)
+    assert limits.f_high_3db_hz == pytest.approx(1.0 / (TWO_PI * r * c), rel=1e-9)
+
+
+def test_rc_high_pass_is_referred_to_its_high_frequency_gain() -> None:
+    # Source: first-order high-pass sRC/(1 + sRC), corner 1/(2πRC) (any circuits text); its pass-band
+    # gain is the high-frequency limit 1 (0 dB), whatever ref_hz says.
+    r, c = 4.7e3, 220e-9
+    fc = 1.0 / (TWO_PI * r * c)
+    analysis, settings = analyse([part("C1", "C", ["in", "out"], c), part("R1", "R", ["out", "0"], r)], ref_hz=20.0)
+    limits = bandwidth(analysis, settings)
+    assert limits.reference is not None and limits.reference.kind == "hf" and limits.reference.shape == "high-pass"
+    assert limits.gain_db == pytest.approx(0.0, abs=1e-9)
+    assert limits.f_low_3db_hz == pytest.approx(fc, rel=1e-9)
+    assert limits.f_high_3db_hz is None
+    document = stage_metrics(analysis, settings)
+    assert document["ref"]["f_hz"] is None and "s → ∞" in document["ref"]["f_hz_why"]
 
 
 def test_series_rlc_half_power_frequencies() -> None:
@@ -264,21 +297,90 @@ def test_series_rlc_half_power_frequencies() -> None:
     assert limits.f_high_3db_hz == pytest.approx(omega0 * (root + 1 / (2 * quality)) / TWO_PI, rel=1e-9)
 
 
-def test_sallen_key_peaking() -> None:
-    # Source: Ogata, Modern Control Engineering, ch. 7, resonant peak of a second-order low-pass:
-    # M_r = 1/(2ζ·sqrt(1 − ζ²)) at ω0·sqrt(1 − 2ζ²); reference gain the exact |H| at f_ref
-    r1, r2, c1, c2, f_ref = 10e3, 10e3, 100e-9, 1.5e-9, 10.0
+@pytest.mark.parametrize("f_ref", [None, 10.0, 1e3])
+def test_sallen_key_peaking(f_ref: float | None) -> None:
+    # Source: Ogata, Modern Control Engineering, ch. 7, resonant peak of a second-order low-pass over its
+    # DC gain: M_r = 1/(2ζ·sqrt(1 − ζ²)) = Q/sqrt(1 − 1/(4Q²)) at ω0·sqrt(1 − 2ζ²), whatever ref_hz is
+    r1, r2, c1, c2 = 10e3, 10e3, 100e-9, 1.5e-9
     omega0 = 1.0 / math.sqrt(r1 * r2 * c1 * c2)
     quality = math.sqrt(r1 * r2 * c1 * c2) / (c2 * (r1 + r2))
     zeta = 1.0 / (2.0 * quality)
     analysis, settings = analyse(unity_sallen_key(r1, r2, c1, c2), ref_hz=f_ref)
     limits = bandwidth(analysis, settings)
-    s_ref = 1j * TWO_PI * f_ref
-    ref_db = 20 * math.log10(abs(omega0**2 / (s_ref**2 + omega0 / quality * s_ref + omega0**2)))
     peak_db = 20 * math.log10(1.0 / (2 * zeta * math.sqrt(1 - zeta**2)))
     assert limits.peak_gain_db == pytest.approx(peak_db, abs=1e-9)
     assert limits.peak_hz == pytest.approx(omega0 * math.sqrt(1 - 2 * zeta**2) / TWO_PI, rel=1e-4)
-    assert limits.peaking_db == pytest.approx(peak_db - ref_db, abs=1e-9)
+    assert limits.peaking_db == pytest.approx(peak_db, abs=1e-9)
+    # Source: same section, |H(jω)|² = 1/((1 − x²)² + (x/Q)²), x = ω/ω0: half power (against DC) at
+    # x² = 1 − 1/(2Q²) + sqrt((1 − 1/(2Q²))² + 1)
+    half = 1 - 1 / (2 * quality**2)
+    assert limits.f_high_3db_hz == pytest.approx(omega0 * math.sqrt(half + math.sqrt(half**2 + 1)) / TWO_PI, rel=1e-9)
+
+
+def test_butterworth_q_section_peaks_by_three_decibels() -> None:
+    # Source: standard second-order result (e.g. Ogata, ch. 7; any active-filter text): a low-pass with
+    # Q = 1.3066 (the 4th-order Butterworth section, Williams & Taylor tables, value from memory) peaks
+    # 20·log10(Q/sqrt(1 − 1/(4Q²))) ≈ 3.01 dB over its DC gain. Unity-gain Sallen-Key,
+    # Q = sqrt(R1R2C1C2)/(C2(R1+R2)) (Sallen & Key, 1955): equal R, C1/C2 = 4Q².
+    quality = 1.0 / (2.0 * math.cos(3 * math.pi / 8))
+    r, c2 = 22e3, 1e-9
+    c1 = 4.0 * quality**2 * c2
+    analysis, settings = analyse(unity_sallen_key(r, r, c1, c2), ref_hz=1e3)
+    limits = bandwidth(analysis, settings)
+    expected = 20 * math.log10(quality / math.sqrt(1 - 1 / (4 * quality**2)))
+    assert expected == pytest.approx(3.0103, abs=1e-4)
+    assert limits.peaking_db == pytest.approx(expected, abs=1e-9)
+
+
+def test_band_pass_corners_around_its_mid_band_gain() -> None:
+    # Source: an AC-coupled buffer, high-pass sC1R1/(1 + sC1R1) then low-pass 1/(1 + sR2C2) behind an ideal
+    # follower (any circuits text): mid-band gain 1 (0 dB, Sedra & Smith, the mid-band gain A_M) and
+    # corners where |H|² = 1/2: with a = f/fl, b = f/fh, (1 + 1/a²)(1 + b²) = 2.
+    r1, c1, r2, c2 = 100e3, 1e-6, 1e3, 10e-9
+    fl, fh = 1 / (TWO_PI * r1 * c1), 1 / (TWO_PI * r2 * c2)
+    analysis, settings = analyse([part("C1", "C", ["in", "a"], c1), part("R1", "R", ["a", "0"], r1),
+                                  part("U1", "opamp", ["a", "b", "b"], model="ideal"),
+                                  part("R2", "R", ["b", "out"], r2), part("C2", "C", ["out", "0"], c2)],
+                                 ref_hz=0.5)
+    limits = bandwidth(analysis, settings)
+    assert limits.reference is not None and limits.reference.kind == "midband"
+    assert "not used" in limits.reference.note
+    # Source: same: the mid-band frequency is the flat stretch's geometric centre sqrt(fl·fh)
+    f_mid = math.sqrt(fl * fh)
+    assert limits.reference.f_hz == pytest.approx(f_mid, rel=1e-9)
+    assert limits.gain_db == pytest.approx(-10 * math.log10((1 + (fl / f_mid) ** 2) * (1 + (f_mid / fh) ** 2)),
+                                           abs=1e-12)
+    level = limits.gain_db - 10 * math.log10(2.0)
+
+    def gain(f: float) -> float:
+        return -10 * math.log10((1 + (fl / f) ** 2) * (1 + (f / fh) ** 2))
+
+    assert limits.f_low_3db_hz is not None and limits.f_high_3db_hz is not None
+    assert gain(limits.f_low_3db_hz) == pytest.approx(level, abs=1e-7)
+    assert gain(limits.f_high_3db_hz) == pytest.approx(level, abs=1e-7)
+    # Two decades apart, the corners sit within 0.1 % of the single-section ones (Sedra & Smith's
+    # dominant-pole approximation)
+    assert limits.f_low_3db_hz == pytest.approx(fl, rel=1e-3)
+    assert limits.f_high_3db_hz == pytest.approx(fh, rel=1e-3)
+    # ref_hz inside the flat mid-band, a decade or more from both corners, is used as given.
+    settings.ref_hz = q(1e3)
+    reference = bandwidth(analysis, settings).reference
+    assert reference is not None and reference.kind == "ref_hz" and reference.f_hz == 1e3
+
+
+def test_integrator_has_no_pass_band_without_ref_hz() -> None:
+    # Common practice, no source: an integrator −1/(sRC) has no DC gain, so no pass band of its own
+    parts = [part("R1", "R", ["in", "m"], 10e3), part("C1", "C", ["m", "out"], 1e-6),
+             part("U1", "opamp", ["0", "m", "out"], model="ideal")]
+    analysis, settings = analyse(parts)
+    limits = bandwidth(analysis, settings)
+    assert limits.reference is not None and limits.reference.kind is None
+    assert limits.f_high_3db_hz is None and "pole at s = 0" in limits.why["f_high_3db_hz"]
+    analysis, settings = analyse(parts, ref_hz=100.0)
+    reference = bandwidth(analysis, settings).reference
+    assert reference is not None and reference.kind == "ref_hz"
+    # Source: |−1/(jωRC)| at 100 Hz
+    assert reference.gain_db == pytest.approx(-20 * math.log10(TWO_PI * 100 * 10e3 * 1e-6), abs=1e-9)
 
 
 def test_phase_and_group_delay_of_rc() -> None:

@@ -54,10 +54,8 @@ def test_engine_values_match_closed_forms_and_set_the_states() -> None:
                                                  GAIN_DB + 0.01)))
     results = {r.check_id: r for r in evaluate_project(project, analysis.metric_provider(project))}
     # Source: first-order RC low-pass, f_c = 1/(2πRC) and |H|² = 1/(1 + (f/f_c)²); any circuits text.
-    # The corner is where the gain is 3.01 dB (half power) below the reference gain at
-    # ref_hz = 100 Hz (engine/metrics.py): 1 + (f/f_c)² = 2·(1 + (100/f_c)²).
-    half_power_hz = CORNER_HZ * math.sqrt(1 + 2 * (100 / CORNER_HZ) ** 2)
-    assert results["corner"].value == pytest.approx(half_power_hz, rel=1e-6)
+    # A low-pass corner is 3 dB below its DC gain, whatever ref_hz (100 Hz here) says.
+    assert results["corner"].value == pytest.approx(CORNER_HZ, rel=1e-9)
     assert results["at2k"].value == pytest.approx(-10 * math.log10(1 + (2000 / CORNER_HZ) ** 2), rel=1e-9)
     # Source: ideal non-inverting amplifier, gain 1 + Rf/Rg (any op-amp text, ideal op-amp rules).
     assert results["gain"].value == pytest.approx(GAIN_DB, abs=1e-9)
@@ -74,6 +72,9 @@ def test_check_command_with_the_engine(tmp_path: Path, capsys: pytest.CaptureFix
     document = _document(0.99 * CORNER_HZ, 1.01 * CORNER_HZ, GAIN_DB - 0.01, GAIN_DB + 0.01)
     path.write_text(json.dumps(document), encoding="utf-8")
     assert main(["check", str(path)]) == 0
+    # Source: an RC low-pass passes DC unchanged (gain 1, 0 dB; any circuits text): the corner is shown
+    # beside the reference it was taken against.
+    assert "Upper −3 dB corner, isolated (re DC gain 0.00 dB)" in capsys.readouterr().out
     failing = copy.deepcopy(document)
     failing["stages"][1]["checks"][0]["min"] = 1.001 * CORNER_HZ
     path.write_text(json.dumps(failing), encoding="utf-8")

@@ -51,7 +51,8 @@ def _metric_text(result: CheckResult) -> str:
     label = METRICS[result.metric].label if result.metric in METRICS else result.metric
     where = WHERE_WORDS.get(result.where or "", result.where or "")
     at = "" if result.at_hz is None else f" @ {format_value(result.at_hz, 'Hz')}"
-    return f"{label}, {where}{at}"
+    reference = f" ({result.reference})" if result.reference else ""
+    return f"{label}, {where}{at}{reference}"
 
 
 def _short(text: str, width: int) -> str:
@@ -97,7 +98,7 @@ def _json(path: str, project: Project, results: list[CheckResult]) -> dict[str, 
         "checks": [
             {"stage": r.stage_id, "id": r.check_id, "text": r.text, "metric": r.metric, "where": r.where,
              "at_hz": r.at_hz, "value": number(r.value), "unit": r.unit, "limits": r.limits,
-             "state": str(r.state), "why": r.why}
+             "state": str(r.state), "why": r.why, "reference": r.reference}
             for r in results
         ],
         "totals": {"met": counted.met, "not_met": counted.not_met, "waived": counted.waived,

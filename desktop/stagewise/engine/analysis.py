@@ -37,7 +37,7 @@ from stagewise.engine.chain import (
     merge_systems,
     merged_system,
 )
-from stagewise.engine.metrics import metric_at, put_with_why, stage_metrics
+from stagewise.engine.metrics import metric_at, put_with_why, reference_words, stage_metrics
 from stagewise.engine.mna import CircuitError, StageSystem
 from stagewise.engine.stage import StageAnalysis, analyze_stage, analyze_system
 from stagewise.engine.sweep import TWO_PI, DrivenSystem, drive, frequency_grid, solve_batched
@@ -544,6 +544,32 @@ class ProjectAnalysis:
         worst = min(values) if key == "inside_spread_pct" else max(values)
         return float(worst), None
 
+    def metric_reference(self, metric: str, where: str, stage_id: str) -> dict[str, Any] | None:
+        """The ``ref`` record a corner, peaking or attenuation at ``where`` was taken against.
+
+        ``None`` for metrics that are not taken against a pass-band reference, and where the
+        analysis failed (the value then says why).
+        """
+        from stagewise.review.metrics import METRICS  # noqa: PLC0415 - the table lives above
+
+        entry = METRICS.get(metric)
+        if entry is None or not entry.referenced:
+            return None
+        analysis = self._analysis_for(where, stage_id)
+        if isinstance(analysis, _Failure):
+            return None
+        record = self._metrics_document(where, stage_id, analysis).get("ref")
+        return record if isinstance(record, dict) else None
+
+    def metric_reference_words(self, metric: str, where: str, stage_id: str) -> str | None:
+        """:meth:`metric_reference` in a few words ("re DC gain 166.02 dBΩ"), for tables."""
+        record = self.metric_reference(metric, where, stage_id)
+        if record is None:
+            return None
+        analysis = self._analysis_for(where, stage_id)
+        unit = "dBΩ" if not isinstance(analysis, _Failure) and analysis.unit == CURRENT_UNIT else "dB"
+        return reference_words(record, unit)
+
     def _headroom_value(self, metric: str, where: str, stage_id: str) -> tuple[float | None, str | None]:
         headroom = self.headroom
         if isinstance(headroom, _Failure):
@@ -628,6 +654,10 @@ class ProjectAnalysis:
         }
         if result.why:
             document["why"] = result.why
+        if check.metric is not None:
+            record = self.metric_reference(check.metric, check.where, stage.id)
+            if record is not None:
+                document["ref"] = record
         return document
 
     def chain_document(self) -> dict[str, Any] | None:

@@ -1,18 +1,25 @@
 """Metrics of a stage's response (DESIGN 3.5 and 6): gain, corners, peaking, phase, step.
 
 Every value is taken from the exact response, never read off a plot: the reference gain is an
-extra solve at ``ref_hz``; the −3 dB corners are bracketed on the log-frequency grid and refined
-by k-section search on the exact response; the peak is refined the same way; phase is unwrapped
-and anchored to the phase of the pole/zero model, so it is continuous in frequency and the same
-at any single frequency as on the sweep; group delay is exact (−Re(H'(s)/H(s)) from a second
-solve), not a finite difference.
+exact solve (at s = 0, at the mid-band frequency or at ``ref_hz``) or the model's |K|; the −3 dB
+corners are bracketed on the log-frequency grid (extended by exact solves three decades beyond
+the outermost roots) and refined by k-section search on the exact response; the peak is refined
+the same way; phase is unwrapped and anchored to the phase of the pole/zero model, so it is
+continuous in frequency and the same at any single frequency as on the sweep; group delay is
+exact (−Re(H'(s)/H(s)) from a second solve), not a finite difference.
 
-Definitions:
-- reference gain: |H| at ``settings.ref_hz``; when ``ref_hz`` is null, the band maximum.
+Definitions (the trade's, DESIGN 3.5):
+- pass-band reference (:func:`passband_reference`): the DC gain of a low-pass shape, the
+  high-frequency gain of a high-pass shape, the mid-band gain of a band-pass shape, decided from
+  the pole/zero model; ``ref_hz`` only where it lies in a band-pass's flat mid-band or the shape
+  has no pass-band gain of its own (an integrator). Every "M" document carries it as ``ref``
+  (``kind``, ``f_hz``, ``gain_db``, ``shape``, ``note``).
 - −3 dB corners: where the gain falls to half power (reference − 10·log10(2) ≈ −3.0103 dB), the
   first such point below (low corner) and above (high corner) the reference frequency.
 - peaking: peak gain over the band minus the reference gain (never negative).
 - attenuation at f: reference gain minus gain at f (positive when attenuated).
+- ``gain_db`` of the "M" document: the gain at ``settings.ref_hz`` (a point value, DESIGN 6);
+  without ``ref_hz``, the pass-band reference gain.
 
 A value that cannot be computed is ``None`` with a sentence under ``"<key>_why"``. When the
 pole/zero model fails its check against the exact solve (zeros ill-conditioned by a high
@@ -33,6 +40,7 @@ Public API
     The same at any frequencies, exact (for ``stagewise response --freqs``); the complex values
     themselves come from ``stage.response_at``.
 ``bandwidth(analysis, settings) -> Bandwidth``
+``passband_reference(analysis, settings) -> PassbandReference`` (``.as_dict()`` is ``ref``)
 ``gain_db_at``, ``phase_deg_at``, ``attenuation_db_at``, ``group_delay_s_at``.
 
 References
@@ -51,7 +59,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from stagewise.engine.poles import FIT_TOLERANCE, root_table
+from stagewise.engine.poles import FIT_TOLERANCE, root_table, transfer_at
 from stagewise.engine.stage import StageAnalysis, response_at
 from stagewise.engine.timeresp import StepResponse, refine_crossing, step_response, step_response_of_pencil
 from stagewise.model.project import Settings
@@ -61,6 +69,7 @@ __all__ = [
     "Bandwidth",
     "FrequencyResponse",
     "MetricValue",
+    "PassbandReference",
     "attenuation_db_at",
     "bandwidth",
     "frequency_response",
@@ -68,8 +77,10 @@ __all__ = [
     "gain_db_at",
     "group_delay_s_at",
     "metric_at",
+    "passband_reference",
     "phase_deg_at",
     "put_with_why",
+    "reference_words",
     "stage_metrics",
 ]
 
@@ -98,7 +109,11 @@ class MetricValue:
 
 @dataclass(frozen=True, slots=True)
 class Bandwidth:
-    """Reference gain, peak and −3 dB corners; each ``None`` value has its reason in ``why``."""
+    """Pass-band reference gain, peak and −3 dB corners; each ``None`` value has its reason in ``why``.
+
+    ``ref_hz`` and ``gain_db`` are the reference's frequency (0 for DC, ``None`` for the
+    high-frequency limit) and gain; ``reference`` says which reference it is.
+    """
 
     ref_hz: float | None
     gain_db: float | None
@@ -108,6 +123,7 @@ class Bandwidth:
     f_high_3db_hz: float | None
     peaking_db: float | None
     why: dict[str, str]
+    reference: PassbandReference | None = None
 
 
 def _db(values: NDArray[np.complex128]) -> NDArray[np.float64]:
@@ -234,13 +250,276 @@ def group_delay_s_at(analysis: StageAnalysis, at_hz: float) -> float:
     return float(_group_delay_s(analysis, np.array([float(at_hz)]))[0])
 
 
+# -- the pass-band reference -------------------------------------------------------------------
+
+REFERENCE_KINDS = ("dc", "hf", "midband", "ref_hz")
+# A Bode asymptote is within 0.05 dB of the exact gain a decade away from a first-order break;
+# ``ref_hz`` counts as mid-band only that far inside the flat stretch of a band-pass.
+MIDBAND_MARGIN = 10.0
+
+
+@dataclass(frozen=True, slots=True)
+class PassbandReference:
+    """The pass-band gain that corners, peaking and attenuation are taken against.
+
+    Attributes
+    ----------
+    kind : str or None
+        ``"dc"`` (the DC gain of a low-pass shape), ``"hf"`` (the high-frequency gain of a
+        high-pass shape), ``"midband"`` (the mid-band gain of a band-pass shape) or ``"ref_hz"``
+        (the gain at ``settings.ref_hz``, where that lies in the pass band or the shape has no
+        pass-band gain of its own); ``None`` when there is no reference (``why`` says why).
+    f_hz : float or None
+        Where the reference gain is read: 0 for ``dc``, ``None`` for ``hf`` (the limit s → ∞).
+    gain_db : float or None
+        The reference gain (dB, or dBΩ for a transimpedance).
+    shape : str
+        The response's shape as decided from its pole/zero model (``"low-pass"``,
+        ``"high-pass"``, ``"band-pass"``, ``"flat at both ends"``, ``"rising"``,
+        ``"integrating"``, ``"no pass band"``).
+    note : str
+        One sentence saying which reference this is and, where ``ref_hz`` was not used, why.
+    why : str or None
+        Why there is no reference (``kind`` None).
+    """
+
+    kind: str | None
+    f_hz: float | None
+    gain_db: float | None
+    shape: str
+    note: str
+    why: str | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        """The ``ref`` record of ``analyze --json``: ``{kind, f_hz, gain_db, shape, note}``.
+
+        Each null value has ``"<key>_why"`` beside it.
+        """
+        record: dict[str, Any] = {}
+        put_with_why(record, "kind", self.kind, self.why)
+        f_why = "the high-frequency limit (s → ∞): no finite frequency" if self.kind == "hf" else self.why
+        put_with_why(record, "f_hz", self.f_hz, f_why)
+        put_with_why(record, "gain_db", self.gain_db, self.why)
+        record["shape"] = self.shape
+        record["note"] = self.note
+        return record
+
+    def words(self) -> str:
+        """The reference in a few words, for tables and read-outs (e.g. "re DC gain 0.00 dB")."""
+        return reference_words(self.as_dict())
+
+
+def reference_words(record: dict[str, Any], unit: str = "dB") -> str:
+    """A ``ref`` record in a few words, the same in every view: "re DC gain 0.00 dB",
+    "re high-frequency gain …", "re mid-band gain … at 1 kHz", "re gain … at ref_hz 1 kHz"."""
+    kind, gain_db, f_hz = record.get("kind"), record.get("gain_db"), record.get("f_hz")
+    if kind is None or not isinstance(gain_db, int | float):
+        return "no pass-band reference"
+    gain = f"{round(float(gain_db), 2) + 0.0:.2f} {unit}"  # + 0.0: no "-0.00"
+    if kind == "dc":
+        return f"re DC gain {gain}"
+    if kind == "hf":
+        return f"re high-frequency gain {gain}"
+    where = format_value(float(f_hz), "Hz") if isinstance(f_hz, int | float) else "an unknown frequency"
+    if kind == "midband":
+        return f"re mid-band gain {gain} at {where}"
+    return f"re gain {gain} at ref_hz {where}"
+
+
+def _end_exponents(analysis: StageAnalysis) -> tuple[int, int, bool]:
+    """(e0, e∞, from_model): |H| ~ ω^e0 as ω → 0 and ~ ω^e∞ as ω → ∞.
+
+    From the pole/zero model (roots at s = 0 are exact, so e0 = zeros at 0 − poles at 0, and
+    e∞ = zeros − poles) when the model reproduces the exact response; otherwise from the slope
+    of exact solves far below and far above every pole (a deep chain whose zeros are
+    ill-conditioned).
+    """
+    assert analysis.model is not None
+    model = analysis.model
+    if not (model.fit_error > FIT_TOLERANCE):
+        e0 = int(np.sum(model.zeros_rad_s == 0)) - int(np.sum(model.poles_rad_s == 0))
+        return e0, -model.relative_degree, True
+    roots = np.abs(model.poles_rad_s)
+    roots = roots[roots > 0]
+    low = float(np.min(roots)) if len(roots) else model.scale_rad_s
+    high = float(np.max(roots)) if len(roots) else model.scale_rad_s
+    omega = np.array([low * 1e-5, low * 1e-4, high * 1e4, high * 1e5])
+    assert analysis.driven is not None
+    driven = analysis.driven
+    try:
+        values = np.abs(transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * omega))
+    except np.linalg.LinAlgError:
+        return 0, -model.relative_degree, False
+    with np.errstate(divide="ignore"):
+        logs = np.log10(values)
+    e0 = int(round(float(logs[1] - logs[0]))) if np.all(np.isfinite(logs[:2])) else 0
+    e_inf = int(round(float(logs[3] - logs[2]))) if np.all(np.isfinite(logs[2:])) else -model.relative_degree
+    return e0, e_inf, False
+
+
+def _dc_gain_db(analysis: StageAnalysis) -> float:
+    """20·log10|H(0)| by an exact solve at s = 0 (the model where G alone is singular)."""
+    assert analysis.driven is not None and analysis.model is not None
+    driven = analysis.driven
+    try:
+        value = complex(transfer_at(driven.g, driven.c, driven.b, driven.output, 0j)[0])
+    except np.linalg.LinAlgError:
+        value = complex(analysis.model.evaluate(0j)[0])
+    return float(_db(np.array([value]))[0])
+
+
+def _asymptote_log(model: Any, omega: float) -> float:
+    """ln of the Bode straight-line magnitude at ω: |s − r| taken as max(ω, |r|)."""
+    zeros = np.abs(model.zeros_rad_s)
+    poles = np.abs(model.poles_rad_s)
+    return float(model.log_gain + np.sum(np.log(np.maximum(omega, zeros)))
+                 - np.sum(np.log(np.maximum(omega, poles))))
+
+
+def _midband(model: Any, e0: int) -> tuple[float, float | None, float | None]:
+    """(ω_mid, ω_flat_low, ω_flat_high) of a band-pass from its Bode asymptote, in rad/s.
+
+    The asymptote's slope starts at e0 > 0 and changes by +1 at every non-zero zero and −1 at
+    every non-zero pole. Mid-band is the stretch where it is flat (the geometric centre of the
+    highest flat stretch); a narrow band-pass, whose slope jumps from rising to falling at one
+    break, has its mid-band at that break (the centre frequency). The flat ends are ``None``
+    when there is no flat stretch.
+    """
+    breaks = sorted([(abs(complex(z)), 1) for z in model.zeros_rad_s if z != 0]
+                    + [(abs(complex(p)), -1) for p in model.poles_rad_s if p != 0])
+    # Breaks at one frequency (a complex pair, coinciding sections) act together.
+    groups: list[tuple[float, int]] = []
+    for omega, step in breaks:
+        if groups and omega <= groups[-1][0] * (1.0 + 1e-9):
+            groups[-1] = (groups[-1][0], groups[-1][1] + step)
+        else:
+            groups.append((omega, step))
+    slope = e0
+    flats: list[tuple[float, float]] = []
+    turns: list[float] = []
+    for index, (omega, step) in enumerate(groups):
+        before = slope
+        slope += step
+        if slope == 0 and index + 1 < len(groups):
+            flats.append((omega, groups[index + 1][0]))
+        elif before > 0 and slope < 0:
+            turns.append(omega)
+    if flats:
+        low, high = max(flats, key=lambda item: _asymptote_log(model, math.sqrt(item[0] * item[1])))
+        return math.sqrt(low * high), low, high
+    if turns:
+        return max(turns, key=lambda omega: _asymptote_log(model, omega)), None, None
+    candidates = [omega for omega, _ in groups] or [model.scale_rad_s]
+    return max(candidates, key=lambda omega: _asymptote_log(model, omega)), None, None
+
+
+def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandReference:
+    """The pass-band gain of a response, by the trade's definitions (DESIGN 3.5).
+
+    The shape comes from the pole/zero model: with |H| ~ ω^e0 at low and ~ ω^e∞ at high
+    frequencies (e0 = zeros at s = 0 minus poles at s = 0, e∞ = zeros minus poles),
+
+    - e0 = 0, e∞ < 0: low-pass; the reference is the DC gain;
+    - e0 > 0, e∞ = 0: high-pass; the high-frequency gain |K|;
+    - e0 > 0, e∞ < 0: band-pass; the mid-band gain, read where the Bode asymptote is flat (its
+      geometric centre, or the centre frequency of a narrow band-pass), or at ``ref_hz`` when
+      that lies in the flat stretch at least a decade from both of its ends;
+    - e0 = 0, e∞ = 0: flat at both ends (band-stop, all-pass, shelf); the end with the higher
+      gain (DC on a tie);
+    - e0 = 0, e∞ > 0: rising without bound; the DC gain;
+    - otherwise (a pole at s = 0, or no flat end at all) the shape has no pass-band gain of its
+      own: the gain at ``ref_hz`` when given, else no reference.
+
+    ``ref_hz`` is never used for a low-pass or high-pass: their corners are 3 dB below the DC
+    or high-frequency gain whatever ``ref_hz`` says; the note says so.
+
+    References
+    ----------
+    Half-power bandwidth: IEEE Std 100, 7th ed., "bandwidth". Mid-band gain as the flat gain
+    between the low- and high-frequency corners: A. S. Sedra and K. C. Smith, *Microelectronic
+    Circuits*, chapter on frequency response (the mid-band gain A_M).
+    """
+    if analysis.why is not None or analysis.model is None or analysis.response is None:
+        reason = analysis.why or "the analysis has no response"
+        return PassbandReference(None, None, None, "unknown", "no reference: the response is not known", reason)
+    model = analysis.model
+    ref_hz = None if settings.ref_hz is None else float(settings.ref_hz.si)
+    e0, e_inf, from_model = _end_exponents(analysis)
+    unused = "" if ref_hz is None else f"; ref_hz ({format_value(ref_hz, 'Hz')}) is not used for this shape"
+
+    def at_ref_hz(shape: str, because: str) -> PassbandReference:
+        if ref_hz is None:
+            why = f"a {shape} response has no pass-band gain of its own ({because}) and settings.ref_hz is not set"
+            return PassbandReference(None, None, None, shape, f"no reference: {why}", why)
+        return PassbandReference("ref_hz", ref_hz, gain_db_at(analysis, ref_hz), shape,
+                                 f"the gain at ref_hz: a {shape} response has no pass-band gain of its own "
+                                 f"({because})")
+
+    if e0 < 0:
+        return at_ref_hz("integrating", "a pole at s = 0: the gain grows without bound towards DC")
+    if e0 == 0:
+        dc_db = _dc_gain_db(analysis)
+        if e_inf < 0:
+            return PassbandReference("dc", 0.0, dc_db, "low-pass", f"the DC gain of a low-pass shape{unused}")
+        if e_inf > 0:
+            return PassbandReference("dc", 0.0, dc_db, "rising",
+                                     f"the DC gain: the gain rises without bound at high frequencies{unused}")
+        hf_db = _hf_gain_db(analysis, from_model)
+        if hf_db > dc_db + 1e-9:
+            return PassbandReference("hf", None, hf_db, "flat at both ends",
+                                     f"the high-frequency gain, the higher of the two flat ends{unused}")
+        return PassbandReference("dc", 0.0, dc_db, "flat at both ends",
+                                 f"the DC gain, the higher (or equal) of the two flat ends{unused}")
+    if e_inf == 0:
+        return PassbandReference("hf", None, _hf_gain_db(analysis, from_model), "high-pass",
+                                 f"the high-frequency gain of a high-pass shape{unused}")
+    if e_inf > 0:
+        return at_ref_hz("rising", "zeros at s = 0 and a gain rising without bound")
+    # Band-pass.
+    if not from_model:
+        f_peak, peak_db = _peak(analysis)
+        return PassbandReference("midband", f_peak, peak_db, "band-pass",
+                                 "the largest gain in the band: this response's zeros are ill-conditioned, so its "
+                                 f"mid-band is taken at its maximum instead of from the pole/zero model{unused}")
+    omega_mid, flat_low, flat_high = _midband(model, e0)
+    if (ref_hz is not None and flat_low is not None and flat_high is not None
+            and flat_low * MIDBAND_MARGIN <= TWO_PI * ref_hz <= flat_high / MIDBAND_MARGIN):
+        return PassbandReference("ref_hz", ref_hz, gain_db_at(analysis, ref_hz), "band-pass",
+                                 "the mid-band gain read at ref_hz, which lies in the flat mid-band "
+                                 f"({format_value(flat_low / TWO_PI, 'Hz')}–{format_value(flat_high / TWO_PI, 'Hz')})")
+    f_mid = omega_mid / TWO_PI
+    if flat_low is not None and flat_high is not None:
+        where = (f"the centre of its flat mid-band ({format_value(flat_low / TWO_PI, 'Hz')}–"
+                 f"{format_value(flat_high / TWO_PI, 'Hz')})")
+    else:
+        where = "its centre frequency"
+    note = f"the mid-band gain of a band-pass shape, at {where}"
+    if ref_hz is not None:
+        note += (f"; ref_hz ({format_value(ref_hz, 'Hz')}) is not used: it does not lie a decade or more inside "
+                 "a flat mid-band")
+    return PassbandReference("midband", f_mid, gain_db_at(analysis, f_mid), "band-pass", note)
+
+
+def _hf_gain_db(analysis: StageAnalysis, from_model: bool) -> float:
+    """20·log10|K|, the limit of |H| as s → ∞ for a relative degree of zero."""
+    assert analysis.model is not None
+    model = analysis.model
+    if from_model:
+        return float(20.0 * model.log_gain / math.log(10.0))
+    assert analysis.driven is not None
+    driven = analysis.driven
+    roots = np.abs(model.poles_rad_s)
+    high = float(np.max(roots)) if len(roots) else model.scale_rad_s
+    value = transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * high * 1e6)
+    return float(_db(value)[0])
+
+
 def _reference(analysis: StageAnalysis, settings: Settings) -> tuple[float, float]:
-    """(frequency, gain in dB) of the reference: ``ref_hz`` if set, else the band maximum."""
-    if settings.ref_hz is not None:
-        f_ref = settings.ref_hz.si
-        return f_ref, gain_db_at(analysis, f_ref)
-    peak_hz, peak_db = _peak(analysis)
-    return peak_hz, peak_db
+    """(frequency, gain in dB) of the pass-band reference; raises ValueError when there is none."""
+    reference = passband_reference(analysis, settings)
+    if reference.gain_db is None:
+        raise ValueError(reference.why or "no pass-band reference")
+    return (reference.f_hz if reference.f_hz is not None else math.inf), reference.gain_db
 
 
 def attenuation_db_at(analysis: StageAnalysis, at_hz: float, settings: Settings) -> float:
@@ -280,7 +559,10 @@ def metric_at(analysis: StageAnalysis, name: str, at_hz: float, settings: Settin
     else:
         if settings is None:
             return MetricValue(None, "attenuation needs the project settings (its reference gain)")
-        value = attenuation_db_at(analysis, at_hz, settings)
+        reference = passband_reference(analysis, settings)
+        if reference.gain_db is None:
+            return MetricValue(None, reference.why or "no pass-band reference")
+        value = reference.gain_db - gain_db_at(analysis, at_hz)
     if not math.isfinite(value):
         return MetricValue(None, f"the response is zero or infinite at {format_value(at_hz, 'Hz')}")
     return MetricValue(value)
@@ -319,48 +601,102 @@ def _band_text(f_hz: NDArray[np.float64]) -> str:
     return f"{format_value(float(f_hz[0]), 'Hz')}–{format_value(float(f_hz[-1]), 'Hz')}"
 
 
-def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
-    """Reference gain, peak, −3 dB (half-power) corners and peaking of an analysis."""
-    why: dict[str, str] = {}
-    keys = ("gain_db", "peak_gain_db", "f_low_3db_hz", "f_high_3db_hz", "peaking_db")
-    if analysis.why is not None or analysis.response is None:
-        reason = analysis.why or "the analysis has no response"
-        return Bandwidth(None, None, None, None, None, None, None, dict.fromkeys(keys, reason))
+def _search_points(analysis: StageAnalysis) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The analysis grid, extended by exact solves to three decades beyond the outermost roots.
+
+    A corner is a property of the response, not of the plotted band: a low-pass whose corner
+    lies below ``f_min_hz`` still has it there, found on the exact response.
+    """
+    assert analysis.response is not None and analysis.model is not None
     f = analysis.f_hz
     mag = _db(analysis.response)
-    f_ref, ref_db = _reference(analysis, settings)
+    model = analysis.model
+    roots = np.abs(np.concatenate([model.poles_rad_s, model.zeros_rad_s])) / TWO_PI
+    roots = roots[roots > 0]
+    if not len(roots) or len(f) < 2:
+        return f, mag
+    low = max(float(np.min(roots)) * 1e-3, float(f[0]) * 1e-6)
+    high = min(float(np.max(roots)) * 1e3, float(f[-1]) * 1e6)
+    per_decade = max(20.0, (len(f) - 1) / max(math.log10(float(f[-1]) / float(f[0])), 1e-9))
+    below = np.zeros(0)
+    above = np.zeros(0)
+    if low < f[0]:
+        count = int(math.ceil(math.log10(float(f[0]) / low) * per_decade))
+        below = np.logspace(math.log10(low), math.log10(float(f[0])), count + 1)[:-1]
+    if high > f[-1]:
+        count = int(math.ceil(math.log10(high / float(f[-1])) * per_decade))
+        above = np.logspace(math.log10(float(f[-1])), math.log10(high), count + 1)[1:]
+    if not len(below) and not len(above):
+        return f, mag
+    extra = np.concatenate([below, above])
+    extra_mag = _db(response_at(analysis, extra))
+    return (np.concatenate([below, f, above]),
+            np.concatenate([extra_mag[:len(below)], mag, extra_mag[len(below):]]))
+
+
+def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
+    """Pass-band reference, peak, −3 dB (half-power) corners and peaking of an analysis.
+
+    The corners are where the gain falls 3 dB (10·log10 2) below the pass-band reference of
+    :func:`passband_reference`: the first such point above the reference frequency (for a DC
+    reference, the first above DC) and the first below it (for a high-frequency reference, the
+    first below the high-frequency plateau). Peaking is the band's largest gain over the
+    reference (never negative).
+    """
+    why: dict[str, str] = {}
+    keys = ("gain_db", "peak_gain_db", "f_low_3db_hz", "f_high_3db_hz", "peaking_db")
+    reference = passband_reference(analysis, settings)
+    if analysis.why is not None or analysis.response is None:
+        reason = analysis.why or "the analysis has no response"
+        return Bandwidth(None, None, None, None, None, None, None, dict.fromkeys(keys, reason), reference)
     peak_hz, peak_db = _peak(analysis)
-    if ref_db > peak_db:
+    if reference.gain_db is None or not math.isfinite(reference.gain_db):
+        reason = reference.why or "the pass-band gain is zero"
+        return Bandwidth(reference.f_hz, None, peak_hz, peak_db, None, None, None,
+                         {"gain_db": reason, "f_low_3db_hz": reason, "f_high_3db_hz": reason, "peaking_db": reason},
+                         reference)
+    ref_db = reference.gain_db
+    f_ref = {"dc": 0.0, "hf": math.inf}.get(str(reference.kind), reference.f_hz or 0.0)
+    if 0.0 < f_ref <= analysis.f_hz[-1] and f_ref >= analysis.f_hz[0] and ref_db > peak_db:
         peak_hz, peak_db = f_ref, ref_db
-    if not math.isfinite(ref_db):
-        reason = f"the response is zero at the reference frequency {format_value(f_ref, 'Hz')}"
-        return Bandwidth(f_ref, None, peak_hz, peak_db, None, None, None,
-                         {"gain_db": reason, "f_low_3db_hz": reason, "f_high_3db_hz": reason, "peaking_db": reason})
     level = ref_db - HALF_POWER_DB
     evaluate = _gain_db_of_log_f(analysis)
-    band = _band_text(f)
-    # High corner: the first grid point above the reference whose gain is below the level.
-    above = np.nonzero((f > f_ref) & (mag < level))[0]
+    f, mag = _search_points(analysis)
+    words = reference.words()
+    # High corner: the first point above the reference whose gain is below the level.
     f_high: float | None = None
-    if len(above):
+    above = np.nonzero((f > f_ref) & (mag < level))[0]
+    if reference.kind == "hf":
+        why["f_high_3db_hz"] = "the pass band is the high-frequency plateau (a high-pass reference): no upper corner"
+    elif len(above):
         index = int(above[0])
-        start = f[index - 1] if index > 0 and f[index - 1] > f_ref else f_ref
-        f_high = 10.0 ** refine_crossing(evaluate, math.log10(start), math.log10(f[index]), level)
+        start = float(f[index - 1]) if index > 0 and f[index - 1] > f_ref else f_ref
+        if start > 0:
+            f_high = 10.0 ** refine_crossing(evaluate, math.log10(start), math.log10(float(f[index])), level)
+        else:
+            why["f_high_3db_hz"] = (f"the gain is already 3 dB below its reference ({words}) at "
+                                    f"{format_value(float(f[0]), 'Hz')}, the lowest frequency examined")
     else:
-        why["f_high_3db_hz"] = (f"the gain stays within 3 dB of its reference above {format_value(f_ref, 'Hz')}: "
-                                f"no high-frequency corner inside {band}")
-    below = np.nonzero((f < f_ref) & (mag < level))[0]
+        why["f_high_3db_hz"] = (f"the gain stays within 3 dB of its reference ({words}) up to "
+                                f"{format_value(float(f[-1]), 'Hz')}: no upper corner")
     f_low: float | None = None
-    if len(below):
+    below = np.nonzero((f < f_ref) & (mag < level))[0]
+    if reference.kind == "dc":
+        why["f_low_3db_hz"] = "the pass band reaches down to DC (a DC reference): no lower corner"
+    elif len(below):
         index = int(below[-1])
-        stop = f[index + 1] if index + 1 < len(f) and f[index + 1] < f_ref else f_ref
-        # Search downward from the reference side: the bracket runs from the inside out.
-        f_low = 10.0 ** refine_crossing(evaluate, math.log10(stop), math.log10(f[index]), level)
+        stop = float(f[index + 1]) if index + 1 < len(f) and f[index + 1] < f_ref else f_ref
+        if math.isfinite(stop):
+            # Search downward from the reference side: the bracket runs from the inside out.
+            f_low = 10.0 ** refine_crossing(evaluate, math.log10(stop), math.log10(float(f[index])), level)
+        else:
+            why["f_low_3db_hz"] = (f"the gain is still 3 dB below its reference ({words}) at "
+                                   f"{format_value(float(f[-1]), 'Hz')}, the highest frequency examined")
     else:
-        why["f_low_3db_hz"] = (f"the gain stays within 3 dB of its reference below {format_value(f_ref, 'Hz')}: "
-                               f"no low-frequency corner inside {band}")
+        why["f_low_3db_hz"] = (f"the gain stays within 3 dB of its reference ({words}) down to "
+                               f"{format_value(float(f[0]), 'Hz')}: no lower corner")
     return Bandwidth(
-        ref_hz=f_ref,
+        ref_hz=reference.f_hz,
         gain_db=ref_db,
         peak_hz=peak_hz,
         peak_gain_db=peak_db,
@@ -368,6 +704,7 @@ def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
         f_high_3db_hz=None if f_high is None else float(f_high),
         peaking_db=max(peak_db - ref_db, 0.0),
         why=why,
+        reference=reference,
     )
 
 
@@ -397,8 +734,18 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
     """
     document: dict[str, Any] = {"unit": analysis.unit}
     limits = bandwidth(analysis, settings)
-    put_with_why(document, "gain_db", limits.gain_db, limits.why.get("gain_db"))
-    document["ref_hz"] = limits.ref_hz
+    if settings.ref_hz is not None and analysis.why is None:
+        # gain_db is the gain at ref_hz (DESIGN 6); the pass-band reference is under "ref".
+        point = metric_at(analysis, "gain_db", settings.ref_hz.si)
+        put_with_why(document, "gain_db", point.value, point.why)
+        document["ref_hz"] = settings.ref_hz.si
+    else:
+        put_with_why(document, "gain_db", limits.gain_db, limits.why.get("gain_db"))
+        put_with_why(document, "ref_hz", limits.ref_hz,
+                     "settings.ref_hz is not set and the pass-band reference is the high-frequency limit"
+                     if limits.gain_db is not None else limits.why.get("gain_db"))
+    reference = limits.reference or passband_reference(analysis, settings)
+    document["ref"] = reference.as_dict()
     put_with_why(document, "peak_gain_db", limits.peak_gain_db, limits.why.get("peak_gain_db"))
     document["peak_hz"] = limits.peak_hz
     for key in ("f_low_3db_hz", "f_high_3db_hz", "peaking_db"):

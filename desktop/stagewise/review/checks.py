@@ -63,7 +63,9 @@ class CheckResult:
 
     ``value`` is in ``unit`` (``None`` for manual checks and when there is no value);
     ``why`` explains a ``no value``, a ``not met`` or a manual answer in one sentence;
-    ``at_hz`` is the frequency actually used (the reference frequency when the check gave none).
+    ``at_hz`` is the frequency actually used (the reference frequency when the check gave none);
+    ``reference`` names, in a few words, the pass-band gain a corner, peaking or attenuation
+    was taken against (from the provider's optional ``metric_reference_words``).
     """
 
     stage_id: str
@@ -77,6 +79,7 @@ class CheckResult:
     limits: str
     state: CheckState
     why: str | None
+    reference: str | None = None
 
     @property
     def passing(self) -> bool:
@@ -130,7 +133,9 @@ def evaluate_check(check: Check, stage: Stage, project: Project, provider: Metri
             why = f"waived by {who}: {waiver.justification} (without the waiver: {unwaived})"
             state = CheckState.WAIVED
         return CheckResult(stage.id, check.id, check.text, check.metric, check.where, at_hz, value, unit,
-                           limits, state, why)
+                           limits, state, why, reference)
+
+    reference: str | None = None
 
     entry = METRICS.get(check.metric)
     if entry is None:
@@ -153,6 +158,9 @@ def evaluate_check(check: Check, stage: Stage, project: Project, provider: Metri
         value, why = provider.metric_value(check.metric, check.where, stage.id, at_hz)
     except (ValueError, ArithmeticError) as error:
         return result(CheckState.NO_VALUE, None, f"the analysis failed: {error}", at_hz)
+    words_of = getattr(provider, "metric_reference_words", None)
+    if entry.referenced and value is not None and words_of is not None:
+        reference = words_of(check.metric, check.where, stage.id)
     if value is None:
         return result(CheckState.NO_VALUE, None, why or "the analysis gave no value and no reason", at_hz)
     if not math.isfinite(value):

@@ -18,6 +18,7 @@ from stagewise.model.validate import KNOWN_METRICS_HOOK
 
 __all__ = [
     "METRICS",
+    "PASSBAND",
     "WHERE_VALUES",
     "Metric",
     "metric",
@@ -28,6 +29,12 @@ __all__ = [
 WHERE_VALUES: Final = ("isolated", "in_chain", "chain")
 
 AtHzRule = Literal["required", "reference", "unused"]
+
+# What corners, peaking and attenuation are taken against (engine/metrics.py, passband_reference);
+# every record of such a value names it as ``ref`` {kind, f_hz, gain_db}.
+PASSBAND: Final = ("the pass-band gain: the DC gain of a low-pass shape, the high-frequency gain of a high-pass "
+                   "shape, the mid-band gain of a band-pass shape (from the pole/zero model); ref_hz only where it "
+                   "lies in a band-pass's flat mid-band or the shape has no pass-band gain of its own")
 
 _ALL: Final = WHERE_VALUES
 _STAGE: Final = ("isolated", "in_chain")
@@ -40,6 +47,9 @@ class Metric:
 
     ``at_hz`` says how a check's frequency is used: ``"required"`` (the check must give one),
     ``"reference"`` (optional; the project's ``settings.ref_hz`` when absent) or ``"unused"``.
+    ``reference`` says what the value is taken against: :data:`PASSBAND` for corners, peaking
+    and attenuation (their records carry ``ref``), else a few words (absolute values, the
+    isolated stage for loading errors) or empty where the question does not arise.
     """
 
     key: str
@@ -48,6 +58,12 @@ class Metric:
     at_hz: AtHzRule
     where: tuple[str, ...]
     description: str
+    reference: str = ""
+
+    @property
+    def referenced(self) -> bool:
+        """True when the value is taken against the response's pass-band reference (``ref``)."""
+        return self.reference == PASSBAND
 
     @property
     def needs_hz(self) -> bool:
@@ -57,19 +73,20 @@ class Metric:
 
 _TABLE: Final[tuple[Metric, ...]] = (
     Metric("gain_db", "Gain", "dB", "reference", _ALL,
-           "Magnitude of the voltage (or transimpedance) gain at the frequency, in decibels."),
+           "Magnitude of the voltage (or transimpedance) gain at the frequency, in decibels.",
+           "absolute, at at_hz (default settings.ref_hz)"),
     Metric("phase_deg", "Phase", "°", "required", _ALL,
            "Phase of the response at the frequency, unwrapped from the low end of the sweep."),
     Metric("peak_gain_db", "Peak gain", "dB", "unused", _ALL,
-           "Largest gain anywhere in the analysed band."),
+           "Largest gain anywhere in the analysed band.", "absolute (dB re 1 V/V, or dBΩ)"),
     Metric("peaking_db", "Peaking", "dB", "unused", _ALL,
-           "How far the peak gain rises above the reference gain (0 dB when it does not)."),
+           "How far the peak gain rises above the pass-band gain (0 dB when it does not).", PASSBAND),
     Metric("f_low_3db_hz", "Lower −3 dB corner", "Hz", "unused", _ALL,
-           "Lowest frequency where the gain is 3 dB below the reference gain."),
+           "Where the gain falls 3 dB below the pass-band gain, below the pass band.", PASSBAND),
     Metric("f_high_3db_hz", "Upper −3 dB corner", "Hz", "unused", _ALL,
-           "Highest frequency where the gain is 3 dB below the reference gain."),
+           "Where the gain falls 3 dB below the pass-band gain, above the pass band.", PASSBAND),
     Metric("attenuation_db", "Attenuation", "dB", "required", _ALL,
-           "Reference gain minus the gain at the frequency; positive when the signal is reduced."),
+           "Pass-band gain minus the gain at the frequency; positive when the signal is reduced.", PASSBAND),
     Metric("group_delay_s", "Group delay", "s", "required", _ALL,
            "Minus the derivative of phase with respect to angular frequency, at the frequency."),
     Metric("rise_s", "Rise time (10–90 %)", "s", "unused", _ALL,
@@ -87,7 +104,8 @@ _TABLE: Final[tuple[Metric, ...]] = (
     Metric("crossover_hz", "Loop crossover", "Hz", "unused", _STAGE,
            "Frequency where the loop gain of the stage's op-amp falls through 0 dB (lowest if several)."),
     Metric("loading_error_db_max", "Largest loading error", "dB", "unused", ("in_chain",),
-           "Largest difference over the band between the stage's gain in chain and isolated."),
+           "Largest difference over the band between the stage's gain in chain and isolated.",
+           "the same stage isolated (in chain minus isolated)"),
     Metric("zin_ohm", "Input impedance", "Ω", "reference", _STAGE,
            "Magnitude of the impedance seen into the stage's input (in chain: into the rest of the chain)."),
     Metric("zout_ohm", "Output impedance", "Ω", "reference", _STAGE,
