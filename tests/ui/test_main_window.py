@@ -480,15 +480,30 @@ def test_project_locked_elsewhere_is_offered_read_only_naming_the_holder(qtbot, 
     assert lock_path(sample_path).is_file()  # someone else's lock is left alone
 
 
-def test_new_project_starts_with_one_solvable_stage(window) -> None:  # type: ignore[no-untyped-def]
+def test_new_project_analyses_saves_and_opens_again(window, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    from stagewise.files.lock import lock_path
+    from stagewise.files.project_file import load_project
+
     window.new_project()
     project = window.document.project
     assert project.title == "New chain" and [s.name for s in project.stages] == ["First stage"]
     assert window.document.path is None and window.windowTitle().startswith("untitled.stagewise.json")
     assert window.wait_until_idle(60, formula=False)
-    _f, mag_db, _ = window.response_view.trace_data("chain")
-    # Common practice, no source: a series resistor into an open output passes the input unchanged (0 dB).
-    assert np.allclose(mag_db, 0.0, atol=1e-9)
+    # No view opens on an error: every header says its results are up to date.
+    for view in window.plot_views():
+        assert view.header.text() == "Up to date.", (type(view).__name__, view.header.text())
+    f_hz, mag_db, _ = window.response_view.trace_data("chain")
+    # Source: first-order RC low-pass H = 1/(1 + jωRC) (any circuits text), R = 1 kΩ, C = 10 nF.
+    expected = 1 / (1 + 2j * np.pi * f_hz * 1e3 * 10e-9)
+    np.testing.assert_allclose(mag_db, 20 * np.log10(np.abs(expected)), atol=1e-9)
+    path = tmp_path / "fresh.stagewise.json"
+    assert window.save_to(path)
+    assert lock_path(path).is_file()  # the first save of a new project takes the edit lock
+    reopened = load_project(path)  # the loader accepts what a new project saves
+    assert [stage.name for stage in reopened.stages] == ["First stage"]
+    assert window.open_path(path)
+    assert window.wait_until_idle(60, formula=False)
+    assert all(view.header.text() == "Up to date." for view in window.plot_views())
 
 
 def test_rapid_edits_never_wait_for_the_analysis_and_the_last_one_wins(window) -> None:  # type: ignore[no-untyped-def]

@@ -498,14 +498,16 @@ class Document(QObject):
 
 
 def blank_stage(name: str = "New stage") -> Stage:
-    """A new circuit stage that solves from the start: one series resistor, 1 kΩ.
+    """A new circuit stage that solves, saves and loads again from the start: an RC low-pass,
+    1 kΩ in series and 10 nF to node 0 (a corner near 15.9 kHz).
 
-    An empty stage would have no input or output node; the resistor gives both, and the user
-    replaces it.
+    An empty stage would have no input or output node; the two parts give both and a path to
+    the reference node, so every view has something true to show until the user replaces them.
     """
     stage_id = _ID_PATTERN.sub("-", name.strip().lower()).strip("-") or "stage"
     return Stage(id=stage_id, name=name,
-                 parts=[Part(ref="R1", type="R", nodes=["in", "out"], value=Quantity.of("1k"))])
+                 parts=[Part(ref="R1", type="R", nodes=["in", "out"], value=Quantity.of("1k")),
+                        Part(ref="C1", type="C", nodes=["out", "0"], value=Quantity.of("10n"))])
 
 
 def _same(old: object, new: object) -> bool:

@@ -73,7 +73,7 @@ def recovery_path(path: Path | None) -> Path:
 
 
 def empty_project() -> Project:
-    """A new project: one stage with a single series resistor, so that it solves at once."""
+    """A new project: one RC stage that solves, saves and opens again (see :func:`blank_stage`)."""
     return Project(title="New chain", revision="A", stages=[blank_stage("First stage")])
 
 
@@ -419,7 +419,9 @@ class MainWindow(QMainWindow):
 
     def _modified_changed(self, modified: bool) -> None:
         self.setWindowModified(modified)
-        if not modified:
+        if modified:
+            self.write_recovery()  # the first edit after opening or saving is covered at once
+        else:
             self._edit_autosave.stop()
 
     def _edited(self) -> None:
@@ -671,7 +673,8 @@ class MainWindow(QMainWindow):
         self._lock = lock
         if read_only:
             self.document.replace_project(self.document.project, path, read_only=True)
-        self.offer_recovery(path)
+        else:  # read-only: someone else holds the file, and the recovery copy is theirs
+            self.offer_recovery(path)
         add_recent(path)
         self._fill_recent()
         self._update_title()
@@ -827,11 +830,17 @@ class MainWindow(QMainWindow):
 
         if packet_sha256 is None:
             return
+        saved_before = not self.document.is_modified and self.document.path is not None
         try:
             self.document.record_event(
                 lambda project: record_packet(project, packet_sha256, who, file_sha256=file_sha256))
         except (ReviewError, EditRefused) as error:
             self._tell(f"{done}, but it could not be recorded in the audit trail: {error}")
+            return
+        # The project was saved for the packet; write the record at once, as the command line
+        # does, so that closing without saving cannot lose it.
+        if saved_before and self.document.path is not None and self.save_to(self.document.path):
+            self.show_message(f"{done}, SHA-256 {packet_sha256[:12]}…; recorded in the audit trail and saved.")
             return
         self.show_message(f"{done}, SHA-256 {packet_sha256[:12]}…; recorded in the audit trail, "
                           "which is written with the next save.")
@@ -961,6 +970,8 @@ class MainWindow(QMainWindow):
         except EditRefused as error:
             self.show_message(str(error))
             return False
+        if lock is not None and lock is self._lock:
+            self._lock = None  # opening the file this window holds again: keep its lock
         self._leave_current_file()
         self._lock = lock
         self._saved_snapshot = copy.deepcopy(project)
@@ -968,7 +979,8 @@ class MainWindow(QMainWindow):
         self.document.set_baseline(None)
         add_recent(path)
         self._fill_recent()
-        self.offer_recovery(path)
+        if not read_only:  # read-only: someone else holds the file, and the recovery copy is theirs
+            self.offer_recovery(path)
         self._after_switch()
         return True
 
@@ -988,7 +1000,8 @@ class MainWindow(QMainWindow):
         except LockError as error:
             holder = error.state.describe() if error.state is not None else str(error)
             if error.state is not None and error.state.mine:
-                return False, None
+                held = self._lock is not None and self._lock.path == error.state.path
+                return False, self._lock if held else None
             if not self.interactive:
                 return True, None
             box = QMessageBox(QMessageBox.Icon.Warning, "Project in use",
@@ -1010,8 +1023,10 @@ class MainWindow(QMainWindow):
             self._lock = None
 
     def _leave_current_file(self) -> None:
-        """Forget the current file: its recovery copy (changes were saved or discarded) and lock."""
-        self.remove_recovery()
+        """Forget the current file: the recovery copy this window wrote (its changes were saved or
+        discarded; a copy written by someone else, or left by a crash, stays) and the lock."""
+        if self._recovery_written:
+            self.remove_recovery()
         self._release_lock()
 
     def save(self) -> bool:
@@ -1050,7 +1065,7 @@ class MainWindow(QMainWindow):
             self._refuse(EditRefused(str(error)))
             return False
         old_path = self.document.path
-        if old_path is not None and old_path != path:
+        if old_path != path:  # a new name, or the first save of a new project: lock the file written
             self.remove_recovery()
             self._release_lock()
             with contextlib.suppress(Exception):
