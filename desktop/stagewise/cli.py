@@ -26,7 +26,8 @@ EXIT_OK = 0
 EXIT_FAILED = 1
 EXIT_ERROR = 2
 
-SUBCOMMANDS = ("gui", "analyze", "response", "check", "packet", "verify", "diff", "import-cards", "measure")
+SUBCOMMANDS = ("gui", "analyze", "response", "check", "packet", "verify", "diff", "merge", "import-cards",
+               "measure")
 
 
 MEASURE_HELP = """\
@@ -214,6 +215,19 @@ def build_parser() -> argparse.ArgumentParser:
                     "exit status: 0 no differences; 1 differences; 2 a file cannot be read.")
     diff.add_argument("old", metavar="OLD")
     diff.add_argument("new", metavar="NEW")
+
+    merge = _command(commands, "merge", "merge two edited copies of one project (usable as a git merge driver)",
+                     "OUT, written atomically, only when the copies merge: design edits part by part, review "
+                     "records by identity, both audit trails kept with a 'merge' event naming both heads; "
+                     "one line on stdout. On conflicts nothing is written and each conflict is printed on "
+                     "stderr with its JSON path and both values. As a git merge driver: "
+                     "stagewise merge %O %A %B -o %A",
+                     "exit status: 0 merged; 1 conflicts (OUT not written); 2 an input cannot be read.")
+    merge.add_argument("base", metavar="BASE", help="the common ancestor")
+    merge.add_argument("ours", metavar="OURS", help="our copy")
+    merge.add_argument("theirs", metavar="THEIRS", help="their copy")
+    merge.add_argument("-o", "--output", metavar="OUT", required=True, help="where to write the merged project")
+    merge.add_argument("--by", metavar="NAME", help="who merges (recorded in the merge event; default the login name)")
 
     cards = commands.add_parser(
         "import-cards", help="add a stage built from element-card text",
