@@ -2,6 +2,8 @@
 
 Whatever the document, loading ends either in a project or in a clean ProjectFileError whose
 every problem names a JSON path; never another exception, never a traceback for the user.
+Whatever a command writes loads again, and text from a file never reaches the terminal as
+control characters.
 """
 
 from __future__ import annotations
@@ -11,6 +13,7 @@ import json
 from pathlib import Path
 from typing import Any
 
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -103,3 +106,104 @@ def mutated_demo(draw: st.DrawFn) -> Any:
 @given(mutated_demo())
 def test_mutated_demo_gives_a_project_or_a_clean_error(document: Any) -> None:
     _load_cleanly(json.dumps(document, ensure_ascii=False))
+
+
+# -- write then load: anything a command writes loads again ------------------------------------
+
+# Text as a hostile file or user gives it: control characters, bidirectional controls, lone
+# surrogates, long unbroken words, newlines.
+hostile_text = st.text(
+    alphabet=st.one_of(st.characters(codec="utf-8"), st.sampled_from(["\x1b", "\x9b", "\n", "\r", "\x07", "\u202e",
+                                                                     "\ud800", "\x00", "\t"])),
+    max_size=40,
+)
+
+
+def _text_paths(node: Any, prefix: tuple[Any, ...] = ()) -> list[tuple[Any, ...]]:
+    """Paths of every string value (not keys) in a document."""
+    if isinstance(node, str):
+        return [prefix]
+    found: list[tuple[Any, ...]] = []
+    if isinstance(node, dict):
+        for key, value in node.items():
+            found.extend(_text_paths(value, (*prefix, key)))
+    elif isinstance(node, list):
+        for index, value in enumerate(node):
+            found.extend(_text_paths(value, (*prefix, index)))
+    return found
+
+
+def _set(document: Any, path: tuple[Any, ...], value: Any) -> None:
+    for piece in path[:-1]:
+        document = document[piece]
+    document[path[-1]] = value
+
+
+@st.composite
+def demo_with_hostile_text(draw: st.DrawFn) -> Any:
+    document = copy.deepcopy(draw(st.sampled_from(DEMOS[:2])))
+    paths = _text_paths(document)
+    for _ in range(draw(st.integers(min_value=1, max_value=4))):
+        path = draw(st.sampled_from(paths))
+        _set(document, path, draw(hostile_text))
+    return document
+
+
+def _save_then_load(project: Any, folder: Path) -> None:
+    """Save; the saved file must load again (or nothing is written and SaveRefused says why)."""
+    from stagewise.files.codec import dumps
+    from stagewise.files.project_file import SaveRefused, load_project, save_project
+
+    target = folder / "written.stagewise.json"
+    target.unlink(missing_ok=True)
+    try:
+        save_project(target, project)
+    except SaveRefused as error:
+        assert error.problems and "\n" not in str(error)
+        assert not target.exists()
+        return
+    again = load_project(target)
+    assert dumps(again) == target.read_text(encoding="utf-8")
+
+
+# Common practice, no source: a program must never write a file its own reader refuses.
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow,
+                                                                  HealthCheck.function_scoped_fixture])
+@given(document=mutated_demo(), title=hostile_text, detail=st.dictionaries(st.text(max_size=8), json_scalars,
+                                                                              max_size=3))
+def test_anything_a_command_writes_loads_again(tmp_path: Path, document: Any, title: str,
+                                               detail: dict[str, Any]) -> None:
+    from stagewise.review.audit import append_event
+
+    try:
+        project = loads_project(json.dumps(document, ensure_ascii=False), "fuzz.stagewise.json")
+    except ProjectFileError:
+        return
+    _save_then_load(project, tmp_path)
+    # What commands add: an audit event with a detail, a title typed by a user.
+    try:
+        append_event(project, "fuzz", "comment", detail)
+    except ValueError:
+        pass  # refused before anything changed (e.g. a detail that is not finite)
+    project.title = title
+    _save_then_load(project, tmp_path)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow,
+                                                                 HealthCheck.function_scoped_fixture])
+@given(document=demo_with_hostile_text())
+def test_control_characters_in_any_text_field_never_reach_the_terminal(
+        tmp_path: Path, document: Any, capsys: pytest.CaptureFixture[str]) -> None:
+    from stagewise.cli import main
+
+    path = tmp_path / "hostile.stagewise.json"
+    path.write_text(json.dumps(document), encoding="utf-8")  # \u escapes: a lone surrogate survives as JSON
+    other = tmp_path / "other.stagewise.json"
+    other.write_text(json.dumps(DEMOS[0], ensure_ascii=False), encoding="utf-8")
+    for command in (["verify", str(path)], ["diff", str(other), str(path)]):
+        main(command)
+        captured = capsys.readouterr()
+        for stream in (captured.out, captured.err):
+            for character in ("\x1b", "\x9b", "\x07", "\r", "\x00", "\u202e", "\ud800"):
+                assert character not in stream
+        assert captured.err.count("\n") <= 1  # an error is one line

@@ -13,6 +13,7 @@ import importlib
 import math
 from typing import Any
 
+from stagewise.cli import printable
 from stagewise.commands.common import print_json
 from stagewise.files.project_file import file_sha256, load_project
 from stagewise.model.project import Project
@@ -62,8 +63,10 @@ def _short(text: str, width: int) -> str:
 
 def _table(results: list[CheckResult]) -> list[str]:
     header = ("STAGE", "CHECK", "STATE", "VALUE", "LIMITS", "METRIC", "TEXT")
-    rows = [(r.stage_id, r.check_id, str(r.state), r.value_text() if r.metric else "", r.limits,
-             _metric_text(r), _short(r.text, TEXT_WIDTH)) for r in results]
+    # Every cell from the file is printed with its control characters escaped (ids, texts).
+    rows = [(printable(r.stage_id), printable(r.check_id), str(r.state), r.value_text() if r.metric else "",
+             printable(r.limits), printable(_metric_text(r)), _short(printable(r.text), TEXT_WIDTH))
+            for r in results]
     widths = [max(len(row[i]) for row in [header, *rows]) for i in range(len(header))]
     lines = []
     for row in [header, *rows]:
@@ -77,7 +80,8 @@ def _reasons(results: list[CheckResult]) -> list[str]:
     groups: dict[tuple[str, str], list[str]] = {}
     for r in results:
         if r.why and not r.passing:
-            groups.setdefault((str(r.state), r.why), []).append(f"{r.stage_id}/{r.check_id}")
+            groups.setdefault((str(r.state), printable(r.why)), []).append(
+                f"{printable(r.stage_id)}/{printable(r.check_id)}")
     lines = []
     for (state, why), names in groups.items():
         if len(names) <= 3:
@@ -116,7 +120,7 @@ def run(args: argparse.Namespace) -> int:
     if getattr(args, "json", False):
         print_json(_json(path, project, results))
         return 0 if counted.all_passing else 1
-    print(f"{project.title} (revision {project.revision or '—'}): {path}")
+    print(f"{printable(project.title)} (revision {printable(project.revision) or '—'}): {printable(path)}")
     print()
     if results:
         for line in _table(results):
@@ -131,5 +135,5 @@ def run(args: argparse.Namespace) -> int:
     print()
     print(counted.sentence())
     states = signoff_states(project)
-    print("sign-offs: " + ", ".join(f"{stage_id} {state.state}" for stage_id, state in states.items()))
+    print("sign-offs: " + ", ".join(f"{printable(stage_id)} {state.state}" for stage_id, state in states.items()))
     return 0 if counted.all_passing else 1

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 
+from stagewise.cli import printable
 from stagewise.commands.common import load
 from stagewise.review.diff import diff_projects
 
@@ -17,8 +18,8 @@ def run(args: argparse.Namespace) -> int:
     old = load(args.old)
     new = load(args.new)
     result = diff_projects(old, new)
-    print(f"--- {args.old}")
-    print(f"+++ {args.new}")
+    print(f"--- {printable(args.old)}")
+    print(f"+++ {printable(args.new)}")
     for line in result.lines():
-        print(line)
+        print(printable(line))  # ids, values and notes from the files: control characters escaped
     return 0 if result.empty else 1

@@ -18,7 +18,7 @@ import getpass
 import hashlib
 from pathlib import Path
 
-from stagewise.cli import CommandError
+from stagewise.cli import CommandError, printable
 from stagewise.commands.common import load, locked, read_input_file, stage_by_id
 from stagewise.files.cards import CardError, stage_from_cards
 from stagewise.files.project_file import save_project
@@ -82,8 +82,8 @@ def _import(args: argparse.Namespace, cards_path: Path, data: bytes) -> int:
         raise CommandError(f"{args.file}: after the import the project is not valid: " + "; ".join(problems))
     save_project(args.file, project)
     for note in notes:
-        print(f"{cards_path}: note: {note}.")
+        print(printable(f"{cards_path}: note: {note}."))
     where = f"after stage {project.stages[position - 1].id}" if position > 0 else "first in the chain"
-    print(f"Imported stage \"{stage.id}\" ({len(stage.parts)} parts) into {args.file}, {where} "
-          f"(stage {position + 1} of {len(project.stages)}).")
+    print(printable(f"Imported stage \"{stage.id}\" ({len(stage.parts)} parts) into {args.file}, {where} "
+                    f"(stage {position + 1} of {len(project.stages)})."))
     return 0

@@ -15,9 +15,8 @@ import getpass
 import re
 from pathlib import Path
 
-from stagewise.cli import CommandError
-from stagewise.commands.common import load, stage_by_id
-from stagewise.files.lock import LockError, acquire_lock
+from stagewise.cli import CommandError, printable
+from stagewise.commands.common import load, locked, stage_by_id
 from stagewise.files.measurements import MeasurementError, read_measurement
 from stagewise.files.project_file import save_project
 from stagewise.model.fingerprint import measurement_fingerprint
@@ -69,16 +68,8 @@ def run(args: argparse.Namespace) -> int:
         stage = stage_by_id(project, stage_id, args.file)
         if where == "in_chain" and stage.bypass:
             raise CommandError(f'stage "{stage_id}" is bypassed, so it has no place in the chain to measure')
-    try:
-        lock = acquire_lock(args.file, _who(args), take_stale=False)
-    except LockError as error:
-        if error.state is None:
-            raise CommandError(str(error)) from error
-        raise CommandError(f"{error}; close it there, or attach the measurement later") from error
-    try:
+    with locked(args.file, _who(args)):  # a stale lock is taken over with a line saying so
         return _attach(args, where, stage_id)
-    finally:
-        lock.release()
 
 
 def _attach(args: argparse.Namespace, where: str, stage_id: str | None) -> int:
@@ -119,8 +110,9 @@ def _attach(args: argparse.Namespace, where: str, stage_id: str | None) -> int:
                            + "; ".join(problems))
     save_project(args.file, project)
     place = "the whole chain" if stage_id is None else f'stage "{stage_id}" {where.replace("_", " ")}'
-    print(f'Attached measurement "{measurement.id}" ({data.points} points, {data.kind}) to {place} in {args.file}.')
-    print(f"  read: {data.source}; SHA-256 {data.sha256}")
+    print(printable(f'Attached measurement "{measurement.id}" ({data.points} points, {data.kind}) to {place} in '
+                    f"{args.file}."))
+    print(printable(f"  read: {data.source}; SHA-256 {data.sha256}"))
     _print_comparison(project, measurement)
     return 0
 
@@ -132,7 +124,7 @@ def _print_comparison(project: Project, measurement: Measurement) -> None:
     if measurement.kind == "step":
         step = comparison.step
         if step is None:
-            print(f"  step: {comparison.why.get('step', 'not measurable')}")
+            print(printable(f"  step: {comparison.why.get('step', 'not measurable')}"))
             return
         rise = "—" if step.rise_s is None else f"{step.rise_s:.4g} s"
         overshoot = "—" if step.overshoot_pct is None else f"{step.overshoot_pct:.3g} %"
@@ -140,7 +132,7 @@ def _print_comparison(project: Project, measurement: Measurement) -> None:
         print(f"  step: rise {rise}, overshoot {overshoot}, settling (1 %) {settle}")
         return
     if comparison.dev_db_max is None:
-        print(f"  deviation: {comparison.why.get('dev_db_max', 'could not be computed')}")
+        print(printable(f"  deviation: {comparison.why.get('dev_db_max', 'could not be computed')}"))
         return
     inside = ("—" if comparison.inside_spread_pct is None
               else f"{comparison.inside_spread_pct:.1f} % of points inside the predicted spread")

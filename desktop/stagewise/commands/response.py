@@ -16,7 +16,7 @@ import math
 
 import numpy as np
 
-from stagewise.cli import CommandError
+from stagewise.cli import CommandError, printable
 from stagewise.commands.common import load, parse_frequencies, print_json, stage_by_id
 from stagewise.model.values import format_value
 
@@ -46,7 +46,7 @@ def run(args: argparse.Namespace) -> int:
         if args.json:
             print_json(document)
         else:
-            print(f"{args.file}: {what}: no response, because {why}.")
+            print(printable(f"{args.file}: {what}: no response, because {why}."))
         return 1
     points = []
     for f_hz, value in zip(frequencies, np.asarray(values, dtype=complex), strict=True):
@@ -75,7 +75,7 @@ def _number(value: float | None, digits: int) -> str:
 
 def _print_table(path: str, what: str, unit: str, points: list[dict[str, float | None]]) -> None:
     """One row per frequency, columns aligned, units in the header."""
-    print(f"{path}: {what} ({unit})")
+    print(printable(f"{path}: {what} ({unit})"))
     header = ("frequency", "magnitude (dB)", "phase (°)", "real", "imaginary")
     rows = [(format_value(float(point["f_hz"] or 0.0), "Hz"), _number(point["mag_db"], 3),
              _number(point["phase_deg"], 2), f"{point['re']:.6g}", f"{point['im']:.6g}") for point in points]

@@ -20,10 +20,10 @@ from stagewise.review.audit import unrecorded_decisions, verify_trail
 def run(args: argparse.Namespace) -> int:
     project = load(args.file)
     result = verify_trail(project.audit)
-    print(f"{args.file}: {result.sentence()}.")
+    print(f"{printable(args.file)}: {printable(result.sentence())}.")
     problems = unrecorded_decisions(project)
     for problem in problems:
-        print(f"{args.file}: {printable(problem)}.")
+        print(f"{printable(args.file)}: {printable(problem)}.")
     if problems:
         print(f"{args.file}: {len(problems)} review record{'s' if len(problems) != 1 else ''} and audit "
               f"event{'s' if len(problems) != 1 else ''} do not match: written, edited or removed outside the "
