@@ -57,9 +57,10 @@ def test_alias_attenuation_of_a_single_pole_at_fs_minus_corner() -> None:
     assert result.noise_rms_v == pytest.approx(rms, rel=1e-6)
     assert result.noise_rms_lsb == pytest.approx(rms / (3.3 / 2**14), rel=1e-6)
     full_scale_rms = 3.3 / (2 * math.sqrt(2))  # Common practice, no source: sine rms = Vpp/(2√2)
-    assert result.snr_db == pytest.approx(20 * math.log10(full_scale_rms / rms), rel=1e-9)
+    assert result.snr_noise_only_db == pytest.approx(20 * math.log10(full_scale_rms / rms), rel=1e-9)
     quantization = 3.3 / 2**14 / math.sqrt(12)
-    assert result.snr_with_quantization_db == pytest.approx(
+    # Common practice, no source: uncorrelated noises add as powers; snr_db counts both.
+    assert result.snr_db == pytest.approx(
         20 * math.log10(full_scale_rms / math.hypot(rms, quantization)), rel=1e-9)
 
 

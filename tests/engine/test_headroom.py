@@ -53,6 +53,9 @@ def test_peak_swing_margin_and_slew_of_a_non_inverting_stage(swing: list[float],
     slope = TWO_PI * grid * h
     assert result.slew_needed_v_per_s == pytest.approx(slope.max(), rel=1e-9)
     assert result.slew_margin == pytest.approx(0.5e6 / slope.max(), rel=1e-9)
+    # The same margin in percent of the need: 100·(SR − needed)/needed.
+    entry = headroom_to_json([result])[0]
+    assert entry["slew_margin_pct"] == pytest.approx(100 * (0.5e6 - slope.max()) / slope.max(), rel=1e-9)
     # Margin to the nearer limit from the documented bias point.
     assert result.bias_v == pytest.approx(bias)
     assert result.swing_margin_v == pytest.approx(min(swing[1] - bias, bias - swing[0]) - h.max(), rel=1e-9)

@@ -131,7 +131,7 @@ def test_ideal_opamp_is_noiseless_and_says_so() -> None:
     assert result.out_rms_v == 0.0  # R1 is shorted by the zeroed voltage drive; the buffer is noiseless
     assert any("U1: ideal op-amp" in note for note in result.notes)
     document = noise_to_json(result, project.converter)
-    assert document["snr_db"] is None and "snr_db_why" in document
+    assert document["snr_noise_only_db"] is None and "snr_noise_only_db_why" in document
 
 
 def test_snr_against_full_scale_and_ideal_converter() -> None:

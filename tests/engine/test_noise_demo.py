@@ -45,7 +45,7 @@ def test_noise_budget_is_set_by_the_front_end(project: Project) -> None:
     assert math.sqrt(sum(s.out_rms_v**2 for s in result.sources)) == pytest.approx(result.out_rms_v, rel=1e-12)
     # The chain's SNR cannot beat the converter's ideal SNR by much while the chain noise is this
     # far above its LSB/√12 (IEEE Std 1241: 6.02·N + 1.76 dB).
-    assert document["snr_db"] is not None and document["ideal_converter_snr_db"] == pytest.approx(98.08)
+    assert document["snr_noise_only_db"] is not None and document["ideal_converter_snr_db"] == pytest.approx(98.08)
 
 
 def test_every_finite_opamp_has_a_phase_margin_isolated_and_in_chain(project: Project) -> None:

@@ -236,6 +236,19 @@ def test_chain_figures_match_analyze_json(printed: dict[str, Any], capsys: pytes
     noise = chain["noise"]
     assert _normal(f"Output noise (RMS) {format_value(noise['out_rms_v'], 'V')}") in text
     converter = chain["converter"]
-    assert _normal(f"SNR, chain noise against full-scale sine {converter['snr_db']:.4g} dB") in text
+    assert _normal(f"SNR, chain and quantization noise against full-scale sine {converter['snr_db']:.4g} dB") in text
     if chain["spread"]["yield_pct"] is not None:
         assert _normal(f"Yield against the checks {chain['spread']['yield_pct']:.4g} %") in text
+
+
+def test_cover_warns_of_every_automatic_finding(printed: dict[str, Any], capsys: pytest.CaptureFixture[str]) -> None:
+    # The findings `check` lists (instability, over-range, clipping, slew) stand on the cover.
+    main(["check", str(printed["path"]), "--json"])
+    findings = json.loads(capsys.readouterr().out)["findings"]
+    cover = _normal(printed["pages"][0])
+    if not findings:
+        assert "WARNING" not in cover
+        return
+    assert "WARNING" in cover
+    for item in findings:
+        assert _normal(item["text"]) in cover

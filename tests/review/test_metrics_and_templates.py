@@ -24,6 +24,7 @@ REQUIRED_KEYS = {
     # The DC accuracy budget's contract (its keys are metrics usable in checks).
     "dc_gain", "gain_error_pct", "offset_out_v", "drift_out_v_per_c", "total_wc_v", "total_rss_v",
     "total_wc_lsb", "total_rss_lsb", "total_wc_pct_fs",
+    "snr_noise_only_db", "converter_headroom_db", "swing_margin_v", "slew_margin_pct",
 }
 
 

@@ -1,7 +1,10 @@
 """`stagewise check FILE [--json]`: every check's state as an aligned table (or JSON).
 
-Exit 0 when every check is met, waived or answered n/a; 1 when any is not met, has no value or
-is a manual check still open (or answered no); 2 when the file cannot be read. Values come from
+Exit 0 when every check is met, waived or answered n/a and there is no automatic finding; 1 when
+any check is not met, has no value or is a manual check still open (or answered no), or when an
+automatic finding stands (an unstable stage or chain, over-range at the converter, an op-amp
+output that clips or is slew-limited: listed whether or not a check asks about them); 2 when
+the file cannot be read. Values come from
 the analysis engine (``stagewise.engine.analysis.metric_provider``); when that is not part of
 the build, numeric checks show "no value" with that reason: nothing is made up.
 """
@@ -18,7 +21,16 @@ from stagewise.commands.common import print_json
 from stagewise.files.project_file import file_sha256, load_project
 from stagewise.model.project import Project
 from stagewise.model.values import format_value
-from stagewise.review.checks import CheckResult, MetricProvider, UnavailableProvider, evaluate_project, totals
+from stagewise.review.checks import (
+    FINDING_WORDS,
+    AutomaticFinding,
+    CheckResult,
+    MetricProvider,
+    UnavailableProvider,
+    automatic_findings,
+    evaluate_project,
+    totals,
+)
 from stagewise.review.metrics import METRICS
 from stagewise.review.signoff import signoff_states
 from stagewise.review.words import WHERE_WORDS
@@ -91,7 +103,18 @@ def _reasons(results: list[CheckResult]) -> list[str]:
     return lines
 
 
-def _json(path: str, project: Project, results: list[CheckResult]) -> dict[str, Any]:
+def _finding_lines(findings: list[AutomaticFinding]) -> list[str]:
+    if not findings:
+        return []
+    width = max(len(FINDING_WORDS.get(item.kind, item.kind)) for item in findings)
+    lines = [f"automatic findings ({len(findings)}; not waivable, each fails the checklist):"]
+    lines += [f"  {FINDING_WORDS.get(item.kind, item.kind).upper().ljust(width)}  {printable(item.sentence)}"
+              for item in findings]
+    return lines
+
+
+def _json(path: str, project: Project, results: list[CheckResult],
+          findings: list[AutomaticFinding]) -> dict[str, Any]:
     def number(value: float | None) -> float | None:
         return value if value is not None and math.isfinite(value) else None
 
@@ -109,17 +132,22 @@ def _json(path: str, project: Project, results: list[CheckResult]) -> dict[str, 
                    "open": counted.open, "no_value": counted.no_value, "n/a": counted.not_applicable,
                    "total": counted.total},
         "signoffs": {stage_id: str(state.state) for stage_id, state in signoff_states(project).items()},
+        "findings": [{"kind": item.kind, "word": FINDING_WORDS.get(item.kind, item.kind), "stage": item.stage_id,
+                      "where": item.where, "ref": item.ref, "text": item.sentence} for item in findings],
     }
 
 
 def run(args: argparse.Namespace) -> int:
     path = str(args.file)
     project = load_project(path)
-    results = evaluate_project(project, metric_provider_for(project))
+    provider = metric_provider_for(project)
+    results = evaluate_project(project, provider)
+    findings = list(automatic_findings(provider))
     counted = totals(results)
+    passing = counted.all_passing and not findings
     if getattr(args, "json", False):
-        print_json(_json(path, project, results))
-        return 0 if counted.all_passing else 1
+        print_json(_json(path, project, results, findings))
+        return 0 if passing else 1
     print(f"{printable(project.title)} (revision {printable(project.revision) or '—'}): {printable(path)}")
     print()
     if results:
@@ -132,8 +160,13 @@ def run(args: argparse.Namespace) -> int:
         print()
         for line in reasons:
             print(line)
+    if findings:
+        print()
+        for line in _finding_lines(findings):
+            print(line)
     print()
-    print(counted.sentence())
+    print(counted.sentence() + (f"; {len(findings)} automatic finding{'s' if len(findings) != 1 else ''}"
+                                if findings else ""))
     states = signoff_states(project)
     print("sign-offs: " + ", ".join(f"{printable(stage_id)} {state.state}" for stage_id, state in states.items()))
-    return 0 if counted.all_passing else 1
+    return 0 if passing else 1

@@ -37,11 +37,14 @@ from stagewise.engine.chain import (
     merge_systems,
     merged_system,
 )
+from stagewise.engine.diagnostics import Finding
 from stagewise.engine.metrics import metric_at, put_with_why, reference_words, stage_metrics
 from stagewise.engine.mna import CircuitError, StageSystem
+from stagewise.engine.stability import Stability, stability_of_poles, stability_to_json
 from stagewise.engine.stage import StageAnalysis, analyze_stage, analyze_system
 from stagewise.engine.sweep import TWO_PI, DrivenSystem, drive, frequency_grid, solve_batched
 from stagewise.model.project import Check, Project, Stage
+from stagewise.model.values import format_value
 
 __all__ = ["ProjectAnalysis", "analyze_project", "metric_provider", "response_points"]
 
@@ -55,6 +58,17 @@ IDEAL_ONLY = "its op-amps are ideal (infinite gain): there is no loop gain to me
 STEP_KEYS = {"rise_s": "rise_s", "overshoot_pct": "overshoot_pct", "settle_1pct_s": "settle_1pct_s",
              "settle_01pct_s": "settle_0p1pct_s"}
 BAND_KEYS = ("peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz")
+# Response figures of an M that have no value when its system is unstable (the step fields say
+# so themselves, from the same poles).
+RESPONSE_KEYS = ("gain_db", "peak_gain_db", "peak_hz", "f_low_3db_hz", "f_high_3db_hz", "peaking_db")
+# Metrics computed on the whole merged chain, whatever place a check names.
+CHAIN_LEVEL_METRICS = frozenset({"noise_out_rms_v", "noise_in_rms", "snr_db", "snr_noise_only_db",
+                                 "alias_attenuation_db", "converter_headroom_db", "yield_pct", "headroom_v",
+                                 "slew_margin", "swing_margin_v", "slew_margin_pct"})
+# The places of a stage whose stability is a verdict of its own, in the order they are shown.
+STAGE_PLACES = ("isolated", "in_chain")
+PLACE_WORDS = {"isolated": "isolated", "in_chain": "in chain", "from_input": "seen from the chain's input",
+               "chain": "the whole chain"}
 POINT_KEYS = ("phase_deg", "attenuation_db", "group_delay_s")
 # DC budget metrics of the table -> keys of the place's ``dc`` document.
 DC_KEYS = {"dc_gain": "gain", "gain_error_pct": "gain_error_pct", "offset_out_v": "offset_out_v",
@@ -214,7 +228,8 @@ class ProjectAnalysis:
                 result[stage.id] = []
                 continue
             result[stage.id] = loops_module.loops_to_json(
-                loops_module.loop_gains(system, current_drive=stage.drive == "current"))
+                loops_module.loop_gains(system, current_drive=stage.drive == "current",
+                                        stability=self.stability("isolated", stage.id)))
         return result
 
     @cached_property
@@ -222,8 +237,8 @@ class ProjectAnalysis:
         merged = self.merged
         if isinstance(merged, _Failure):
             return merged
-        return loops_module.loops_to_json(loops_module.loop_gains(merged.system,
-                                                                  current_drive=merged.current_drive))
+        return loops_module.loops_to_json(loops_module.loop_gains(merged.system, current_drive=merged.current_drive,
+                                                                  stability=self.stability("chain", "")))
 
     def stage_chain_loops(self, stage_id: str) -> list[dict[str, Any]]:
         loops = self.chain_loops
@@ -419,6 +434,94 @@ class ProjectAnalysis:
         entry = result.stage(stage_id)
         return complex(entry.z_in_ohm[0]), complex(entry.z_out_ohm[0]), None
 
+    # -- stability and automatic findings ----------------------------------------------------
+
+    def stability(self, where: str, stage_id: str) -> Stability | None:
+        """The closed-loop verdict of a place (``None`` when that place cannot be analysed)."""
+        analysis = self._analysis_for(where, stage_id)
+        if isinstance(analysis, _Failure) or analysis.poles_rad_s is None:
+            return None
+        return stability_of_poles(analysis.poles_rad_s, analysis.cancelled)
+
+    def unstable_why(self, where: str, stage_id: str) -> str | None:
+        """One sentence when the place is unstable (its response metrics have no value), else ``None``."""
+        verdict = self.stability(where, stage_id)
+        if verdict is None or verdict.stable:
+            return None
+        subject = "the chain" if where == "chain" else f'stage "{stage_id}" {PLACE_WORDS.get(where, where)}'
+        return f"{subject} is unstable: {verdict.reason}; a response metric of an unstable system has no value"
+
+    def _metric_places(self, metric: str, where: str, stage_id: str) -> list[tuple[str, str]]:
+        """The places whose stability a check's value depends on."""
+        if metric in CHAIN_LEVEL_METRICS:
+            return [("chain", "")]
+        if metric == "loading_error_db_max":
+            return [("isolated", stage_id), ("in_chain", stage_id)]
+        return [(where, stage_id)]
+
+    def findings(self) -> list[Finding]:
+        """What fails whether or not anyone wrote a check: instability, over-range, clipping, slew.
+
+        Every stage isolated and in chain and the whole chain get a stability verdict; the
+        converter headroom and each op-amp's swing and slew margin for the declared input are
+        read from the chain (they are left out when the chain itself is unstable: their values
+        would mean nothing, and the instability is already a finding).
+        """
+        return list(self._findings)
+
+    @cached_property
+    def _findings(self) -> tuple[Finding, ...]:
+        found: list[Finding] = []
+        for stage in self.project.stages:
+            for place in STAGE_PLACES:
+                if place != "isolated" and stage.bypass:
+                    continue
+                verdict = self.stability(place, stage.id)
+                if verdict is not None and not verdict.stable:
+                    found.append(Finding("unstable", stage.id, place, None,
+                                         f'stage "{stage.id}" {PLACE_WORDS[place]} is unstable: {verdict.reason}'))
+        verdict = self.stability("chain", "")
+        if verdict is not None and not verdict.stable:
+            found.append(Finding("unstable", None, "chain", None, f"the chain is unstable: {verdict.reason}"))
+            return tuple(found)
+        found.extend(self._range_findings())
+        return tuple(found)
+
+    def _range_findings(self) -> list[Finding]:
+        found: list[Finding] = []
+        converter = self.converter
+        headroom_db = None if isinstance(converter, _Failure) else converter.get("converter_headroom_db")
+        if isinstance(converter, dict) and headroom_db is not None and headroom_db < 0:
+            amplitude = self.project.input.amplitude
+            unit = "A" if self.project.input.drive == "current" else "V"
+            declared = "" if amplitude is None else f" ({format_value(amplitude.si, unit)} peak)"
+            found.append(Finding(
+                "over_range", None, "chain", None,
+                f"the converter input is over-range: the declared input{declared} gives "
+                f"{format_value(converter['converter_peak_v'], 'V')} peak at "
+                f"{format_value(converter['converter_peak_hz'], 'Hz')} against a full scale of "
+                f"±{format_value(converter['full_scale_vpp'] / 2, 'V')} ({headroom_db:.3g} dB of headroom)"))
+        headroom = self.headroom
+        if isinstance(headroom, _Failure):
+            return found
+        for entry in headroom:
+            ref = str(entry["ref"])
+            stage_id = ref.split(":", 1)[0] if ":" in ref else None
+            margin = entry.get("swing_margin_v")
+            if margin is not None and margin < 0:
+                found.append(Finding("swing", stage_id, "chain", ref,
+                                     f"op-amp {ref} clips: its output needs {format_value(entry['peak_v'], 'V')} peak "
+                                     f"at {format_value(entry['at_hz'], 'Hz')}, {format_value(-margin, 'V')} beyond "
+                                     f"its swing ({_swing_text(entry)}) for the declared input"))
+            slew = entry.get("slew_margin_pct")
+            if slew is not None and slew < 0:
+                found.append(Finding("slew", stage_id, "chain", ref,
+                                     f"op-amp {ref} is slew-limited: its output needs "
+                                     f"{format_value(entry['slew_needed_v_per_s'], 'V/s')} at "
+                                     f"{format_value(entry['slew_at_hz'], 'Hz')}, {-slew:.3g} % more than its "
+                                     "slew rate, for the declared input"))
+        return found
+
     # -- the metric provider for checks ------------------------------------------------------
 
     def _analysis_for(self, where: str, stage_id: str) -> StageAnalysis | _Failure:
@@ -434,6 +537,10 @@ class ProjectAnalysis:
         """A check's metric (DESIGN section 4), or ``(None, why)``. Units as in the metric table."""
         if self.project.stage(stage_id) is None:
             return None, f'there is no stage "{stage_id}"'
+        for place, place_stage in self._metric_places(metric, where, stage_id):
+            unstable = self.unstable_why(place, place_stage)
+            if unstable is not None:
+                return None, unstable
         try:
             return self._metric_value(metric, where, stage_id, at_hz)
         except (ValueError, np.linalg.LinAlgError) as error:
@@ -488,18 +595,17 @@ class ProjectAnalysis:
             if not math.isfinite(magnitude):
                 return None, "the impedance is infinite there (an open circuit)"
             return magnitude, None
-        if metric in ("noise_out_rms_v", "noise_in_rms", "snr_db"):
+        if metric in ("noise_out_rms_v", "noise_in_rms"):
             noise = self.noise
             if isinstance(noise, _Failure):
                 return None, noise.why
-            key = {"noise_out_rms_v": "out_rms_v", "noise_in_rms": "in_rms", "snr_db": "snr_db"}[metric]
-            return _document_value(noise, key)
-        if metric == "alias_attenuation_db":
+            return _document_value(noise, {"noise_out_rms_v": "out_rms_v", "noise_in_rms": "in_rms"}[metric])
+        if metric in ("alias_attenuation_db", "snr_db", "snr_noise_only_db", "converter_headroom_db"):
             converter = self.converter
             if isinstance(converter, _Failure):
                 return None, converter.why
-            return _document_value(converter, "alias_attenuation_db")
-        if metric in ("headroom_v", "slew_margin"):
+            return _document_value(converter, metric)
+        if metric in ("headroom_v", "swing_margin_v", "slew_margin", "slew_margin_pct"):
             return self._headroom_value(metric, where, stage_id)
         if metric in ("measured_dev_db_max", "measured_dev_deg_max", "measured_inside_spread_pct"):
             return self._measured_value(metric, where, stage_id)
@@ -577,7 +683,7 @@ class ProjectAnalysis:
         entries = headroom
         if where == "in_chain":
             entries = [entry for entry in entries if str(entry.get("ref", "")).startswith(f"{stage_id}:")]
-        key = "swing_margin_v" if metric == "headroom_v" else "slew_margin"
+        key = "swing_margin_v" if metric == "headroom_v" else metric
         values = [float(entry[key]) for entry in entries if entry.get(key) is not None]
         if values:
             return min(values), None
@@ -592,7 +698,17 @@ class ProjectAnalysis:
         key = (where, stage_id if where != "chain" else "")
         cache = self._documents
         if key not in cache:
-            cache[key] = stage_metrics(analysis, self.project.settings)
+            document = stage_metrics(analysis, self.project.settings)
+            verdict = stability_of_poles(analysis.poles_rad_s, analysis.cancelled)
+            document["stability"] = stability_to_json(verdict)
+            if not verdict.stable:
+                why = (f"the system is unstable: {verdict.reason}; "
+                       "a response metric of an unstable system has no value")
+                for name in RESPONSE_KEYS:
+                    if name in document:
+                        document[name] = None
+                        document[f"{name}_why"] = why
+            cache[key] = document
         return cache[key]
 
     @cached_property
@@ -674,13 +790,9 @@ class ProjectAnalysis:
                 document[f"{key}_why"] = piece.why
             else:
                 document[key] = piece
-        noise = document.get("noise")
-        if isinstance(noise, dict):
-            put_with_why(document, "snr_db", noise.get("snr_db"), noise.get("snr_db_why"))
-        else:
-            put_with_why(document, "snr_db", None, document.get("noise_why"))
-        value, why = self.metric_value("alias_attenuation_db", "chain", self.project.stages[0].id, None)
-        put_with_why(document, "alias_attenuation_db", value, why)
+        for key in ("snr_db", "snr_noise_only_db", "alias_attenuation_db", "converter_headroom_db"):
+            value, why = self.metric_value(key, "chain", self.project.stages[0].id, None)
+            put_with_why(document, key, value, why)
         dc, dc_why = self.dc_document("chain", "")
         put_with_why(document, "dc", dc, dc_why)
         if self.with_spread:
@@ -714,6 +826,15 @@ class ProjectAnalysis:
         document["measurements"] = [comparison_to_json(item) for item in self.measurements]
         ready: dict[str, Any] = _json_ready(document)
         return ready
+
+
+def _swing_text(entry: dict[str, Any]) -> str:
+    """``bias 0 V, limits −2.45 … 2.45 V`` from a headroom entry (as much as it knows)."""
+    bias = entry.get("bias_v")
+    low, high = entry.get("swing_low_v"), entry.get("swing_high_v")
+    if low is not None and high is not None:
+        return f"{format_value(low, 'V')} … {format_value(high, 'V')} about {format_value(bias or 0.0, 'V')}"
+    return f"biased at {format_value(bias or 0.0, 'V')}"
 
 
 def _reference_hz(project: Project) -> float | None:

@@ -9,6 +9,17 @@ top of ``settings.noise_band_hz`` (the band the user cares about), as the result
 Levels: ``LSB = full_scale_vpp / 2^bits``; ideal quantization noise ``LSB/√12`` rms; ideal SNR
 of a full-scale sine ``6.02·N + 1.76 dB``; a full-scale sine has rms ``full_scale_vpp/(2√2)``.
 
+SNR: ``snr_db`` is a full-scale sine against the chain's output noise plus the converter's ideal
+quantization noise, added as powers (uncorrelated): ``20·log10(FS_rms / √(n_chain² + q²))``;
+``snr_noise_only_db`` is the same sine against the chain's noise alone. With no chain noise,
+``snr_db`` is the ideal converter's 6.02·N + 1.76 dB.
+
+Over-range: ``converter_headroom_db = 20·log10((full_scale_vpp/2) / peak)``, with ``peak`` the
+largest amplitude at the chain's output (the converter input) for the declared input
+amplitude at any frequency of the analysis band (``max_f |H(f)|·amplitude``, on the grid).
+Negative means the converter is driven past full scale. It takes the signal centred in the
+converter's range (a DC offset or bias error is not seen here).
+
 References
 ----------
 IEEE Std 1241, Terminology and Test Methods for Analog-to-Digital Converters (LSB = FSR/2^N,
@@ -57,7 +68,10 @@ class ConverterResult:
     noise_rms_v: float | None
     noise_rms_lsb: float | None
     snr_db: float | None
-    snr_with_quantization_db: float | None
+    snr_noise_only_db: float | None
+    converter_peak_v: float | None
+    converter_peak_hz: float | None
+    converter_headroom_db: float | None
     whys: dict[str, str]
     notes: tuple[str, ...]
 
@@ -133,7 +147,7 @@ def converter_review(system: StageSystem, project: Project, *, current_drive: bo
         lsb = full_scale / 2.0**bits
         quantization = lsb / math.sqrt(12.0)
     else:
-        for key in ("lsb_v", "quantization_noise_v_rms", "noise_rms_lsb", "snr_with_quantization_db"):
+        for key in ("lsb_v", "quantization_noise_v_rms", "noise_rms_lsb", "snr_db"):
             whys[key] = "the converter's bits and full_scale_vpp are both needed"
     if bits is not None:
         ideal = ideal_converter_snr_db(bits)
@@ -184,42 +198,62 @@ def converter_review(system: StageSystem, project: Project, *, current_drive: bo
                     whys["alias_attenuation_db"] = f"the chain's gain at the reference {ref_hz:g} Hz is zero"
                 else:
                     attenuation = 20.0 * math.log10(float(values[0] / values[1]))
-    noise_rms = noise_lsb = snr = snr_total = None
+    noise_rms = noise_lsb = snr_chain = snr_total = None
     if noise is None:
-        for key in ("noise_rms_v", "noise_rms_lsb", "snr_db", "snr_with_quantization_db"):
+        for key in ("noise_rms_v", "noise_rms_lsb", "snr_db", "snr_noise_only_db"):
             whys.setdefault(key, "the chain's noise was not computed")
     else:
         noise_rms = noise.out_rms_v
         if lsb is not None:
             noise_lsb = noise_rms / lsb
         if full_scale is None:
-            whys["snr_db"] = "the converter's full_scale_vpp is not given"
-        elif noise_rms > 0:
-            full_scale_rms = full_scale / (2.0 * math.sqrt(2.0))
-            snr = 20.0 * math.log10(full_scale_rms / noise_rms)
-            if quantization is not None:
-                snr_total = 20.0 * math.log10(full_scale_rms / math.hypot(noise_rms, quantization))
+            whys["snr_noise_only_db"] = whys["snr_db"] = "the converter's full_scale_vpp is not given"
         else:
-            whys["snr_db"] = "the output noise is zero (no noise source in the model)"
-            if quantization is not None:
-                snr_total = 20.0 * math.log10(full_scale / (2.0 * math.sqrt(2.0)) / quantization)
+            full_scale_rms = full_scale / (2.0 * math.sqrt(2.0))
+            if noise_rms > 0:
+                snr_chain = 20.0 * math.log10(full_scale_rms / noise_rms)
+            else:
+                whys["snr_noise_only_db"] = "the output noise is zero (no noise source in the model)"
+            if quantization is not None and math.hypot(noise_rms, quantization) > 0:
+                snr_total = 20.0 * math.log10(full_scale_rms / math.hypot(noise_rms, quantization))
+    peak = peak_hz = headroom_db = None
+    amplitude = project.input.amplitude
+    if full_scale is None:
+        whys["converter_headroom_db"] = "the converter's full_scale_vpp is not given"
+    elif amplitude is None:
+        whys["converter_headroom_db"] = "project input.amplitude is not given"
+    else:
+        grid = frequency_grid(project.settings)
+        magnitude = np.abs(_output_transfer(system, current_drive, grid)) * float(amplitude.si)
+        at = int(np.argmax(magnitude))
+        peak, peak_hz = float(magnitude[at]), float(grid[at])
+        if peak > 0:
+            headroom_db = 20.0 * math.log10(0.5 * full_scale / peak)
+        else:
+            whys["converter_headroom_db"] = "the chain's output does not respond to its input"
+    for key in ("converter_peak_v", "converter_peak_hz"):
+        if peak is None:
+            whys[key] = whys.get("converter_headroom_db", "not computed")
     return ConverterResult(
         fs_hz=fs, bits=bits, full_scale_vpp=full_scale, lsb_v=lsb, quantization_noise_v_rms=quantization,
         ideal_snr_db=ideal, ref_hz=ref_hz, f_pass_hz=f_pass, f_pass_source=source, alias_hz=alias,
-        alias_attenuation_db=attenuation, noise_rms_v=noise_rms, noise_rms_lsb=noise_lsb, snr_db=snr,
-        snr_with_quantization_db=snr_total, whys=whys, notes=tuple(notes),
+        alias_attenuation_db=attenuation, noise_rms_v=noise_rms, noise_rms_lsb=noise_lsb, snr_db=snr_total,
+        snr_noise_only_db=snr_chain, converter_peak_v=peak, converter_peak_hz=peak_hz,
+        converter_headroom_db=headroom_db, whys=whys, notes=tuple(notes),
     )
 
 
 def converter_to_json(result: ConverterResult) -> dict[str, Any]:
     """The ``converter`` object: ``fs_hz``, ``bits``, ``full_scale_vpp``, ``lsb_v``,
     ``quantization_noise_v_rms``, ``ideal_snr_db``, ``ref_hz``, ``f_pass_hz``, ``f_pass_source``,
-    ``alias_hz``, ``alias_attenuation_db``, ``noise_rms_v``, ``noise_rms_lsb``, ``snr_db``,
-    ``snr_with_quantization_db``, ``notes``; a ``*_why`` beside every null. The chain-level
-    ``alias_attenuation_db`` (DESIGN section 6) is the same value as in this object."""
+    ``alias_hz``, ``alias_attenuation_db``, ``noise_rms_v``, ``noise_rms_lsb``, ``snr_db`` (with
+    quantization noise), ``snr_noise_only_db``, ``converter_peak_v``, ``converter_peak_hz``,
+    ``converter_headroom_db``, ``notes``; a ``*_why`` beside every null. The chain-level
+    ``alias_attenuation_db``, ``snr_db``, ``snr_noise_only_db`` and ``converter_headroom_db``
+    (DESIGN section 6) are the same values as in this object."""
     keys = ("fs_hz", "bits", "full_scale_vpp", "lsb_v", "quantization_noise_v_rms", "ideal_snr_db", "ref_hz",
             "f_pass_hz", "f_pass_source", "alias_hz", "alias_attenuation_db", "noise_rms_v", "noise_rms_lsb",
-            "snr_db", "snr_with_quantization_db")
+            "snr_db", "snr_noise_only_db", "converter_peak_v", "converter_peak_hz", "converter_headroom_db")
     document: dict[str, Any] = {}
     for key in keys:
         value = getattr(result, key)

@@ -37,13 +37,44 @@ from numpy.typing import NDArray
 from stagewise.engine.mna import StageSystem
 from stagewise.engine.sweep import drive
 
-__all__ = ["Diagnosis", "diagnose", "is_singular"]
+__all__ = ["FINDING_KINDS", "Diagnosis", "Finding", "diagnose", "is_singular"]
 
 # Generic evaluation points, in units of the pencil's own frequency scale: irrational, complex,
 # so that no pole or zero of a real circuit lands on them.
 _PROBES = (complex(0.2113, 1.3247), complex(0.0731, 0.5772))
 SINGULAR_RTOL = 1e-12
 COMPONENT_SHARE = 0.05
+
+
+# What an automatic finding can be (the words shown for each are in ``review.checks``).
+FINDING_KINDS = ("unstable", "over_range", "swing", "slew")
+
+
+@dataclass(frozen=True, slots=True)
+class Finding:
+    """Something that fails a design whether or not a check asks about it.
+
+    Attributes
+    ----------
+    kind : str
+        One of :data:`FINDING_KINDS`: ``unstable`` (a pole on or right of the jω axis),
+        ``over_range`` (the converter input exceeds full scale for the declared input), ``swing``
+        (an op-amp output needs more than its swing), ``slew`` (more than its slew rate).
+    stage_id : str or None
+        The stage it belongs to (``None`` for the chain and the converter).
+    where : str
+        ``isolated``, ``in_chain``, ``from_input`` or ``chain``: where it was found.
+    ref : str or None
+        The op-amp (``stage:U1``) for swing and slew.
+    sentence : str
+        One sentence saying what and how much.
+    """
+
+    kind: str
+    stage_id: str | None
+    where: str
+    ref: str | None
+    sentence: str
 
 
 @dataclass(frozen=True, slots=True)

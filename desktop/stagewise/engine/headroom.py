@@ -10,7 +10,9 @@ peak between grid points is not refined.
 Swing margin: the output is assumed biased at 0 V when its swing limits straddle 0 V (a split
 supply), otherwise at the middle of the swing (a single-supply stage biased mid-rail); the
 margin is the distance from the bias to the nearer limit minus the signal peak. Negative means
-clipping. Slew margin is the ratio model slew rate / slew rate needed (below 1: slew-limited).
+clipping. Slew margin is the ratio model slew rate / slew rate needed (below 1: slew-limited);
+``slew_margin_pct`` says the same as a percentage, ``100·(slew rate − needed)/needed``: how much
+faster the op-amp can slew than the signal asks (negative: slew-limited).
 
 This is a small-signal estimate: it does not see offsets, bias errors or the converter's
 common-mode range (DESIGN section 9).
@@ -147,8 +149,9 @@ def headroom(system: StageSystem, project: Project, *, current_drive: bool,
 
 def headroom_to_json(results: tuple[HeadroomResult, ...] | list[HeadroomResult]) -> list[dict[str, Any]]:
     """The DESIGN section 6 ``headroom`` list: per op-amp ``ref``, ``peak_v``, ``at_hz``,
-    ``swing_margin_v``, ``slew_needed_v_per_s``, ``slew_margin`` (model slew / needed), plus
-    ``bias_v`` and ``slew_at_hz``; a ``*_why`` beside every null."""
+    ``swing_margin_v``, ``slew_needed_v_per_s``, ``slew_margin`` (model slew / needed),
+    ``slew_margin_pct`` (100·(model slew − needed)/needed), plus
+    ``bias_v``, ``swing_low_v``, ``swing_high_v`` and ``slew_at_hz``; a ``*_why`` beside every null."""
     document: list[dict[str, Any]] = []
     for result in results:
         entry: dict[str, Any] = {
@@ -156,20 +159,24 @@ def headroom_to_json(results: tuple[HeadroomResult, ...] | list[HeadroomResult])
             "peak_v": result.peak_v,
             "at_hz": result.at_hz,
             "bias_v": result.bias_v,
+            "swing_low_v": result.swing_low_v,
+            "swing_high_v": result.swing_high_v,
             "swing_margin_v": result.swing_margin_v,
             "slew_needed_v_per_s": result.slew_needed_v_per_s,
             "slew_at_hz": result.slew_at_hz,
             "slew_margin": None if result.slew_margin is None or math.isinf(result.slew_margin)
             else result.slew_margin,
         }
+        entry["slew_margin_pct"] = None if entry["slew_margin"] is None else 100.0 * (entry["slew_margin"] - 1.0)
         if result.peak_v is None:
             for key in ("peak_v", "at_hz", "slew_needed_v_per_s", "slew_at_hz"):
                 entry[f"{key}_why"] = result.peak_why
         if result.swing_margin_v is None:
-            entry["swing_margin_v_why"] = result.swing_why
-            entry["bias_v_why"] = result.swing_why
+            for key in ("swing_margin_v", "bias_v", "swing_low_v", "swing_high_v"):
+                entry[f"{key}_why"] = result.swing_why
         if entry["slew_margin"] is None:
             entry["slew_margin_why"] = (result.slew_why if result.slew_margin is None
                                         else "no slew is needed (the output does not move)")
+            entry["slew_margin_pct_why"] = entry["slew_margin_why"]
         document.append(entry)
     return document

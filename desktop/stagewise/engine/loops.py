@@ -11,12 +11,26 @@ impedances, output resistance, input capacitances, the next stage in a merged ch
 The drive is zeroed: a voltage drive becomes a short at the input, a current drive an open
 input.
 
+Which method decides what. Whether the loop is stable is not read from the margins: it is the
+closed loop's verdict (:mod:`stagewise.engine.stability`: every finite eigenvalue of the
+drive-zeroed pencil, which is the closed loop, strictly in the left half-plane). The Bode
+margins answer "how far from instability" only for a loop already known to be stable; a loop
+that is unstable open-loop, or wired with positive feedback, can show any phase margin at all.
+So the margins are reported only when the closed loop is stable, and null with the unstable
+pole named otherwise.
+
 Crossover is where ``|T| = 1`` (the highest downward crossing), refined by bisection in log f on
-exact solves; phase margin is ``180° + ∠T`` there, with the phase unwrapped from the lowest
-frequency of the grid. Gain margin is ``−20·log10|T|`` where the unwrapped phase crosses
-``−180°`` (an odd multiple of 180°); when there are several (a conditionally stable loop), the
-one nearest instability is reported: the smallest |margin| in dB, which is negative when the
-gain would have to fall (not rise) by that much to reach instability.
+exact solves. When ``|T|`` passes through 1 several times, the phase margin is the smallest over
+every crossing (up or down) of the angular distance from ``T`` to −1, ``180° − |∠T|`` with the
+angle taken in (−180°, 180°]: for an ordinary loop (phase between −180° and 0° at crossover)
+this is the familiar ``180° + ∠T``. Gain margin is ``−20·log10|T|`` where the unwrapped phase
+crosses ``−180°`` (an odd multiple of 180°); when there are several (a conditionally stable
+loop), the one nearest instability is reported: the smallest |margin| in dB, which is negative
+when the gain would have to fall (not rise) by that much to reach instability.
+
+A loop gain of exactly zero (nothing carries the op-amp's output back to its inputs in this
+circuit, e.g. a transimpedance stage placed behind a voltage drive that shorts its input) is
+"no loop": every figure null with that reason, never an error.
 
 References
 ----------
@@ -34,12 +48,16 @@ import numpy as np
 from numpy.typing import NDArray
 
 from stagewise.engine.mna import CircuitError, OpampStates, StageSystem, assemble
+from stagewise.engine.poles import SingularPencilError, finite_eigenvalues
+from stagewise.engine.stability import Stability, stability_of_poles
 from stagewise.engine.sweep import drive
 from stagewise.model.project import Project, Stage
 
 __all__ = [
     "IDEAL_WHY",
+    "NO_LOOP_WHY",
     "LoopResult",
+    "closed_loop_stability",
     "chain_loops",
     "loop_gain",
     "loop_gains",
@@ -49,6 +67,8 @@ __all__ = [
 
 TWO_PI = 2.0 * math.pi
 IDEAL_WHY = "ideal op-amp: infinite gain, no loop to measure"
+NO_LOOP_WHY = ("the loop gain is zero at every frequency: nothing carries the op-amp's output back to its "
+               "inputs in this circuit (no loop)")
 POINTS_PER_DECADE = 60
 BISECTION_STEPS = 60
 
@@ -125,8 +145,13 @@ def _bisect(function: Any, low: float, high: float) -> float:
     return math.sqrt(low * high)
 
 
+def _wrapped_deg(value: complex) -> float:
+    """The angle of ``value`` in degrees, in (−180°, 180°]."""
+    return math.degrees(math.atan2(value.imag, value.real))
+
+
 def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates,
-              f_hz: NDArray[np.float64]) -> LoopResult:
+              f_hz: NDArray[np.float64], stability: Stability | None = None) -> LoopResult:
     """Loop gain and margins of one op-amp of a drive-zeroed pencil (G, C).
 
     Parameters
@@ -137,10 +162,16 @@ def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates
         The op-amp whose loop is broken.
     f_hz : ndarray
         Log-spaced search grid in hertz, ascending.
+    stability : Stability, optional
+        The closed loop's verdict; when it is unstable the margins are null with its reason.
+        ``None``: not known (the margins are computed regardless).
     """
     opened = _broken(g, opamp)
     values = _evaluate(opened, c, opamp, f_hz)
     magnitude = np.abs(values)
+    if not np.any(magnitude > 0):
+        return LoopResult(opamp.ref, None, None, None, None, NO_LOOP_WHY, NO_LOOP_WHY, NO_LOOP_WHY,
+                          np.asarray(f_hz, dtype=float), values)
     phase = np.unwrap(np.angle(values))
 
     def exact(frequency: float) -> complex:
@@ -154,6 +185,7 @@ def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates
     crossover_why = margin_why = None
     above = magnitude >= 1.0
     downward = np.flatnonzero(above[:-1] & ~above[1:])
+    crossings_of_one = np.flatnonzero(above[:-1] != above[1:])
     if not above.any():
         crossover_why = (f"|T| stays below 1 from {f_hz[0]:.3g} to {f_hz[-1]:.3g} Hz "
                          f"(at most {20 * math.log10(float(magnitude.max())):.1f} dB): no crossover")
@@ -164,8 +196,15 @@ def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates
     else:
         top = int(downward[-1])
         crossover = _bisect(lambda f: abs(exact(f)) - 1.0, float(f_hz[top]), float(f_hz[top + 1]))
-        phase_deg = math.degrees(near_branch(exact(crossover), float(phase[top])))
-        margin = 180.0 + phase_deg
+        # The smallest distance to −1 over every unit-gain crossing (several in a loop with
+        # resonances); at the only crossing of an ordinary loop this is 180° + ∠T.
+        margins = []
+        for crossing_of_one in crossings_of_one:
+            at = int(crossing_of_one)
+            where = crossover if at == top else _bisect(lambda f: abs(exact(f)) - 1.0,
+                                                        float(f_hz[at]), float(f_hz[at + 1]))
+            margins.append(180.0 - abs(_wrapped_deg(exact(where))))
+        margin = min(margins)
     if crossover is None:
         margin_why = "no crossover: " + (crossover_why or "")
     # Phase crossings through odd multiples of 180°.
@@ -188,11 +227,21 @@ def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates
                 return near_branch(exact(f), reference) - target
 
             where = _bisect(offset, float(f_hz[index]), float(f_hz[index + 1]))
-            margin_db = -20.0 * math.log10(abs(exact(where)))
+            size = abs(exact(where))
+            if size == 0:
+                continue
+            margin_db = -20.0 * math.log10(size)
             if best is None or abs(margin_db) < abs(best[0]):
                 best = (margin_db, where)
-        assert best is not None
-        gain_margin, phase_crossover = best
+        if best is None:
+            gain_margin_why = "the loop gain is zero where its phase reaches −180°"
+        else:
+            gain_margin, phase_crossover = best
+    if stability is not None and not stability.stable:
+        unstable = (f"the closed loop is unstable ({stability.reason}): margins describe how far a stable "
+                    "loop is from instability, so they have no value here")
+        margin = gain_margin = phase_crossover = None
+        margin_why = gain_margin_why = unstable
     return LoopResult(
         ref=opamp.ref,
         crossover_hz=crossover,
@@ -207,14 +256,26 @@ def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates
     )
 
 
+def closed_loop_stability(system: StageSystem, *, current_drive: bool) -> Stability | None:
+    """The verdict from every finite eigenvalue of the drive-zeroed pencil (the closed loop).
+
+    ``None`` when the pencil is singular for every s (the stage has no unique solution).
+    """
+    driven = drive(system, current_drive)
+    try:
+        return stability_of_poles(finite_eigenvalues(driven.g, driven.c))
+    except (SingularPencilError, np.linalg.LinAlgError):
+        return None
+
+
 def _ideal(ref: str) -> LoopResult:
     empty_f: NDArray[np.float64] = np.zeros(0)
     empty_t: NDArray[np.complex128] = np.zeros(0, dtype=complex)
     return LoopResult(ref, None, None, None, None, IDEAL_WHY, IDEAL_WHY, IDEAL_WHY, empty_f, empty_t)
 
 
-def loop_gains(system: StageSystem, *, current_drive: bool,
-               f_hz: NDArray[np.float64] | None = None) -> tuple[LoopResult, ...]:
+def loop_gains(system: StageSystem, *, current_drive: bool, f_hz: NDArray[np.float64] | None = None,
+               stability: Stability | None = None) -> tuple[LoopResult, ...]:
     """Loop gain and margins of every op-amp of a system, drive zeroed.
 
     Parameters
@@ -226,6 +287,9 @@ def loop_gains(system: StageSystem, *, current_drive: bool,
     f_hz : ndarray, optional
         Search grid; by default from 1/100 of the lowest dominant pole (gbw/A0) to
         1000 × the highest gain-bandwidth, 60 points per decade.
+    stability : Stability, optional
+        The closed loop's verdict when the caller has it; computed from the pencil otherwise.
+        Margins are null when it is unstable.
 
     Returns
     -------
@@ -235,8 +299,10 @@ def loop_gains(system: StageSystem, *, current_drive: bool,
     results: list[LoopResult] = []
     if system.opamps:
         driven = drive(system, current_drive)
+        if stability is None:
+            stability = closed_loop_stability(system, current_drive=current_drive)
         grid = _default_grid(system.c, system.opamps) if f_hz is None else np.asarray(f_hz, dtype=float)
-        results.extend(loop_gain(driven.g, driven.c, opamp, grid) for opamp in system.opamps)
+        results.extend(loop_gain(driven.g, driven.c, opamp, grid, stability) for opamp in system.opamps)
     results.extend(_ideal(ref) for ref in system.ideal_opamps)
     return tuple(results)
 

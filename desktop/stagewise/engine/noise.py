@@ -359,11 +359,13 @@ def snr_db(out_rms_v: float, converter: Converter) -> tuple[float | None, str | 
 
 
 def noise_to_json(result: NoiseResult, converter: Converter, top: int = TOP_SOURCES) -> dict[str, Any]:
-    """The DESIGN section 6 ``noise`` object (plus ``snr_db`` and the ideal converter SNR).
+    """The DESIGN section 6 ``noise`` object (plus ``snr_noise_only_db`` and the ideal converter SNR).
 
     Keys: ``out_rms_v``, ``out_density_v_rthz_at_ref``, ``ref_hz``, ``in_rms``, ``in_unit``,
     ``in_density_at_ref``, ``band_hz``, ``temperature_k``, ``top_sources`` (each ``source``,
-    ``ref``, ``kind``, ``rms_v``, ``share_pct``), ``snr_db``, ``ideal_converter_snr_db``,
+    ``ref``, ``kind``, ``rms_v``, ``share_pct``), ``snr_noise_only_db`` (the chain's noise alone
+    against a full-scale sine; the chain-level ``snr_db`` adds quantization noise, see
+    ``engine.converter``), ``ideal_converter_snr_db``,
     ``notes``, ``method``; a ``*_why`` key beside every null.
     """
     document: dict[str, Any] = {
@@ -387,9 +389,9 @@ def noise_to_json(result: NoiseResult, converter: Converter, top: int = TOP_SOUR
         document["in_rms_why"] = result.in_why
         document["in_density_at_ref_why"] = result.in_why
     value, why = snr_db(result.out_rms_v, converter)
-    document["snr_db"] = value
+    document["snr_noise_only_db"] = value
     if why is not None:
-        document["snr_db_why"] = why
+        document["snr_noise_only_db_why"] = why
     if converter.bits is None:
         document["ideal_converter_snr_db"] = None
         document["ideal_converter_snr_db_why"] = "the converter's bits are not given"

@@ -573,8 +573,10 @@ class SpreadSamples:
             return values
         if key == "phase_margin_deg":
             if opamp is not None:
-                # An op-amp whose loop has no margin (no crossover, no loop) has no value in any sample.
-                return self.phase_margin_deg.get(opamp, np.full(self.gain_db.shape, np.nan))
+                if opamp not in self.phase_margin_deg:
+                    raise KeyError(f"op-amp {opamp} has no loop crossover at nominal, so its phase margin is "
+                                   "not sampled")
+                return self.phase_margin_deg[opamp]
             if not self.phase_margin_deg:
                 return np.full(self.gain_db.shape, np.nan)
             return np.asarray(np.min(np.vstack(list(self.phase_margin_deg.values())), axis=0), dtype=float)
@@ -676,6 +678,8 @@ class SpreadResult:
     yield_why: str | None
     limit_pass_pct: tuple[tuple[str, float], ...]
     sample_values: SpreadSamples
+    limit_pass_count: tuple[tuple[str, int], ...] = ()
+    not_evaluated: tuple[tuple[str, str], ...] = ()
     notes: tuple[str, ...] = field(default_factory=tuple)
 
 
@@ -1051,13 +1055,23 @@ def monte_carlo(
     yield_pct: float | None = None
     yield_why: str | None = "no check applies to the spread"
     passes: list[tuple[str, float]] = []
-    if limits:
-        all_met = np.ones(count, dtype=bool)
-        for limit in limits:
+    counts: list[tuple[str, int]] = []
+    skipped: list[tuple[str, str]] = []
+    all_met = np.ones(count, dtype=bool)
+    for limit in limits:
+        label = limit.label or limit.metric
+        try:
             met = limit.met(sampled)
-            passes.append((limit.label or limit.metric, 100.0 * float(np.mean(met))))
-            all_met &= met
+        except KeyError as error:
+            skipped.append((label, str(error.args[0]) if error.args else "not sampled"))
+            continue
+        passes.append((label, 100.0 * float(np.mean(met))))
+        counts.append((label, int(np.count_nonzero(met))))
+        all_met &= met
+    if passes:
         yield_pct, yield_why = 100.0 * float(np.mean(all_met)), None
+    elif skipped:
+        yield_why = "no check could be evaluated per sample: " + "; ".join(f"{label}: {why}" for label, why in skipped)
     return SpreadResult(
         seed=seed_value, samples=count, distribution=law, parts=model.refs,
         tolerances=tuple(float(t) for t in model.tol), f_hz=f_hz, percentile_levels=levels,
@@ -1067,7 +1081,8 @@ def monte_carlo(
         phase_deg_min=phase_deg.min(axis=0), phase_deg_max=phase_deg.max(axis=0),
         phase_deg_percentiles=np.percentile(phase_deg, levels, axis=0),
         metrics=metrics, worst_case=worst, yield_pct=yield_pct, yield_why=yield_why,
-        limit_pass_pct=tuple(passes), sample_values=sampled, notes=tuple(notes),
+        limit_pass_pct=tuple(passes), sample_values=sampled, limit_pass_count=tuple(counts),
+        not_evaluated=tuple(skipped), notes=tuple(notes),
     )
 
 
@@ -1147,7 +1162,9 @@ def spread_to_json(result: SpreadResult) -> dict[str, Any]:
     (per key: ``nominal``, ``mean``, ``std``, ``min``, ``max``, ``p1``/``p50``/``p99`` ...,
     ``defined``, ``why``), ``worst_case`` (per key: ``nominal``, ``low``, ``high``,
     ``confirmed``, ``why``), ``yield_pct`` (null with ``yield_pct_why`` when no check applies),
-    ``limits`` (label and pass percentage each), ``notes``.
+    ``limits`` (label, pass percentage and number of samples that met it, each),
+    ``not_evaluated`` (label and why, for each check that could not be evaluated per sample),
+    ``notes``.
     """
     metrics: dict[str, Any] = {}
     for name, spread in result.metrics.items():
@@ -1172,7 +1189,10 @@ def spread_to_json(result: SpreadResult) -> dict[str, Any]:
         "metrics": metrics,
         "worst_case": worst,
         "yield_pct": result.yield_pct,
-        "limits": [{"label": label, "pass_pct": value} for label, value in result.limit_pass_pct],
+        "limits": [{"label": label, "pass_pct": value, "pass_count": passed}
+                   for (label, value), (_, passed) in zip(result.limit_pass_pct, result.limit_pass_count,
+                                                          strict=True)],
+        "not_evaluated": [{"label": label, "why": why} for label, why in result.not_evaluated],
         "notes": list(result.notes),
     }
     if result.yield_pct is None:

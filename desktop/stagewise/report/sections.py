@@ -47,7 +47,7 @@ from stagewise.report.plots import (
     trace_from_complex,
 )
 from stagewise.review.audit import EVENT_LABELS, verify_trail
-from stagewise.review.checks import CheckResult, CheckTotals, totals
+from stagewise.review.checks import FINDING_WORDS, CheckResult, CheckTotals, automatic_findings, totals
 from stagewise.review.metrics import METRICS
 from stagewise.review.signoff import StageSignoffs
 from stagewise.review.words import (
@@ -79,6 +79,7 @@ AUDIT_MEANING = (
 )
 
 DASH = "—"
+FINDING_COLOUR = "#8a1c00"  # the layout's colour of a "bad" table row
 
 
 def _text(value: Any, unit: str = "") -> str:
@@ -204,10 +205,19 @@ def _cover(content: PacketContent, results: list[CheckResult], states: dict[str,
          Column("no value", "right"), Column("n/a", "right"), Column("total", "right")],
         [[str(counts.met), str(counts.not_met), str(counts.waived), str(counts.open), str(counts.no_value),
           str(counts.not_applicable), str(counts.total)]], size_px=12.0))
+    findings = list(automatic_findings(content.provider))
     verdict = ("The chain has no checks yet: nothing here is verified against a limit." if counts.total == 0 else
                "Every check is met, waived or not applicable." if counts.all_passing else
                "Not every check passes: see the checks of each stage for values and reasons.")
     blocks.append(Paragraph(verdict, 11.5, space_after=10.0))
+    if findings:
+        blocks.append(Paragraph(
+            f"WARNING: {len(findings)} automatic finding{'s' if len(findings) != 1 else ''} fail this design "
+            "whatever its checklist says (found by the analysis, not waivable):", 11.5, bold=True,
+            color=QColor(FINDING_COLOUR), space_after=4.0))
+        blocks.append(Table([Column("finding", wrap=False), Column("what")],
+                            [[FINDING_WORDS.get(item.kind, item.kind), item.sentence] for item in findings],
+                            size_px=10.5, row_marks=["bad"] * len(findings)))
     blocks.append(Heading("Sign-off state of each stage", 2))
     rows_signed = []
     marks = []
@@ -414,8 +424,11 @@ def _converter(chain: dict[str, Any], project: Project) -> list[Block]:
         ("Attenuation there (alias attenuation)", _value_or_why(figures, "alias_attenuation_db", "dB")),
         ("Chain noise at the converter (RMS)", _value_or_why(figures, "noise_rms_v", "V")),
         ("Chain noise in LSB (RMS)", _value_or_why(figures, "noise_rms_lsb", "")),
-        ("SNR, chain noise against full-scale sine", _value_or_why(figures, "snr_db", "dB")),
-        ("SNR with quantization noise", _value_or_why(figures, "snr_with_quantization_db", "dB")),
+        ("SNR, chain and quantization noise against full-scale sine", _value_or_why(figures, "snr_db", "dB")),
+        ("SNR, chain noise only", _value_or_why(figures, "snr_noise_only_db", "dB")),
+        ("Largest peak at the converter input (declared input)", _value_or_why(figures, "converter_peak_v", "V")
+         + (f" at {format_value(figures['converter_peak_hz'], 'Hz')}" if figures.get("converter_peak_hz") else "")),
+        ("Converter headroom (full scale over that peak)", _value_or_why(figures, "converter_headroom_db", "dB")),
     ]
     blocks.append(_key_values(rows))
     for note in figures.get("notes") or []:

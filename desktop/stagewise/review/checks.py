@@ -5,14 +5,20 @@ one; tests use small closed-form ones) and compare it with ``min`` and ``max``, 
 A metric that cannot be computed gives ``no value`` with the provider's reason; nothing is made
 up. A waived check is ``waived`` whatever its value (the value is still shown). Manual checks
 are ``open`` until answered; ``yes`` is met, ``no`` is not met, ``n/a`` is not applicable.
+
+Automatic findings stand beside the checks: what fails a design whether or not anyone wrote a
+check for it (an unstable stage or chain, a converter driven past full scale, an op-amp output
+that clips or is slew-limited at the declared input). A provider that can tell offers them
+through ``findings()``; :func:`automatic_findings` collects them. They cannot be waived, and any
+one of them fails the checklist (``check`` exits 1).
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, replace
-from typing import Protocol
+from typing import Final, Protocol
 
 from stagewise.model.project import Check, Project, Stage
 from stagewise.model.values import format_value
@@ -21,10 +27,13 @@ from stagewise.review.metrics import METRICS, metric_unit
 from stagewise.review.words import ANSWER_WORDS, PASSING_STATES, WHERE_WORDS, CheckState
 
 __all__ = [
+    "FINDING_WORDS",
+    "AutomaticFinding",
     "CheckResult",
     "CheckTotals",
     "MetricProvider",
     "UnavailableProvider",
+    "automatic_findings",
     "evaluate_check",
     "evaluate_project",
     "evaluate_stage",
@@ -44,6 +53,49 @@ class MetricProvider(Protocol):
 
     def metric_value(self, metric: str, where: str, stage_id: str,
                      at_hz: float | None) -> tuple[float | None, str | None]: ...
+
+
+# The word shown for each kind of automatic finding (GUI, packet and command line).
+FINDING_WORDS: Final[dict[str, str]] = {
+    "unstable": "unstable",
+    "over_range": "over-range",
+    "swing": "clips",
+    "slew": "slew-limited",
+}
+
+
+class AutomaticFinding(Protocol):
+    """One automatic finding (the engine's ``diagnostics.Finding`` has this shape).
+
+    ``kind`` is a key of :data:`FINDING_WORDS`; ``stage_id`` the stage it belongs to (``None``
+    for the chain or the converter); ``where`` the place (``isolated``, ``in_chain``,
+    ``from_input``, ``chain``); ``ref`` the op-amp for swing and slew; ``sentence`` what and how
+    much, in one sentence.
+    """
+
+    @property
+    def kind(self) -> str: ...
+
+    @property
+    def stage_id(self) -> str | None: ...
+
+    @property
+    def where(self) -> str: ...
+
+    @property
+    def ref(self) -> str | None: ...
+
+    @property
+    def sentence(self) -> str: ...
+
+
+def automatic_findings(provider: object) -> Sequence[AutomaticFinding]:
+    """The provider's automatic findings (none when it offers no ``findings()``)."""
+    source = getattr(provider, "findings", None)
+    if source is None:
+        return []
+    found: Sequence[AutomaticFinding] = source()
+    return found
 
 
 @dataclass(frozen=True, slots=True)

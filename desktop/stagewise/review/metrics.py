@@ -115,13 +115,26 @@ _TABLE: Final[tuple[Metric, ...]] = (
     Metric("noise_in_rms", "Input-referred noise (RMS)", "V", "unused", _CHAIN_ONLY,
            "Output noise divided by the gain at the reference frequency; in amperes for a current drive."),
     Metric("snr_db", "Signal-to-noise ratio", "dB", "unused", _CHAIN_ONLY,
-           "Converter full-scale sine (RMS) against the chain's output noise plus the converter's ideal noise."),
+           "Converter full-scale sine (RMS) against the chain's output noise plus the converter's ideal "
+           "quantization noise (LSB/√12), added as powers."),
+    Metric("snr_noise_only_db", "Signal-to-noise ratio, chain noise only", "dB", "unused", _CHAIN_ONLY,
+           "Converter full-scale sine (RMS) against the chain's output noise alone (no quantization noise)."),
+    Metric("converter_headroom_db", "Converter headroom", "dB", "unused", _CHAIN_ONLY,
+           "Converter full scale (peak) over the largest peak at its input for the declared input amplitude "
+           "anywhere in the band; negative means over-range."),
     Metric("alias_attenuation_db", "Alias attenuation", "dB", "unused", _CHAIN_ONLY,
            "Attenuation of the chain at fs minus the upper pass-band edge, where signals fold into the band."),
     Metric("headroom_v", "Smallest headroom", "V", "unused", ("in_chain", "chain"),
-           "Smallest distance between an op-amp output's peak and its swing limit at the declared input."),
+           "Smallest distance between an op-amp output's peak and its swing limit at the declared input "
+           "(the same figure as the swing margin; older name)."),
+    Metric("swing_margin_v", "Swing margin", "V", "unused", ("in_chain", "chain"),
+           "Smallest distance between an op-amp output's peak and its swing limit at the declared input; "
+           "negative means the output clips."),
     Metric("slew_margin", "Slew margin", "", "unused", ("in_chain", "chain"),
            "Smallest ratio of an op-amp's slew rate to the 2πf·V_peak its output needs across the band."),
+    Metric("slew_margin_pct", "Slew margin (%)", "%", "unused", ("in_chain", "chain"),
+           "How much faster the op-amp can slew than its output needs at the declared input, as a percentage "
+           "of the need (smallest over the op-amps); negative means slew-limited."),
     Metric("yield_pct", "Yield over tolerances", "%", "unused", _CHAIN_ONLY,
            "Share of tolerance samples that meet every numeric check of the project."),
     # Bench measurements at the check's place (the worst of those attached there, none stale).

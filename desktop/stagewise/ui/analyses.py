@@ -276,6 +276,7 @@ class ReviewSummary:
     check_states: dict[str, str]
     summary: str
     summary_tip: str
+    findings: tuple[Any, ...] = ()  # automatic findings of this stage and of the whole chain
 
 
 def _project_analysis(project: Project, context: Context) -> Any:
@@ -314,15 +315,20 @@ def in_chain_poles(stage: Stage, project: Project, context: Context) -> RootSet:
 
 def stage_review(stage: Stage, project: Project, context: Context) -> ReviewSummary:
     """Evaluate the stage's checks against the analysis of this snapshot."""
-    from stagewise.review.checks import evaluate_stage, totals
+    from stagewise.review.checks import automatic_findings, evaluate_stage, totals
 
-    results = tuple(evaluate_stage(stage, project, _metric_provider(project, context)))
+    provider = _metric_provider(project, context)
+    results = tuple(evaluate_stage(stage, project, provider))
+    findings = tuple(item for item in automatic_findings(provider) if item.stage_id in (stage.id, None))
     counts = totals(results)
     states = {result.check_id: str(result.state) for result in results}
+    found = f"; {len(findings)} automatic finding{'s' if len(findings) != 1 else ''}" if findings else ""
     if not results:
-        return ReviewSummary(results, states, "no checks", "This stage has no checks.")
+        return ReviewSummary(results, states, "no checks" + found, "This stage has no checks" + found + ".",
+                             findings)
     passing = sum(1 for result in results if result.passing)
-    return ReviewSummary(results, states, f"{passing}/{len(results)} pass", counts.sentence())
+    return ReviewSummary(results, states, f"{passing}/{len(results)} pass{found}", counts.sentence() + found,
+                         findings)
 
 
 STAGE_ANALYSES: list[tuple[str, int, Any]] = [

@@ -27,6 +27,7 @@ from PySide6.QtWidgets import (
 )
 
 from stagewise.review.audit import check_records, trusted_check
+from stagewise.review.checks import FINDING_WORDS
 from stagewise.review.words import (
     ANSWER_WORDS,
     REPLACED_WORD,
@@ -58,6 +59,7 @@ SIGNOFF_COLOURS = {
     SignoffState.NONE: "#505050",
 }
 CHECK_COLUMNS = ("Check", "State", "Value", "Limits", "What and why")
+FINDING_COLOUR = "#8a1c00"
 
 
 class ReviewPanel(QWidget):
@@ -92,6 +94,13 @@ class ReviewPanel(QWidget):
         self.totals = QLabel(self)
         self.totals.setTextFormat(Qt.TextFormat.PlainText)
         self.totals.setWordWrap(True)
+        # What fails whether or not a check asks (instability, over-range, clipping, slew).
+        self.findings = QLabel(self)
+        self.findings.setObjectName("automaticFindings")
+        self.findings.setTextFormat(Qt.TextFormat.PlainText)
+        self.findings.setWordWrap(True)
+        self.findings.setStyleSheet(f"color: {FINDING_COLOUR}; font-weight: bold;")
+        self.findings.setVisible(False)
         self.checks = QTableWidget(0, len(CHECK_COLUMNS), self)
         self.checks.setHorizontalHeaderLabels(CHECK_COLUMNS)
         self.checks.verticalHeader().setVisible(False)
@@ -126,6 +135,7 @@ class ReviewPanel(QWidget):
         layout.addWidget(self.title)
         layout.addWidget(self.state)
         layout.addWidget(self.totals)
+        layout.addWidget(self.findings)
         layout.addWidget(self.checks, 3)
         layout.addLayout(buttons)
         layout.addWidget(QLabel("Sign-offs", self))
@@ -218,12 +228,17 @@ class ReviewPanel(QWidget):
             return
         review = self.outcome.of_stage(stage.id, "review") if self.outcome is not None else None
         results: dict[str, Any] = {}
+        findings: tuple[Any, ...] = ()
         if review is not None and review.ok:
             results = {result.check_id: result for result in review.value.results}
             self.totals.setText(review.value.summary_tip)
+            findings = review.value.findings
         else:
             self.totals.setText("Evaluating the checks…" if review is None or self.worker.is_busy
                                 else f"Checks not evaluated: {review.why}")
+        self.findings.setText("\n".join(f"{FINDING_WORDS.get(item.kind, item.kind).upper()}: {item.sentence}"
+                                         for item in findings))
+        self.findings.setVisible(bool(findings))
         self.checks.setRowCount(len(stage.checks))
         records = check_records(self.document.project)
         for row, check in enumerate(stage.checks):

@@ -1,0 +1,42 @@
+"""The review panel shows automatic findings (an unstable stage) beside the checks."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from conftest import make_window
+
+# R1 1k in→p, R2 10k p→out, op-amp + input on p, − on node 0 (positive feedback); values of our own.
+UNSTABLE = {
+    "format": "stagewise-project", "version": 1, "title": "positive feedback",
+    "settings": {"f_min_hz": 1, "f_max_hz": "1M", "points_per_decade": 30, "ref_hz": 1000},
+    "input": {"drive": "voltage", "amplitude": "10m"},
+    "opamp_models": {"m": {"a0_db": 100, "gbw_hz": "1M"}},
+    "stages": [{
+        "id": "pf", "name": "positive feedback", "ports": {"in": "in", "out": "out"},
+        "parts": [{"ref": "R1", "type": "R", "nodes": ["in", "p"], "value": "1k"},
+                  {"ref": "R2", "type": "R", "nodes": ["p", "out"], "value": "10k"},
+                  {"ref": "U1", "type": "opamp", "nodes": ["p", "0", "out"], "model": "m"}],
+        "checks": [{"id": "pm", "text": "Phase margin", "metric": "phase_margin_deg", "where": "isolated",
+                    "min": 45}],
+    }],
+}
+
+
+def test_unstable_stage_shows_its_finding_and_a_check_without_value(qtbot, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    path = tmp_path / "unstable.stagewise.json"
+    path.write_text(json.dumps(UNSTABLE), encoding="utf-8")
+    window = make_window(qtbot, path)
+    try:
+        window.document.set_current_stage("pf")
+        assert window.wait_until_idle(60, formula=False)
+        panel = window.review_panel
+        # Common practice, no source: a loop with a closed-loop pole in the right half-plane has
+        # no phase margin to speak of; the panel says why and names the pole.
+        assert panel.check_state("pm") == "no value"
+        assert panel.findings.isVisible()
+        text = panel.findings.text()
+        assert text.startswith("UNSTABLE") and "right-half-plane pole" in text
+    finally:
+        window.shutdown()
