@@ -11,9 +11,13 @@ Review decisions (sign-offs, waivers, answers, comments) go through ``stagewise.
 
 from __future__ import annotations
 
+import contextlib
 import copy
+import hashlib
 import re
 from collections.abc import Callable
+from dataclasses import dataclass
+from datetime import UTC, datetime
 from pathlib import Path
 
 from PySide6.QtCore import QObject, Signal
@@ -30,7 +34,7 @@ from stagewise.model.project import (
 from stagewise.model.validate import validate_stage
 from stagewise.model.values import Quantity, ValueSyntaxError
 
-__all__ = ["BLOCK_FIELDS", "PART_FIELDS", "Document", "EditRefused", "blank_stage"]
+__all__ = ["BLOCK_FIELDS", "PART_FIELDS", "Document", "EditRefused", "SaveOutcome", "blank_stage"]
 
 # Fields of a part that can be edited as text, with what they hold.
 PART_FIELDS: dict[str, str] = {"value": "value", "tol": "tolerance", "nodes": "nodes", "model": "op-amp model"}
@@ -42,6 +46,38 @@ _ID_PATTERN = re.compile(r"[^a-z0-9_-]+")
 
 class EditRefused(ValueError):
     """An edit that was not applied; the message says why in one sentence."""
+
+
+@dataclass(frozen=True, slots=True)
+class SaveOutcome:
+    """What :meth:`Document.save_merging` did.
+
+    ``saved`` is False when the user chose not to save over a conflict; ``merged_events`` counts
+    the audit events written to the file outside the program that were merged in; ``conflicts``
+    are the sentences shown; ``outside_copy`` is where the file's own version was kept.
+    """
+
+    saved: bool
+    merged_events: int = 0
+    conflicts: tuple[str, ...] = ()
+    outside_copy: Path | None = None
+
+
+def _sha256_of(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def _keep_outside_copy(path: Path) -> Path:
+    """Copy the file as it is on disk to ``NAME.outside-<UTC time>.stagewise.json`` beside it."""
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
+    stem = path.name.removesuffix(".stagewise.json")
+    copy_path = path.with_name(f"{stem}.outside-{stamp}.stagewise.json")
+    number = 2
+    while copy_path.exists():
+        copy_path = path.with_name(f"{stem}.outside-{stamp}-{number}.stagewise.json")
+        number += 1
+    copy_path.write_bytes(path.read_bytes())
+    return copy_path
 
 
 class _Command(QUndoCommand):
@@ -98,6 +134,11 @@ class Document(QObject):
         self.undo_stack = QUndoStack(self)
         self.undo_stack.cleanChanged.connect(self._announce_modified)
         self.undo_stack.indexChanged.connect(self._announce_modified)
+        # The file as this document last read or wrote it: its SHA-256 and the project it held,
+        # the common ancestor when the file changed on disk meanwhile (see save_merging).
+        self._disk_sha256: str | None = None
+        self._disk_project: Project | None = None
+        self._remember_disk(modified=False)
 
     # ----------------------------------------------------------------- state
     @property
@@ -152,6 +193,7 @@ class Document(QObject):
         self.undo_stack.setClean()
         self._review_unsaved = modified
         self._current_stage_id = project.stages[0].id if project.stages else ""
+        self._remember_disk(modified=modified)
         self.projectReplaced.emit()
         self.pathChanged.emit()
         self.currentStageChanged.emit(self._current_stage_id)
@@ -166,9 +208,119 @@ class Document(QObject):
         self._read_only = False
         self._review_unsaved = False
         self.undo_stack.setClean()
+        self._remember_disk(modified=False)
         if changed_path:
             self.pathChanged.emit()
         self._announce_modified()
+
+    # ----------------------------------------------------------------- the file on disk
+    def _remember_disk(self, *, modified: bool) -> None:
+        """Note the file's SHA-256 and the project it holds (ours when unmodified, else read back)."""
+        from stagewise.files.project_file import ProjectFileError, loads_project
+
+        self._disk_sha256 = None
+        self._disk_project = None
+        if self._path is None:
+            return
+        try:
+            data = self._path.read_bytes()
+        except OSError:
+            return
+        self._disk_sha256 = hashlib.sha256(data).hexdigest()
+        if not modified:
+            self._disk_project = copy.deepcopy(self._project)
+            return
+        with contextlib.suppress(ProjectFileError):
+            self._disk_project = loads_project(data, str(self._path))
+
+    @property
+    def disk_sha256(self) -> str | None:
+        """SHA-256 of the file as this document last read or wrote it (``None``: no file yet)."""
+        return self._disk_sha256
+
+    def save_merging(self, path: str | Path, who: str,
+                     ask: Callable[[list[str]], bool] | None = None) -> SaveOutcome:
+        """Save to ``path`` without overwriting what was written to the file since it was read.
+
+        When ``path`` is this document's file and its SHA-256 differs from the one remembered
+        (a ``stagewise packet`` appended an event while the program held the file open, or
+        someone wrote it regardless of the edit lock), the file is read and merged with this
+        document three ways (:func:`stagewise.review.merge.merge_projects`, the file as last read
+        being the ancestor): what was appended outside (audit events, review records, design
+        edits of other parts) joins the document, our unsaved audit events are chained after
+        the file's, and the result is saved. Where the two conflict (one value changed on both
+        sides, or the file no longer loads), ``ask`` is called with the conflicts, one sentence
+        each; when it returns True the file's version is kept beside it as
+        ``NAME.outside-<UTC time>.stagewise.json`` and ours is saved; otherwise nothing is
+        written. Without ``ask`` a conflict keeps both versions that way.
+
+        Raises
+        ------
+        OSError, ValueError
+            From :func:`stagewise.files.project_file.save_project` (nothing was replaced).
+        """
+        from stagewise.files.project_file import ProjectFileError, load_project, save_project
+        from stagewise.review.merge import merge_projects
+
+        target = Path(path)
+        outcome = SaveOutcome(saved=True)
+        changed = (target == self._path and self._disk_sha256 is not None and target.exists()
+                   and _sha256_of(target) != self._disk_sha256)
+        if changed:
+            conflicts: list[str] = []
+            try:
+                theirs = load_project(target)
+            except ProjectFileError as error:
+                conflicts = [f"the file on disk no longer loads: {error}"]
+            else:
+                if self._disk_project is None:
+                    conflicts = ["the file on disk changed, and the version this program read cannot be compared"]
+                else:
+                    result = merge_projects(self._disk_project, self._project, theirs, who=who, mode="rebase")
+                    if result.project is not None:
+                        self._adopt(result.project)
+                        outcome = SaveOutcome(saved=True, merged_events=result.events_theirs)
+                    else:
+                        conflicts = [conflict.sentence() for conflict in result.conflicts]
+            if conflicts:
+                if ask is not None and not ask(conflicts):
+                    return SaveOutcome(saved=False, conflicts=tuple(conflicts))
+                kept = _keep_outside_copy(target)
+                outcome = SaveOutcome(saved=True, conflicts=tuple(conflicts), outside_copy=kept)
+        save_project(target, self._project)
+        return outcome
+
+    def _adopt(self, merged: Project) -> None:
+        """Take what a merge added. When only records and events differ, they are copied into the
+        open project in place (the undo history stays valid); otherwise the project is replaced."""
+        from stagewise.files.codec import encode
+
+        def design(project: Project) -> dict[str, object]:
+            document = encode(project)
+            document.pop("audit", None)
+            for stage in document.get("stages", []):
+                stage.pop("signoffs", None)
+                stage.pop("comments", None)
+                for check in stage.get("checks", []):
+                    check.pop("answer", None)
+                    check.pop("waiver", None)
+            return document
+
+        if design(merged) == design(self._project):
+            for stage in self._project.stages:
+                source = merged.stage(stage.id)
+                if source is None:
+                    continue
+                stage.signoffs = source.signoffs
+                stage.comments = source.comments
+                for check, other in zip(stage.checks, source.checks, strict=True):
+                    check.answer, check.waiver = other.answer, other.waiver
+                self.reviewChanged.emit(stage.id)
+            self._project.audit = merged.audit
+            self.auditRecorded.emit()
+            return
+        path, modified = self._path, True
+        self.replace_project(merged, path, modified=modified)
 
     def set_baseline(self, project: Project | None, path: str | Path | None = None) -> None:
         self._baseline = project

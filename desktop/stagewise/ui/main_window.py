@@ -1046,7 +1046,6 @@ class MainWindow(QMainWindow):
 
     def save_to(self, path: Path) -> bool:
         """Write the project atomically; record behaviour changes since the last save in the audit trail."""
-        from stagewise.files.project_file import save_project
         from stagewise.review.actions import ReviewError, record_part_changes
 
         project = self.document.project
@@ -1057,13 +1056,19 @@ class MainWindow(QMainWindow):
         except ReviewError as error:
             self.show_message(f"Saved without a change record: {error}")
         try:
-            save_project(path, project)
+            # Merges what was written to the file since it was read (a packet printed from the
+            # command line), or asks; never overwrites it (Document.save_merging).
+            outcome = self.document.save_merging(path, name or "unknown user", self._ask_outside_conflicts)
         except OSError as error:
             self._refuse(EditRefused(f"{path}: not saved ({error.strerror or error}); the old file is unchanged"))
             return False
         except ValueError as error:  # SaveRefused: what would be written does not load again
             self._refuse(EditRefused(str(error)))
             return False
+        if not outcome.saved:
+            self.show_message(f"Not saved: {path.name} changed on disk and conflicts with your edits.")
+            return False
+        project = self.document.project
         old_path = self.document.path
         if old_path != path:  # a new name, or the first save of a new project: lock the file written
             self.remove_recovery()
@@ -1079,8 +1084,23 @@ class MainWindow(QMainWindow):
         self._fill_recent()
         self._update_title()
         self._update_actions()
-        self.show_message(f"Saved {path}.")
+        merged = (f" {outcome.merged_events} audit event(s) written to the file meanwhile were merged in."
+                  if outcome.merged_events else "")
+        kept = f" The file's own version is kept as {outcome.outside_copy.name}." if outcome.outside_copy else ""
+        self.show_message(f"Saved {path}.{merged}{kept}")
         return True
+
+    def _ask_outside_conflicts(self, conflicts: list[str]) -> bool:
+        """The file changed on disk and conflicts with our edits: save ours and keep theirs beside it?"""
+        if not self.interactive:
+            return True
+        shown = "\n".join(f"• {line}" for line in conflicts[:8]) + ("\n…" if len(conflicts) > 8 else "")
+        answer = QMessageBox.question(
+            self, "File changed on disk",
+            f"The file was changed outside the program since you opened it, and it conflicts with your "
+            f"edits:\n\n{shown}\n\nSave your version? The file's version is kept beside it as a copy.",
+            QMessageBox.StandardButton.Save | QMessageBox.StandardButton.Cancel)
+        return answer == QMessageBox.StandardButton.Save
 
     def load_baseline_dialog(self) -> None:
         folder = str(self.document.path.parent) if self.document.path is not None else str(Path.cwd())

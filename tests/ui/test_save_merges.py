@@ -1,0 +1,75 @@
+"""Saving never overwrites what was written to the file while the program had it open.
+
+Regression: with the project open in the program, ``stagewise packet`` appended its "review
+packet printed" event to the file; saving in the program then wrote its own copy over it, the
+event disappeared and ``verify`` still said intact.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+from stagewise.files.lock import inspect_lock
+from stagewise.files.project_file import load_project, save_project
+from stagewise.model.values import Quantity
+from stagewise.review.audit import check_records, verify_trail
+
+
+def _run_packet(path: Path, output: Path) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "stagewise", "packet", str(path), "-o", str(output),
+                           "--by", "Quality Desk"], capture_output=True, text=True, timeout=300,
+                          env=dict(os.environ, QT_QPA_PLATFORM="offscreen"), check=False)
+
+
+def test_packet_from_the_command_line_survives_a_save_in_the_program(window, sample_path: Path,  # type: ignore[no-untyped-def]
+                                                                      tmp_path: Path) -> None:
+    # Common practice, no source: an append made by another writer is merged, never overwritten.
+    window.attach_file(sample_path)  # as at start-up: the program takes the edit lock
+    state = inspect_lock(sample_path)
+    assert state is not None and not state.stale
+    completed = _run_packet(sample_path, tmp_path / "review.pdf")
+    assert completed.returncode == 0, completed.stderr
+    assert "open for editing by" in completed.stderr and "merges it into its next save" in completed.stderr
+    assert [event.what for event in load_project(sample_path).audit] == ["packet"]
+    # Edit in the program, then save.
+    window.document.set_part_field("rc", "R1", "value", "4k7")
+    assert window.save_to(sample_path)
+    saved = load_project(sample_path)
+    whats = [event.what for event in saved.audit]
+    assert "packet" in whats and "part change" in whats
+    assert whats.index("packet") < whats.index("part change")
+    assert verify_trail(saved.audit).intact
+    assert check_records(saved).problems == ()
+    assert saved.stage("rc").part("R1").value.raw == "4k7"  # type: ignore[union-attr]
+    # What the program shows is what it saved.
+    assert [event.hash for event in window.document.project.audit] == [event.hash for event in saved.audit]
+    assert not window.document.is_modified
+
+
+def test_a_conflicting_outside_edit_keeps_both_versions_on_disk(window, sample_path: Path) -> None:  # type: ignore[no-untyped-def]
+    # Common practice, no source: where two edits of one value collide, nothing is lost.
+    outside = load_project(sample_path)
+    outside.stage("rc").part("R1").value = Quantity.of("10k")  # type: ignore[union-attr]
+    save_project(sample_path, outside)
+    window.document.set_part_field("rc", "R1", "value", "4k7")
+    assert window.save_to(sample_path)  # not interactive: ours is saved, theirs kept beside it
+    assert load_project(sample_path).stage("rc").part("R1").value.raw == "4k7"  # type: ignore[union-attr]
+    copies = list(sample_path.parent.glob("sample.outside-*.stagewise.json"))
+    assert len(copies) == 1
+    assert load_project(copies[0]).stage("rc").part("R1").value.raw == "10k"  # type: ignore[union-attr]
+
+
+def test_an_outside_edit_of_another_part_is_merged(window, sample_path: Path) -> None:  # type: ignore[no-untyped-def]
+    outside = load_project(sample_path)
+    outside.stage("amp").part("R3").value = Quantity.of("15k")  # type: ignore[union-attr]
+    save_project(sample_path, outside)
+    window.document.set_part_field("rc", "R1", "value", "4k7")
+    assert window.save_to(sample_path)
+    saved = load_project(sample_path)
+    assert saved.stage("rc").part("R1").value.raw == "4k7"  # type: ignore[union-attr]
+    assert saved.stage("amp").part("R3").value.raw == "15k"  # type: ignore[union-attr]
+    assert window.document.project.stage("amp").part("R3").value.raw == "15k"
+    assert not list(sample_path.parent.glob("sample.outside-*"))
