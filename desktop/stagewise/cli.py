@@ -209,12 +209,16 @@ def build_parser() -> argparse.ArgumentParser:
                       "exit status: 0 intact; 1 broken, or a record without its event; 2 the file cannot be read.")
     verify.add_argument("file", metavar="FILE")
 
-    diff = _command(commands, "diff", "what changed, part by part, and which sign-offs it puts out of date",
-                    "one line per change on stdout (values as typed, old → new), then the sign-offs the changes "
-                    "put out of date; nothing is written to files",
+    diff = _command(commands, "diff", "what changed and what it does to the review",
+                    "on stdout: one line per part and setting change (values as typed, old → new), every check "
+                    "whose state moves (old → new, with values), the sign-offs the changes put out of date, and "
+                    "the review records added and removed; with --json {\"parts\", \"settings\", \"models\", "
+                    "\"stages\", \"checks\" (old_state, new_state, old_value, new_value), \"signoffs_stale\", "
+                    "\"records_added\", \"records_removed\"}; nothing is written to files",
                     "exit status: 0 no differences; 1 differences; 2 a file cannot be read.")
     diff.add_argument("old", metavar="OLD")
     diff.add_argument("new", metavar="NEW")
+    diff.add_argument("--json", action="store_true", help="print JSON instead of lines")
 
     merge = _command(commands, "merge", "merge two edited copies of one project (usable as a git merge driver)",
                      "OUT, written atomically, only when the copies merge: design edits part by part, review "

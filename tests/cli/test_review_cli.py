@@ -255,3 +255,69 @@ def test_check_with_an_unsolvable_stage_reports_no_value_and_exit_1(tmp_path: Pa
     status, out, err = _run(capsys, "check", str(_write(tmp_path, document)))
     assert status == 1 and err == ""
     assert "no value" in out and "E1" in out and "E2" in out
+
+
+DEMO = Path(__file__).resolve().parents[2] / "projects" / "hydrophone.stagewise.json"
+
+
+def _divider_db(f_hz: float, r_bias_ohm: float) -> float:
+    # Source: impedances R and 1/(sC) in a voltage divider (Nilsson & Riedel, Electric Circuits).
+    # Sensor: C1 3n3 ∥ R1 10G in series, C2 150p to node 0; the follower's input adds its bias
+    # resistor and its 3 pF common-mode capacitance (its differential 4 pF is bootstrapped by
+    # the loop and left out, a few millidecibels at 20 Hz).
+    s = 2j * math.pi * f_hz
+    series = 1 / (s * 3.3e-9 + 1 / 10e9)
+    shunt = 1 / (s * (150e-12 + 3e-12) + 1 / r_bias_ohm)
+    return 20 * math.log10(abs(shunt / (series + shunt)))
+
+
+def test_diff_tells_the_check_that_moves_and_the_rework_it_answers(tmp_path: Path,
+                                                                   capsys: pytest.CaptureFixture[str]) -> None:
+    # Regression: raising the buffer's bias resistor moved the sensor's 20 Hz check from not met
+    # to met, and diff listed only the part change.
+    old = tmp_path / "old.stagewise.json"
+    old.write_bytes(DEMO.read_bytes())
+    project = load_project(old)
+    buffer = project.stage("buffer")
+    assert buffer is not None
+    buffer.parts[0].value = Quantity.of("10M")
+    new = tmp_path / "new.stagewise.json"
+    save_project(new, project)
+    status, out, _ = _run(capsys, "diff", str(old), str(new))
+    assert status == 1
+    assert "stage buffer, part R1: value changed 2M2 → 10M" in out
+    line = next(line for line in out.splitlines() if "check lf-20hz" in line)
+    assert "not met" in line and "→ met" in line and "returned for rework by Tobias Achebe" in line
+    status, out, _ = _run(capsys, "diff", str(old), str(new), "--json")
+    assert status == 1
+    document = json.loads(out)
+    assert {"parts", "settings", "checks", "signoffs_stale", "records_added", "records_removed"} <= set(document)
+    assert [(c["subject"], c["old"], c["new"]) for c in document["parts"]] == [("part R1", "2M2", "10M")]
+    move = next(c for c in document["checks"] if c["check"] == "lf-20hz")
+    assert (move["old_state"], move["new_state"]) == ("not met", "met")
+    assert move["old_value"] == pytest.approx(_divider_db(20, 2.2e6), abs=0.05)
+    assert move["new_value"] == pytest.approx(_divider_db(20, 10e6), abs=0.05)
+    assert move["rework_signoffs"] and move["rework_signoffs"][0].startswith("Tobias Achebe")
+
+
+def test_diff_reports_removed_records_and_is_silent_on_no_change(tmp_path: Path,
+                                                                 capsys: pytest.CaptureFixture[str]) -> None:
+    # Regression: deleting a "returned for rework" sign-off, an answer or a waiver from the file
+    # made diff say "no differences".
+    old = tmp_path / "old.stagewise.json"
+    old.write_bytes(DEMO.read_bytes())
+    status, out, _ = _run(capsys, "diff", str(old), str(old))
+    assert status == 0 and "no differences" in out
+    document = json.loads(DEMO.read_text(encoding="utf-8"))
+    for stage in document["stages"]:
+        if stage["id"] == "sensor":
+            stage["signoffs"] = []
+        if stage["id"] == "driver":
+            del stage["checks"][3]["waiver"]
+    new = _write(tmp_path, document, "new.stagewise.json")
+    status, out, _ = _run(capsys, "diff", str(old), str(new), "--json")
+    assert status == 1
+    removed = json.loads(out)["records_removed"]
+    assert {(r["kind"], r["stage"], r["who"]) for r in removed} == {("sign-off", "sensor", "Tobias Achebe"),
+                                                                    ("waiver", "driver", "Tobias Achebe")}
+    assert json.loads(out)["records_added"] == []

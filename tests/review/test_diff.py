@@ -89,3 +89,20 @@ def test_model_parameter_change_is_listed_and_stales_the_stage_using_it() -> Non
     result = diff_projects(old, new)
     assert "op-amp model test-5M: gbw_hz changed 5M → 8M" in result.lines()
     assert [item.stage_id for item in result.stale] == ["buf"]
+
+
+def test_records_added_and_removed_are_matched_by_identity() -> None:
+    # Common practice, no source: a record is the same record when who, when and what agree.
+    old = base_project()
+    actions.sign(old, "rc", "Ana Ruiz", "analog lead", "rework", note="Raise R1.", time=T)
+    new = copy.deepcopy(old)
+    actions.sign(new, "buf", "Ben Okafor", "quality", "accept", time=T)
+    actions.comment(new, "rc", "Ben Okafor", "Which package?", time=T)
+    new.stage("rc").signoffs.clear()  # type: ignore[union-attr]
+    result = diff_projects(old, new)
+    assert not result.empty
+    # In chain order: stage rc before stage buf.
+    assert [(r.kind, r.stage_id, r.who) for r in result.records_added] == [("comment", "rc", "Ben Okafor"),
+                                                                          ("sign-off", "buf", "Ben Okafor")]
+    assert [(r.kind, r.stage_id, r.who) for r in result.records_removed] == [("sign-off", "rc", "Ana Ruiz")]
+    assert result.changes == ()  # records are not design changes

@@ -1,4 +1,8 @@
-"""Semantic difference of two projects, part by part, and the sign-offs it makes stale.
+"""Semantic difference of two projects and what it does to the review.
+
+Part and setting changes; the sign-offs they put out of date; the review records (sign-offs,
+waivers, answers, comments, resolutions) added and removed, matched by identity; and, with a
+metric provider for each project (:func:`check_moves`), every check whose state moves.
 
 Stages are matched by id and parts by ref within their stage, so a reordered file or a
 reformatted value is not a change; a value typed differently but equal (``4k7`` and ``4700``)
@@ -7,6 +11,7 @@ is reported as retyped, with the same value. Values are shown as typed (``4k7 â†
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any, Literal
@@ -15,9 +20,10 @@ from stagewise.files.codec import encode_opamp
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Check, Part, Project, Stage
 from stagewise.model.values import Quantity
-from stagewise.review.words import VERDICT_WORDS, SignoffState
+from stagewise.review.checks import MetricProvider, evaluate_project
+from stagewise.review.words import ANSWER_WORDS, VERDICT_WORDS, VERDICTS, SignoffState, current_verdict
 
-__all__ = ["Change", "ProjectDiff", "StaleSignoff", "diff_projects"]
+__all__ = ["Change", "CheckMove", "ProjectDiff", "RecordChange", "StaleSignoff", "check_moves", "diff_projects"]
 
 ChangeKind = Literal["added", "removed", "changed", "moved"]
 
@@ -99,32 +105,179 @@ class StaleSignoff:
 
 
 @dataclass(frozen=True, slots=True)
+class RecordChange:
+    """A review record added to or removed from the file (sign-off, waiver, answer, comment,
+    resolution), matched by identity: who, when, on which stage and check, and what."""
+
+    kind: str
+    stage_id: str
+    check_id: str | None
+    who: str
+    time: str
+    summary: str
+
+    def sentence(self) -> str:
+        where = f"stage {self.stage_id}" + (f", check {self.check_id}" if self.check_id else "")
+        return f"{where}: {self.kind} by {self.who} at {self.time}: {self.summary}"
+
+    def as_json(self) -> dict[str, Any]:
+        return {"kind": self.kind, "stage": self.stage_id, "check": self.check_id, "who": self.who,
+                "time": self.time, "summary": self.summary}
+
+
+@dataclass(frozen=True, slots=True)
+class CheckMove:
+    """A check whose state differs between the two projects (``None``: the check is absent there)."""
+
+    stage_id: str
+    check_id: str
+    text: str
+    old_state: str | None
+    new_state: str | None
+    old_value: float | None
+    new_value: float | None
+    old_text: str
+    new_text: str
+    rework: tuple[str, ...] = ()
+
+    def sentence(self) -> str:
+        old = f"{self.old_state} ({self.old_text})" if self.old_text else str(self.old_state or "absent")
+        new = f"{self.new_state} ({self.new_text})" if self.new_text else str(self.new_state or "absent")
+        line = f"stage {self.stage_id}, check {self.check_id}: {old} â†’ {new}"
+        for item in self.rework:
+            line += f"; the stage stands {SignoffState.REWORK} by {item}"
+        return line
+
+    def as_json(self) -> dict[str, Any]:
+        return {"stage": self.stage_id, "check": self.check_id, "text": self.text, "old_state": self.old_state,
+                "new_state": self.new_state, "old_value": self.old_value, "new_value": self.new_value,
+                "rework_signoffs": list(self.rework)}
+
+
+@dataclass(frozen=True, slots=True)
 class ProjectDiff:
-    """What changed from an old project to a new one, and which sign-offs that makes stale."""
+    """What changed from an old project to a new one and what it does to the review: the
+    sign-offs it puts out of date, the review records added and removed, and (when computed,
+    :func:`check_moves`) the checks whose state moves."""
 
     changes: tuple[Change, ...]
     stale: tuple[StaleSignoff, ...]
+    records_added: tuple[RecordChange, ...] = ()
+    records_removed: tuple[RecordChange, ...] = ()
+    checks: tuple[CheckMove, ...] = ()
 
     @property
     def empty(self) -> bool:
-        return not self.changes
+        return not (self.changes or self.records_added or self.records_removed or self.checks)
 
     def lines(self) -> list[str]:
-        """The report as lines: every change, then the sign-offs made stale."""
+        """The report as lines: every change, the checks that move, the sign-offs made out of
+        date, then the records added and removed."""
         if self.empty:
             return ["no differences"]
         out = [change.sentence() for change in self.changes]
-        if self.stale:
+        if self.checks:
+            out += ["", f"checks whose state moves ({len(self.checks)}):"]
+            out.extend("  " + move.sentence() for move in self.checks)
+        if self.changes:
             out.append("")
-            out.append(f"sign-offs made {SignoffState.OUT_OF_DATE} by these changes ({len(self.stale)}):")
-            out.extend("  " + item.sentence() for item in self.stale)
-        else:
-            out.append("")
-            out.append(f"no sign-off is made {SignoffState.OUT_OF_DATE} by these changes")
+            if self.stale:
+                out.append(f"sign-offs made {SignoffState.OUT_OF_DATE} by these changes ({len(self.stale)}):")
+                out.extend("  " + item.sentence() for item in self.stale)
+            else:
+                out.append(f"no sign-off is made {SignoffState.OUT_OF_DATE} by these changes")
+        for title, records in (("review records added", self.records_added),
+                               ("review records removed", self.records_removed)):
+            if records:
+                out += ["", f"{title} ({len(records)}):"]
+                out.extend("  " + record.sentence() for record in records)
         return out
 
     def as_json(self) -> dict[str, Any]:
-        return {"changes": [c.as_json() for c in self.changes], "stale": [s.as_json() for s in self.stale]}
+        """The ``diff --json`` document."""
+        def group(test: Any) -> list[dict[str, Any]]:
+            return [c.as_json() for c in self.changes if test(c)]
+
+        return {
+            "parts": group(lambda c: c.subject.startswith("part ")),
+            "settings": group(lambda c: c.stage_id is None and not c.subject.startswith("op-amp model")),
+            "models": group(lambda c: c.subject.startswith("op-amp model")),
+            "stages": group(lambda c: c.stage_id is not None and not c.subject.startswith("part ")),
+            "checks": [move.as_json() for move in self.checks],
+            "signoffs_stale": [s.as_json() for s in self.stale],
+            "records_added": [r.as_json() for r in self.records_added],
+            "records_removed": [r.as_json() for r in self.records_removed],
+        }
+
+
+def _records(project: Project) -> dict[tuple[Any, ...], RecordChange]:
+    """Every review record of ``project`` keyed by its identity."""
+    found: dict[tuple[Any, ...], RecordChange] = {}
+    for stage in project.stages:
+        for signoff in stage.signoffs:
+            word = VERDICT_WORDS.get(current_verdict(signoff.verdict), signoff.verdict)
+            found[("signoff", stage.id, signoff.name, signoff.time, current_verdict(signoff.verdict))] = RecordChange(
+                "sign-off", stage.id, None, signoff.name, signoff.time,
+                word + (f", {signoff.role}" if signoff.role else "") + (f": {signoff.note}" if signoff.note else ""))
+        for check in stage.checks:
+            if check.waiver is not None:
+                waiver = check.waiver
+                found[("waiver", stage.id, check.id, waiver.by, waiver.time)] = RecordChange(
+                    "waiver", stage.id, check.id, waiver.by, waiver.time, waiver.justification)
+            if check.answer is not None:
+                answer = check.answer
+                found[("answer", stage.id, check.id, answer.by, answer.time, answer.answer)] = RecordChange(
+                    "answer", stage.id, check.id, answer.by, answer.time,
+                    ANSWER_WORDS.get(answer.answer, answer.answer) + (f": {answer.note}" if answer.note else ""))
+        for comment in stage.comments:
+            found[("comment", stage.id, comment.author, comment.time, comment.text)] = RecordChange(
+                "comment", stage.id, comment.check, comment.author, comment.time, comment.text)
+            if comment.resolved:
+                found[("resolution", stage.id, comment.author, comment.time, comment.text)] = RecordChange(
+                    "resolution", stage.id, comment.check, comment.author, comment.time, f"resolved: {comment.text}")
+    return found
+
+
+def check_moves(old: Project, new: Project, old_provider: MetricProvider,
+                new_provider: MetricProvider) -> tuple[CheckMove, ...]:
+    """Every check whose state differs between ``old`` and ``new``, each evaluated with its own
+    project's metric provider (a check present on one side only moves from or to absent)."""
+    from stagewise.review.signoff import signoff_states
+
+    standing = signoff_states(new)
+    before = {(r.stage_id, r.check_id): r for r in evaluate_project(old, old_provider)}
+    after = {(r.stage_id, r.check_id): r for r in evaluate_project(new, new_provider)}
+    moves = []
+    for key in dict.fromkeys([*before, *after]):
+        was, now = before.get(key), after.get(key)
+        old_state = str(was.state) if was is not None else None
+        new_state = str(now.state) if now is not None else None
+        if old_state == new_state:
+            continue
+        shown = now if now is not None else was
+        assert shown is not None
+        moves.append(CheckMove(key[0], key[1], shown.text, old_state, new_state,
+                               _finite(was.value) if was is not None else None,
+                               _finite(now.value) if now is not None else None,
+                               was.value_text() if was is not None else "",
+                               now.value_text() if now is not None else "",
+                               _rework(standing.get(key[0]))))
+    return tuple(moves)
+
+
+def _rework(state: Any) -> tuple[str, ...]:
+    """The standing "returned for rework" sign-offs of a stage, each as "name: note": the
+    requests a moved check may answer."""
+    if state is None:
+        return ()
+    return tuple(f"{view.signoff.name}" + (f' ("{view.signoff.note}")' if view.signoff.note else "")
+                 for view in state.signoffs
+                 if not (view.replaced or view.out_of_date or view.unrecorded)
+                 and current_verdict(view.signoff.verdict) == VERDICTS[1])
+
+
+def _finite(value: float | None) -> float | None:
+    return value if value is not None and math.isfinite(value) else None
 
 
 def _typed(value: Any) -> str | None:
@@ -170,7 +323,7 @@ _CHECK_FIELDS = ("text", "metric", "where", "at_hz", "min", "max")
 _BLOCK_FIELDS = ("gain", "zeros_hz", "poles_hz", "zin_r_ohm", "zin_c_f", "zout_ohm")
 
 
-def _stage_changes(old: Stage, new: Stage, new_print: str) -> list[Change]:
+def _stage_changes(old: Stage, new: Stage) -> list[Change]:
     sid = new.id
     changes = _field_changes(sid, "stage", old, new, ("name",), behaviour=False)
     changes += _field_changes(sid, "stage", old, new, ("kind", "drive", "bypass"))
@@ -202,43 +355,9 @@ def _stage_changes(old: Stage, new: Stage, new_print: str) -> list[Change]:
             if _differs(getattr(before, name), getattr(check, name)):
                 changes.append(Change("changed", sid, f"check {check.id}", name, _typed(getattr(before, name)),
                                       _typed(getattr(check, name)), behaviour=name != "text"))
-        if _answer_text(before) != _answer_text(check):
-            changes.append(Change("changed", sid, f"check {check.id}", "answer", _answer_text(before),
-                                  _answer_text(check), behaviour=False))
-        if _waiver_text(before) != _waiver_text(check):
-            changes.append(Change("changed", sid, f"check {check.id}", "waiver", _waiver_text(before),
-                                  _waiver_text(check), behaviour=False))
     if old.notes != new.notes:
         changes.append(Change("changed", sid, "stage", "notes", None, None, behaviour=False))
-    for signoff in new.signoffs[len(old.signoffs):] if _prefix(old.signoffs, new.signoffs) else new.signoffs:
-        stale = f", {SignoffState.OUT_OF_DATE}" if signoff.fingerprint != new_print else ""
-        word = VERDICT_WORDS.get(signoff.verdict, signoff.verdict)
-        changes.append(Change("added", sid, "sign-off", new=f"{word} by {signoff.name}{stale}",
-                              behaviour=False))
-    if len(new.comments) != len(old.comments) or any(a.resolved != b.resolved for a, b in zip(old.comments, new.comments,
-                                                                                            strict=False)):
-        changes.append(Change("changed", sid, "comments", None, _count(len(old.comments), "comment"),
-                              f"{_count(len(new.comments), 'comment')}, "
-                              f"{sum(not c.resolved for c in new.comments)} unresolved", behaviour=False))
     return changes
-
-
-def _count(number: int, noun: str) -> str:
-    return f"{number} {noun}" + ("" if number == 1 else "s")
-
-
-def _prefix(old: Sequence[Any], new: Sequence[Any]) -> bool:
-    return len(old) <= len(new) and list(new[:len(old)]) == list(old)
-
-
-def _answer_text(check: Check) -> str | None:
-    answer = check.answer
-    return None if answer is None else f"{answer.answer} by {answer.by}"
-
-
-def _waiver_text(check: Check) -> str | None:
-    waiver = check.waiver
-    return None if waiver is None else f"waived by {waiver.by}: {waiver.justification}"
 
 
 def _longest_common_order(old: list[str], new: list[str]) -> set[str]:
@@ -307,7 +426,7 @@ def diff_projects(old: Project, new: Project) -> ProjectDiff:
         if stage.id not in kept:
             changes.append(Change("moved", stage.id, "stage", "position", f"position {old_ids.index(stage.id) + 1}",
                                   f"position {new_ids.index(stage.id) + 1}"))
-        changes += _stage_changes(before, stage, stage_fingerprint(stage, new))
+        changes += _stage_changes(before, stage)
     stale: list[StaleSignoff] = []
     for stage in new.stages:
         before = old.stage(stage.id)
@@ -319,4 +438,7 @@ def diff_projects(old: Project, new: Project) -> ProjectDiff:
         for signoff in stage.signoffs:
             if signoff.fingerprint == old_print:
                 stale.append(StaleSignoff(stage.id, signoff.name, signoff.role, signoff.verdict, signoff.time))
-    return ProjectDiff(tuple(changes), tuple(stale))
+    old_records, new_records = _records(old), _records(new)
+    added = tuple(record for key, record in new_records.items() if key not in old_records)
+    removed = tuple(record for key, record in old_records.items() if key not in new_records)
+    return ProjectDiff(tuple(changes), tuple(stale), added, removed)
