@@ -205,3 +205,14 @@ def test_validation_names_each_bad_measurement_record() -> None:
     assert 'measurements[1].id: "m1" is used by another measurement' in problems
     assert 'measurements[1].stage: "absent" is not a stage of this project' in problems
     assert "measurements[1].data: the columns f_hz, re, im differ in length" in problems
+
+
+def test_dc_only_keys_and_check_limits_leave_a_measurement_current() -> None:
+    # Common practice, no source: an offset voltage or a tempco does not change a small-signal
+    # frequency response, so the bench measurement of it stays current.
+    project = _project()
+    before = measurement_fingerprint(project, "isolated", "rc")
+    project.stages[0].parts[0].tc_ppm_per_c = type(project.stages[0].parts[0].value).of(50)  # type: ignore[union-attr]
+    assert measurement_fingerprint(project, "isolated", "rc") == before
+    project.stages[0].parts[0].value = type(project.stages[0].parts[0].value).of("22k1")  # type: ignore[union-attr]
+    assert measurement_fingerprint(project, "isolated", "rc") != before

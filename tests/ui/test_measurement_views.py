@@ -45,6 +45,9 @@ def test_measured_markers_follow_the_tree_tick_and_the_deviation_view(qtbot, sam
         assert chain is not None
         predicted = np.interp(np.log(F_HZ), np.log(chain[0]), chain[2])
         np.testing.assert_allclose(phase_deg - predicted, 2.0, atol=0.05)
+        # One legend entry for it.
+        labels = [label.text for _, label in view.legend.items]
+        assert labels.count("Measured: board") == 1, labels
         # The tree row toggles it like the other traces.
         tree = window.tree
         root = tree.topLevelItem(0)
@@ -56,7 +59,7 @@ def test_measured_markers_follow_the_tree_tick_and_the_deviation_view(qtbot, sam
         # The deviation view: 20·log10(1.05) ≈ 0.424 dB and 2° at every point (Source: definition of the decibel).
         deviation = window.measurement_view
         text = deviation.summary.text()
-        assert "board (whole chain, 41 points)" in text and "0.42 dB and 2.0°" in text
+        assert "Reddish purple circles: board (whole chain, 41 points)" in text and "0.42 dB and 2.0°" in text
         (shown,) = deviation.shown
         np.testing.assert_allclose(shown.dev_db, 20 * np.log10(1.05), atol=1e-9)
     finally:

@@ -93,9 +93,14 @@ def stage_fingerprint(stage: Stage, project: Project | None) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
+_SMALL_SIGNAL_PART_KEYS = ("ref", "type", "nodes", "value", "tol", "control", "model")
+_SMALL_SIGNAL_BLOCK_KEYS = ("gain", "zeros_hz", "poles_hz", "zin", "zout_ohm")
+
+
 def measurement_fingerprint(project: Project, where: str, stage_id: str | None) -> str:
     """SHA-256 (hex) of what a measured response depends on, in the canonical JSON of
-    :func:`stage_fingerprint` but without check limits (a new limit does not change the board).
+    :func:`stage_fingerprint` but without check limits (a new limit does not change the board)
+    and without the DC-only keys (offsets, drifts, temperature coefficients).
 
     ``isolated``: the stage alone. ``in_chain``: the stage and every active stage after it, and
     the load (V_out/V_in where it sits does not depend on what drives it). ``chain``: the drive
@@ -107,8 +112,15 @@ def measurement_fingerprint(project: Project, where: str, stage_id: str | None) 
         ``stage_id`` names no stage (for ``isolated`` and ``in_chain``).
     """
     def circuit(stage: Stage) -> dict[str, Any]:
+        # The small-signal response and its tolerances only: DC-only keys (offsets, drifts,
+        # tempcos) and check limits do not change what a frequency response or step measures.
         document = behaviour_document(stage, project)
         document.pop("checks", None)
+        if "block" in document:
+            document["block"] = {key: document["block"][key] for key in _SMALL_SIGNAL_BLOCK_KEYS}
+        document["parts"] = [{key: part[key] for key in _SMALL_SIGNAL_PART_KEYS} for part in document.get("parts", [])]
+        document["opamp_models"] = {name: {key: model[key] for key in _MODEL_FIELDS}
+                                    for name, model in document.get("opamp_models", {}).items()}
         return document
 
     def load() -> list[Any]:

@@ -36,6 +36,7 @@ from stagewise.report.layout import (
     Spacer,
     Table,
 )
+from stagewise.report.measurements import measurement_blocks
 from stagewise.report.plots import (
     ResponseTrace,
     bars_plot,
@@ -877,6 +878,7 @@ def build_blocks(content: PacketContent, results: list[CheckResult], states: dic
     blocks += _chain(content)
     for number, stage in enumerate(content.project.stages, start=1):
         blocks += _stage(stage, number, content, results, states[stage.id])
+    blocks += measurement_blocks(content, results)
     blocks += _audit(content)
     blocks.append(Spacer(1.0))
     return blocks

@@ -24,6 +24,7 @@ from stagewise.ui.palette import MarkerStyle, measurement_style
 __all__ = [
     "MeasuredOverlay",
     "draw_deviation",
+    "marker_data",
     "marker_item",
     "measured_phase_deg",
     "measurement_label",
@@ -89,19 +90,22 @@ def measured_phase_deg(comparison: Any, trace_f_hz: NDArray[np.float64] | None =
     return np.asarray(phase, dtype=float)
 
 
-def marker_item(x: NDArray[np.float64], y: NDArray[np.float64], style: MarkerStyle, label: str = "",
-                line: bool = False) -> pg.PlotDataItem:
-    """Markers without a line (or with a thin one), in a measurement's colour and shape."""
+def marker_item(f_hz: NDArray[np.float64], y: NDArray[np.float64], style: MarkerStyle) -> pg.ScatterPlotItem:
+    """Markers without a line at ``f_hz`` on a log-frequency plot, in a measurement's colour and shape.
+
+    A scatter item does not follow the plot's log mode, so it is given log10(f) itself; it is
+    drawn symbol by symbol (``useCache=False``), which keeps it a vector path in the packet.
+    """
     colour = QColor(style.colour)
-    pen = pg.mkPen(colour, width=0.8) if line else None
-    if pen is not None:
-        pen.setCosmetic(True)
-    item = pg.PlotDataItem(x, y, pen=pen, symbol=style.symbol, symbolSize=style.size,
-                           symbolPen=pg.mkPen(colour, width=1.2), symbolBrush=pg.mkBrush(255, 255, 255, 230),
-                           name=label or None)
-    # Vector output (the packet) needs symbols painted directly, not stamped from a pixmap.
-    item.scatter.opts["useCache"] = False
-    return item
+    return pg.ScatterPlotItem(x=np.log10(np.asarray(f_hz, dtype=float)), y=np.asarray(y, dtype=float),
+                              symbol=style.symbol, size=style.size, pen=pg.mkPen(colour, width=1.2),
+                              brush=pg.mkBrush(255, 255, 255), useCache=False)
+
+
+def marker_data(item: pg.ScatterPlotItem) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """(f_hz, y) of a :func:`marker_item` (tests read the plot items)."""
+    x, y = item.getData()
+    return np.asarray(10.0 ** np.asarray(x, dtype=float)), np.asarray(y, dtype=float)
 
 
 def draw_deviation(plot_db: pg.PlotItem, plot_deg: pg.PlotItem | None,
@@ -130,7 +134,9 @@ def draw_deviation(plot_db: pg.PlotItem, plot_deg: pg.PlotItem | None,
                 plot.addItem(low)
                 plot.addItem(high)
                 plot.addItem(pg.FillBetweenItem(low, high, brush=pg.mkBrush(band)))
-            plot.addItem(marker_item(f_hz, np.asarray(deviation), style, measurement_label(comparison), line=True))
+            line = pg.PlotDataItem(f_hz, np.asarray(deviation), pen=pg.mkPen(QColor(style.colour), width=0.8))
+            plot.addItem(line)
+            plot.addItem(marker_item(f_hz, np.asarray(deviation), style))
 
 
 def _matches(comparison: Any, spec: TraceSpec) -> bool:
@@ -155,7 +161,7 @@ class MeasuredOverlay:
         self.magnitude = magnitude
         self.phase = phase
         self.legend = legend
-        self.items: dict[str, tuple[pg.PlotDataItem, pg.PlotDataItem]] = {}
+        self.items: dict[str, tuple[pg.ScatterPlotItem, pg.ScatterPlotItem]] = {}
 
     def clear(self) -> None:
         for magnitude, phase in self.items.values():
@@ -176,7 +182,7 @@ class MeasuredOverlay:
                 continue
             style = measurement_style(index)
             label = measurement_label(comparison) + (" (out of date)" if comparison.stale else "")
-            magnitude = marker_item(comparison.f_hz, comparison.measured_mag_db, style, label)
+            magnitude = marker_item(comparison.f_hz, comparison.measured_mag_db, style)
             phase = marker_item(comparison.f_hz, measured_phase_deg(comparison, trace.f_hz, trace.phase_deg), style)
             self.magnitude.addItem(magnitude)
             self.phase.addItem(phase)
@@ -189,6 +195,6 @@ class MeasuredOverlay:
         items = self.items.get(measurement_id)
         if items is None:
             return None
-        f_hz, mag_db = items[0].getOriginalDataset()
-        _, phase_deg = items[1].getOriginalDataset()
+        f_hz, mag_db = marker_data(items[0])
+        _, phase_deg = marker_data(items[1])
         return f_hz, mag_db, phase_deg

@@ -28,11 +28,10 @@ class MeasurementView(PlotView):
             plot.getAxis("left").enableAutoSIPrefix(False)
             plot.getAxis("left").setWidth(64)
             plot.showGrid(x=True, y=True, alpha=0.25)
-        self.plot_db.setLabel("left", "Measured − predicted", units="dB")
-        self.plot_deg.setLabel("left", "Measured − predicted", units="°")
+        self.plot_db.setLabel("left", "Deviation", units="dB")
+        self.plot_deg.setLabel("left", "Deviation", units="°")
         self.plot_deg.setLabel("bottom", "Frequency (Hz)")
         self.plot_deg.setXLink(self.plot_db)
-        self.legend = self.plot_db.addLegend(offset=(-10, 10), labelTextSize="9pt")
         self.summary = QLabel(self)
         self.summary.setObjectName("measurementSummary")
         self.summary.setTextFormat(Qt.TextFormat.PlainText)
@@ -44,7 +43,6 @@ class MeasurementView(PlotView):
     def draw(self) -> None:
         self.plot_db.clear()
         self.plot_deg.clear()
-        self.legend.clear()
         self.shown = []
         if self.outcome is None:
             self.summary.setText("")
@@ -63,6 +61,10 @@ class MeasurementView(PlotView):
                   if self.overlays.measurement_shown(comparison.measurement.id)]
         draw_deviation(self.plot_db, self.plot_deg, styled)
         self.shown = [comparison for comparison, _ in styled]
-        lines = [measurement_summary(comparison) for comparison in comparisons]
-        lines.append("Shaded: the Monte Carlo envelope of the prediction at the measured frequencies.")
+        lines = []
+        for index, comparison in enumerate(comparisons):
+            style = measurement_style(index)
+            lines.append(f"{style.colour_name.capitalize()} {style.symbol_name}s: {measurement_summary(comparison)}")
+        lines.append("Deviation: measured minus predicted at each measured frequency. Shaded: the Monte Carlo "
+                     "envelope of the prediction there; a point inside it lies within the predicted spread.")
         self.summary.setText("\n".join(lines))

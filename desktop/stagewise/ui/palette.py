@@ -81,7 +81,7 @@ def limit_brush_colour(alpha: int = 50) -> QColor:
 
 
 # Bench measurements are drawn as markers without a line (they are sampled data, not a model),
-# with their own colour order (vermillion first, which no predicted trace takes before the third)
+# with their own colour order (reddish purple first, which no predicted trace takes before the sixth)
 # and a marker shape per measurement, so they stay distinguishable without colour.
 MEASUREMENT_MARKERS: tuple[tuple[str, str], ...] = (
     ("circle", "o"),
@@ -89,7 +89,7 @@ MEASUREMENT_MARKERS: tuple[tuple[str, str], ...] = (
     ("triangle", "t"),
     ("diamond", "d"),
 )
-_MEASUREMENT_COLOURS = (2, 5, 3, 4, 6, 1)  # indices into OKABE_ITO
+_MEASUREMENT_COLOURS = (5, 3, 4, 2, 6, 1)  # indices into OKABE_ITO
 
 
 @dataclass(frozen=True, slots=True)
