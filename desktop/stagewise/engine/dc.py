@@ -93,10 +93,13 @@ from stagewise.engine.sweep import drive
 from stagewise.model.project import Converter, Project, Stage
 
 __all__ = [
+    "BudgetRow",
+    "BudgetTable",
     "DcBudget",
     "DcBudgets",
     "DcContribution",
     "bias_current_factor",
+    "budget_table",
     "budget_to_json",
     "dc_budgets",
 ]
@@ -795,3 +798,56 @@ def _converter_totals(document: dict[str, Any], budget: DcBudget, converter: Con
                 put_with_why(document, f"total_{total}{suffix}_{unit}",
                      None if volts is None or full_scale is None else factor * volts / full_scale,
                      missing or "the converter's full_scale_vpp is not given")
+
+
+# -- the budget as a table (shared by the GUI view and the packet) ----------------------------
+
+
+@dataclass(frozen=True, slots=True)
+class BudgetRow:
+    """One contribution, its value in the table's unit (``BudgetTable.unit``)."""
+
+    source: str
+    stage: str
+    kind: str  # the words of KIND_WORDS
+    value: float | None
+    gain_error_pct: float | None
+    over_temperature: bool
+
+
+@dataclass(frozen=True, slots=True)
+class BudgetTable:
+    """A place's contributions, largest first, with one unit for the whole value column."""
+
+    unit: str
+    scale_v: float
+    rows: tuple[BudgetRow, ...]
+
+
+_PREFIXES = ((1.0, "V"), (1e-3, "mV"), (1e-6, "µV"), (1e-9, "nV"))
+
+
+def budget_table(document: dict[str, Any]) -> BudgetTable:
+    """The ``contributions`` of a ``dc`` document (:func:`budget_to_json`) as table rows.
+
+    The value column takes the SI prefix of its largest entry, so every row reads in one unit.
+    """
+    entries = list(document.get("contributions") or [])
+    largest = max((abs(float(entry["out_v"])) for entry in entries if entry.get("out_v") is not None), default=0.0)
+    scale, unit = _PREFIXES[-1]
+    for candidate_scale, candidate_unit in _PREFIXES:
+        if largest >= candidate_scale:
+            scale, unit = candidate_scale, candidate_unit
+            break
+    rows = tuple(
+        BudgetRow(
+            source=str(entry.get("source", "")),
+            stage=str(entry.get("stage", "")),
+            kind=KIND_WORDS.get(str(entry.get("kind")), str(entry.get("kind"))),
+            value=None if entry.get("out_v") is None else float(entry["out_v"]) / scale,
+            gain_error_pct=None if entry.get("gain_error_pct") is None else float(entry["gain_error_pct"]),
+            over_temperature=bool(entry.get("over_temperature")),
+        )
+        for entry in entries
+    )
+    return BudgetTable(unit=unit, scale_v=scale, rows=rows)

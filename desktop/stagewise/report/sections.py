@@ -358,6 +358,7 @@ def _chain(content: PacketContent) -> list[Block]:
         return blocks
     blocks.append(Table([Column("figure"), Column("whole chain", "right")], _metrics_rows([chain])))
     blocks.extend(_noise(chain, project))
+    blocks.extend(_dc_budget(chain, project))
     blocks.extend(_converter(chain, project))
     blocks.extend(_headroom(chain))
     blocks.extend(_spread(chain))
@@ -401,6 +402,64 @@ def _noise(chain: dict[str, Any], project: Project) -> list[Block]:
                                    max(130.0, 24.0 * len(names) + 70.0),
                                    "Largest contributors to the output noise over the noise band."))
     for note in noise.get("notes") or []:
+        blocks.append(Paragraph(f"Note: {note}", 10.5, color=QColor(MUTED)))
+    return blocks
+
+
+DC_TABLE_ROWS = 15
+
+
+def _dc_budget(chain: dict[str, Any], project: Project) -> list[Block]:
+    """The DC accuracy budget at the converter input (engine/dc.py), largest contributors first."""
+    from stagewise.engine.dc import budget_table  # noqa: PLC0415
+
+    blocks: list[Block] = [Heading("DC accuracy budget", 2)]
+    dc = chain.get("dc")
+    if not isinstance(dc, dict):
+        blocks.append(_unavailable(f"DC budget: {_why(chain, 'dc') or NOT_IN_BUILD}."))
+        return blocks
+    span = dc.get("temp_range_c")
+    rows = [
+        ("Temperature range", f"{span[0]:g} to {span[1]:g} °C (drift counted from 25 °C)" if span
+         else "not given: 25 °C only"),
+        ("Reference signal level at the converter input", _value_or_why(dc, "signal_out_v", "V")),
+        ("DC gain", _value_or_why(dc, "gain", "Ω" if project.input.drive == "current" else "V/V")),
+        ("DC gain error, worst case at 25 °C", _value_or_why(dc, "gain_error_pct", "%")),
+        ("Output offset, worst case at 25 °C", _value_or_why(dc, "offset_out_v", "V")),
+        ("Drift over the range (average slope)", _value_or_why(dc, "drift_out_v_per_c", "V/°C")),
+    ]
+    for label, total in (("worst case", "wc"), ("root-sum-square", "rss")):
+        for place, suffix in (("at 25 °C", "_25c"), ("over the range", "")):
+            volts = _value_or_why(dc, f"total_{total}{suffix}_v", "V")
+            extra = [text for text in (_text(dc.get(f"total_{total}{suffix}_lsb"), "") + " LSB"
+                                       if dc.get(f"total_{total}{suffix}_lsb") is not None else "",
+                                       _text(dc.get(f"total_{total}{suffix}_pct_fs"), "%") + " of full scale"
+                                       if dc.get(f"total_{total}{suffix}_pct_fs") is not None else "") if text]
+            rows.append((f"DC error, {label}, {place}", ", ".join([volts, *extra])))
+    blocks.append(_key_values(rows))
+    table = budget_table(dc)
+    if table.rows:
+        shown = table.rows[:DC_TABLE_ROWS]
+        blocks.append(Heading("Largest contributors at the converter input", 3))
+        blocks.append(Table([Column("source"), Column("stage", wrap=False), Column("kind"),
+                             Column(f"error ({table.unit})", "right", wrap=False),
+                             Column("gain error (%)", "right", wrap=False), Column("drift", wrap=False)],
+                            [[row.source, row.stage, row.kind, DASH if row.value is None else f"{row.value:.4g}",
+                              DASH if row.gain_error_pct is None else f"{row.gain_error_pct:.4g}",
+                              "yes" if row.over_temperature else "no"] for row in shown]))
+        bars = [row for row in shown if row.value is not None]
+        names = [f"{row.stage}: {row.source}" for row in bars]
+        values = [abs(row.value or 0.0) for row in bars]
+        if bars:
+            blocks.append(_plot_figure(lambda: bars_plot(names, values, f"error at the converter input "
+                                                                         f"({table.unit}, magnitude)"),
+                                       max(130.0, 24.0 * len(names) + 70.0),
+                                       "Largest DC error contributions at the converter input; gain errors at "
+                                       "the reference signal level, drifts at the end of the temperature range."))
+        if len(table.rows) > DC_TABLE_ROWS:
+            blocks.append(Paragraph(f"{len(table.rows) - DC_TABLE_ROWS} smaller contributions are in "
+                                    "the analysis document (analyze --json).", 10.5, color=QColor(MUTED)))
+    for note in dc.get("notes") or []:
         blocks.append(Paragraph(f"Note: {note}", 10.5, color=QColor(MUTED)))
     return blocks
 

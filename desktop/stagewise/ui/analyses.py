@@ -440,6 +440,48 @@ def chain_noise(project: Project, context: Context) -> NoiseTrace:
     return NoiseTrace(result.f_hz, result.out_density_v_rthz, top, summary)
 
 
+@dataclass(frozen=True, slots=True)
+class DcTrace:
+    """The DC budget at the converter input: its table (engine/dc.py) and a summary line."""
+
+    table: Any  # engine.dc.BudgetTable
+    summary: str
+
+
+def chain_dc(project: Project, context: Context) -> DcTrace:
+    """The chain's DC accuracy budget at the converter input (engine/dc.py)."""
+    from stagewise.engine.dc import budget_table
+    from stagewise.model.values import format_value
+
+    document, why = _project_analysis(project, context).dc_document("chain", "")
+    if document is None:
+        raise NotAvailable(why or "the DC budget could not be computed")
+    parts = []
+    for key, label in (("total_wc_v", "worst case"), ("total_rss_v", "RSS")):
+        value = document.get(key)
+        if value is None:
+            parts.append(f"{label}: {document.get(f'{key}_why')}")
+            continue
+        text = f"{label} {format_value(value, 'V')}"
+        lsb = document.get(key.replace("_v", "_lsb"))
+        if lsb is not None:
+            text += f" = {lsb:.3g} LSB"
+        pct = document.get(key.replace("_v", "_pct_fs"))
+        if pct is not None:
+            text += f" = {pct:.3g} % of full scale"
+        parts.append(text)
+    span = document.get("temp_range_c")
+    where = (f"over {span[0]:g} to {span[1]:g} °C" if span else "at 25 °C only (no temperature range given)")
+    summary = f"DC error at the converter input {where}: " + "; ".join(parts) + "."
+    if document.get("offset_out_v") is not None:
+        summary += f" Offset alone (25 °C, worst case) {format_value(document['offset_out_v'], 'V')}."
+    if document.get("gain_error_pct") is not None:
+        summary += f" Gain error {document['gain_error_pct']:.3g} % (worst case)."
+    else:
+        summary += f" Gain error: {document.get('gain_error_pct_why')}."
+    return DcTrace(budget_table(document), summary)
+
+
 def measurements(project: Project, context: Context) -> list[Any]:
     """Every bench measurement against the prediction at its place (engine/measured.py)."""
     return list(_project_analysis(project, context).measurements)
@@ -451,6 +493,7 @@ CHAIN_ANALYSES: list[tuple[str, int, Any]] = [
     ("baseline_response", 1, baseline_chain),
     ("step", 2, chain_step),
     ("noise", 2, chain_noise),
+    ("dc", 2, chain_dc),
     ("spread", 2, chain_spread),
     ("measurements", 2, measurements),
 ]

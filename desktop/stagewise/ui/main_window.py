@@ -37,6 +37,7 @@ from PySide6.QtWidgets import (
 from stagewise.model.project import Part, Project, Stage
 from stagewise.model.values import Quantity, ValueSyntaxError
 from stagewise.ui.chain_tree import ChainTree
+from stagewise.ui.dc_view import DcView
 from stagewise.ui.document import Document, EditRefused, blank_stage
 from stagewise.ui.icons import icon
 from stagewise.ui.measured_view import MeasurementView
@@ -176,6 +177,7 @@ class MainWindow(QMainWindow):
         self.step_view = StepView(document, worker, overlays)
         self.pole_zero_view = PoleZeroView(document, worker, overlays)
         self.noise_view = NoiseView(document, worker, overlays)
+        self.dc_view = DcView(document, worker, overlays)
         self.spread_view = SpreadView(document, worker, overlays)
         self.measurement_view = MeasurementView(document, worker, overlays)
         self.review_panel = ReviewPanel(document, worker)
@@ -187,6 +189,7 @@ class MainWindow(QMainWindow):
             "step": self._dock("stepDock", "Step", self.step_view),
             "poles": self._dock("polesDock", "Poles and zeros", self.pole_zero_view),
             "noise": self._dock("noiseDock", "Noise", self.noise_view),
+            "dc": self._dock("dcDock", "DC accuracy", self.dc_view),
             "spread": self._dock("spreadDock", "Spread over tolerances", self.spread_view),
             "measured": self._dock("measuredDock", "Bench measurements", self.measurement_view),
             "review": self._dock("reviewDock", "Review", self.review_panel),
@@ -199,8 +202,8 @@ class MainWindow(QMainWindow):
         self.setCentralWidget(placeholder)
 
     def plot_views(self) -> list[PlotView]:
-        return [self.response_view, self.step_view, self.pole_zero_view, self.noise_view, self.spread_view,
-                self.measurement_view]
+        return [self.response_view, self.step_view, self.pole_zero_view, self.noise_view, self.dc_view,
+                self.spread_view, self.measurement_view]
 
     def _action(self, name: str, text: str, slot: Any, shortcut: Any = None, icon_name: str = "",
                 tip: str = "") -> QAction:
@@ -344,7 +347,8 @@ class MainWindow(QMainWindow):
         self.splitDockWidget(d["response"], d["step"], Qt.Orientation.Vertical)
         self.splitDockWidget(d["step"], d["poles"], Qt.Orientation.Horizontal)
         self.splitDockWidget(d["poles"], d["noise"], Qt.Orientation.Horizontal)
-        self.tabifyDockWidget(d["noise"], d["spread"])
+        self.tabifyDockWidget(d["noise"], d["dc"])
+        self.tabifyDockWidget(d["dc"], d["spread"])
         self.tabifyDockWidget(d["spread"], d["measured"])
         d["noise"].raise_()
         self.splitDockWidget(d["review"], d["formula"], Qt.Orientation.Vertical)
