@@ -316,6 +316,8 @@ def _run(args: argparse.Namespace) -> int:
         _report(str(error))
         return EXIT_ERROR
     except ValueError as error:  # ProjectFileError, CircuitError, ValueSyntaxError
+        if not _raised_by_us(error):
+            return _internal_error(error)
         _report(str(error))
         return EXIT_ERROR
     except OSError as error:
@@ -326,11 +328,38 @@ def _run(args: argparse.Namespace) -> int:
         _report("interrupted")
         return EXIT_ERROR
     except Exception as error:  # noqa: BLE001 - the user gets one sentence, never a traceback
-        if os.environ.get("STAGEWISE_DEBUG"):
-            raise
-        _report(f"internal error ({type(error).__name__}: {error}); this is a fault in Stagewise, "
-                "not in your file; run with STAGEWISE_DEBUG=1 to see where")
-        return EXIT_ERROR
+        return _internal_error(error)
+
+
+def _internal_error(error: Exception) -> int:
+    if os.environ.get("STAGEWISE_DEBUG"):
+        raise error
+    _report(f"internal error ({type(error).__name__}: {error}); this is a fault in Stagewise, "
+            "not in your file; run with STAGEWISE_DEBUG=1 to see where")
+    return EXIT_ERROR
+
+
+def _raised_by_us(error: ValueError) -> bool:
+    """True when a ValueError is one of our sentences about the input, not a fault of ours.
+
+    Our own error classes (``ProjectFileError``, ``CircuitError``, ``ValueSyntaxError``...) and a
+    ``raise ValueError(...)`` written in Stagewise's code speak about the input; a plain
+    ValueError from a library or a built-in (``math domain error`` from ``log10(0)``, a numpy
+    shape mismatch) is a fault of ours, whatever input reached it.
+    """
+    import linecache  # noqa: PLC0415  (only on the error path)
+
+    if type(error) is not ValueError:
+        return type(error).__module__.startswith("stagewise")
+    frame = error.__traceback__
+    while frame is not None and frame.tb_next is not None:
+        frame = frame.tb_next
+    if frame is None:
+        return False
+    code = frame.tb_frame.f_code
+    if "stagewise" not in code.co_filename.replace("\\", "/").split("/"):
+        return False
+    return linecache.getline(code.co_filename, frame.tb_lineno).lstrip().startswith("raise")
 
 
 def _silence_stdout() -> None:

@@ -121,9 +121,10 @@ CASES: list[tuple[str, Callable[[dict[str, Any]], None], str, str]] = [
     ("stage with no path to node 0",
      _append_part({"ref": "R2", "type": "R", "nodes": ["x", "y"], "value": "1k"}),
      "stages[0].parts", "no path to node 0"),
-    ("stage with no part on node 0",
-     _set((*S0, "parts"), [{"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": "1k"}]),
-     "stages[0].parts", "node 0"),
+    ("current-driven series resistor: nothing sets a voltage",
+     _both(_set((*S0, "parts"), [{"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": "1k"}]),
+           _set((*S0, "drive"), "current")),
+     "stages[0].parts", "a current drive sets a current"),
     ("duplicate stage id", _set((*ADC, "id"), "buf"), "stages[1].id", '"buf" is used by another stage'),
     ("f_min >= f_max", _set(("settings", "f_min_hz"), "2M"), "settings.f_min_hz", "below f_max_hz"),
     ("f_min = f_max", _set(("settings", "f_min_hz"), 1e6), "settings.f_min_hz", "below f_max_hz"),
@@ -231,11 +232,16 @@ def test_semantic_problems_are_listed_together() -> None:
 
 def test_validate_works_on_a_model_built_in_code() -> None:
     # The GUI edits the model directly and validates before saving.
-    stage = Stage(id="s", name="S", parts=[Part("R1", "R", ["in", "out"], Quantity.of("1k"))])
+    stage = Stage(id="s", name="S", parts=[Part("R1", "R", ["in", "out"], Quantity.of("1k")),
+                                           Part("R2", "R", ["x", "y"], Quantity.of("1k"))])
     project = Project(title="T", stages=[stage])
     problems = validate(project)
-    assert any(problem.startswith("stages[0].parts:") and "node 0" in problem for problem in problems)
-    stage.parts.append(Part("R2", "R", ["out", "0"], Quantity.of("1k")))
+    # Common practice, no source: a resistor between two otherwise unconnected nodes floats.
+    assert any(problem.startswith("stages[0].parts:") and "no path to node 0" in problem for problem in problems)
+    stage.parts[1] = Part("R2", "R", ["out", "0"], Quantity.of("1k"))
+    assert validate(project) == []
+    # A series resistor alone is referenced to node 0 by the voltage drive at its input.
+    stage.parts.pop()
     assert validate(project) == []
 
 

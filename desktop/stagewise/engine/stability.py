@@ -3,9 +3,11 @@
 A linear system is stable when every natural frequency (every finite eigenvalue of its pencil
 ``G + sC`` with the drive zeroed) lies strictly in the left half-plane. That is what this
 module decides, for a stage isolated, a stage in chain, the chain seen from its input and the
-whole chain. It looks at every finite eigenvalue, the pole/zero pairs that cancel included: a
-right-half-plane pole cancelled by a zero is hidden from the response but still grows inside
-the circuit.
+whole chain. It looks at every pole of the minimal model and at the poles of the pole/zero
+pairs that cancel where they lie in the right half-plane: such a pole is hidden from the
+response but still grows inside the circuit. (A cancelled pair at s = 0 or on the jω axis is a
+mode the drive cannot reach and the output does not see, e.g. the charge of a node behind a
+series capacitor: it neither grows nor shows, and does not count.)
 
 The verdict is taken from the closed-loop poles rather than from loop-gain margins because the
 margins answer the question only for loops that are stable open-loop and cross 0 dB once (the
@@ -94,15 +96,19 @@ def stability_of_poles(poles_rad_s: NDArray[np.complex128] | list[complex] | Non
     poles_rad_s : array of complex
         The poles of the minimal model, s in rad/s.
     cancelled : tuple of (pole, zero)
-        Pairs removed from the model as cancelling; their poles count too.
+        Pairs removed from the model as cancelling; their poles count where they lie strictly
+        in the right half-plane.
 
     Returns
     -------
     Stability
     """
-    every = [complex(p) for p in (() if poles_rad_s is None else poles_rad_s)]
-    every += [complex(pole) for pole, _ in cancelled]
-    offending = [p for p in every if p == 0 or p.real > -STABILITY_RTOL * abs(p)]
+    poles = [complex(p) for p in (() if poles_rad_s is None else poles_rad_s)]
+    offending = [p for p in poles if p == 0 or p.real > -STABILITY_RTOL * abs(p)]
+    # A hidden mode counts when it grows: a right-half-plane pole behind a cancelling zero. One
+    # on the axis that the drive cannot reach and the output does not see (the charge of a node
+    # behind a series capacitor, held at s = 0) neither grows nor shows, so it does not.
+    offending += [complex(pole) for pole, _ in cancelled if complex(pole).real > STABILITY_RTOL * abs(pole)]
     # One of each conjugate pair; right-half-plane poles before those on the axis.
     offending = [p for p in offending if p.imag >= 0]
     if not offending:

@@ -2,7 +2,8 @@
 
 The file decoder checks types and syntax; this module checks meaning: part types and their
 node counts, duplicate references, controlled sources naming missing parts, ports that name no
-node, stages with no path to node 0, op-amp models that do not exist, settings out of range.
+node, nodes whose voltage nothing determines (no path to node 0 through a part, a voltage
+drive or an op-amp output), op-amp models that do not exist, settings out of range.
 """
 
 from __future__ import annotations
@@ -202,14 +203,17 @@ def validate_stage(stage: Stage, project: Project, path: str) -> list[str]:
             problems.append(f'{path}.ports.{port}: "{node}" is not a node of any part')
     if stage.ports.get("in") == GROUND or stage.ports.get("out") == GROUND:
         problems.append(f"{path}.ports: a port cannot be node 0 (the common reference)")
-    if stage.parts and GROUND not in nodes:
-        problems.append(f"{path}.parts: no part connects to node 0, the common reference")
-    elif stage.parts:
+    # Solvability, not whether a part names node 0: a series resistor or capacitor, or a bare
+    # follower, is referenced to node 0 by its voltage drive and by the op-amp's output. What
+    # must be refused is a node whose voltage nothing determines.
+    if stage.parts:
         unreached = _nodes_without_path_to_ground(stage)
         if unreached:
             names = ", ".join(f'"{node}"' for node in sorted(unreached))
+            current = (" (a current drive sets a current, not a voltage, so it is no path)"
+                       if stage.drive == "current" and stage.ports.get("in") in unreached else "")
             problems.append(f"{path}.parts: node{'s' if len(unreached) > 1 else ''} {names} "
-                            f"{'have' if len(unreached) > 1 else 'has'} no path to node 0")
+                            f"{'have' if len(unreached) > 1 else 'has'} no path to node 0{current}")
     return problems
 
 
@@ -247,8 +251,10 @@ def _nodes_without_path_to_ground(stage: Stage) -> set[str]:
         parent[find(a)] = find(b)
 
     all_nodes: set[str] = set()
-    # The isolated drive (voltage or current source) ties the input port to node 0.
-    join(stage.ports.get("in", GROUND), GROUND)
+    # A voltage drive ties the input port to node 0 (it sets its voltage); a current drive only
+    # injects a current, so the input port must find a path of its own.
+    if stage.drive != "current":
+        join(stage.ports.get("in", GROUND), GROUND)
     for part in stage.parts:
         all_nodes.update(part.nodes)
         if part.type not in PART_TYPES or len(part.nodes) != len(PART_TYPES[part.type][0]):
