@@ -279,3 +279,34 @@ def test_analyze_document_and_checks_carry_the_budget() -> None:
     assert why is None and value >= VOS * (1 + RF / RG)
     value, why = analysis.metric_value("drift_out_v_per_c", "chain", "s", None)
     assert value is None and "temp_range_c" in why
+
+
+def test_cmrr_of_a_non_inverting_stage_is_a_gain_error_of_one_over_cmrr() -> None:
+    cmrr_db = 80
+    project = make_project(non_inverting(), models={"op": model(cmrr_db=cmrr_db)}, amplitude="0.1")
+    result = budget(project)
+    # Source: S. Franco, 3rd ed., sec. 5.4 (value from memory): the common-mode error is an input
+    # offset v_cm/CMRR; in a non-inverting stage v_cm = v_in, so it is a gain error of 1/CMRR.
+    assert by_kind(result, "cmrr").gain_error_pct == pytest.approx(100 / 10 ** (cmrr_db / 20), rel=1e-6)
+
+
+def test_supply_variation_over_psrr_is_an_input_offset() -> None:
+    psrr_db = 90
+    project = make_project(non_inverting(), models={"op": model(psrr_db=psrr_db)},
+                           settings_keys={"supply_variation_v": "0.5"})
+    result = budget(project)
+    # Source: S. Franco, 3rd ed., sec. 5.4 (value from memory): ΔVos = ΔVs/PSRR, times the noise gain.
+    expected = 0.5 / 10 ** (psrr_db / 20) * (1 + RF / RG)
+    assert by_kind(result, "psrr").out_v == pytest.approx(expected, rel=1e-9)
+
+
+def test_an_op_amp_without_dc_feedback_has_no_finite_gain_term() -> None:
+    # Common practice, no source: a comparator-style op-amp (no feedback) has no closed-loop gain to
+    # compare with an ideal one; the budget says so instead of inventing a term.
+    parts = [{"ref": "R1", "type": "R", "nodes": ["in", "p"], "value": "1k"},
+             {"ref": "R2", "type": "R", "nodes": ["out", "0"], "value": "10k"},
+             {"ref": "U1", "type": "opamp", "nodes": ["p", "0", "out"], "model": "op"}]
+    project = make_project(parts, models={"op": {"a0_db": 60, "gbw_hz": "1M", "rout_ohm": 100}})
+    result = budget(project)
+    assert not [item for item in result.contributions if item.kind == "finite_gain"]
+    assert any("no DC feedback" in note for note in result.notes)

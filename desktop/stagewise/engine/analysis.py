@@ -748,6 +748,9 @@ class ProjectAnalysis:
                 continue
             value, why = self.metric_value(metric, "in_chain", stage.id, None)
             put_with_why(document, key, value, why)
+        if isinstance(document.get("from_input"), dict):  # the place from the chain's drive, where it exists
+            dc, dc_why = self.dc_document("from_input", stage.id)
+            put_with_why(document["from_input"], "dc", dc, dc_why)
         document["checks"] = [self.check_document(stage, check) for check in stage.checks]
         return document
 
