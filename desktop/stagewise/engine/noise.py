@@ -300,7 +300,8 @@ def analyze_noise(
         in_density = in_rms = None
         in_why = f"the signal gain at {ref_hz:g} Hz is zero, so noise cannot be referred to the input"
     if not from_settings:
-        notes.append("settings.noise_band_hz is not set; integrated over f_min_hz..f_max_hz")
+        notes.append("no noise band is set in the project settings, so the noise is integrated over the whole "
+                     "analysed frequency range")
     if not labels:
         notes.append("no noise source in this circuit model")
     return NoiseResult(

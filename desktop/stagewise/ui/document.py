@@ -26,21 +26,29 @@ from PySide6.QtGui import QUndoCommand, QUndoStack
 from stagewise.model.project import (
     PART_TYPES,
     VALUED_TYPES,
+    Check,
+    ManualAnswer,
     OpampModel,
     Part,
     Project,
     Stage,
+    Waiver,
 )
-from stagewise.model.validate import validate_stage
+from stagewise.model.validate import validate, validate_stage
 from stagewise.model.values import Quantity, ValueSyntaxError
 
-__all__ = ["BLOCK_FIELDS", "PART_FIELDS", "Document", "EditRefused", "SaveOutcome", "blank_stage"]
+__all__ = ["BLOCK_FIELDS", "BLOCK_STAGE_FIELDS", "PART_FIELDS", "PROJECT_FIELDS", "Document", "EditRefused",
+           "SaveOutcome", "blank_stage"]
 
 # Fields of a part that can be edited as text, with what they hold.
 PART_FIELDS: dict[str, str] = {"value": "value", "tol": "tolerance", "nodes": "nodes", "model": "op-amp model"}
 # Scalar fields of a block stage editable in place (attribute -> label).
 BLOCK_FIELDS: dict[str, str] = {"gain": "gain", "zin_r_ohm": "input resistance",
                                 "zin_c_f": "input capacitance", "zout_ohm": "output resistance"}
+# Project-wide records the project and converter dialogs edit (attributes of Project).
+PROJECT_FIELDS = ("title", "revision", "settings", "input", "converter", "load")
+# Everything the block-stage editor sets (attributes of Stage).
+BLOCK_STAGE_FIELDS = ("name", "gain", "zeros_hz", "poles_hz", "zin_r_ohm", "zin_c_f", "zout_ohm")
 _ID_PATTERN = re.compile(r"[^a-z0-9_-]+")
 
 
@@ -621,6 +629,165 @@ class Document(QObject):
             return apply
 
         self._push(f"{'bypass' if bypass else 'restore'} {stage.name}", put(bypass), put(not bypass))
+
+    # ----------------------------------------------------------------- project, block and check edits
+    def set_project_fields(self, values: dict[str, object], text: str) -> None:
+        """Replace project-wide records (title, revision, settings, input, converter, load) as one edit.
+
+        Refused (nothing changes) when the result has a problem the project did not have before,
+        such as a reference frequency outside the analysed range.
+        """
+        self._refuse_if_read_only()
+        unknown = sorted(set(values) - set(PROJECT_FIELDS))
+        if unknown:
+            raise EditRefused(f"{', '.join(unknown)} cannot be set as a project field")
+        old = {name: copy.deepcopy(getattr(self._project, name)) for name in values}
+        if all(old[name] == values[name] for name in values):
+            return
+        candidate = copy.copy(self._project)
+        for name, value in values.items():
+            setattr(candidate, name, value)
+        new_problems = [problem for problem in validate(candidate) if problem not in set(validate(self._project))]
+        if new_problems:
+            raise EditRefused(new_problems[0])
+        new = copy.deepcopy(values)
+
+        def put(chosen: dict[str, object]) -> Callable[[], None]:
+            def apply() -> None:
+                for name, value in chosen.items():
+                    setattr(self._project, name, copy.deepcopy(value))
+                self._chain_edited()
+            return apply
+
+        self._push(text, put(new), put(old))
+
+    def set_block_stage(self, stage_id: str, values: dict[str, object]) -> None:
+        """Set a block stage's name, gain, zeros, poles and impedances (see BLOCK_STAGE_FIELDS) as one edit."""
+        self._refuse_if_read_only()
+        stage = self._stage(stage_id)
+        if not stage.is_block:
+            raise EditRefused(f"{stage.name} is a circuit stage, not a behavioural block")
+        unknown = sorted(set(values) - set(BLOCK_STAGE_FIELDS))
+        if unknown:
+            raise EditRefused(f"{', '.join(unknown)} cannot be set on a block stage")
+        if "name" in values and not str(values["name"]).strip():
+            raise EditRefused("the stage needs a name")
+        old = {name: copy.deepcopy(getattr(stage, name)) for name in values}
+        if all(old[name] == values[name] for name in values):
+            return
+        candidate = copy.copy(stage)
+        for name, value in values.items():
+            setattr(candidate, name, value)
+        problems = self._stage_problems(candidate)
+        if problems:
+            raise EditRefused(_after_colon(problems[0]))
+        new = copy.deepcopy(values)
+
+        def put(chosen: dict[str, object]) -> Callable[[], None]:
+            def apply() -> None:
+                target = self._stage(stage_id)
+                for name, value in chosen.items():
+                    setattr(target, name, copy.deepcopy(value))
+                self._stage_edited(stage_id)
+                if "name" in chosen:
+                    self.chainChanged.emit()
+            return apply
+
+        self._push(f"edit block {stage.name}", put(new), put(old))
+
+    def set_checks(self, stage_id: str, checks: list[Check], text: str = "") -> None:
+        """Replace a stage's checklist (checks added, edited, removed or reordered) as one edit.
+
+        Only the definitions change: a check that keeps its id keeps the answer and waiver it has
+        when the edit is done or undone (review records are never undone), so a waiver recorded
+        after the edit survives its undo.
+        """
+        self._refuse_if_read_only()
+        stage = self._stage(stage_id)
+        ids = [check.id for check in checks]
+        if any(not check_id.strip() for check_id in ids):
+            raise EditRefused("every check needs an id")
+        duplicates = sorted({check_id for check_id in ids if ids.count(check_id) > 1})
+        if duplicates:
+            raise EditRefused(f'two checks of {stage.name} have the id "{duplicates[0]}"')
+        old = copy.deepcopy(stage.checks)
+        if old == checks:
+            return
+        candidate = copy.copy(stage)
+        candidate.checks = checks
+        problems = self._stage_problems(candidate)
+        if problems:
+            raise EditRefused(_after_colon(problems[0]))
+        new = copy.deepcopy(checks)
+        # Answers and waivers of checks this edit takes away (on redo or undo), kept for when the
+        # check comes back: review records are never undone.
+        set_aside: dict[str, tuple[ManualAnswer | None, Waiver | None]] = {}
+
+        def put(definitions: list[Check]) -> Callable[[], None]:
+            def apply() -> None:
+                target = self._stage(stage_id)
+                records = {check.id: (check.answer, check.waiver) for check in target.checks}
+                staying = {definition.id for definition in definitions}
+                set_aside.update({check_id: record for check_id, record in records.items() if check_id not in staying})
+                placed = []
+                for definition in definitions:
+                    check = copy.deepcopy(definition)
+                    if check.id in records:
+                        check.answer, check.waiver = records[check.id]
+                    elif check.id in set_aside:
+                        check.answer, check.waiver = set_aside.pop(check.id)
+                    placed.append(check)
+                target.checks = placed
+                self._stage_edited(stage_id)
+                self.reviewChanged.emit(stage_id)
+            return apply
+
+        self._push(text or f"edit the checks of {stage.name}", put(new), put(old))
+
+    def use_opamp_model(self, stage_id: str, ref: str, name: str, model: OpampModel | None = None) -> None:
+        """Give op-amp ``ref`` the model ``name``; ``model`` (from the library) is copied into the
+        project first when the project has no model of that name. One undoable edit."""
+        self._refuse_if_read_only()
+        stage = self._stage(stage_id)
+        part = stage.part(ref)
+        if part is None or part.type != "opamp":
+            raise EditRefused(f"{stage.name} has no op-amp {ref}")
+        adding = model is not None and name not in self._project.opamp_models
+        if part.model == name and not adding:
+            return
+        candidate_project = copy.copy(self._project)
+        candidate_project.opamp_models = dict(self._project.opamp_models)
+        if adding:
+            candidate_project.opamp_models[name] = copy.deepcopy(model)  # type: ignore[arg-type]
+        candidate_part = copy.copy(part)
+        candidate_part.model = name
+        candidate = copy.copy(stage)
+        candidate.parts = [candidate_part if p is part else p for p in stage.parts]
+        index = self._project.stages.index(stage)
+        problems = validate_stage(candidate, candidate_project, f"stages[{index}]")
+        if problems:
+            raise EditRefused(_after_colon(problems[0]))
+        old_name = part.model
+        added = copy.deepcopy(model) if adding else None
+
+        def forward() -> None:
+            if added is not None:
+                self._project.opamp_models[name] = copy.deepcopy(added)
+            target = self._stage(stage_id).part(ref)
+            assert target is not None
+            target.model = name
+            self._stage_edited(stage_id)
+
+        def backward() -> None:
+            target = self._stage(stage_id).part(ref)
+            assert target is not None
+            target.model = old_name
+            if added is not None:
+                self._project.opamp_models.pop(name, None)
+            self._stage_edited(stage_id)
+
+        copied = " (copied from the library)" if adding else ""
+        self._push(f"{ref} model = {name}{copied}", forward, backward)
 
     # ----------------------------------------------------------------- review
     def record_review(self, stage_id: str, action: Callable[[Project], object]) -> object:

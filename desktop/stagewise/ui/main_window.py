@@ -256,7 +256,20 @@ class MainWindow(QMainWindow):
             a("bypassStage", "&Bypass stage", self.toggle_bypass, "Ctrl+Shift+B", "bypass",
               "Leave the stage out of the chain (it stays in the file)"),
             a("removeStage", "Remo&ve stage", self.remove_stage, None, "remove", ""),
-            a("signStage", "&Sign stage…", self.sign_dialog, "Ctrl+Shift+S", "sign", "Record your verdict on the stage"),
+            # Ctrl+Shift+S is the platform's "Save as"; signing has a key of its own.
+            a("signStage", "&Sign stage…", self.sign_dialog, "Ctrl+Shift+G", "sign", "Record your verdict on the stage"),
+            a("projectSettings", "&Project settings…", lambda: self._exec(self.project_dialog()), "Ctrl+Shift+J",
+              "project", "Title, revision, input drive, frequency range, reference, noise band, temperature, seed"),
+            a("converterSettings", "&Converter…", lambda: self._exec(self.converter_dialog()), None, "",
+              "Sample rate, resolution and full scale of the converter the chain drives"),
+            a("newBlockStage", "New &block stage…", lambda: self._exec(self.new_block_stage_dialog()), None,
+              "block", "Add a behavioural block: gain, poles and zeros, input and output impedance"),
+            a("editBlockStage", "Edit b&lock stage…", lambda: self._exec(self.block_stage_dialog()), None, "block",
+              "Edit the selected behavioural block"),
+            a("editChecks", "Edit &checks…", lambda: self._exec(self.check_editor_dialog()), "Ctrl+Shift+K", "check",
+              "Add, edit or remove the stage's checks, or add checks from the library"),
+            a("chooseOpamp", "Op-amp &model…", lambda: self._exec(self.opamp_dialog()), "Ctrl+Shift+M", "part",
+              "Choose the selected op-amp's model, from the project or the library"),
             a("waiveCheck", "&Waive check…", lambda: self.waive_dialog(""), None, "waive", ""),
             a("answerCheck", "&Answer manual check…", lambda: self.answer_dialog(""), None, "check", ""),
             a("commentStage", "&Comment…", lambda: self.comment_dialog(""), None, "comment", ""),
@@ -305,12 +318,16 @@ class MainWindow(QMainWindow):
         edit_menu.addSeparator()
         edit_menu.addAction(names["addPart"])
         edit_menu.addAction(names["removePart"])
+        edit_menu.addAction(names["chooseOpamp"])
+        edit_menu.addSeparator()
+        edit_menu.addAction(names["projectSettings"])
+        edit_menu.addAction(names["converterSettings"])
         stage_menu = bar.addMenu("&Stage")
-        for name in ("newStage", "stageFromTemplate", "duplicateStage", "renameStage", "moveStageUp",
-                     "moveStageDown", "bypassStage", "removeStage"):
+        for name in ("newStage", "stageFromTemplate", "newBlockStage", "editBlockStage", "duplicateStage",
+                     "renameStage", "moveStageUp", "moveStageDown", "bypassStage", "removeStage"):
             stage_menu.addAction(names[name])
         review_menu = bar.addMenu("&Review")
-        for name in ("signStage", "waiveCheck", "answerCheck", "commentStage"):
+        for name in ("editChecks", "signStage", "waiveCheck", "answerCheck", "commentStage"):
             review_menu.addAction(names[name])
         view_menu = bar.addMenu("&View")
         for dock in self.docks.values():
@@ -456,8 +473,12 @@ class MainWindow(QMainWindow):
         names = self.actions_by_name
         has_stage = stage is not None
         for name in ("duplicateStage", "renameStage", "removeStage", "bypassStage", "signStage", "commentStage",
-                     "waiveCheck", "answerCheck"):
+                     "waiveCheck", "answerCheck", "editChecks"):
             names[name].setEnabled(has_stage and editable)
+        names["editBlockStage"].setEnabled(has_stage and editable and stage.is_block)  # type: ignore[union-attr]
+        names["chooseOpamp"].setEnabled(has_stage and editable and not stage.is_block)  # type: ignore[union-attr]
+        for name in ("projectSettings", "converterSettings", "newBlockStage"):
+            names[name].setEnabled(editable)
         names["addPart"].setEnabled(has_stage and editable and not stage.is_block)  # type: ignore[union-attr]
         names["removePart"].setEnabled(has_stage and editable and not stage.is_block)  # type: ignore[union-attr]
         for name in ("newStage", "stageFromTemplate", "importCards", "exportPacket", "printPacket"):
@@ -550,6 +571,99 @@ class MainWindow(QMainWindow):
             self.document.add_stage(stage, models=models)
         except (EditRefused, TemplateError) as error:
             self._refuse(error)
+
+    # ----------------------------------------------------------------- authoring dialogs
+    def _exec(self, dialog: Any) -> None:
+        if dialog is not None:
+            dialog.exec()
+
+    def project_dialog(self) -> Any:
+        """The project settings dialog; OK is one undoable edit."""
+        from stagewise.ui.authoring import ProjectDialog
+
+        return ProjectDialog(self.document.project,
+                             lambda values: self.document.set_project_fields(values, "edit the project settings"),
+                             self)
+
+    def converter_dialog(self) -> Any:
+        """The converter dialog; OK is one undoable edit."""
+        from stagewise.ui.authoring import ConverterDialog
+
+        return ConverterDialog(self.document.project.converter,
+                               lambda values: self.document.set_project_fields(values, "edit the converter"), self)
+
+    def block_stage_dialog(self) -> Any:
+        """The editor of the selected block stage (None when the stage is a circuit)."""
+        from stagewise.ui.authoring import BlockStageDialog
+
+        stage = self.document.current_stage
+        if stage is None or not stage.is_block:
+            self.show_message("Select a behavioural block stage first.")
+            return None
+        return BlockStageDialog(stage, lambda values: self.document.set_block_stage(stage.id, values), self)
+
+    def new_block_stage_dialog(self) -> Any:
+        """A block editor for a new stage, added after the selected one when OK is pressed."""
+        from stagewise.model.project import BLOCK_KIND, Stage
+        from stagewise.model.values import Quantity
+        from stagewise.ui.authoring import BlockStageDialog
+
+        draft = Stage(id=self.document.unique_stage_id("block"), name="Block", kind=BLOCK_KIND,
+                      gain=Quantity(1, 1.0), poles_hz=[Quantity("1M", 1e6)])
+        current = self.document.current_stage
+        index = self.document.project.stages.index(current) + 1 if current is not None else None
+
+        def add(values: dict[str, object]) -> None:
+            stage = copy.deepcopy(draft)
+            for name, value in values.items():
+                setattr(stage, name, value)
+            stage.id = self.document.unique_stage_id(str(values.get("name") or "block"))
+            self.document.add_stage(stage, index)
+
+        return BlockStageDialog(draft, add, self)
+
+    def check_editor_dialog(self) -> Any:
+        """The check editor of the selected stage, with the check library."""
+        from stagewise.review.templates import CheckTemplateError, check_templates
+        from stagewise.ui.authoring import CheckEditorDialog
+
+        stage = self.document.current_stage
+        if stage is None:
+            return None
+        try:
+            library = check_templates()
+        except CheckTemplateError as error:
+            self.show_message(f"The check library cannot be read: {error}")
+            library = {}
+        stage_id = stage.id
+        return CheckEditorDialog(stage, library, lambda checks: self.document.set_checks(stage_id, checks), self)
+
+    def opamp_dialog(self, ref: str = "") -> Any:
+        """The op-amp model picker for ``ref`` (default: the selected part, else the stage's first op-amp)."""
+        from stagewise.files.templates import TemplateError, load_opamp_library
+        from stagewise.ui.authoring import OpampLibraryDialog
+
+        stage = self.document.current_stage
+        if stage is None or stage.is_block:
+            return None
+        opamps = [part for part in stage.parts if part.type == "opamp"]
+        chosen = stage.part(ref or self.parts_table.selected_ref())
+        part = chosen if chosen is not None and chosen.type == "opamp" else (opamps[0] if opamps else None)
+        if part is None:
+            self.show_message(f"{stage.name} has no op-amp.")
+            return None
+        try:
+            library = load_opamp_library()
+        except TemplateError as error:
+            self.show_message(f"The op-amp library cannot be read: {error}")
+            library = {}
+        stage_id, part_ref = stage.id, part.ref
+
+        def use(choice: tuple[str, Any]) -> None:
+            self.document.use_opamp_model(stage_id, part_ref, choice[0], choice[1])
+
+        return OpampLibraryDialog(library, self.document.project.opamp_models, part.model or "ideal", use,
+                                  part_ref, self)
 
     def duplicate_stage(self) -> None:
         try:

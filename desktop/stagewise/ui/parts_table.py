@@ -20,7 +20,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from stagewise.model.project import PART_TYPES, Stage
+from stagewise.model.project import PART_TYPES, OpampModel, Stage
 from stagewise.model.values import format_value
 from stagewise.ui.document import BLOCK_FIELDS, Document, EditRefused
 from stagewise.ui.subscriptions import Subscriptions
@@ -107,26 +107,49 @@ class PartsTable(QWidget):
             self.reload()
 
     def reload(self, *_: object) -> None:
+        """Show the current stage. When the rows stay the same parts (an edit of a value, a
+        tolerance, nodes or a model), the cells are rewritten in place, so the current cell, the
+        selection and the keyboard focus stay where the user left them."""
         stage = self.document.current_stage
+        same_stage = stage is not None and stage.id == self._stage_id and stage.is_block == self._is_block
         self._stage_id = stage.id if stage is not None else ""
+        row, column = self.table.currentRow(), self.table.currentColumn()
         was_blocked = self.table.blockSignals(True)
         try:
-            self.table.setRowCount(0)
             if stage is None:
+                self.table.setRowCount(0)
                 self.caption.setText("No stage selected.")
                 return
+            rows_before = [str(self.table.item(r, 0).data(ROLE_REF)) if self.table.item(r, 0) else ""
+                           for r in range(self.table.rowCount())]
             self._is_block = stage.is_block
             if stage.is_block:
                 self._fill_block(stage)
             else:
                 self._fill_parts(stage)
+            rows_after = [str(self.table.item(r, 0).data(ROLE_REF)) if self.table.item(r, 0) else ""
+                          for r in range(self.table.rowCount())]
+            if same_stage and rows_before == rows_after and 0 <= row < self.table.rowCount() and column >= 0:
+                self.table.setCurrentCell(row, column)
         finally:
             self.table.blockSignals(was_blocked)
+
+    def _put(self, row: int, column: int, text: str) -> QTableWidgetItem:
+        """The cell at (row, column) showing ``text``: the existing item when there is one (so an
+        open editor and the current cell survive), a new one otherwise."""
+        item = self.table.item(row, column)
+        if item is None:
+            item = QTableWidgetItem(text)
+            self.table.setItem(row, column, item)
+        elif item.text() != text:
+            item.setText(text)
+        return item
 
     def _fill_parts(self, stage: Stage) -> None:
         self.caption.setText(f"{stage.name}: {len(stage.parts)} parts. Double-click a cell to edit "
                              "(values such as 4k7, 10n, 2.2u; tolerance such as 1%).")
-        self.table.setRowCount(len(stage.parts))
+        if self.table.rowCount() != len(stage.parts):
+            self.table.setRowCount(len(stage.parts))
         for row, part in enumerate(stage.parts):
             meaning = PART_TYPES.get(part.type, ((), "", ""))[1]
             cells = [
@@ -138,19 +161,22 @@ class PartsTable(QWidget):
                 part.model if part.type == "opamp" else meaning,
             ]
             for column, text in enumerate(cells):
-                item = QTableWidgetItem(text)
+                item = self._put(row, column, text)
                 item.setData(ROLE_REF, part.ref)
                 editable = column in EDITABLE and not (
                     (column == 3 and part.type == "opamp") or (column == 5 and part.type != "opamp")
                     or (column == 4 and part.type == "opamp"))
-                if not editable:
-                    item.setFlags(item.flags() & ~Qt.ItemFlag.ItemIsEditable)
-                    if column >= 2:
-                        item.setForeground(QBrush(QColor("#606060")))
+                flags = item.flags() | Qt.ItemFlag.ItemIsEditable
+                item.setFlags(flags if editable else flags & ~Qt.ItemFlag.ItemIsEditable)
+                item.setForeground(QBrush(QColor("#606060" if not editable and column >= 2 else "#202020")))
                 if column == 3 and part.value is not None:
                     unit = PART_TYPES[part.type][2]
                     item.setToolTip(f"{part.ref} = {format_value(part.value.si, unit)}")
-                self.table.setItem(row, column, item)
+                elif column == 5 and part.type == "opamp":
+                    item.setToolTip("Type a model of the project or of the op-amp library (a library model is "
+                                    "copied into the project), or use Edit → Op-amp model… to compare them.")
+                else:
+                    item.setToolTip("")
 
     def _fill_block(self, stage: Stage) -> None:
         self.caption.setText(f"{stage.name}: behavioural block. Gain and impedances are editable.")
@@ -162,14 +188,14 @@ class PartsTable(QWidget):
             rows.append(("", f"pole {index}", _root_text(root), False))
         for index, root in enumerate(stage.zeros_hz, start=1):
             rows.append(("", f"zero {index}", _root_text(root), False))
-        self.table.setRowCount(len(rows))
+        if self.table.rowCount() != len(rows):
+            self.table.setRowCount(len(rows))
         for row, (field, label, text, editable) in enumerate(rows):
             for column, cell in enumerate([label, "block", "", text, "", ""]):
-                item = QTableWidgetItem(cell)
-                item.setData(ROLE_REF, field)
-                if not (editable and column == 3):
-                    item.setFlags(item.flags() & ~Qt.ItemFlag.ItemIsEditable)
-                self.table.setItem(row, column, item)
+                item = self._put(row, column, cell)
+                item.setData(ROLE_REF, field or f"{label}")
+                flags = item.flags() | Qt.ItemFlag.ItemIsEditable
+                item.setFlags(flags if editable and column == 3 else flags & ~Qt.ItemFlag.ItemIsEditable)
 
     # ----------------------------------------------------------------- widget → model
     def _item_changed(self, item: QTableWidgetItem) -> None:
@@ -178,6 +204,9 @@ class PartsTable(QWidget):
         try:
             if self._is_block:
                 self.document.set_block_field(self._stage_id, key, item.text())
+            elif column in EDITABLE and EDITABLE[column] == "model" and self._library_model(item.text()) is not None:
+                self.document.use_opamp_model(self._stage_id, key, item.text().strip(),
+                                              self._library_model(item.text()))
             elif column in EDITABLE:
                 self.document.set_part_field(self._stage_id, key, EDITABLE[column], item.text())
             self.feedback.clear()
@@ -186,6 +215,18 @@ class PartsTable(QWidget):
             self.feedback.setText(text)
             self.message.emit(text)
             self.reload()
+
+    def _library_model(self, text: str) -> OpampModel | None:
+        """The op-amp library's model named ``text`` when the project has none of that name."""
+        name = text.strip()
+        if not name or name in self.document.project.opamp_models or name == "ideal":
+            return None
+        from stagewise.files.templates import TemplateError, load_opamp_library
+
+        try:
+            return load_opamp_library().get(name)
+        except TemplateError:
+            return None
 
     def edit_cell(self, ref: str, field: str, text: str) -> None:
         """Type ``text`` into the cell of ``ref``'s ``field`` as a user would (tests, scripts)."""
