@@ -26,7 +26,7 @@ EXIT_OK = 0
 EXIT_FAILED = 1
 EXIT_ERROR = 2
 
-SUBCOMMANDS = ("gui", "analyze", "response", "check", "packet", "verify", "diff", "merge", "import-cards",
+SUBCOMMANDS = ("gui", "analyze", "response", "check", "packet", "verify", "diff", "merge", "sign", "import-cards",
                "measure")
 
 
@@ -232,6 +232,22 @@ def build_parser() -> argparse.ArgumentParser:
     merge.add_argument("theirs", metavar="THEIRS", help="their copy")
     merge.add_argument("-o", "--output", metavar="OUT", required=True, help="where to write the merged project")
     merge.add_argument("--by", metavar="NAME", help="who merges (recorded in the merge event; default the login name)")
+
+    from stagewise.review.words import VERDICT_WORDS, VERDICTS
+
+    sign = _command(commands, "sign", "record a reviewer's verdict on a stage",
+                    "FILE, saved with the sign-off (bound to the stage's current fingerprint) and its audit event "
+                    "(the previous version kept as FILE.bak); one line on stdout",
+                    "exit status: 0 recorded; 2 the project cannot be read, the stage or verdict is wrong, the "
+                    "four-eyes rule forbids it, or FILE is open for editing elsewhere (FILE is then unchanged).")
+    sign.add_argument("file", metavar="FILE")
+    sign.add_argument("--stage", metavar="ID", required=True, help="the stage signed")
+    sign.add_argument("--verdict", required=True, choices=VERDICTS,
+                      help=f"{VERDICTS[0]} ({VERDICT_WORDS[VERDICTS[0]]}) or {VERDICTS[1]} "
+                      f"({VERDICT_WORDS[VERDICTS[1]]}, needs --note)")
+    sign.add_argument("--note", metavar="TEXT", help="what was reviewed, or what must change")
+    sign.add_argument("--by", metavar="NAME", help="the reviewer (default: the login name)")
+    sign.add_argument("--role", metavar="ROLE", help="the reviewer's role, e.g. 'analog design reviewer'")
 
     cards = commands.add_parser(
         "import-cards", help="add a stage built from element-card text",

@@ -34,10 +34,10 @@ def test_help_lists_every_subcommand(capsys: pytest.CaptureFixture[str]) -> None
     assert caught.value.code == 0
     out = capsys.readouterr().out
     # Source: DESIGN.md section 6, the command-line contract.
-    for name in ("gui", "analyze", "response", "check", "packet", "verify", "diff", "merge", "import-cards",
+    for name in ("gui", "analyze", "response", "check", "packet", "verify", "diff", "merge", "sign", "import-cards",
                  "measure"):
         assert f"\n    {name}" in out, name
-    assert set(cli.SUBCOMMANDS) == {"gui", "analyze", "response", "check", "packet", "verify", "diff", "merge",
+    assert set(cli.SUBCOMMANDS) == {"gui", "analyze", "response", "check", "packet", "verify", "diff", "merge", "sign",
                                     "import-cards", "measure"}
 
 

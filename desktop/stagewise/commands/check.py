@@ -33,7 +33,7 @@ from stagewise.review.checks import (
 )
 from stagewise.review.metrics import METRICS
 from stagewise.review.signoff import signoff_states
-from stagewise.review.words import WHERE_WORDS
+from stagewise.review.words import FOUR_EYES_WORD, WHERE_WORDS
 
 ENGINE_MODULE = "stagewise.engine.analysis"
 NO_ENGINE = "the analysis engine is not available in this build"
@@ -146,8 +146,10 @@ def run(args: argparse.Namespace) -> int:
     counted = totals(results)
     passing = counted.all_passing and not findings
     if getattr(args, "json", False):
-        print_json(_json(path, project, results, findings))
-        return 0 if passing else 1
+        document = _json(path, project, results, findings)
+        document["four_eyes_breaches"] = breaches = _four_eyes_lines(signoff_states(project))
+        print_json(document)
+        return 0 if passing and not breaches else 1
     print(f"{printable(project.title)} (revision {printable(project.revision) or '—'}): {printable(path)}")
     print()
     if results:
@@ -169,4 +171,15 @@ def run(args: argparse.Namespace) -> int:
                                 if findings else ""))
     states = signoff_states(project)
     print("sign-offs: " + ", ".join(f"{printable(stage_id)} {state.state}" for stage_id, state in states.items()))
-    return 0 if passing else 1
+    breaches = _four_eyes_lines(states)
+    for line in breaches:
+        print(line)
+    return 0 if passing and not breaches else 1
+
+
+def _four_eyes_lines(states: dict[str, Any]) -> list[str]:
+    """One line per acceptance that breaks the project's four-eyes rule (settings.four_eyes)."""
+    return [f"four-eyes rule broken: stage {printable(stage_id)} {FOUR_EYES_WORD} "
+            f"({printable(view.signoff.name)}, who last changed it, at {printable(view.signoff.time)}); "
+            "another reviewer must accept it"
+            for stage_id, state in states.items() for view in state.four_eyes_breaches if not view.replaced]

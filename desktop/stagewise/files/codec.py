@@ -311,7 +311,7 @@ _TOP_KEYS = ("format", "version", "title", "revision", "settings", "input", "con
              "opamp_models", "stages", "measurements", "audit")
 _SETTINGS_KEYS = ("f_min_hz", "f_max_hz", "points_per_decade", "temperature_c", "ref_hz",
                   "noise_band_hz", "seed", "mc_samples", "mc_distribution", "temp_range_c",
-                  "supply_variation_v")
+                  "supply_variation_v", "four_eyes")
 _OPAMP_KEYS = ("description", "a0_db", "gbw_hz", "p2_hz", "rout_ohm", "rin_ohm", "cin_diff_f",
                "cin_cm_f", "en_v_rthz", "en_corner_hz", "in_a_rthz", "in_corner_hz", "swing_v",
                "slew_v_per_s", "input_type", "vos_v", "vos_drift_v_per_c", "ib_a", "ios_a", "cmrr_db",
@@ -450,6 +450,7 @@ def _decode_settings(reader: _Reader, data: object) -> Settings:
     settings.temp_range_c = reader.field(fields, "temp_range_c",
                                          lambda v: None if v is None else _pair(_quantity)(v), None)
     settings.supply_variation_v = reader.field(fields, "supply_variation_v", _optional_nonnegative, None)
+    settings.four_eyes = reader.field(fields, "four_eyes", _boolean, False)
     return settings
 
 
@@ -730,6 +731,8 @@ def encode(project: Project) -> dict[str, Any]:
         settings_out["temp_range_c"] = [q.raw for q in settings.temp_range_c]
     if settings.supply_variation_v is not None:
         settings_out["supply_variation_v"] = settings.supply_variation_v.raw
+    if settings.four_eyes:
+        settings_out["four_eyes"] = True
     document: dict[str, Any] = {
         "format": FORMAT_NAME,
         "version": FORMAT_VERSION,

@@ -237,6 +237,9 @@ class Settings:
     temp_range_c: tuple[Quantity, Quantity] | None = None
     # Largest change of the op-amps' supply voltage from nominal, V (with psrr_db).
     supply_variation_v: Quantity | None = None
+    # Four-eyes rule: whoever last changed a stage (its last "part change" or "import" event)
+    # cannot accept it (review.signoff; enforced by review.actions.sign, reported by check).
+    four_eyes: bool = False
 
 
 @dataclass(slots=True)

@@ -70,6 +70,8 @@ def sign(project: Project, stage_id: str, name: str, role: str, verdict: str, no
     ----------
     verdict : {"accept", "rework"}
         Accepted, or returned for rework; ``rework`` needs a note saying what must change.
+        Under the four-eyes rule (``settings.four_eyes``) whoever last changed the stage cannot
+        accept it.
 
     Returns
     -------
@@ -82,6 +84,13 @@ def sign(project: Project, stage_id: str, name: str, role: str, verdict: str, no
         raise ReviewError(f'"{verdict}" is not a verdict; use "accept" or "rework"')
     if verdict == "rework" and not note.strip():
         raise ReviewError("returning a stage for rework needs a note saying what must change")
+    if project.settings.four_eyes and verdict == VERDICTS[0]:
+        from stagewise.review.signoff import last_changed_by
+
+        author = last_changed_by(project).get(stage.id, "")
+        if author.strip().casefold() == name.casefold():
+            raise ReviewError(f'{name} last changed stage "{stage.id}" and cannot accept it: the project asks '
+                              "for the four-eyes rule (settings.four_eyes); another reviewer must")
     fingerprint = stage_fingerprint(stage, project)
     stamp = _time(time)
     event = append_event(project, name, "signoff",

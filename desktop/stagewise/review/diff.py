@@ -394,7 +394,8 @@ def diff_projects(old: Project, new: Project) -> ProjectDiff:
             changes.append(Change("changed", None, "project", name, getattr(old, name), getattr(new, name), False))
     changes += _field_changes(None, "settings", old.settings, new.settings,
                               ("f_min_hz", "f_max_hz", "points_per_decade", "temperature_c", "ref_hz",
-                               "noise_band_hz", "seed", "mc_samples", "mc_distribution"))
+                               "noise_band_hz", "seed", "mc_samples", "mc_distribution", "temp_range_c",
+                               "supply_variation_v", "four_eyes"))
     changes += _field_changes(None, "input", old.input, new.input, ("drive", "amplitude"))
     changes += _field_changes(None, "converter", old.converter, new.converter, ("fs_hz", "bits", "full_scale_vpp"))
     changes += _field_changes(None, "load", old.load, new.load, ("r_ohm", "c_f"))

@@ -8,7 +8,10 @@ reviewer's latest sign-off that is still current: any returning it for rework ma
 of date make it ``out of date``; none at all is ``not signed``. A sign-off that no audit event
 accounts for (written or edited outside the program, :func:`stagewise.review.audit.check_records`)
 is **unrecorded**: it never counts as a verdict, and a stage holding one is ``unrecorded`` until
-it is signed again or the record is removed. The words come from :mod:`stagewise.review.words`.
+it is signed again or the record is removed. Where the project asks for the four-eyes rule
+(``settings.four_eyes``), an acceptance by the person who last changed the stage
+(:func:`last_changed_by`) does not count either and is listed in ``four_eyes_breaches``. The
+words come from :mod:`stagewise.review.words`.
 """
 
 from __future__ import annotations
@@ -18,9 +21,9 @@ from dataclasses import dataclass
 from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Project, Signoff, Stage
 from stagewise.review.audit import RecordsCheck, check_records
-from stagewise.review.words import SignoffState, current_verdict
+from stagewise.review.words import FOUR_EYES_WORD, VERDICTS, SignoffState, current_verdict
 
-__all__ = ["SignoffView", "StageSignoffs", "is_out_of_date", "signoff_state", "signoff_states"]
+__all__ = ["SignoffView", "StageSignoffs", "is_out_of_date", "last_changed_by", "signoff_state", "signoff_states"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -34,6 +37,7 @@ class SignoffView:
     out_of_date: bool
     replaced: bool
     unrecorded: bool = False
+    breaks_four_eyes: bool = False
 
     @property
     def verdict_word(self) -> str:
@@ -46,6 +50,8 @@ class SignoffView:
         ``unrecorded`` when no audit event accounts for it."""
         if self.unrecorded:
             return str(SignoffState.UNRECORDED)
+        if self.breaks_four_eyes:
+            return FOUR_EYES_WORD
         if self.out_of_date:
             return str(SignoffState.OUT_OF_DATE)
         return self.verdict_word
@@ -65,6 +71,12 @@ class StageSignoffs:
     signoffs: tuple[SignoffView, ...]
 
     @property
+    def four_eyes_breaches(self) -> tuple[SignoffView, ...]:
+        """Acceptances by the person who last changed the stage, where the project's four-eyes
+        rule (``settings.four_eyes``) forbids it; they do not count towards the state."""
+        return tuple(view for view in self.signoffs if view.breaks_four_eyes)
+
+    @property
     def out_of_date_count(self) -> int:
         """Sign-offs that are out of date and not replaced (they ask for a new sign-off)."""
         return sum(1 for view in self.signoffs if view.out_of_date and not view.replaced)
@@ -75,7 +87,21 @@ def is_out_of_date(signoff: Signoff, stage: Stage, project: Project) -> bool:
     return signoff.fingerprint != stage_fingerprint(stage, project)
 
 
-def _state_of(stage: Stage, project: Project, records: RecordsCheck) -> StageSignoffs:
+def last_changed_by(project: Project) -> dict[str, str]:
+    """Who last changed each stage, from the audit trail: the ``who`` of the latest "part change"
+    event listing a change of that stage, or of the "import" event that brought it in."""
+    changed: dict[str, str] = {}
+    for event in project.audit:
+        if event.what == "import" and isinstance(event.detail.get("stage"), str):
+            changed[event.detail["stage"]] = event.who
+        elif event.what == "part change":
+            for change in event.detail.get("changes") or []:
+                if isinstance(change, dict) and isinstance(change.get("stage"), str):
+                    changed[change["stage"]] = event.who
+    return changed
+
+
+def _state_of(stage: Stage, project: Project, records: RecordsCheck, changers: dict[str, str]) -> StageSignoffs:
     current = stage_fingerprint(stage, project)
     unrecorded = {index for index in range(len(stage.signoffs)) if records.is_unrecorded("signoff", stage.id, index)}
     latest_by_reviewer: dict[str, int] = {}
@@ -83,19 +109,26 @@ def _state_of(stage: Stage, project: Project, records: RecordsCheck) -> StageSig
         if index not in unrecorded:  # a record written outside the program replaces nothing
             latest_by_reviewer[signoff.name.strip().casefold()] = index
     latest = set(latest_by_reviewer.values())
+    changer = changers.get(stage.id, "").strip().casefold() if project.settings.four_eyes else ""
+
+    def breaks(signoff: Signoff) -> bool:
+        return bool(changer) and signoff.name.strip().casefold() == changer \
+            and current_verdict(signoff.verdict) == VERDICTS[0]
+
     views = tuple(
         SignoffView(index, signoff, signoff.fingerprint != current, index not in latest and index not in unrecorded,
-                    index in unrecorded)
+                    index in unrecorded, breaks(signoff) and signoff.fingerprint == current)
         for index, signoff in enumerate(stage.signoffs)
     )
-    live = [view for view in views if not view.replaced and not view.out_of_date and not view.unrecorded]
+    live = [view for view in views
+            if not view.replaced and not view.out_of_date and not view.unrecorded and not view.breaks_four_eyes]
     if unrecorded:
         state = SignoffState.UNRECORDED
-    elif any(current_verdict(view.signoff.verdict) == "rework" for view in live):
+    elif any(current_verdict(view.signoff.verdict) == VERDICTS[1] for view in live):
         state = SignoffState.REWORK
     elif live:
         state = SignoffState.ACCEPTED
-    elif views:
+    elif views and not any(view.breaks_four_eyes and not view.replaced for view in views):
         state = SignoffState.OUT_OF_DATE
     else:
         state = SignoffState.NONE
@@ -113,10 +146,11 @@ def signoff_state(project: Project, stage_id: str) -> StageSignoffs:
     stage = project.stage(stage_id)
     if stage is None:
         raise KeyError(f'the project has no stage "{stage_id}"')
-    return _state_of(stage, project, check_records(project))
+    return _state_of(stage, project, check_records(project), last_changed_by(project))
 
 
 def signoff_states(project: Project) -> dict[str, StageSignoffs]:
     """Every stage's sign-off state, in chain order, keyed by stage id."""
     records = check_records(project)
-    return {stage.id: _state_of(stage, project, records) for stage in project.stages}
+    changers = last_changed_by(project)
+    return {stage.id: _state_of(stage, project, records, changers) for stage in project.stages}

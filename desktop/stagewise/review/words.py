@@ -12,6 +12,7 @@ from typing import Final
 __all__ = [
     "ANSWER_WORDS",
     "CHECK_STATE_MEANINGS",
+    "FOUR_EYES_WORD",
     "PASSING_STATES",
     "OLDER_VERDICTS",
     "REPLACED_WORD",
@@ -93,6 +94,10 @@ OLDER_VERDICTS: Final[dict[str, str]] = {
 # A sign-off followed by a later one of the same reviewer on the same stage: it stays in the
 # record and no longer counts towards the stage's state.
 REPLACED_WORD: Final = "replaced"
+
+# An acceptance by the person who last changed the stage, where the project's four-eyes rule
+# (settings.four_eyes) forbids it: it does not count.
+FOUR_EYES_WORD: Final = "accepted by its own author"
 
 
 def current_verdict(word: str) -> str:
