@@ -64,3 +64,26 @@ def test_measured_markers_follow_the_tree_tick_and_the_deviation_view(qtbot, sam
         np.testing.assert_allclose(shown.dev_db, 20 * np.log10(1.05), atol=1e-9)
     finally:
         window.shutdown()
+
+
+def test_a_step_capture_is_drawn_beside_the_predicted_step(qtbot, sample_path: Path,  # type: ignore[no-untyped-def]
+                                                           tmp_path: Path) -> None:
+    # The sample's rc stage alone: R1 3k3, C1 6.8 nF. Source: first-order step 1 − exp(−t/RC).
+    tau = 3.3e3 * 6.8e-9
+    t_s = np.linspace(-0.2 * tau, 12 * tau, 2001)
+    volts = np.where(t_s < 0, 0.1, 0.1 + 0.5 * (1 - np.exp(-np.clip(t_s, 0, None) / tau)))
+    capture = tmp_path / "rc step.csv"
+    capture.write_text("Time (s),CH1 (V)\n" + "\n".join(f"{float(t)!r},{float(v)!r}" for t, v in zip(t_s, volts, strict=True))
+                       + "\n", encoding="utf-8")
+    assert main(["measure", str(sample_path), str(capture), "--stage", "rc", "--by", "GUI test"]) == 0
+    window = make_window(qtbot, sample_path)
+    try:
+        window.overlays.set_stage("rc", "isolated", True)
+        item = window.step_view.measured.items.get("rc-step")
+        assert item is not None
+        t, y = item.getOriginalDataset()
+        # Scaled to the prediction's final value (1 V/V): the capture's shape 1 − exp(−t/τ), within
+        # the 1e-5 by which the mean of its last tenth sits below the true final value.
+        np.testing.assert_allclose(y, 1 - np.exp(-t / tau), atol=2e-5)
+    finally:
+        window.shutdown()

@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 import pyqtgraph as pg
 from numpy.typing import NDArray
+from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
 
 from stagewise.review.words import WHERE_WORDS
@@ -23,12 +24,14 @@ from stagewise.ui.palette import MarkerStyle, measurement_style
 
 __all__ = [
     "MeasuredOverlay",
+    "MeasuredSteps",
     "draw_deviation",
     "marker_data",
     "marker_item",
     "measured_phase_deg",
     "measurement_label",
     "measurement_summary",
+    "scaled_capture",
 ]
 
 STALE_WORDS = "out of date: the circuit changed after it was measured"
@@ -140,9 +143,11 @@ def draw_deviation(plot_db: pg.PlotItem, plot_deg: pg.PlotItem | None,
 
 
 def _matches(comparison: Any, spec: TraceSpec) -> bool:
+    return comparison.measurement.kind == "response" and _matches_place(comparison, spec)
+
+
+def _matches_place(comparison: Any, spec: TraceSpec) -> bool:
     measurement = comparison.measurement
-    if measurement.kind != "response":
-        return False
     if spec.view == CHAIN:
         return measurement.where == "chain"
     if spec.view in (ISOLATED, IN_CHAIN):
@@ -198,3 +203,46 @@ class MeasuredOverlay:
         f_hz, mag_db = marker_data(items[0])
         _, phase_deg = marker_data(items[1])
         return f_hz, mag_db, phase_deg
+
+
+def scaled_capture(comparison: Any, predicted_final: float) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
+    """A step capture from its edge on, baseline removed and scaled so its final value is
+    ``predicted_final``: the shape compared with the predicted unit step (the capture's own
+    amplitude depends on the step the bench applied)."""
+    step = comparison.step
+    if step is None or not step.final or not np.isfinite(predicted_final):
+        return None
+    return np.asarray(step.t_s), np.asarray(step.y) / float(step.final) * predicted_final
+
+
+class MeasuredSteps:
+    """Step captures on the step view, beside the predicted step of their place (when shown)."""
+
+    def __init__(self, plot: pg.PlotItem) -> None:
+        self.plot = plot
+        self.items: dict[str, pg.PlotDataItem] = {}
+
+    def draw(self, comparisons: Sequence[Any], rows: Sequence[tuple[TraceSpec, Any, Any]],
+             overlays: OverlaySelection) -> None:
+        for item in self.items.values():
+            self.plot.removeItem(item)
+        self.items = {}
+        for index, comparison in enumerate(comparisons):
+            if comparison.measurement.kind != "step" or not overlays.measurement_shown(comparison.measurement.id):
+                continue
+            row = next((row for row in rows if _matches_place(comparison, row[0])), None)
+            if row is None or len(row[2]) == 0:
+                continue
+            captured = scaled_capture(comparison, float(np.asarray(row[2])[-1]))
+            if captured is None:
+                continue
+            t_s, y = captured
+            if self.plot.getAxis("bottom").logMode:
+                t_s, y = t_s[t_s > 0], y[t_s > 0]
+            style = measurement_style(index)
+            pen = pg.mkPen(QColor(style.colour), width=1.4)
+            pen.setStyle(Qt.PenStyle.DashDotDotLine)
+            pen.setCosmetic(True)
+            item = pg.PlotDataItem(t_s, y, pen=pen)
+            self.plot.addItem(item)
+            self.items[comparison.measurement.id] = item

@@ -22,7 +22,7 @@ from stagewise.model.project import Check, Project
 from stagewise.model.values import format_value
 from stagewise.ui.analyses import ResponseTrace, finite
 from stagewise.ui.document import Document
-from stagewise.ui.measured_plots import MeasuredOverlay
+from stagewise.ui.measured_plots import MeasuredOverlay, MeasuredSteps
 from stagewise.ui.overlays import BASELINE, CHAIN, IN_CHAIN, ISOLATED, OverlaySelection, TraceSpec
 from stagewise.ui.palette import OKABE_ITO, limit_brush_colour
 from stagewise.ui.subscriptions import Subscriptions
@@ -389,6 +389,7 @@ class StepView(PlotView):
         # No legend of its own: traces keep the colours and line styles of the response legend.
         self.traces = _TraceItems(self.plot, None)
         self.limits = _LimitLayer(self.plot, log_x=False)
+        self.measured = MeasuredSteps(self.plot)
         self.summary = QLabel(self)
         self.summary.setTextFormat(Qt.TextFormat.PlainText)
         self.summary.setWordWrap(True)
@@ -423,6 +424,8 @@ class StepView(PlotView):
         if log_time:
             rows = [(spec, t[t > 0], y[t > 0]) for spec, t, y in rows]
         self.traces.show(rows)
+        measured = self.outcome.of_chain("measurements") if self.outcome is not None else None
+        self.measured.draw(measured.value if measured is not None and measured.ok else [], rows, self.overlays)
         self.summary.setText("\n".join(summaries))
         shapes = []
         stage = self.document.current_stage
