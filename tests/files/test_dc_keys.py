@@ -100,3 +100,18 @@ def test_circuit_stage_refuses_block_dc_keys() -> None:
     document["stages"][0]["offset_v"] = "1m"
     with pytest.raises(ProjectFileError, match=r"stages\[0\]\.offset_v: a circuit stage takes no"):
         loads_project(json.dumps(document))
+
+
+def test_diff_names_a_change_of_the_dc_keys() -> None:
+    from stagewise.review.diff import diff_projects  # noqa: PLC0415
+
+    old = loads_project(json.dumps(BASE))
+    changed = copy.deepcopy(BASE)
+    changed["stages"][0]["parts"][0]["tc_ppm_per_c"] = 50
+    changed["stages"][1]["offset_v"] = "2m"
+    changed["settings"]["temp_range_c"] = [-20, 70]
+    changed["opamp_models"]["op"]["ib_a"] = "40p"
+    new = loads_project(json.dumps(changed))
+    # Common practice, no source: a review diff names every change that decides behaviour.
+    fields = {(change.stage_id, change.field) for change in diff_projects(old, new).changes}
+    assert {("amp", "tc_ppm_per_c"), ("adc", "offset_v"), (None, "temp_range_c"), (None, "ib_a")} <= fields

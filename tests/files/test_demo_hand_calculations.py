@@ -130,3 +130,20 @@ def test_greenhouse_gain_stage_offset_is_dominated_by_the_bias_current() -> None
     assert why is None and value == pytest.approx(hand + supply, rel=1e-3)
     check = _check(stage, "dc_offset")
     assert check.max is not None and value > check.max.si  # not met: the review asks for the cancelling resistor
+
+
+def test_hydrophone_dc_budget_holds_only_the_converter_offset() -> None:
+    project = load_project(PROJECTS / "hydrophone.stagewise.json")
+    stage = _stage(project, "adc")
+    assert stage.offset_v is not None
+    # Source: IEEE Std 1241 (ideal code width Q = FSR / 2^N): 1.5 mV / (4.096 V / 65536) = 24 LSB.
+    lsb = project.converter.full_scale_vpp.si / 2**project.converter.bits
+    assert stage.offset_v.si / lsb == pytest.approx(24.0) and "24 LSB" in stage.notes
+    from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
+
+    analysis = ProjectAnalysis(project, spread=False)
+    value, why = analysis.metric_value("total_wc_lsb", "chain", "adc", None)
+    assert why is None and value == pytest.approx(24.0, rel=1e-9)
+    # Common practice, no source: a series capacitor passes no DC, so the chain's DC gain is undefined.
+    gain, why = analysis.metric_value("dc_gain", "chain", "adc", None)
+    assert gain is None and "blocks DC" in why

@@ -430,12 +430,13 @@ def _dc_budget(chain: dict[str, Any], project: Project) -> list[Block]:
     ]
     for label, total in (("worst case", "wc"), ("root-sum-square", "rss")):
         for place, suffix in (("at 25 °C", "_25c"), ("over the range", "")):
-            volts = _value_or_why(dc, f"total_{total}{suffix}_v", "V")
-            extra = [text for text in (_text(dc.get(f"total_{total}{suffix}_lsb"), "") + " LSB"
-                                       if dc.get(f"total_{total}{suffix}_lsb") is not None else "",
-                                       _text(dc.get(f"total_{total}{suffix}_pct_fs"), "%") + " of full scale"
-                                       if dc.get(f"total_{total}{suffix}_pct_fs") is not None else "") if text]
-            rows.append((f"DC error, {label}, {place}", ", ".join([volts, *extra])))
+            key = f"total_{total}{suffix}"
+            pieces = [_value_or_why(dc, f"{key}_v", "V")]
+            if dc.get(f"{key}_lsb") is not None:
+                pieces.append(f"{_text(dc[f'{key}_lsb'])} LSB")
+            if dc.get(f"{key}_pct_fs") is not None:
+                pieces.append(f"{_text(dc[f'{key}_pct_fs'], '%')} of full scale")
+            rows.append((f"DC error, {label}, {place}", ", ".join(pieces)))
     blocks.append(_key_values(rows))
     table = budget_table(dc)
     if table.rows:

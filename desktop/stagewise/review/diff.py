@@ -318,9 +318,9 @@ def _check_summary(check: Check) -> str:
     return check.text
 
 
-_PART_FIELDS = ("type", "nodes", "value", "tol", "control", "model")
+_PART_FIELDS = ("type", "nodes", "value", "tol", "tc_ppm_per_c", "control", "model")
 _CHECK_FIELDS = ("text", "metric", "where", "at_hz", "min", "max")
-_BLOCK_FIELDS = ("gain", "zeros_hz", "poles_hz", "zin_r_ohm", "zin_c_f", "zout_ohm")
+_BLOCK_FIELDS = ("gain", "zeros_hz", "poles_hz", "zin_r_ohm", "zin_c_f", "zout_ohm", "offset_v", "gain_error")
 
 
 def _stage_changes(old: Stage, new: Stage) -> list[Change]:
