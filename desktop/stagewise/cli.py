@@ -226,7 +226,8 @@ def build_parser() -> argparse.ArgumentParser:
                      "one line on stdout. On conflicts nothing is written and each conflict is printed on "
                      "stderr with its JSON path and both values. As a git merge driver: "
                      "stagewise merge %O %A %B -o %A",
-                     "exit status: 0 merged; 1 conflicts (OUT not written); 2 an input cannot be read.")
+                     "exit status: 0 merged; 1 conflicts (OUT not written); 2 an input cannot be read, or OUT is open "
+                     "for editing elsewhere (OUT not written).")
     merge.add_argument("base", metavar="BASE", help="the common ancestor")
     merge.add_argument("ours", metavar="OURS", help="our copy")
     merge.add_argument("theirs", metavar="THEIRS", help="their copy")

@@ -108,3 +108,15 @@ def test_git_merge_with_the_configured_driver_gives_a_verified_file(tmp_path: Pa
     assert [s.name for s in merged.stage("adc").signoffs] == ["Bo"]  # type: ignore[union-attr]
     assert merged.audit[-1].what == MERGE_EVENT
     assert json.loads(git("show", "HEAD:chain.stagewise.json"))["audit"][-1]["what"] == MERGE_EVENT
+
+
+def test_merge_does_not_write_a_project_someone_has_open(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from stagewise.files.lock import acquire_lock
+
+    base, ours, theirs = _copies(tmp_path)
+    _edit(theirs, lambda p: actions.sign(p, "adc", "Bo", "reviewer", "accept"))
+    before = ours.read_bytes()
+    with acquire_lock(ours, "Someone Else"):
+        assert main(["merge", str(base), str(ours), str(theirs), "-o", str(ours)]) == 2
+    assert "open for editing" in capsys.readouterr().err
+    assert ours.read_bytes() == before

@@ -7,15 +7,19 @@ event disappeared and ``verify`` still said intact.
 
 from __future__ import annotations
 
+import json
 import os
 import subprocess
 import sys
 from pathlib import Path
 
+from conftest import make_window
 from stagewise.files.lock import inspect_lock
 from stagewise.files.project_file import load_project, save_project
+from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.values import Quantity
 from stagewise.review.audit import check_records, verify_trail
+from stagewise.review.words import SignoffState
 
 
 def _run_packet(path: Path, output: Path) -> subprocess.CompletedProcess[str]:
@@ -73,3 +77,25 @@ def test_an_outside_edit_of_another_part_is_merged(window, sample_path: Path) ->
     assert saved.stage("amp").part("R3").value.raw == "15k"  # type: ignore[union-attr]
     assert window.document.project.stage("amp").part("R3").value.raw == "15k"
     assert not list(sample_path.parent.glob("sample.outside-*"))
+
+
+def test_the_review_panel_shows_a_pasted_signoff_as_unrecorded(qtbot, sample_path: Path) -> None:  # type: ignore[no-untyped-def]
+    # Common practice, no source: a record no audit event holds is never shown as a verdict.
+    document = json.loads(sample_path.read_text(encoding="utf-8"))
+    amp = next(stage for stage in document["stages"] if stage["id"] == "amp")
+    fingerprint = stage_fingerprint(load_project(sample_path).stage("amp"), load_project(sample_path))  # type: ignore[arg-type]
+    amp["signoffs"] = [{"name": "Pasted Person", "role": "reviewer", "verdict": "accept", "note": "",
+                        "time": "2026-11-20T10:00:00Z", "fingerprint": fingerprint}]
+    sample_path.write_text(json.dumps(document, indent=2), encoding="utf-8")
+    window = make_window(qtbot, sample_path)
+    try:
+        window.tree.setFocus()
+        window.document.set_current_stage("amp")
+        panel = window.review_panel
+        assert panel.state.property("signoffState") == str(SignoffState.UNRECORDED)
+        assert panel.state.text().startswith("Unrecorded")
+        shown = panel.signoffs.item(0).text()
+        assert shown.startswith(str(SignoffState.UNRECORDED)) and "no audit event holds this record" in shown
+        assert str(SignoffState.ACCEPTED) not in panel.state.text()
+    finally:
+        window.shutdown()

@@ -4,7 +4,8 @@ Design edits merge part by part, review records by identity, and the two audit t
 history with a ``merge`` event naming both heads (:mod:`stagewise.review.merge`). Exit 0 merged
 (OUT written atomically: a temporary file in OUT's folder, fsynced, renamed over OUT; no
 ``.bak``, since a git merge driver writes into git's own temporary copy), 1 conflicts (each on
-stderr with its JSON path and both values; OUT not written), 2 an input cannot be read.
+stderr with its JSON path and both values; OUT not written), 2 an input cannot be read, or OUT
+is open for editing elsewhere (its edit lock is held while it is written).
 
 As a git merge driver (``.gitattributes``: ``*.stagewise.json merge=stagewise``; git config:
 ``merge.stagewise.driver = stagewise merge %O %A %B -o %A``). An empty BASE (the file was
@@ -20,7 +21,7 @@ import sys
 from pathlib import Path
 
 from stagewise.cli import CommandError, printable
-from stagewise.commands.common import load
+from stagewise.commands.common import load, locked
 from stagewise.model.project import Project
 
 
@@ -52,7 +53,8 @@ def run(args: argparse.Namespace) -> int:
     base = _base(args.base)
     ours = load(args.ours)
     theirs = load(args.theirs)
-    result = merge_projects(base, ours, theirs, who=_who(args.by))
+    who = _who(args.by)
+    result = merge_projects(base, ours, theirs, who=who)
     if result.project is None:
         for conflict in result.conflicts:
             sys.stderr.write(f"stagewise: conflict: {printable(conflict.sentence())}\n")
@@ -62,17 +64,18 @@ def run(args: argparse.Namespace) -> int:
     output = real_path(args.output)
     data = encode_checked(result.project, str(args.output))
     folder = output.parent
-    try:
-        mode = output.stat().st_mode & 0o777 if output.exists() else 0o644
-        temporary = write_temporary(folder, output.name, data, mode)
+    with locked(args.output, who):  # OUT may be a project someone has open: never write under them
         try:
-            os.replace(temporary, output)
-        except BaseException:
-            Path(temporary).unlink(missing_ok=True)
-            raise
-    except OSError as error:
-        raise CommandError(f"{args.output}: the merged project could not be written "
-                           f"({error.strerror or error}); nothing was changed") from error
+            mode = output.stat().st_mode & 0o777 if output.exists() else 0o644
+            temporary = write_temporary(folder, output.name, data, mode)
+            try:
+                os.replace(temporary, output)
+            except BaseException:
+                Path(temporary).unlink(missing_ok=True)
+                raise
+        except OSError as error:
+            raise CommandError(f"{args.output}: the merged project could not be written "
+                               f"({error.strerror or error}); nothing was changed") from error
     joined = ("both audit trails joined by a merge event" if result.events_ours and result.events_theirs
               else "one audit trail continued")
     print(f"Merged into {args.output}: {result.events_ours} event(s) of ours, {result.events_theirs} of theirs, "

@@ -201,11 +201,13 @@ class ReviewPanel(QWidget):
                 text += f" ({view.verdict_word}, given to an earlier design of the stage)"
             if view.replaced:
                 text += f" ({REPLACED_WORD} by a later sign-off of the same reviewer)"
+            if view.unrecorded:
+                text += " (no audit event holds this record: written or edited outside the program)"
+            if view.breaks_four_eyes:
+                text += " (the reviewer last changed this stage; the project's four-eyes rule does not count it)"
             if signoff.note:
                 text += f"\n{signoff.note}"
             item = QListWidgetItem(text)
-            if view.unrecorded:
-                text += " (no audit event holds this record: written or edited outside the program)"
             item.setForeground(QBrush(QColor(SIGNOFF_COLOURS[SignoffState.UNRECORDED] if view.unrecorded
                                              else "#8a4b00" if view.out_of_date else "#202020")))
             item.setData(Qt.ItemDataRole.UserRole, "out of date" if view.out_of_date else "current")
