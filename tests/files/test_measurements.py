@@ -174,3 +174,40 @@ def test_folders_and_pipes_are_refused(tmp_path: Path) -> None:
         read_measurement(fifo)
     with pytest.raises(MeasurementError, match="no such file"):
         read_measurement(tmp_path / "absent.csv")
+
+
+# Common practice, no source: a reader of outside files fails only with its own one-sentence error.
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+_CELLS = st.sampled_from(["1", "2.5", "-3", "1e3", "nan", "inf", "x", "", "1,2", "10 kHz", "0", "1e999", "#",
+                          "!", "Frequency (Hz)", "Gain (dB)", "Phase (deg)", "Time (s)", "V", "R", "50", "MA", "DB"])
+
+
+@settings(max_examples=300, deadline=None)
+@given(rows=st.lists(st.lists(_CELLS, min_size=1, max_size=9), min_size=0, max_size=12),
+       separator=st.sampled_from([",", ";", "\t", " "]), name=st.sampled_from(["a.csv", "a.s2p", "a.s1p", "a.txt"]),
+       columns=st.one_of(st.none(), st.sampled_from(["f_hz,mag_db,phase_deg", "t_s,v", "f_khz,re,im,-", "bogus"])))
+def test_any_text_reads_or_fails_with_one_sentence(rows: list[list[str]], separator: str, name: str,
+                                                   columns: str | None) -> None:
+    text = "\n".join(separator.join(row) for row in rows)
+    if name.endswith(".s2p") and rows:
+        text = "# Hz S MA R 50\n" + text
+    try:
+        data = parse_measurement(text.encode(), name, columns=None if name.endswith("p") else columns)
+    except MeasurementError as error:
+        assert "\n" not in str(error) and str(error).startswith(("a.", "column list"))
+        return
+    axis = data.f_hz if data.kind == "response" else data.t_s
+    assert axis.size >= 2 and np.all(np.diff(axis) > 0) and np.all(np.isfinite(axis))
+    values = data.response if data.kind == "response" else data.v
+    assert values.size == axis.size and np.all(np.isfinite(values))
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.binary(max_size=400), st.sampled_from(["b.csv", "b.s2p"]))
+def test_any_bytes_read_or_fail_with_one_sentence(data: bytes, name: str) -> None:
+    try:
+        parse_measurement(data, name)
+    except MeasurementError as error:
+        assert "\n" not in str(error)

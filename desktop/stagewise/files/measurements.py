@@ -176,14 +176,18 @@ def _empty() -> NDArray[np.float64]:
     return np.zeros(0)
 
 
+def _shown(text: str) -> str:
+    """Text from the file as quoted in a message: at most 30 characters."""
+    return text if len(text) <= 30 else text[:27] + "…"
+
+
 def _number(token: str, file_name: str, line: int, column: int) -> float:
     if not _NUMBER.fullmatch(token):
-        shown = token if len(token) <= 30 else token[:27] + "…"
-        raise MeasurementError(f'{file_name}, line {line}, column {column}: "{shown}" is not a number'
+        raise MeasurementError(f'{file_name}, line {line}, column {column}: "{_shown(token)}" is not a number'
                                " (units belong in the header, not in the data)")
     value = float(token)
     if not math.isfinite(value):
-        raise MeasurementError(f'{file_name}, line {line}, column {column}: "{token}" is out of range')
+        raise MeasurementError(f'{file_name}, line {line}, column {column}: "{_shown(token)}" is out of range')
     return value
 
 
@@ -314,7 +318,7 @@ def _option_line(line: str, file_name: str, line_number: int) -> tuple[str, str,
                                        "greater than zero")
             index += 1
         else:
-            raise MeasurementError(f'{file_name}, line {line_number}: "{token}" is not a Touchstone option; '
+            raise MeasurementError(f'{file_name}, line {line_number}: "{_shown(token)}" is not a Touchstone option; '
                                    "expected a frequency unit (Hz, kHz, MHz, GHz), S, Y or Z, MA, DB or RI, and R n")
         index += 1
     return unit, parameter, number_format, reference
@@ -377,11 +381,12 @@ def _header_column(cell: str, file_name: str, line: int, column: int) -> _Column
         key = unit or (default or "")
         if key in table:
             return table[key]
-        accepted = ", ".join(_UNIT_SPELLING.get(key, key) for key in table if key.isascii())
+        spellings = [_UNIT_SPELLING.get(name, name) for name in table if name.isascii()]
+        accepted = ", ".join(spellings)
         if not unit:
-            raise MeasurementError(f'{where}: the {what} column "{cell}" names no unit; write it as "{cell} ({accepted.split(", ")[0]})" '
-                                   f"or use one of {accepted}")
-        raise MeasurementError(f'{where}: "{unit_text}" is not a {what} unit; use one of {accepted}')
+            raise MeasurementError(f'{where}: the {what} column "{_shown(cell)}" names no unit; write it as '
+                                   f'"{_shown(cell)} ({spellings[0]})" or with another of {accepted}')
+        raise MeasurementError(f'{where}: "{_shown(unit_text)}" is not a {what} unit; use one of {accepted}')
 
     words = re.split(r"[\s_]+", name)
     first = words[0] if words else ""
@@ -394,21 +399,21 @@ def _header_column(cell: str, file_name: str, line: int, column: int) -> _Column
             return _Column("phase", math.pi / 180.0)
         if unit in ("rad", "radian", "radians"):
             return _Column("phase", 1.0)
-        raise MeasurementError(f'{where}: the phase column "{cell}" needs its unit, deg or rad'
-                               if not unit else f'{where}: "{unit_text}" is not a phase unit; use deg or rad')
+        raise MeasurementError(f'{where}: the phase column "{_shown(cell)}" needs its unit, deg or rad'
+                               if not unit else f'{where}: "{_shown(unit_text)}" is not a phase unit; use deg or rad')
     if first in ("mag", "magnitude", "gain", "amplitude", "ratio"):
         if unit == "db":
             return _Column("mag_db", 1.0)
         if unit in ("", "v/v", "lin", "linear"):
             return _Column("mag", 1.0)
-        raise MeasurementError(f'{where}: "{unit_text}" is not a magnitude unit; use dB, V/V or none (linear)')
+        raise MeasurementError(f'{where}: "{_shown(unit_text)}" is not a magnitude unit; use dB, V/V or none (linear)')
     if first in ("re", "real"):
         return _Column("re", 1.0)
     if first in ("im", "imag", "imaginary"):
         return _Column("im", 1.0)
     if first in ("v", "volt", "volts", "voltage", "ch1", "ch2", "ch3", "ch4", "out", "output", "vout"):
         return _Column("v", unit_of(_VOLTAGE_UNITS, "voltage", "v"))
-    raise MeasurementError(f'{where}: "{cell}" is not a column Stagewise knows; name it as frequency, magnitude, '
+    raise MeasurementError(f'{where}: "{_shown(cell)}" is not a column Stagewise knows; name it as frequency, magnitude, '
                            "gain, phase, real, imaginary, time or voltage with its unit, or give the column list")
 
 
