@@ -15,7 +15,7 @@ names = text.filter(lambda value: bool(value.strip()))
 
 
 @st.composite
-def quantity(draw: st.DrawFn, low: float = 1e-12, high: float = 1e9) -> Quantity:
+def quantity(draw: st.DrawFn, low: float = 1e-12, high: float = 1e9, kind: str = "R") -> Quantity:
     number = draw(st.floats(min_value=low, max_value=high, allow_nan=False, allow_infinity=False))
     form = draw(st.sampled_from(["float", "int", "text", "letter"]))
     if form == "float":
@@ -23,7 +23,9 @@ def quantity(draw: st.DrawFn, low: float = 1e-12, high: float = 1e9) -> Quantity
     if form == "int":
         return Quantity.of(max(int(number), 1))
     if form == "letter":
-        return Quantity.of(draw(st.sampled_from(["4k7", "2R2", "R47", "1M5", "4n7", "2µ2", "10nF", "1 MΩ", "1Meg"])))
+        # A unit after the value must be the part's own (a resistor written "10nF" is refused).
+        with_unit = {"R": "1 MΩ", "C": "10nF", "L": "3.3mH"}[kind]
+        return Quantity.of(draw(st.sampled_from(["4k7", "2R2", "R47", "1M5", "4n7", "2µ2", with_unit, "1Meg"])))
     return Quantity.of(format_value(number))
 
 
@@ -35,7 +37,7 @@ def stage(draw: st.DrawFn, index: int) -> Stage:
     for number in range(count):
         kind = draw(st.sampled_from(["R", "C", "L"]))
         node = draw(st.sampled_from(["in", "out"]))
-        parts.append(Part(f"X{number}", kind, [node, "0"], draw(quantity())))
+        parts.append(Part(f"X{number}", kind, [node, "0"], draw(quantity(kind=kind))))
     checks = [Check(id="c1", text=draw(text), metric="gain_db", where=draw(st.sampled_from(["isolated", "in_chain"])),
                     at_hz=Quantity.of(1000), min=Quantity.of(-1), max=draw(st.none() | st.just(Quantity.of(1)))),
               Check(id="c2", text=draw(names))]

@@ -250,3 +250,29 @@ def test_a_broken_example_does_not_leak_between_cases() -> None:
     second = copy.deepcopy(first)
     _set((*P0, "value"), "bad")(first)
     assert problems_of(second) == []
+
+
+# Common practice, no source (SI Brochure, 9th ed., for the unit symbols): a value written with
+# a unit must carry the unit of the part it sits on; a bare number takes the part's unit.
+@pytest.mark.parametrize(("kind", "value", "sentence"), [
+    ("R", "10nF", '"10nF" is a capacitance, a resistor takes ohms'),
+    ("C", "2.2 MΩ", '"2.2 MΩ" is a resistance, a capacitor takes farads'),
+    ("L", "47uF", '"47uF" is a capacitance, an inductor takes henries'),
+    ("vcvs", "3V", '"3V" is a voltage, a voltage-controlled voltage source takes a plain gain (no unit)'),
+    ("vccs", "2k", None),
+    ("vccs", "2 ohm", '"2 ohm" is a resistance, a voltage-controlled current source takes a transconductance'),
+    ("R", "5%", '"5%" is a percentage, a resistor takes ohms'),
+    ("R", "4k7 \u2126", None),
+    ("C", "4n7", None),
+    ("L", "3.3mH", None),
+    ("vccs", "20mS", None),
+])
+def test_a_value_carries_the_unit_of_its_part(kind: str, value: str, sentence: str | None) -> None:
+    nodes = ["out", "0"] if kind in ("R", "C", "L") else ["out", "0", "in", "0"]
+    stage = Stage(id="s", name="S", parts=[Part("R1", "R", ["in", "out"], Quantity.of("1k")),
+                                           Part("X1", kind, nodes, Quantity.of(value))])
+    problems = validate(Project(title="T", stages=[stage]))
+    if sentence is None:
+        assert problems == []
+    else:
+        assert len(problems) == 1 and problems[0].startswith(f"stages[0].parts[1].value: {sentence}")

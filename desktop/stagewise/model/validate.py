@@ -19,12 +19,31 @@ from stagewise.model.project import (
     Project,
     Stage,
 )
+from stagewise.model.values import Quantity, unit_mismatch
 
 __all__ = ["KNOWN_METRICS_HOOK", "validate", "validate_stage"]
 
 ABSOLUTE_ZERO_C = -273.15
 # Beyond this a sweep (and the GUI) would stall: 20 decades at 10000 points per decade.
 MAX_FREQUENCY_POINTS = 200_000
+
+# What each valued part type takes, in the words of a sentence about a wrong unit.
+PART_TAKES = {
+    "R": "a resistor takes ohms",
+    "C": "a capacitor takes farads",
+    "L": "an inductor takes henries",
+    "vcvs": "a voltage-controlled voltage source takes a plain gain (no unit)",
+    "vccs": "a voltage-controlled current source takes a transconductance in siemens",
+    "ccvs": "a current-controlled voltage source takes a transresistance in ohms",
+    "cccs": "a current-controlled current source takes a plain gain (no unit)",
+}
+# Op-amp model fields and the unit each takes (noise densities are per root hertz: their unit
+# cannot be written after a value, so only a bare number or a plain V or A is accepted there).
+OPAMP_UNITS = {"a0_db": "dB", "gbw_hz": "Hz", "p2_hz": "Hz", "rout_ohm": "Ω", "rin_ohm": "Ω", "cin_diff_f": "F",
+               "cin_cm_f": "F", "en_v_rthz": "V", "en_corner_hz": "Hz", "in_a_rthz": "A", "in_corner_hz": "Hz",
+               "slew_v_per_s": "V/s"}
+UNIT_NAMES = {"dB": "decibels", "Hz": "hertz", "Ω": "ohms", "F": "farads", "V": "volts", "A": "amperes",
+              "V/s": "volts per second"}
 
 # The review layer registers the table of metric keys here so that the model can check names
 # without importing it (keeps the model free of the layers above it).
@@ -74,6 +93,16 @@ def validate(project: Project) -> list[str]:
             problems.append(f"opamp_models.{name}.a0_db: {model.a0_db.raw} dB is beyond any amplifier; use \"ideal\"")
         if model.swing_v is not None and model.swing_v[0].si >= model.swing_v[1].si:
             problems.append(f"opamp_models.{name}.swing_v: the low limit must be below the high limit")
+        for key, unit in OPAMP_UNITS.items():
+            quantity: Quantity | None = getattr(model, key)
+            if quantity is not None:
+                mismatch = unit_mismatch(quantity.raw, unit, f"{key} takes {UNIT_NAMES[unit]}")
+                if mismatch is not None:
+                    problems.append(f"opamp_models.{name}.{key}: {mismatch}")
+        for index, limit in enumerate(model.swing_v or ()):
+            mismatch = unit_mismatch(limit.raw, "V", "swing_v takes volts")
+            if mismatch is not None:
+                problems.append(f"opamp_models.{name}.swing_v[{index}]: {mismatch}")
     seen_ids: set[str] = set()
     for index, stage in enumerate(project.stages):
         if stage.id in seen_ids:
@@ -175,6 +204,11 @@ def validate_stage(stage: Stage, project: Project, path: str) -> list[str]:
                 problems.append(f"{where}.value: a {part.type} needs a value ({PART_TYPES[part.type][1]})")
             elif part.type in ("R", "C", "L") and not part.value.si > 0:
                 problems.append(f"{where}.value: {part.value.raw} must be greater than zero")
+            if part.value is not None:
+                mismatch = unit_mismatch(part.value.raw, PART_TYPES[part.type][2], PART_TAKES[part.type])
+                if mismatch is not None:
+                    problems.append(f"{where}.value: {mismatch}")
+
         elif part.value is not None:
             problems.append(f"{where}.value: an op-amp takes a model, not a value")
         if part.type == "opamp":

@@ -21,6 +21,7 @@ from typing import Final
 
 __all__ = [
     "ACCEPTED_FORMS",
+    "UNIT_QUANTITIES",
     "E_SERIES_NAMES",
     "Quantity",
     "ValueSyntaxError",
@@ -28,6 +29,8 @@ __all__ = [
     "format_value",
     "parse_value",
     "snap_to_series",
+    "unit_mismatch",
+    "unit_symbol",
 ]
 
 
@@ -62,7 +65,7 @@ UNIT_WORDS: Final[tuple[str, ...]] = (
     "ohms",
     "ohm",
     "Ω",
-    "Ω",  # U+2126 OHM SIGN
+    "\u2126",  # U+2126 OHM SIGN
     "Hz",
     "dB",
     "V/s",
@@ -73,6 +76,14 @@ UNIT_WORDS: Final[tuple[str, ...]] = (
     "S",
     "s",
 )
+
+# The symbol each written unit stands for, and what that symbol measures (for messages).
+_UNIT_SYMBOLS: Final[dict[str, str]] = {"ohms": "\u03a9", "ohm": "\u03a9", "\u2126": "\u03a9"}  # Ω
+UNIT_QUANTITIES: Final[dict[str, str]] = {
+    "Ω": "a resistance", "F": "a capacitance", "H": "an inductance", "S": "a conductance",
+    "V": "a voltage", "A": "a current", "Hz": "a frequency", "s": "a time", "dB": "a level in decibels",
+    "V/s": "a slew rate", "%": "a percentage",
+}
 
 ACCEPTED_FORMS: Final[str] = (
     "a number such as 4700, 4.7k, 4k7, 2.2u, 2.2µ, 10nF, 1 MΩ, 1Meg, 3.3e-9 or 1% "
@@ -179,6 +190,56 @@ def parse_value(value: object) -> float:
     if not math.isfinite(number):
         raise ValueSyntaxError(f'"{text}" is out of range')
     return number
+
+
+def unit_symbol(value: object) -> str | None:
+    """The unit written after a value (``"Ω"`` for ``"1 MΩ"`` or ``"10 ohm"``, ``"%"`` for ``"1%"``).
+
+    ``None`` for a bare number, a JSON number, or text that is not a value (the parser says so).
+
+    Examples
+    --------
+    >>> unit_symbol("10nF"), unit_symbol("4k7"), unit_symbol(4700)
+    ('F', None, None)
+    """
+    if not isinstance(value, str):
+        return None
+    text = value.strip()
+    match = _DECIMAL.fullmatch(text)
+    if match is not None:
+        if match["percent"]:
+            return "%"
+        unit = match["unit"]
+    else:
+        match = _LETTER_DIGIT.fullmatch(text)
+        unit = None if match is None else match["unit"]
+    if unit is None:
+        return None
+    return _UNIT_SYMBOLS.get(unit, unit)
+
+
+def unit_mismatch(value: object, expected: str, what: str) -> str | None:
+    """One sentence when ``value`` is written with a unit other than ``expected``, else ``None``.
+
+    Parameters
+    ----------
+    value : object
+        The value as written (a bare number is always accepted: the field decides its unit).
+    expected : str
+        The unit symbol the field takes (``"Ω"``, ``"F"``...), or ``""`` for a plain number.
+    what : str
+        What the field is, for the sentence: ``"a resistor takes ohms"``.
+
+    Examples
+    --------
+    >>> unit_mismatch("10nF", "Ω", "a resistor takes ohms")
+    '"10nF" is a capacitance, a resistor takes ohms'
+    """
+    written = unit_symbol(value)
+    if written is None or written == expected:
+        return None
+    quantity = UNIT_QUANTITIES.get(written, f"in {written}")
+    return f"{_shown(value)} is {quantity}, {what}"
 
 
 _FORMAT_PREFIXES: Final[tuple[tuple[float, str], ...]] = (
