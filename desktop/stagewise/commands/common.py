@@ -6,6 +6,7 @@ sentence, which ``cli.main`` prints on stderr with exit status 2.
 
 from __future__ import annotations
 
+import getpass
 import json
 import os
 import stat
@@ -20,7 +21,7 @@ from stagewise.files.project_file import load_project
 from stagewise.model.project import Project, Stage
 from stagewise.model.values import ValueSyntaxError, parse_value
 
-__all__ = ["MAX_FREQUENCIES", "load", "locked", "note", "parse_frequencies", "print_json", "read_input_file",
+__all__ = ["MAX_FREQUENCIES", "load", "locked", "note", "person", "parse_frequencies", "print_json", "read_input_file",
            "stage_by_id"]
 
 MAX_FREQUENCIES = 100_000
@@ -58,6 +59,28 @@ def locked(path: str | os.PathLike[str], who: str) -> Iterator[ProjectLock]:
         yield lock
     finally:
         lock.release()
+
+
+def person(by: str | None, recorded: str) -> str:
+    """Who acts, from ``--by`` (stripped), else the login name.
+
+    ``recorded`` says what the name is recorded as, for the messages ("who printed the packet").
+
+    Raises
+    ------
+    CommandError
+        ``--by`` is empty, or no login name can be found.
+    """
+    from stagewise.cli import CommandError
+
+    if by is not None:
+        if not by.strip():
+            raise CommandError(f"--by needs a name: {recorded} is recorded in the audit trail")
+        return by.strip()
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError) as error:
+        raise CommandError(f"cannot tell {recorded}; give a name with --by") from error
 
 
 def note(message: str) -> None:

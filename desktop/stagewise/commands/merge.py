@@ -15,25 +15,13 @@ added on both branches) merges against an empty project.
 from __future__ import annotations
 
 import argparse
-import getpass
 import os
 import sys
 from pathlib import Path
 
 from stagewise.cli import CommandError, printable
-from stagewise.commands.common import load, locked
+from stagewise.commands.common import load, locked, person
 from stagewise.model.project import Project
-
-
-def _who(by: str | None) -> str:
-    if by is not None:
-        if not by.strip():
-            raise CommandError("--by needs a name: who merges is recorded in the merge event")
-        return by.strip()
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError):
-        return "unknown user"
 
 
 def _base(path: str) -> Project:
@@ -53,7 +41,7 @@ def run(args: argparse.Namespace) -> int:
     base = _base(args.base)
     ours = load(args.ours)
     theirs = load(args.theirs)
-    who = _who(args.by)
+    who = person(args.by, "who merges")
     result = merge_projects(base, ours, theirs, who=who)
     if result.project is None:
         for conflict in result.conflicts:

@@ -18,25 +18,13 @@ replace; two writers racing inside that last instant are not excluded).
 from __future__ import annotations
 
 import argparse
-import getpass
 import hashlib
 import sys
 from pathlib import Path
 
 from stagewise.cli import CommandError
-from stagewise.commands.common import load, note
+from stagewise.commands.common import load, note, person
 from stagewise.files.lock import LockError, ProjectLock, acquire_lock
-
-
-def _who(by: str | None) -> str:
-    if by is not None:
-        if not by.strip():
-            raise CommandError("--by needs a name: who printed the packet is recorded in the audit trail")
-        return by.strip()
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError) as error:
-        raise CommandError("cannot tell who is printing the packet; give a name with --by") from error
 
 
 def run(args: argparse.Namespace) -> int:
@@ -52,7 +40,7 @@ def run(args: argparse.Namespace) -> int:
         raise CommandError(f"{args.output} is a folder; give the name of the PDF to write")
     if not (output.parent if str(output.parent) else Path(".")).is_dir():
         raise CommandError(f"{args.output}: the folder {output.parent} does not exist")
-    who = _who(args.by)
+    who = person(args.by, "who printed the packet")
     load(args.file)  # a missing or invalid project is reported before any lock file is made
     lock, holder = _take_lock(args.file, who)
     try:

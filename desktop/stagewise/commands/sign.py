@@ -11,28 +11,16 @@ cannot accept it.
 from __future__ import annotations
 
 import argparse
-import getpass
 
 from stagewise.cli import CommandError, printable
-from stagewise.commands.common import load, locked
+from stagewise.commands.common import load, locked, person
 from stagewise.files.project_file import save_project
 from stagewise.review.actions import ReviewError, sign
 from stagewise.review.words import VERDICT_WORDS
 
 
-def _who(by: str | None) -> str:
-    if by is not None:
-        if not by.strip():
-            raise CommandError("--by needs a name: the reviewer is recorded with the sign-off")
-        return by.strip()
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError) as error:
-        raise CommandError("cannot tell who signs; give a name with --by") from error
-
-
 def run(args: argparse.Namespace) -> int:
-    who = _who(args.by)
+    who = person(args.by, "who signs")
     load(args.file)  # a missing or invalid project is reported before any lock file is made
     with locked(args.file, who):
         project = load(args.file)
