@@ -120,3 +120,4 @@ def test_merge_does_not_write_a_project_someone_has_open(tmp_path: Path, capsys:
         assert main(["merge", str(base), str(ours), str(theirs), "-o", str(ours)]) == 2
     assert "open for editing" in capsys.readouterr().err
     assert ours.read_bytes() == before
+
