@@ -325,6 +325,15 @@ def _metrics_rows(documents: Sequence[dict[str, Any] | None]) -> list[list[str]]
     rows.append(["Step final value"] + [
         _value_or_why(document.get("step") if isinstance(document, dict) and isinstance(document.get("step"), dict)
                       else None, "final", "") if document is not None else DASH for document in documents])
+    # The DC budget of each place (engine/dc.py): metric key -> key of the place's ``dc`` object.
+    for key, field in (("dc_gain", "gain"), ("gain_error_pct", "gain_error_pct"), ("offset_out_v", "offset_out_v"),
+                       ("drift_out_v_per_c", "drift_out_v_per_c"), ("total_wc_v", "total_wc_v"),
+                       ("total_rss_v", "total_rss_v")):
+        rows.append([METRICS[key].label] + [
+            _value_or_why(document.get("dc") if isinstance(document.get("dc"), dict) else None, field,
+                          # the gain's unit is the place's own (Ω for a current drive)
+                          str(document.get("unit") or METRICS[key].unit) if key == "dc_gain" else METRICS[key].unit)
+            if isinstance(document, dict) else DASH for document in documents])
     return rows
 
 
