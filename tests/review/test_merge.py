@@ -7,12 +7,12 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from stagewise.files.codec import dumps
 from stagewise.files.project_file import load_project, loads_project
-from stagewise.model.project import Project
+from stagewise.model.project import Part, Project
 from stagewise.model.values import Quantity
 from stagewise.review import actions
 from stagewise.review.audit import MERGE_EVENT, append_event, check_records, event_hash, verify_trail
@@ -168,12 +168,17 @@ def _parts(project: Project) -> list[tuple[str, str]]:
 
 _RESISTORS = _parts(_DEMO_PROJECT)
 _MANUAL = [(stage.id, check.id) for stage in _DEMO_PROJECT.stages for check in stage.checks if check.is_manual]
+_NUMERIC = [(stage.id, check.id) for stage in _DEMO_PROJECT.stages for check in stage.checks
+            if not check.is_manual and check.waiver is None]
+_CIRCUITS = [stage.id for stage in _DEMO_PROJECT.stages if not stage.is_block]
 
 edit = st.one_of(
     st.tuples(st.just("value"), st.sampled_from(_RESISTORS), st.sampled_from(VALUES)),
     st.tuples(st.just("sign"), st.sampled_from([s.id for s in _DEMO_PROJECT.stages]), st.sampled_from(REVIEWERS)),
     st.tuples(st.just("comment"), st.sampled_from([s.id for s in _DEMO_PROJECT.stages]), st.sampled_from(REVIEWERS)),
     st.tuples(st.just("answer"), st.sampled_from(_MANUAL), st.sampled_from(["yes", "no", "n/a"])),
+    st.tuples(st.just("waive"), st.sampled_from(_NUMERIC), st.sampled_from(REVIEWERS)),
+    st.tuples(st.just("add part"), st.sampled_from(_CIRCUITS), st.sampled_from(VALUES)),
 )
 
 
@@ -189,11 +194,20 @@ def _apply(project: Project, edits: list[Any], side: str) -> None:
             actions.sign(project, target, choice, "reviewer", "accept", time=time)
         elif kind == "comment":
             actions.comment(project, target, choice, f"{side} note {number}", time=time)
-        else:
+        elif kind == "answer":
             actions.answer(project, target[0], target[1], choice, side, time=time)
+        elif kind == "waive":
+            actions.waive(project, target[0], target[1], choice, "reviewer", f"{side} accepts it", time=time)
+        else:  # a load resistor from the output to node 0, a new ref on each side
+            stage = project.stage(target)
+            assert stage is not None
+            stage.parts.append(Part(ref=f"R{side}{number}", type="R", nodes=[stage.ports["out"], "0"],
+                                    value=Quantity.of(choice)))
+            actions.record_part_changes(saved, project, side, time=time)
+            saved = copy.deepcopy(project)
 
 
-@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(edit, max_size=6), st.lists(edit, max_size=6))
 def test_random_edit_sequences_merge_or_report_every_collision(ours_edits: list[Any], theirs_edits: list[Any]) -> None:
     # Common practice, no source: a three-way merge keeps every change of each side and reports
@@ -208,8 +222,9 @@ def test_random_edit_sequences_merge_or_report_every_collision(ours_edits: list[
         old, mine, other = (_part(p, stage_id, ref).value.raw for p in (base, ours, theirs))
         if mine != old and other != old and mine != other:
             collisions.add((stage_id, ref))
-    answered = {target for kind, target, _ in ours_edits if kind == "answer"} & \
-               {target for kind, target, _ in theirs_edits if kind == "answer"}
+    answered = {(kind, target) for kind, target, _ in ours_edits if kind in ("answer", "waive")} & \
+               {(kind, target) for kind, target, _ in theirs_edits if kind in ("answer", "waive")}
+    event("collision" if collisions or answered else "merged" if ours.audit != theirs.audit else "trivial")
     if collisions or answered:
         assert result.project is None
         stage_index = {stage.id: index for index, stage in enumerate(base.stages)}
@@ -231,6 +246,10 @@ def test_random_edit_sequences_merge_or_report_every_collision(ours_edits: list[
                 assert comment in held.comments
         merged_hashes = {event.hash for event in merged.audit}
         assert {event.hash for event in side.audit} <= merged_hashes
+        for stage in side.stages:
+            held = merged.stage(stage.id)
+            assert held is not None
+            assert {part.ref for part in stage.parts} <= {part.ref for part in held.parts}
     for stage_id, ref in _RESISTORS:
         old, mine, other = (_part(p, stage_id, ref).value.raw for p in (base, ours, theirs))
         assert _part(merged, stage_id, ref).value.raw == (mine if mine != old else other)
