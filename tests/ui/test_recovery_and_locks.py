@@ -51,13 +51,13 @@ def test_the_first_edit_after_opening_and_after_saving_is_covered_at_once(qtbot,
         assert not recovery.exists()
         window.document.set_current_stage("rc")
         window.parts_table.edit_cell("R1", "value", "3k9")
-        # No timer has run: the copy is written by the edit itself.
-        assert recovery.is_file()
+        # Written on the next turn of the event loop, long before the 2 s edit timer or the minute.
+        qtbot.waitUntil(recovery.is_file, timeout=500)
         assert loads_project(recovery.read_text(encoding="utf-8")).stage("rc").part("R1").value.raw == "3k9"  # type: ignore[union-attr]
         assert window.save()
         assert not recovery.exists()  # saved: nothing to recover
         window.parts_table.edit_cell("R1", "value", "4k7")
-        assert recovery.is_file()
+        qtbot.waitUntil(recovery.is_file, timeout=500)
         assert loads_project(recovery.read_text(encoding="utf-8")).stage("rc").part("R1").value.raw == "4k7"  # type: ignore[union-attr]
     finally:
         window.shutdown()

@@ -441,7 +441,9 @@ class MainWindow(QMainWindow):
     def _modified_changed(self, modified: bool) -> None:
         self.setWindowModified(modified)
         if modified:
-            self.write_recovery()  # the first edit after opening or saving is covered at once
+            # The first edit after opening or saving is covered at once: on the next turn of the
+            # event loop, so that the edit itself returns without waiting for the disk.
+            QTimer.singleShot(0, self.write_recovery)
         else:
             self._edit_autosave.stop()
 

@@ -33,6 +33,7 @@ __all__ = ["NoiseView", "PlotView", "PoleZeroView", "ResponseView", "SpreadView"
 pg.setConfigOptions(antialias=True, background="w", foreground="#202020")
 
 STALE_TEXT = "Recomputing… the traces show the previous results."
+PARTLY_STALE_TEXT = "Computing the slower results; shown from before the last edit until they arrive: {what}."
 
 
 def _pen(spec: TraceSpec) -> QPen:
@@ -86,6 +87,7 @@ class PlotView(QWidget):
         layout.addWidget(self.header)
         layout.addWidget(self.graphics, 1)
         self._problems: list[str] = []
+        self._read: set[tuple[str, str]] = set()
         self.subscriptions = Subscriptions()
         self.subscriptions.connect_all([
             (worker.outcomeReady, self._on_outcome),
@@ -107,12 +109,33 @@ class PlotView(QWidget):
     def _on_selection(self, _stage_id: str) -> None:
         self.refresh()
 
-    def _on_busy(self, busy: bool) -> None:
-        self._show_header(busy)
+    def _on_busy(self, _busy: bool) -> None:
+        self._show_header()
 
-    def _show_header(self, busy: bool | None = None) -> None:
-        busy = self.worker.is_busy if busy is None else busy
-        lines = [STALE_TEXT] if busy else []
+    def _previous_shown(self) -> list[str]:
+        """Names of what this view draws from before the last edit (slower results still coming)."""
+        outcome = self.outcome
+        if outcome is None:
+            return []
+        shown = {(key, name) for key, name in self._read if outcome.is_previous(key, name)
+                 and (outcome.chain.get(name) if key == "chain" else outcome.stage.get(key, {}).get(name)) is not None}
+        drawn = []
+        for key, name in shown:
+            computed = outcome.chain[name] if key == "chain" else outcome.stage[key][name]
+            if computed.ok and not (isinstance(computed.value, list) and not computed.value):
+                drawn.append(name.replace("_", " "))
+        return sorted(set(drawn))
+
+    def _show_header(self) -> None:
+        """Say what the traces show: all new, partly from before the last edit, or all previous."""
+        previous = self._previous_shown()
+        busy = bool(self.worker.quick_pending or previous)
+        if self.worker.quick_pending:
+            lines = [STALE_TEXT]
+        elif previous:
+            lines = [PARTLY_STALE_TEXT.format(what=", ".join(previous))]
+        else:
+            lines = []
         lines.extend(self._problems)
         self.header.setText("\n".join(lines) if lines else "Up to date.")
         self.header.setStyleSheet("color: #8a4b00; font-style: italic;" if busy else
@@ -125,7 +148,13 @@ class PlotView(QWidget):
     def refresh(self) -> None:
         """Redraw from the latest outcome and the current overlay selection."""
         self._problems = []
-        self.draw()
+        outcome = self.outcome
+        if outcome is not None:
+            outcome.begin_reading()
+        try:
+            self.draw()
+        finally:
+            self._read = outcome.end_reading() if outcome is not None else set()
         self._show_header()
         self.updated.emit()
 

@@ -233,7 +233,9 @@ class ReviewPanel(QWidget):
         findings: tuple[Any, ...] = ()
         if review is not None and review.ok:
             results = {result.check_id: result for result in review.value.results}
-            self.totals.setText(review.value.summary_tip)
+            previous = self.outcome is not None and self.outcome.is_previous(stage.id, "review")
+            self.totals.setText(("Re-evaluating after the last edit; until then the states below are the "
+                                 "previous ones. " if previous else "") + review.value.summary_tip)
             findings = review.value.findings
         else:
             self.totals.setText("Evaluating the checks…" if review is None or self.worker.is_busy

@@ -61,12 +61,47 @@ class Outcome:
     # The engine's ProjectAnalysis these results came from (None when no analysis made one); the
     # packet reuses it so that nothing is computed twice.
     analysis: Any = None
+    # Slower results of the state before the newest edit, shown (and said to be previous) while
+    # their own phase runs, so that no view blanks: keys (stage id or "chain", name).
+    carried: set[tuple[str, str]] = field(default_factory=set)
+    # While a view draws, the keys it reads (see :meth:`begin_reading`).
+    _read_log: set[tuple[str, str]] | None = None
 
     def of_stage(self, stage_id: str, name: str) -> Computed:
+        if self._read_log is not None:
+            self._read_log.add((stage_id, name))
         return self.stage.get(stage_id, {}).get(name, Computed(None, "not computed yet"))
 
     def of_chain(self, name: str) -> Computed:
+        if self._read_log is not None:
+            self._read_log.add(("chain", name))
         return self.chain.get(name, Computed(None, "not computed yet"))
+
+    def is_previous(self, key: str, name: str) -> bool:
+        """True when the result of (stage id or "chain", name) predates the newest edit."""
+        return (key, name) in self.carried
+
+    def begin_reading(self) -> None:
+        """Start noting which results are read (a view calls this before it draws)."""
+        self._read_log = set()
+
+    def end_reading(self) -> set[tuple[str, str]]:
+        """Stop noting; the keys read since :meth:`begin_reading`."""
+        read, self._read_log = self._read_log or set(), None
+        return read
+
+    def carry_from(self, previous: Outcome, stage_ids: list[str]) -> None:
+        """Show ``previous``'s results for what this outcome has not computed yet, marked carried."""
+        for name, value in previous.chain.items():
+            if name not in self.chain:
+                self.chain[name] = value
+                self.carried.add(("chain", name))
+        for stage_id in stage_ids:
+            results = self.stage.setdefault(stage_id, {})
+            for name, value in previous.stage.get(stage_id, {}).items():
+                if name not in results:
+                    results[name] = value
+                    self.carried.add((stage_id, name))
 
 
 def _run(function: Any, *arguments: Any) -> Computed:
@@ -187,6 +222,13 @@ class ComputeWorker(QObject):
         return self._latest
 
     @property
+    def quick_pending(self) -> bool:
+        """The quick results of the newest edit are not delivered yet."""
+        latest = self._latest
+        return (self._running or self._pending or self._timer.isActive()
+                or latest is None or latest.generation < self._generation)
+
+    @property
     def is_busy(self) -> bool:
         """Computing or about to: quick results, or slow results of the newest edit."""
         return (self._running or self._pending or self._timer.isActive()
@@ -259,6 +301,10 @@ class ComputeWorker(QObject):
         self._running = False
         newest = first.generation == self._generation and not self._pending
         if newest:
+            if self._latest is not None:
+                # Until the slow phase of this edit is done, its views show the previous slow
+                # results (said to be previous) instead of blanking.
+                first.carry_from(self._latest, [stage.id for stage in project.stages])
             self._latest = first
             self.outcomeReady.emit(first)
             slow_context = self._slow_context
