@@ -87,3 +87,39 @@ def test_a_step_capture_is_drawn_beside_the_predicted_step(qtbot, sample_path: P
         np.testing.assert_allclose(y, 1 - np.exp(-t / tau), atol=2e-5)
     finally:
         window.shutdown()
+
+
+def test_attaching_in_the_program_records_it_and_saves_it(qtbot, sample_path: Path,  # type: ignore[no-untyped-def]
+                                                          tmp_path: Path) -> None:
+    from stagewise.review.audit import unrecorded_decisions, verify_trail
+
+    project = load_project(sample_path)
+    _, amp, _ = response_points(project, list(F_HZ), "amp")
+    assert amp is not None
+    data = tmp_path / "amp.csv"
+    data.write_text("f_hz,re,im\n" + "\n".join(f"{float(f)!r},{float(v.real)!r},{float(v.imag)!r}"
+                                                for f, v in zip(F_HZ, amp, strict=True)) + "\n", encoding="utf-8")
+    bad = tmp_path / "bad.csv"
+    bad.write_text("f_hz,re\n1,2\n3,4\n", encoding="utf-8")
+    window = make_window(qtbot, sample_path)
+    try:
+        assert window.attach_measurement_file(bad, "isolated", "amp") is False  # refused, nothing changed
+        assert window.document.project.measurements == []
+        assert window.attach_measurement_file(data, "isolated", "amp", "bench analyser") is True
+        root = window.tree.topLevelItem(0)
+        assert any(root.child(i).text(0).startswith("Measured: amp (amp, isolated)") for i in range(root.childCount()))
+        assert window.wait_until_idle(60, formula=False)
+        window.overlays.set_stage("amp", "isolated", True)
+        drawn = window.response_view.measured.data("amp")
+        assert drawn is not None
+        # Reference library: numpy, 20·log10|H| of the values written to the file.
+        np.testing.assert_allclose(drawn[1], 20 * np.log10(np.abs(amp)), atol=1e-9)
+        assert window.save()
+    finally:
+        window.shutdown()
+    saved = load_project(sample_path)
+    (measurement,) = saved.measurements
+    assert measurement.instrument == "bench analyser" and measurement.stage == "amp"
+    assert verify_trail(saved.audit).intact
+    assert any(event.what == "measurement" and event.detail["measurement"] == "amp" for event in saved.audit)
+    assert unrecorded_decisions(saved) == []

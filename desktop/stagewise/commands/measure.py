@@ -12,17 +12,16 @@ from __future__ import annotations
 
 import argparse
 import getpass
-import re
 from pathlib import Path
 
 from stagewise.cli import CommandError, printable
 from stagewise.commands.common import load, locked, stage_by_id
 from stagewise.files.measurements import MeasurementError, read_measurement
 from stagewise.files.project_file import save_project
-from stagewise.model.fingerprint import measurement_fingerprint
 from stagewise.model.project import Measurement, Project
 from stagewise.model.validate import validate
-from stagewise.review.audit import append_event, now_utc
+from stagewise.review.measurements import attach_measurement
+from stagewise.review.words import WHERE_WORDS
 
 
 def _who(args: argparse.Namespace) -> str:
@@ -45,22 +44,6 @@ def _place(args: argparse.Namespace) -> tuple[str, str | None]:
     return ("in_chain" if args.in_chain else "isolated"), args.stage
 
 
-def _unique_id(project: Project, wanted: str | None, data_path: Path) -> str:
-    if wanted is not None:
-        if not wanted.strip():
-            raise CommandError("--id must not be empty")
-        if any(item.id == wanted for item in project.measurements):
-            raise CommandError(f'a measurement "{wanted}" is already attached; choose another --id')
-        return wanted
-    stem = data_path.name.split(".")[0] or "measurement"
-    base = re.sub(r"[^A-Za-z0-9_-]+", "-", stem).strip("-") or "measurement"
-    taken = {item.id for item in project.measurements}
-    candidate, number = base, 2
-    while candidate in taken:
-        candidate, number = f"{base}-{number}", number + 1
-    return candidate
-
-
 def run(args: argparse.Namespace) -> int:
     where, stage_id = _place(args)
     project = load(args.file)  # a missing or invalid project is reported before any lock file is made
@@ -81,35 +64,18 @@ def _attach(args: argparse.Namespace, where: str, stage_id: str | None) -> int:
         data = read_measurement(data_path, drive=drive, columns=args.columns)
     except MeasurementError as error:
         raise CommandError(str(error)) from error
-    who = _who(args)
-    time = now_utc()
-    measurement = Measurement(
-        id=_unique_id(project, args.measurement_id, data_path), kind=data.kind, where=where, stage=stage_id,
-        file=data.file, sha256=data.sha256, by=who, time=time,
-        fingerprint=measurement_fingerprint(project, where, stage_id), source=data.source,
-        instrument=args.instrument or "", setup=args.setup or "", note=args.note or "",
-    )
-    if data.kind == "response":
-        measurement.f_hz = [float(value) for value in data.f_hz]
-        measurement.re = [float(value) for value in data.response.real]
-        measurement.im = [float(value) for value in data.response.imag]
-    else:
-        measurement.t_s = [float(value) for value in data.t_s]
-        measurement.v = [float(value) for value in data.v]
-    project.measurements.append(measurement)
-    detail = {"measurement": measurement.id, "kind": measurement.kind, "where": where, "stage": stage_id,
-              "file": measurement.file, "sha256": measurement.sha256, "points": data.points,
-              "fingerprint": measurement.fingerprint}
     try:
-        append_event(project, who, "measurement", detail, time=time)
+        measurement = attach_measurement(project, data, where, stage_id, _who(args),
+                                         measurement_id=args.measurement_id, instrument=args.instrument or "",
+                                         setup=args.setup or "", note=args.note or "")
     except ValueError as error:
-        raise CommandError(f"the audit event could not be recorded: {error}") from error
+        raise CommandError(f"{args.file}: {error}") from error
     problems = validate(project)
     if problems:
         raise CommandError(f"{args.file}: after attaching the measurement the project is not valid: "
                            + "; ".join(problems))
     save_project(args.file, project)
-    place = "the whole chain" if stage_id is None else f'stage "{stage_id}" {where.replace("_", " ")}'
+    place = "the whole chain" if stage_id is None else f'stage "{stage_id}" {WHERE_WORDS[where]}'
     print(printable(f'Attached measurement "{measurement.id}" ({data.points} points, {data.kind}) to {place} in '
                     f"{args.file}."))
     print(printable(f"  read: {data.source}; SHA-256 {data.sha256}"))

@@ -12,6 +12,7 @@ from PySide6.QtGui import QAction, QBrush, QColor, QFont
 from PySide6.QtWidgets import QAbstractItemView, QHeaderView, QMenu, QTreeWidget, QTreeWidgetItem, QWidget
 
 from stagewise.model.project import PART_TYPES, Part, Stage
+from stagewise.review.words import WHERE_WORDS
 from stagewise.ui.document import Document, EditRefused
 from stagewise.ui.icons import icon
 from stagewise.ui.overlays import IN_CHAIN, ISOLATED, OverlaySelection
@@ -117,8 +118,10 @@ class ChainTree(QTreeWidget):
             for index, stage in enumerate(project.stages, start=1):
                 root.addChild(self._stage_item(index, stage, stage.id in expanded or first_build and index == 1))
             for measurement in project.measurements:
-                where = "whole chain" if measurement.stage is None else f"{measurement.stage}, {measurement.where}"
-                item = QTreeWidgetItem([f"Measured: {measurement.id} ({where.replace('_', ' ')})", "", "", ""])
+                where = WHERE_WORDS.get(measurement.where, measurement.where)
+                if measurement.stage is not None:
+                    where = f"{measurement.stage}, {where}"
+                item = QTreeWidgetItem([f"Measured: {measurement.id} ({where})", "", "", ""])
                 item.setData(0, ROLE_KIND, "measurement")
                 item.setData(0, ROLE_KEY, measurement.id)
                 item.setToolTip(0, f"{measurement.file}, SHA-256 {measurement.sha256}; tick to overlay it on the "

@@ -234,6 +234,8 @@ class MainWindow(QMainWindow):
             a("saveProjectAs", "Save &as…", self.save_as, key.SaveAs, "", "Save under another name"),
             a("importCards", "&Import element cards…", self.import_cards_dialog, "Ctrl+Shift+I", "cards",
               "Add a stage typed as element cards, one part per line"),
+            a("attachMeasurement", "Attach &bench measurement…", self.attach_measurement_dialog, None, "",
+              "Attach a measured response (Touchstone .s2p or CSV) to a stage or the chain"),
             a("exportPacket", "&Export review packet…", self.export_packet_dialog, "Ctrl+Shift+E", "packet",
               "Write the review packet as a PDF and record it in the audit trail"),
             a("printPacket", "&Print packet…", self.print_packet_dialog, key.Print, "print",
@@ -304,6 +306,7 @@ class MainWindow(QMainWindow):
             file_menu.addAction(names[name])
         file_menu.addSeparator()
         file_menu.addAction(names["importCards"])
+        file_menu.addAction(names["attachMeasurement"])
         file_menu.addAction(names["exportPacket"])
         file_menu.addAction(names["printPacket"])
         file_menu.addSeparator()
@@ -483,7 +486,8 @@ class MainWindow(QMainWindow):
             names[name].setEnabled(editable)
         names["addPart"].setEnabled(has_stage and editable and not stage.is_block)  # type: ignore[union-attr]
         names["removePart"].setEnabled(has_stage and editable and not stage.is_block)  # type: ignore[union-attr]
-        for name in ("newStage", "stageFromTemplate", "importCards", "exportPacket", "printPacket"):
+        for name in ("newStage", "stageFromTemplate", "importCards", "attachMeasurement", "exportPacket",
+                     "printPacket"):
             names[name].setEnabled(editable)
         index = self.document.project.stages.index(stage) if stage is not None else -1
         names["moveStageUp"].setEnabled(editable and index > 0)
@@ -1032,6 +1036,57 @@ class MainWindow(QMainWindow):
             position = max((index + 1 for index, stage in enumerate(before.stages) if stage.id in earlier), default=0)
             before.stages.insert(position, copy.deepcopy(entry.stage))
         return before
+
+    # ----------------------------------------------------------------- bench measurements
+    def attach_measurement_dialog(self) -> None:
+        folder = str(Path(self.document.path).parent) if self.document.path else ""
+        path, _filter = QFileDialog.getOpenFileName(self, "Bench measurement", folder,
+                                                    "Measurements (*.s2p *.csv *.txt);;All files (*)")
+        if not path:
+            return
+        project = self.document.project
+        places: list[tuple[str, str, str | None]] = [("Whole chain (drive to last output)", "chain", None)]
+        for stage in project.stages:
+            places.append((f"{stage.name} — alone", "isolated", stage.id))
+            if not stage.bypass:
+                places.append((f"{stage.name} — in chain", "in_chain", stage.id))
+        current = next((index for index, (_, where, stage_id) in enumerate(places)
+                        if stage_id == self.document.current_stage_id and where == "isolated"), 0)
+        label, ok = QInputDialog.getItem(self, "Bench measurement", "Where was it measured?",
+                                         [place[0] for place in places], current, False)
+        if not ok:
+            return
+        instrument, ok = QInputDialog.getText(self, "Bench measurement", "Instrument and set-up (optional):")
+        if not ok:
+            return
+        _, where, stage_id = next(place for place in places if place[0] == label)
+        self.attach_measurement_file(path, where, stage_id, instrument.strip())
+
+    def attach_measurement_file(self, path: str | Path, where: str, stage_id: str | None,
+                                instrument: str = "") -> bool:
+        """Read a measurement file and attach it (recorded in the audit trail, saved with the next save)."""
+        from stagewise.files.measurements import MeasurementError, read_measurement
+        from stagewise.review.measurements import attach_measurement
+
+        project = self.document.project
+        stage = project.stage(stage_id) if stage_id else None
+        try:
+            data = read_measurement(path, drive=stage.drive if stage is not None else project.input.drive)
+        except MeasurementError as error:
+            self._refuse(error)
+            return False
+        name, _role = reviewer_identity()
+        try:
+            measurement = self.document.record_event(lambda target: attach_measurement(
+                target, data, where, stage_id, name or "unknown user", instrument=instrument))
+        except (ValueError, EditRefused) as error:
+            self._refuse(error)
+            return False
+        self.tree.rebuild()
+        self.worker.request()
+        self.show_message(f"Attached bench measurement {measurement.id} ({data.points} points); it is recorded "
+                          "in the audit trail and written with the next save.")
+        return True
 
     # ----------------------------------------------------------------- files
     def _fill_recent(self) -> None:
