@@ -34,5 +34,16 @@ def test_dc_view_lists_the_budget_largest_first_with_units(qtbot, tmp_path: Path
         assert abs(float(rows[("gain", "U1 Ib")]) - 12.0) < 0.01
         summary = view.summary.text()
         assert "over 0 to 60 °C" in summary and "LSB" in summary and "% of full scale" in summary
+        # The user picks the selected stage's output in chain and selects the gain stage.
+        window.document.set_current_stage("gain")
+        view.place.setCurrentIndex(1)
+        headers = [table.horizontalHeaderItem(column).text() for column in range(table.columnCount())]
+        assert headers[3] == "At the output (mV)"
+        stages = {table.item(row, 1).text() for row in range(table.rowCount())}
+        assert stages == {"gain"}
+        rows = {table.item(r, 0).text(): table.item(r, 3).text() for r in range(table.rowCount())}
+        # Source: Franco, 3rd ed., sec. 5.1-5.2 (value from memory): Vos·(1 + R2/R1) = 0.8 mV × 3.
+        assert abs(float(rows["U1 Vos"]) - 2.4) < 1e-3
+        assert "the output of gain, in chain" in view.summary.text()
     finally:
         window.shutdown()

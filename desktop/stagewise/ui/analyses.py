@@ -441,21 +441,36 @@ def chain_noise(project: Project, context: Context) -> NoiseTrace:
 
 
 @dataclass(frozen=True, slots=True)
-class DcTrace:
-    """The DC budget at the converter input: its table (engine/dc.py) and a summary line."""
+class DcPlace:
+    """The DC budget at one place: its table (engine/dc.py) and a summary line, or why none."""
 
-    table: Any  # engine.dc.BudgetTable
+    table: Any  # engine.dc.BudgetTable, or None with ``why``
     summary: str
+    why: str = ""
 
 
-def chain_dc(project: Project, context: Context) -> DcTrace:
-    """The chain's DC accuracy budget at the converter input (engine/dc.py)."""
+@dataclass(frozen=True, slots=True)
+class DcTrace:
+    """The DC budgets the "DC accuracy" view can show: the chain at the converter input and every
+    stage in chain and alone, keyed ``("chain", "")``, ``("in_chain", id)``, ``("isolated", id)``."""
+
+    places: dict[tuple[str, str], DcPlace]
+
+    @property
+    def table(self) -> Any:
+        return self.places[("chain", "")].table
+
+    @property
+    def summary(self) -> str:
+        return self.places[("chain", "")].summary
+
+
+def _dc_place(document: dict[str, Any] | None, why: str | None, where: str) -> DcPlace:
     from stagewise.engine.dc import budget_table
     from stagewise.model.values import format_value
 
-    document, why = _project_analysis(project, context).dc_document("chain", "")
     if document is None:
-        raise NotAvailable(why or "the DC budget could not be computed")
+        return DcPlace(None, "", why or "the DC budget could not be computed")
     parts = []
     for key, label in (("total_wc_v", "worst case"), ("total_rss_v", "RSS")):
         value = document.get(key)
@@ -471,15 +486,30 @@ def chain_dc(project: Project, context: Context) -> DcTrace:
             text += f" = {pct:.3g} % of full scale"
         parts.append(text)
     span = document.get("temp_range_c")
-    where = (f"over {span[0]:g} to {span[1]:g} °C" if span else "at 25 °C only (no temperature range given)")
-    summary = f"DC error at the converter input {where}: " + "; ".join(parts) + "."
+    when = (f"over {span[0]:g} to {span[1]:g} °C" if span else "at 25 °C only (no temperature range given)")
+    summary = f"DC error at {where} {when}: " + "; ".join(parts) + "."
     if document.get("offset_out_v") is not None:
         summary += f" Offset alone (25 °C, worst case) {format_value(document['offset_out_v'], 'V')}."
     if document.get("gain_error_pct") is not None:
         summary += f" Gain error {document['gain_error_pct']:.3g} % (worst case)."
     else:
         summary += f" Gain error: {document.get('gain_error_pct_why')}."
-    return DcTrace(budget_table(document), summary)
+    return DcPlace(budget_table(document), summary)
+
+
+def chain_dc(project: Project, context: Context) -> DcTrace:
+    """The DC accuracy budgets (engine/dc.py): the chain at the converter input, every stage in
+    chain and alone."""
+    analysis = _project_analysis(project, context)
+    places: dict[tuple[str, str], DcPlace] = {}
+    document, why = analysis.dc_document("chain", "")
+    places[("chain", "")] = _dc_place(document, why, "the converter input")
+    for stage in project.stages:
+        for where, words in (("in_chain", f"the output of {stage.id}, in chain"),
+                             ("isolated", f"the output of {stage.id}, alone")):
+            document, why = analysis.dc_document(where, stage.id)
+            places[(where, stage.id)] = _dc_place(document, why, words)
+    return DcTrace(places)
 
 
 def measurements(project: Project, context: Context) -> list[Any]:

@@ -1,4 +1,5 @@
-"""The "DC accuracy" view: the chain's DC error budget at the converter input.
+"""The "DC accuracy" view: the DC error budget at the converter input, or at the selected stage's
+output (in chain or alone), chosen in the view's place selector.
 
 Largest contributors first, as horizontal bars (magnitudes, in the table's unit) and as a table
 (source, stage, kind, error at the converter input with its unit in the header, gain error in
@@ -13,7 +14,7 @@ from typing import Any
 import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QAbstractItemView, QLabel, QTableWidget, QTableWidgetItem, QWidget
+from PySide6.QtWidgets import QAbstractItemView, QComboBox, QLabel, QTableWidget, QTableWidgetItem, QWidget
 
 from stagewise.ui.document import Document
 from stagewise.ui.overlays import OverlaySelection
@@ -24,11 +25,15 @@ from stagewise.ui.worker import Computed, ComputeWorker
 __all__ = ["DcView", "table_headers"]
 
 BARS_SHOWN = 12
+# The place selector: its words and the (where, stage?) it picks.
+PLACES = (("At the converter input (whole chain)", "chain"), ("At the selected stage's output, in chain", "in_chain"),
+          ("At the selected stage's output, alone", "isolated"))
 
 
-def table_headers(unit: str) -> list[str]:
+def table_headers(unit: str, where: str = "chain") -> list[str]:
     """Column headers, each with its unit."""
-    return ["Source", "Stage", "Kind", f"At the converter ({unit})", "Gain error (%)", "Over temperature"]
+    place = "At the converter" if where == "chain" else "At the output"
+    return ["Source", "Stage", "Kind", f"{place} ({unit})", "Gain error (%)", "Over temperature"]
 
 
 class DcView(PlotView):
@@ -37,6 +42,12 @@ class DcView(PlotView):
     def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
                  parent: QWidget | None = None) -> None:
         super().__init__(document, worker, overlays, parent)
+        self.place = QComboBox(self)
+        self.place.setObjectName("dcPlace")
+        for words, _ in PLACES:
+            self.place.addItem(words)
+        self.place.currentIndexChanged.connect(self.refresh)
+        self.layout().insertWidget(1, self.place)
         self.plot = self.graphics.addPlot(enableMenu=False)
         self.plot.showGrid(x=True, y=False, alpha=0.25)
         self.plot.getAxis("bottom").enableAutoSIPrefix(False)
@@ -60,39 +71,50 @@ class DcView(PlotView):
         self._drawn: Any = None
         self.refresh()
 
+    def key(self) -> tuple[str, str]:
+        """The place shown: ``("chain", "")`` or ``(where, selected stage id)``."""
+        where = PLACES[max(self.place.currentIndex(), 0)][1]
+        return (where, "") if where == "chain" else (where, self.document.current_stage_id)
+
     def draw(self) -> None:
         computed = self.outcome.of_chain("dc") if self.outcome is not None else Computed(None, "")
-        if not computed.ok:
+        key = self.key()
+        place = computed.value.places.get(key) if computed.ok else None
+        if place is None or place.table is None:
             if self.outcome is not None:
-                self.note("DC budget", computed)
+                why = computed.why if not computed.ok else (place.why if place is not None else
+                                                           "no stage is selected")
+                self.note("DC budget", Computed(None, why))
             self._drawn = None
             self._show([], [], "V")
             self.table.setRowCount(0)
             self.summary.setText("")
             return
-        if computed.value is self._drawn:
+        if self._drawn == (id(computed.value), key):
             return  # the same budget: an edit's refresh before the new result arrives costs nothing
-        self._drawn = computed.value
-        table = computed.value.table
+        self._drawn = (id(computed.value), key)
+        table = place.table
         shown = [row for row in table.rows if row.value is not None][:BARS_SHOWN]
-        self._show([f"{row.stage}: {row.source}" for row in shown], [abs(row.value) for row in shown], table.unit)
-        self._fill(table)
-        self.summary.setText(computed.value.summary)
+        self._show([f"{row.stage}: {row.source}" for row in shown], [abs(row.value) for row in shown], table.unit,
+                   key[0])
+        self._fill(table, key[0])
+        self.summary.setText(place.summary)
 
-    def _show(self, labels: list[str], values: list[float], unit: str) -> None:
+    def _show(self, labels: list[str], values: list[float], unit: str, where: str = "chain") -> None:
         count = len(values)
         positions = np.arange(count)[::-1].astype(float)
         self.bar_values = np.asarray(values, dtype=float)
         self.bar_labels = labels
         self.bars.setOpts(x0=np.zeros(count), y=positions, width=self.bar_values, height=0.6)
         self.plot.getAxis("left").setTicks([[(float(p), label) for p, label in zip(positions, labels, strict=True)]])
-        self.plot.setLabel("bottom", f"Error at the converter input ({unit}, magnitude)")
+        place = "the converter input" if where == "chain" else "the stage's output"
+        self.plot.setLabel("bottom", f"Error at {place} ({unit}, magnitude)")
         if count:
             self.plot.setYRange(-0.6, count - 0.4, padding=0)
             self.plot.setXRange(0, float(self.bar_values.max()) * 1.05 or 1.0, padding=0)
 
-    def _fill(self, table: Any) -> None:
-        self.table.setHorizontalHeaderLabels(table_headers(table.unit))
+    def _fill(self, table: Any, where: str) -> None:
+        self.table.setHorizontalHeaderLabels(table_headers(table.unit, where))
         self.table.setRowCount(len(table.rows))
         for index, row in enumerate(table.rows):
             cells = [row.source, row.stage, row.kind,
