@@ -181,6 +181,9 @@ def build_parser() -> argparse.ArgumentParser:
     response.add_argument("file", metavar="FILE")
     response.add_argument("--stage", metavar="ID", help="one stage, isolated (default: the whole chain)")
     response.add_argument("--in-chain", action="store_true", help="with --stage: V_out/V_in where the stage sits")
+    response.add_argument("--from-input", action="store_true",
+                          help="with --stage: the chain's drive to this stage's output (V/V, or Ω for a current "
+                          "drive)")
     response.add_argument("--freqs", metavar="LIST", required=True, help="comma-separated frequencies, e.g. 10,1k,20k")
     response.add_argument("--json", action="store_true", help="print JSON instead of a table")
 

@@ -252,3 +252,33 @@ def test_cover_warns_of_every_automatic_finding(printed: dict[str, Any], capsys:
     assert "WARNING" in cover
     for item in findings:
         assert _normal(item["text"]) in cover
+
+
+def test_stage_pages_show_the_pass_band_reference_from_input_figures_and_loops_in_chain(
+        printed: dict[str, Any], capsys: pytest.CaptureFixture[str]) -> None:
+    # Common practice, no source: a figure names the reference it was taken against, the chain seen from
+    # its input sits beside isolated and in chain, and an op-amp's loop in chain sits beside its loop
+    # alone. The numbers come from the `analyze --json` document (DESIGN 6 and 8).
+    from stagewise.engine.metrics import reference_words
+    from stagewise.model.values import format_value
+
+    main(["analyze", str(printed["path"]), "--json"])
+    stages = json.loads(capsys.readouterr().out)["stages"]
+    text = printed["text"]
+    assert "from chain input" in text
+    assert _normal("Pass-band reference (corners, peaking)") in text
+    for entry in stages:
+        seen = entry.get("from_input")
+        if isinstance(seen, dict) and seen.get("f_high_3db_hz") is not None:
+            assert _normal(format_value(seen["f_high_3db_hz"], "Hz")) in text
+        isolated = entry.get("isolated")
+        if isinstance(isolated, dict):
+            unit = "dBΩ" if isolated["unit"] == "Ω" else "dB"
+            assert _normal(reference_words(isolated["ref"], unit)) in text
+    with_loops = [entry for entry in stages if isinstance(entry.get("in_chain"), dict) and entry["in_chain"]["loops"]]
+    assert with_loops
+    assert _normal("phase margin in chain") in text
+    for entry in with_loops:
+        for loop in entry["in_chain"]["loops"]:
+            if loop.get("phase_margin_deg") is not None:
+                assert f"{loop['phase_margin_deg']:.4g}°" in text

@@ -46,3 +46,33 @@ def test_an_edit_reduces_only_the_edited_stage_again() -> None:
     for stage in project.stages:
         analyses.in_chain_response(stage, project, context)
     assert context.engine.reductions == before + 1
+
+
+def test_from_input_column_overlays_the_chain_seen_from_its_drive(window) -> None:  # type: ignore[no-untyped-def]
+    # Common practice, no source: the chain's drive to a stage's output is the product of the stages
+    # before it as they sit, so the trace of the last stage seen from the input is the whole chain;
+    # the middle stage's trace is checked against the engine's cascade at the same frequencies.
+    from PySide6.QtCore import Qt
+
+    from stagewise.engine.analysis import response_points
+    from stagewise.ui.chain_tree import COLUMN_FROM_INPUT
+    from stagewise.ui.overlays import FROM_INPUT
+
+    item = window.tree._stage_items["amp"]
+    item.setCheckState(COLUMN_FROM_INPUT, Qt.CheckState.Checked)  # widget → selection
+    assert window.overlays.stage_shown("amp", FROM_INPUT)
+    window.overlays.set_stage("adc", FROM_INPUT, True)  # selection → widget
+    assert window.tree._stage_items["adc"].checkState(COLUMN_FROM_INPUT) == Qt.CheckState.Checked
+    assert window.wait_until_idle(60, formula=False)
+    window.response_view.refresh()
+    drawn = window.response_view.trace_data("amp:from_input")
+    assert drawn is not None
+    f_hz, mag_db, _ = drawn
+    project = window.document.project
+    unit, values, why = response_points(project, list(f_hz[::40]), "amp", from_input=True)
+    assert why is None and values is not None
+    np.testing.assert_allclose(mag_db[::40], 20 * np.log10(np.abs(values)), atol=1e-9)
+    last = window.response_view.trace_data("adc:from_input")
+    chain = window.response_view.trace_data("chain")
+    assert last is not None and chain is not None
+    np.testing.assert_allclose(last[1], chain[1], atol=1e-9)

@@ -1,11 +1,12 @@
-"""``stagewise response FILE [--stage ID [--in-chain]] --freqs 10,1k,20k [--json]``.
+"""``stagewise response FILE [--stage ID [--in-chain | --from-input]] --freqs 10,1k,20k [--json]``.
 
 Without ``--json`` prints a table for people: what is shown and its unit, then one row per
 frequency (frequency, magnitude in dB, phase in degrees, real and imaginary parts). With
 ``--json`` prints ``{"points": [{"f_hz", "re", "im", "mag_db", "phase_deg"}, …]}`` for the chain (drive →
 last output) by default, for a stage isolated with ``--stage``, and in chain with ``--in-chain``
-(V_out/V_in of that stage where it sits; V_out/I_in for a current-driven stage). ``unit`` and
-``what`` say which. Where the response is undefined, ``points`` is null with ``why`` beside it
+(V_out/V_in of that stage where it sits; V_out/I_in for a current-driven stage), and from the
+chain's drive to that stage's output with ``--from-input`` (V/V, or Ω, a transimpedance, for a
+current drive). ``unit`` and ``what`` say which. Where the response is undefined, ``points`` is null with ``why`` beside it
 and the exit status is 1. Phase is the principal value in (−180°, 180°] at each frequency.
 """
 
@@ -26,19 +27,25 @@ def run(args: argparse.Namespace) -> int:
     from stagewise.engine.mna import CircuitError  # noqa: PLC0415
 
     frequencies = parse_frequencies(args.freqs)
+    from_input = bool(getattr(args, "from_input", False))
     if args.in_chain and args.stage is None:
         raise CommandError("--in-chain needs --stage ID")
+    if from_input and args.stage is None:
+        raise CommandError("--from-input needs --stage ID")
+    if from_input and args.in_chain:
+        raise CommandError("--in-chain and --from-input ask for different responses; give one of them")
     project = load(args.file)
     if args.stage is not None:
         stage_by_id(project, args.stage, args.file)
     try:
-        unit, values, why = response_points(project, frequencies, args.stage, args.in_chain)
+        unit, values, why = response_points(project, frequencies, args.stage, args.in_chain, from_input=from_input)
     except CircuitError as error:  # a circuit without a response: documented as null with why, exit 1
         unit, values, why = None, None, f"{args.file}: {error}"
     if args.stage is None:
         what = "chain"
     else:
-        what = f"stage {args.stage} in chain" if args.in_chain else f"stage {args.stage} isolated"
+        what = (f"stage {args.stage} from the chain input" if from_input
+                else f"stage {args.stage} in chain" if args.in_chain else f"stage {args.stage} isolated")
     document: dict[str, object] = {"what": what, "unit": unit}
     if values is None:
         document["points"] = None

@@ -189,6 +189,41 @@ class ProjectAnalysis:
                 results[stage.id] = analysis
         return results
 
+    def from_input(self, stage_id: str) -> StageAnalysis | _Failure:
+        """The chain's drive to this stage's output, as it sits (V/V, or Ω for a current drive).
+
+        The merged chain's pencil with the output read at the stage's output interface: the same
+        poles as the whole chain, its own zeros. Computed per stage when first asked.
+        """
+        cache = self._from_input
+        if stage_id not in cache:
+            cache[stage_id] = self._compute_from_input(stage_id)
+        return cache[stage_id]
+
+    @cached_property
+    def _from_input(self) -> dict[str, StageAnalysis | _Failure]:
+        return {}
+
+    def _compute_from_input(self, stage_id: str) -> StageAnalysis | _Failure:
+        stage = self.project.stage(stage_id)
+        if stage is not None and stage.bypass:
+            return _Failure(f'stage "{stage_id}" is bypassed, so it is not in the chain')
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return merged
+        if stage_id not in merged.stage_ids:
+            return _Failure(f'there is no stage "{stage_id}" in the chain')
+        position = merged.stage_ids.index(stage_id) + 1
+        if position == len(merged.stage_ids):
+            return self.whole_chain  # the same system and output
+        whole = merged.driven()
+        driven = DrivenSystem(whole.g, whole.c, whole.b, merged.interface_indices[position], whole.current_drive)
+        unit = CURRENT_UNIT if merged.current_drive else VOLTAGE_UNIT
+        analysis = analyze_system(driven, self.f_hz, unit, stage_id, "")
+        if analysis.why is not None:
+            return _Failure(f'stage "{stage_id}" seen from the chain input: {analysis.why}')
+        return analysis
+
     def _undefined_in_chain(self, stage_id: str) -> str | None:
         chain = self.chain
         if isinstance(chain, _Failure):
@@ -530,6 +565,8 @@ class ProjectAnalysis:
         if where == "isolated":
             analysis = self.isolated(stage_id)
             return _Failure(analysis.why) if analysis.why is not None else analysis
+        if where == "from_input":
+            return self.from_input(stage_id)
         return self.in_chain(stage_id)
 
     def metric_value(self, metric: str, where: str, stage_id: str,
@@ -740,6 +777,14 @@ class ProjectAnalysis:
             dc, dc_why = self.dc_document("in_chain", stage.id)
             put_with_why(metrics, "dc", dc, dc_why)
             document["in_chain"] = metrics
+        from_input = self.from_input(stage.id)
+        if isinstance(from_input, _Failure):
+            document["from_input"] = None
+            document["from_input_why"] = from_input.why
+        else:
+            metrics = dict(self._metrics_document("from_input", stage.id, from_input))
+            metrics["loops"] = self.stage_chain_loops(stage.id)
+            document["from_input"] = metrics
         value, why = self.metric_value("loading_error_db_max", "in_chain", stage.id, None)
         put_with_why(document, "loading_error_db_max", value, why)
         for key, metric in (("zin_ohm_at_ref", "zin_ohm"), ("zout_ohm_at_ref", "zout_ohm")):
@@ -904,8 +949,12 @@ def metric_provider(project: Project) -> ProjectAnalysis:
 
 
 def response_points(project: Project, f_hz: list[float], stage_id: str | None = None,
-                    in_chain: bool = False) -> tuple[str, NDArray[np.complex128] | None, str | None]:
-    """The response at chosen frequencies: the chain, a stage isolated, or a stage in chain.
+                    in_chain: bool = False, *, from_input: bool = False
+                    ) -> tuple[str, NDArray[np.complex128] | None, str | None]:
+    """The response at chosen frequencies: the chain, a stage isolated, in chain or from the input.
+
+    ``from_input`` gives the chain's drive to the stage's output, where it sits (the
+    port-relation cascade's interface voltage per unit drive: V/V, or Ω for a current drive).
 
     Returns
     -------
@@ -915,7 +964,7 @@ def response_points(project: Project, f_hz: list[float], stage_id: str | None = 
     Raises
     ------
     ValueError
-        An unknown stage id, or ``in_chain`` for a bypassed stage (one sentence each).
+        An unknown stage id, or ``in_chain``/``from_input`` for a bypassed stage (one sentence each).
     """
     engine = ChainEngine()
     if stage_id is None:
@@ -925,11 +974,15 @@ def response_points(project: Project, f_hz: list[float], stage_id: str | None = 
     if stage is None:
         known = ", ".join(item.id for item in project.stages)
         raise ValueError(f'there is no stage "{stage_id}" (stages: {known})')
-    if not in_chain:
+    if not in_chain and not from_input:
         isolated = engine.isolated(stage, project, np.asarray(f_hz, dtype=float))
         return isolated.unit, isolated.response, isolated.why
     if stage.bypass:
         raise ValueError(f'stage "{stage_id}" is bypassed, so it has no response in chain')
+    if from_input:
+        result = engine.analyze(project, f_hz)
+        position = result.stage_ids.index(stage_id) + 1
+        return result.unit, result.interface_response[:, position], None
     entry = engine.analyze(project, f_hz).stage(stage_id)
     return entry.unit, entry.in_chain, entry.in_chain_why
 

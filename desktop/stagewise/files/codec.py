@@ -611,7 +611,7 @@ def _decode_check(reader: _Reader, data: object) -> Check | None:
         return None
     check = Check(id=reader.field(fields, "id", _name, ""), text=reader.field(fields, "text", _text, ""))
     check.metric = reader.field(fields, "metric", _optional_text, None)
-    check.where = reader.field(fields, "where", _choice("isolated", "in_chain", "chain"), "in_chain")
+    check.where = reader.field(fields, "where", _choice("isolated", "in_chain", "from_input", "chain"), "in_chain")
     check.at_hz = reader.field(fields, "at_hz", _optional_positive, None)
     check.min = reader.field(fields, "min", _optional_quantity, None)
     check.max = reader.field(fields, "max", _optional_quantity, None)

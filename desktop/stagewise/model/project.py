@@ -134,7 +134,7 @@ class Check:
     """One item of a stage's checklist.
 
     A numeric check names a ``metric`` (see ``stagewise.review.metrics``), where it is taken
-    (``isolated``, ``in_chain`` or ``chain``), a frequency where the metric needs one, and
+    (``isolated``, ``in_chain``, ``from_input`` or ``chain``), a frequency where the metric needs one, and
     ``min`` and/or ``max``. A manual check has no metric; its ``text`` is the question and
     ``answer`` the recorded answer. Status is computed, never stored.
     """

@@ -21,6 +21,7 @@ from PySide6.QtCore import QRectF
 from PySide6.QtGui import QColor, QPainter
 
 from stagewise import __version__
+from stagewise.engine.metrics import reference_words
 from stagewise.model.project import PART_TYPES, Project, Stage
 from stagewise.model.values import format_value
 from stagewise.report.content import NOT_IN_BUILD, Curve, PacketContent
@@ -311,8 +312,15 @@ def _diagram_boxes(content: PacketContent) -> list[DiagramBox]:
 _CHAIN_KEYS = ("gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz")
 
 
+def _reference_cell(document: dict[str, Any] | None) -> str:
+    """The pass-band reference of an "M" document in the same few words as every view."""
+    if not isinstance(document, dict) or not isinstance(document.get("ref"), dict):
+        return DASH
+    return reference_words(document["ref"], "dBΩ" if document.get("unit") == "Ω" else "dB")
+
+
 def _metrics_rows(documents: Sequence[dict[str, Any] | None]) -> list[list[str]]:
-    rows = []
+    rows = [["Pass-band reference (corners, peaking)"] + [_reference_cell(document) for document in documents]]
     for key in _CHAIN_KEYS:
         unit = METRICS[key].unit
         rows.append([METRICS[key].label] + [_value_or_why(document, key, unit) for document in documents])
@@ -790,21 +798,40 @@ def _stage_metrics(entry: dict[str, Any] | None, content: PacketContent) -> list
         return blocks
     isolated = entry.get("isolated") if isinstance(entry.get("isolated"), dict) else None
     in_chain = entry.get("in_chain") if isinstance(entry.get("in_chain"), dict) else None
-    for label, key, document in (("Isolated", "isolated", isolated), ("In chain", "in_chain", in_chain)):
+    from_input = entry.get("from_input") if isinstance(entry.get("from_input"), dict) else None
+    for label, key, document in (("Isolated", "isolated", isolated), ("In chain", "in_chain", in_chain),
+                                 ("From the chain input", "from_input", from_input)):
         if document is None:
             blocks.append(_unavailable(f"{label}: {entry.get(f'{key}_why') or 'no figures'}."))
-    rows = _metrics_rows([isolated, in_chain]) if isolated is not None or in_chain is not None else []
-    rows.append(["Largest loading error", DASH, _value_or_why(entry, "loading_error_db_max", "dB")])
-    rows.append(["Input impedance at the reference frequency", DASH, _value_or_why(entry, "zin_ohm_at_ref", "Ω")])
-    rows.append(["Output impedance at the reference frequency", DASH, _value_or_why(entry, "zout_ohm_at_ref", "Ω")])
-    blocks.append(Table([Column("figure"), Column("isolated", "right"), Column("in chain", "right")], rows))
-    loops = (isolated or {}).get("loops")
-    if isinstance(loops, list) and loops:
-        loop_rows = [[str(loop.get("ref", "")), _text(loop.get("crossover_hz"), "Hz"),
-                      _text(loop.get("phase_margin_deg"), "°"), _text(loop.get("gain_margin_db"), "dB")]
-                     for loop in loops]
-        blocks.append(Table([Column("op-amp loop"), Column("crossover", "right"), Column("phase margin", "right"),
-                             Column("gain margin", "right")], loop_rows))
+    documents = [isolated, in_chain, from_input]
+    rows = _metrics_rows(documents) if any(document is not None for document in documents) else []
+    rows.append(["Largest loading error", DASH, _value_or_why(entry, "loading_error_db_max", "dB"), DASH])
+    rows.append(["Input impedance at the reference frequency", DASH, _value_or_why(entry, "zin_ohm_at_ref", "Ω"),
+                 DASH])
+    rows.append(["Output impedance at the reference frequency", DASH,
+                 _value_or_why(entry, "zout_ohm_at_ref", "Ω"), DASH])
+    blocks.append(Table([Column("figure"), Column("isolated", "right"), Column("in chain", "right"),
+                         Column("from chain input", "right")], rows))
+    blocks.append(Paragraph("From the chain input: the chain's drive to this stage's output, everything before and "
+                            "after it in place (a transimpedance in Ω where the chain is current-driven).", 10.5))
+    # Every op-amp's loop isolated and where it sits, side by side (the in-chain loop includes
+    # what the neighbours do to its feedback network, e.g. a sensor's capacitance at a summing node).
+    alone = {str(loop.get("ref", "")): loop for loop in (isolated or {}).get("loops") or [] if isinstance(loop, dict)}
+    placed = {str(loop.get("ref", "")): loop for loop in (in_chain or {}).get("loops") or [] if isinstance(loop, dict)}
+    refs = list(alone) + [ref for ref in placed if ref not in alone]
+    if refs:
+        loop_rows = []
+        for ref in refs:
+            row = [ref]
+            for key, unit in (("crossover_hz", "Hz"), ("phase_margin_deg", "°"), ("gain_margin_db", "dB")):
+                for source in (alone, placed):
+                    loop = source.get(ref)
+                    row.append(_text(loop.get(key), unit) if loop is not None else DASH)
+            loop_rows.append(row)
+        blocks.append(Table([Column("op-amp loop"), Column("crossover isolated", "right"),
+                             Column("crossover in chain", "right"), Column("phase margin isolated", "right"),
+                             Column("phase margin in chain", "right"), Column("gain margin isolated", "right"),
+                             Column("gain margin in chain", "right")], loop_rows, size_px=10.5))
     return blocks
 
 
@@ -824,6 +851,8 @@ def _checks(stage: Stage, results: list[CheckResult]) -> list[Block]:
             if result.at_hz is not None:
                 what += f" at {format_value(result.at_hz, 'Hz', 3)}"
             what += f", {where}"
+            if result.reference:
+                what += f" ({result.reference})"
         else:
             what = "manual question"
         reason = result.why or ""

@@ -47,7 +47,7 @@ class MetricProvider(Protocol):
 
     ``metric_value`` returns ``(value, None)`` with the value in the unit of
     :data:`stagewise.review.metrics.METRICS`, or ``(None, why)`` with one sentence saying why
-    it cannot be computed. ``where`` is ``isolated``, ``in_chain`` or ``chain``; ``at_hz`` is
+    it cannot be computed. ``where`` is ``isolated``, ``in_chain``, ``from_input`` or ``chain``; ``at_hz`` is
     the frequency in hertz for metrics read at one (``None`` otherwise).
     """
 

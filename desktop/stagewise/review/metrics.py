@@ -3,7 +3,8 @@
 Each metric has a key (as written in project files), the label and unit shown to users, whether
 it is read at a frequency (``at_hz``), the places it can be taken (``isolated``: the stage alone,
 ideally driven and unloaded; ``in_chain``: the stage where it sits, loaded by the next one;
-``chain``: the whole chain from its drive to its last output) and one line saying what it is.
+``from_input``: the chain's drive to this stage's output, everything before it and after it in
+place; ``chain``: the whole chain from its drive to its last output) and one line saying what it is.
 
 Importing this module registers the key set with :data:`stagewise.model.validate.KNOWN_METRICS_HOOK`,
 so that loading a file whose check names an unknown metric fails validation.
@@ -26,7 +27,7 @@ __all__ = [
     "register_known_metrics",
 ]
 
-WHERE_VALUES: Final = ("isolated", "in_chain", "chain")
+WHERE_VALUES: Final = ("isolated", "in_chain", "from_input", "chain")
 
 AtHzRule = Literal["required", "reference", "unused"]
 

@@ -109,5 +109,6 @@ def current_verdict(word: str) -> str:
 WHERE_WORDS: Final[dict[str, str]] = {
     "isolated": "isolated",
     "in_chain": "in chain",
+    "from_input": "from the chain input",
     "chain": "whole chain",
 }

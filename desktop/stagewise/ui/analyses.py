@@ -268,6 +268,16 @@ def in_chain_response(stage: Stage, project: Project, context: Context) -> Respo
     return _trace(context.f_hz, entry.in_chain, entry.unit)
 
 
+def from_input_response(stage: Stage, project: Project, context: Context) -> ResponseTrace:
+    """The chain's drive to this stage's output, everything before and after it in place (V/V, or
+    Ω for a current drive): the cascade's interface response, already solved for the chain."""
+    if stage.bypass:
+        raise NotAvailable("the stage is bypassed: it is not in the chain")
+    result = _chain_result(project, context)
+    position = result.stage_ids.index(stage.id) + 1
+    return _trace(context.f_hz, result.interface_response[:, position], result.unit)
+
+
 @dataclass(frozen=True, slots=True)
 class ReviewSummary:
     """The evaluated checks of a stage (``stagewise.review.checks``) and a one-line summary."""
@@ -300,6 +310,25 @@ def _in_chain_analysis(stage: Stage, project: Project, context: Context) -> Any:
     if why is not None or getattr(analysis, "model", None) is None:
         raise NotAvailable(why or "no pole/zero model in chain")
     return analysis
+
+
+def _from_input_analysis(stage: Stage, project: Project, context: Context) -> Any:
+    analysis = _project_analysis(project, context).from_input(stage.id)
+    why = getattr(analysis, "why", None)
+    if why is not None or getattr(analysis, "model", None) is None:
+        raise NotAvailable(why or "no pole/zero model from the chain input")
+    return analysis
+
+
+def from_input_step(stage: Stage, project: Project, context: Context) -> StepTrace:
+    """Unit-step response from the chain's drive to this stage's output."""
+    return _step(_from_input_analysis(stage, project, context))
+
+
+def from_input_poles(stage: Stage, project: Project, context: Context) -> RootSet:
+    """Poles and zeros from the chain's drive to this stage's output."""
+    analysis = _from_input_analysis(stage, project, context)
+    return RootSet(analysis.poles_rad_s, analysis.zeros_rad_s, analysis.cancelled)
 
 
 def in_chain_step(stage: Stage, project: Project, context: Context) -> StepTrace:
@@ -339,6 +368,9 @@ STAGE_ANALYSES: list[tuple[str, int, Any]] = [
     ("in_chain_step", 2, in_chain_step),
     ("in_chain_poles", 2, in_chain_poles),
     ("in_chain_response", 1, in_chain_response),
+    ("from_input_response", 1, from_input_response),
+    ("from_input_step", 2, from_input_step),
+    ("from_input_poles", 2, from_input_poles),
 ]
 
 

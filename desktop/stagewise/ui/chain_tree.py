@@ -15,7 +15,7 @@ from stagewise.model.project import PART_TYPES, Part, Stage
 from stagewise.review.words import WHERE_WORDS
 from stagewise.ui.document import Document, EditRefused
 from stagewise.ui.icons import icon
-from stagewise.ui.overlays import IN_CHAIN, ISOLATED, OverlaySelection
+from stagewise.ui.overlays import FROM_INPUT, IN_CHAIN, ISOLATED, OverlaySelection
 from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import ComputeWorker, Outcome
 
@@ -25,6 +25,7 @@ ROLE_KIND = Qt.ItemDataRole.UserRole
 ROLE_STAGE = Qt.ItemDataRole.UserRole + 1
 ROLE_KEY = Qt.ItemDataRole.UserRole + 2
 COLUMN_NAME, COLUMN_ALONE, COLUMN_IN_CHAIN, COLUMN_STATE = range(4)
+COLUMN_FROM_INPUT = 4  # after the review column, so the columns before it keep their places
 
 
 def describe_part(part: Part) -> str:
@@ -46,21 +47,23 @@ class ChainTree(QTreeWidget):
         self.overlays = overlays
         self.outcome: Outcome | None = worker.latest
         self.context_actions: list[QAction] = []
-        self.setColumnCount(4)
-        self.setHeaderLabels(["Chain", "Alone", "In chain", "Review"])
+        self.setColumnCount(5)
+        self.setHeaderLabels(["Chain", "Alone", "In chain", "Review", "From input"])
         self.setHeaderHidden(False)
         header = self.header()
         header.setStretchLastSection(False)
         header.setSectionResizeMode(COLUMN_NAME, QHeaderView.ResizeMode.Stretch)
         header.setMinimumSectionSize(24)
         self.setIndentation(14)
-        for column, width in ((COLUMN_ALONE, 40), (COLUMN_IN_CHAIN, 50), (COLUMN_STATE, 92)):
+        for column, width in ((COLUMN_ALONE, 40), (COLUMN_IN_CHAIN, 50), (COLUMN_STATE, 92), (COLUMN_FROM_INPUT, 60)):
             header.setSectionResizeMode(column, QHeaderView.ResizeMode.Interactive)
             header.resizeSection(column, width)
         self.setTextElideMode(Qt.TextElideMode.ElideRight)
         self.headerItem().setToolTip(COLUMN_ALONE, "Overlay the stage alone (ideal drive, unloaded)")
         self.headerItem().setToolTip(COLUMN_IN_CHAIN, "Overlay the stage where it sits in the chain")
         self.headerItem().setToolTip(COLUMN_STATE, "Sign-off state, and checks passing of all")
+        self.headerItem().setToolTip(COLUMN_FROM_INPUT, "Overlay the chain's drive to this stage's output "
+                                     "(everything before and after it in place)")
         self.setSelectionMode(QAbstractItemView.SelectionMode.SingleSelection)
         self.setEditTriggers(QAbstractItemView.EditTrigger.DoubleClicked | QAbstractItemView.EditTrigger.EditKeyPressed)
         self.setContextMenuPolicy(Qt.ContextMenuPolicy.CustomContextMenu)
@@ -250,6 +253,8 @@ class ChainTree(QTreeWidget):
                     stage = self.document.project.stage(stage_id)
                     if stage is not None and not stage.bypass:
                         child.setCheckState(COLUMN_IN_CHAIN, _tick(self.overlays.stage_shown(stage_id, IN_CHAIN)))
+                        child.setCheckState(COLUMN_FROM_INPUT,
+                                            _tick(self.overlays.stage_shown(stage_id, FROM_INPUT)))
         finally:
             self.blockSignals(was_blocked)
 
@@ -283,9 +288,9 @@ class ChainTree(QTreeWidget):
             self.overlays.set_baseline(checked)
         elif kind == "measurement" and column == COLUMN_IN_CHAIN:
             self.overlays.set_measurement(item.data(0, ROLE_KEY), checked)
-        elif kind == "stage" and column in (COLUMN_ALONE, COLUMN_IN_CHAIN):
-            self.overlays.set_stage(item.data(0, ROLE_STAGE), ISOLATED if column == COLUMN_ALONE else IN_CHAIN,
-                                    checked)
+        elif kind == "stage" and column in (COLUMN_ALONE, COLUMN_IN_CHAIN, COLUMN_FROM_INPUT):
+            view = {COLUMN_ALONE: ISOLATED, COLUMN_IN_CHAIN: IN_CHAIN}.get(column, FROM_INPUT)
+            self.overlays.set_stage(item.data(0, ROLE_STAGE), view, checked)
         elif kind == "stage" and column == COLUMN_NAME:
             stage_id = item.data(0, ROLE_STAGE)
             try:

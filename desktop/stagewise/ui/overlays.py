@@ -1,4 +1,4 @@
-"""Which traces the plots overlay: stages alone or in chain, the whole chain, the baseline.
+"""Which traces the plots overlay: stages alone, in chain or from the chain input, the whole chain, the baseline.
 
 A small Qt object shared by the chain tree (which ticks traces on and off) and the plots (which
 draw them). Traces are listed in a stable order (chain, baseline, then each stage in chain
@@ -15,12 +15,13 @@ from PySide6.QtCore import QObject, Signal
 from stagewise.model.project import Project
 from stagewise.ui.palette import TraceStyle, trace_style
 
-__all__ = ["CHAIN", "BASELINE", "IN_CHAIN", "ISOLATED", "OverlaySelection", "TraceSpec"]
+__all__ = ["CHAIN", "BASELINE", "FROM_INPUT", "IN_CHAIN", "ISOLATED", "OverlaySelection", "TraceSpec"]
 
 CHAIN = "chain"
 BASELINE = "baseline"
 ISOLATED = "isolated"
 IN_CHAIN = "in_chain"
+FROM_INPUT = "from_input"  # the chain's drive to the stage's output
 
 
 @dataclass(frozen=True, slots=True)
@@ -29,7 +30,7 @@ class TraceSpec:
 
     key: str
     label: str
-    view: str  # CHAIN, BASELINE, ISOLATED or IN_CHAIN
+    view: str  # CHAIN, BASELINE, ISOLATED, IN_CHAIN or FROM_INPUT
     stage_id: str
     style: TraceStyle
 
@@ -106,5 +107,8 @@ class OverlaySelection(QObject):
                 wanted.append((f"{stage.id}:{ISOLATED}", f"{stage.name} — alone", ISOLATED, stage.id))
             if (stage.id, IN_CHAIN) in self._stages and not stage.bypass:
                 wanted.append((f"{stage.id}:{IN_CHAIN}", f"{stage.name} — in chain", IN_CHAIN, stage.id))
+            if (stage.id, FROM_INPUT) in self._stages and not stage.bypass:
+                wanted.append((f"{stage.id}:{FROM_INPUT}", f"{stage.name} — from the chain input", FROM_INPUT,
+                               stage.id))
         return [TraceSpec(key, label, view, stage_id, trace_style(position))
                 for position, (key, label, view, stage_id) in enumerate(wanted)]

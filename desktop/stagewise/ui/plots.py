@@ -23,7 +23,7 @@ from stagewise.model.values import format_value
 from stagewise.ui.analyses import ResponseTrace, finite
 from stagewise.ui.document import Document
 from stagewise.ui.measured_plots import MeasuredOverlay, MeasuredSteps
-from stagewise.ui.overlays import BASELINE, CHAIN, IN_CHAIN, ISOLATED, OverlaySelection, TraceSpec
+from stagewise.ui.overlays import BASELINE, CHAIN, FROM_INPUT, IN_CHAIN, ISOLATED, OverlaySelection, TraceSpec
 from stagewise.ui.palette import OKABE_ITO, limit_brush_colour
 from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import Computed, ComputeWorker, Outcome
@@ -52,12 +52,14 @@ def _log_axis(plot: pg.PlotItem) -> None:
 def result_for(outcome: Outcome | None, spec: TraceSpec, kind: str) -> Computed:
     """The result a trace shows for ``kind`` (``response``, ``step``, ``poles``).
 
-    The chain and stages alone use ``kind``; stages in chain ``in_chain_<kind>``; the baseline
+    The chain and stages alone use ``kind``; stages in chain ``in_chain_<kind>``, seen from the
+    chain input ``from_input_<kind>``; the baseline
     ``baseline_<kind>`` (chain results of the baseline project).
     """
     if outcome is None:
         return Computed(None, "not computed yet")
-    name = {CHAIN: kind, ISOLATED: kind, IN_CHAIN: f"in_chain_{kind}", BASELINE: f"baseline_{kind}"}[spec.view]
+    name = {CHAIN: kind, ISOLATED: kind, IN_CHAIN: f"in_chain_{kind}", FROM_INPUT: f"from_input_{kind}",
+            BASELINE: f"baseline_{kind}"}[spec.view]
     if spec.view in (CHAIN, BASELINE):
         return outcome.of_chain(name)
     return outcome.of_stage(spec.stage_id, name)
@@ -224,7 +226,8 @@ def limit_shapes(check: Check, project: Project) -> list[tuple[str, str, tuple[f
         return []
     low = -math.inf if check.min is None else check.min.si
     high = math.inf if check.max is None else check.max.si
-    where = {"isolated": "alone", "in_chain": "in chain", "chain": "whole chain"}.get(check.where, check.where)
+    where = {"isolated": "alone", "in_chain": "in chain", "from_input": "from the chain input",
+             "chain": "whole chain"}.get(check.where, check.where)
     at_hz = check.at_hz.si if check.at_hz is not None else (
         project.settings.ref_hz.si if project.settings.ref_hz is not None else None)
     label = f"{check.id} ({where})"

@@ -262,6 +262,8 @@ class ReviewPanel(QWidget):
                 record = result.why
             detail = check.text + (f" — {record}" if record else "")
             limits = f"{result.limits} {where}" if result is not None and result.limits else where
+            if result is not None and result.reference:
+                limits += f" ({result.reference})"
             cells = [check.id, state, result.value_text() if result is not None else "", limits, detail]
             for column, text in enumerate(cells):
                 item = QTableWidgetItem(text)
