@@ -113,6 +113,28 @@ def test_check_values_follow_the_metric_table() -> None:
     assert value is None and "op-amp" in (why or "")
 
 
+def test_signed_loading_error_at_its_largest_deviation() -> None:
+    # Source: nodal analysis (closed forms above): the second RC section loads the first, so in chain
+    # the first section's gain falls below its isolated 1/(1 + sR1C1); the loading error in chain minus
+    # isolated is negative, largest where |20·log10(ratio)| peaks on the grid.
+    project = loads_project(_rc_pair_project())
+    analysis = ProjectAnalysis(project, spread=False)
+    stage = project.stage("first")
+    assert stage is not None
+    document = analysis.stage_document(stage)
+    f_hz = analysis.f_hz
+    _, first = _closed_forms(f_hz)
+    isolated = 1 / (1 + 2j * math.pi * f_hz * R1 * C1)
+    error_db = 20 * np.log10(np.abs(first / isolated))
+    worst = int(np.argmax(np.abs(error_db)))
+    assert document["loading_error_db"] == pytest.approx(error_db[worst], abs=1e-9)
+    assert document["loading_error_db"] < 0
+    assert document["loading_error_f_hz"] == pytest.approx(f_hz[worst], rel=1e-12)
+    assert document["loading_error_db_max"] == pytest.approx(abs(error_db[worst]), abs=1e-9)
+    value, why = analysis.metric_value("loading_error_db", "in_chain", "first", None)
+    assert why is None and value == pytest.approx(error_db[worst], abs=1e-9)
+
+
 def test_resistive_load_changes_the_last_stage_in_chain_only() -> None:
     load = 20e3
     project = loads_project(_rc_pair_project(load_r=load))

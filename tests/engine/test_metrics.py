@@ -551,3 +551,22 @@ def test_step_from_the_pencil_through_a_jordan_block() -> None:
     ode = np.array([c_row @ np.linalg.solve(point * np.eye(len(b)) - a, b) + d for point in s])
     exact = transfer_at(driven.g, driven.c, driven.b, driven.output, s)
     assert np.max(np.abs(ode - exact) / np.abs(exact)) < 1e-9
+
+
+def test_right_half_plane_zero_of_an_op_amp_model_is_named_and_real_roots_say_why_q_is_null() -> None:
+    # Source: nodal analysis of an inverting stage (Kirchhoff's current law): the op-amp's source
+    # A(s)·(v+ − v−) = A0/(1 + s·A0/ωt)·(−v−) drives the output through r_out; the output is zero where
+    # A(s) = r_out/R2, a real zero at f = GBW·(R2/r_out − 1/A0), in the right half-plane: the signal
+    # that reaches the output through R2 and r_out ahead of the amplifier.
+    a0_db, gbw, rout, r1, r2 = 100.0, 1e6, 100.0, 1e3, 10e3
+    models = {"m": OpampModel(a0_db=q(a0_db), gbw_hz=q(gbw), rout_ohm=q(rout))}
+    analysis, settings = analyse([part("R1", "R", ["in", "n"], r1), part("R2", "R", ["n", "out"], r2),
+                                  part("U1", "opamp", ["0", "n", "out"], model="m")], models=models)
+    document = stage_metrics(analysis, settings)
+    zero = document["zeros"][0]
+    assert zero["f_hz"] == pytest.approx(gbw * (r2 / rout - 10 ** (-a0_db / 20)), rel=1e-9)
+    assert zero["half_plane"] == "right" and "right-half-plane zero" in zero["note"]
+    # Common practice, no source: Q and ζ describe a complex pair; a real root has neither
+    assert zero["q"] is None and "real root" in zero["q_why"] and zero["zeta"] is None and zero["zeta_why"]
+    pole = document["poles"][0]
+    assert pole["half_plane"] == "left" and "note" not in pole and pole["q"] is None and pole["q_why"]

@@ -25,6 +25,8 @@ REQUIRED_KEYS = {
     "dc_gain", "gain_error_pct", "offset_out_v", "drift_out_v_per_c", "total_wc_v", "total_rss_v",
     "total_wc_lsb", "total_rss_lsb", "total_wc_pct_fs",
     "snr_noise_only_db", "converter_headroom_db", "swing_margin_v", "slew_margin_pct",
+    # The signed loading error (in chain minus isolated, at the largest deviation).
+    "loading_error_db",
 }
 
 

@@ -611,12 +611,13 @@ class ProjectAnalysis:
                 chain_loops = self.chain_loops
                 loops = [] if isinstance(chain_loops, _Failure) else chain_loops
             return _loop_value(loops, metric)
-        if metric == "loading_error_db_max":
+        if metric in ("loading_error_db_max", "loading_error_db"):
             entry = self._chain_entry(stage_id)
             if entry is None:
                 chain = self.chain
                 return None, chain.why if isinstance(chain, _Failure) else f'stage "{stage_id}" is not in the chain'
-            return _finite(entry.loading_error_db_max), entry.loading_error_why
+            value = entry.loading_error_db_max if metric == "loading_error_db_max" else entry.loading_error_db_signed
+            return _finite(value), entry.loading_error_why
         if metric in ("zin_ohm", "zout_ohm"):
             frequency = at_hz if at_hz is not None else _reference_hz(self.project)
             if frequency is None:
@@ -787,6 +788,12 @@ class ProjectAnalysis:
             document["from_input"] = metrics
         value, why = self.metric_value("loading_error_db_max", "in_chain", stage.id, None)
         put_with_why(document, "loading_error_db_max", value, why)
+        # Signed (in chain minus isolated) at the frequency of the largest deviation.
+        value, why = self.metric_value("loading_error_db", "in_chain", stage.id, None)
+        put_with_why(document, "loading_error_db", value, why)
+        entry = self._chain_entry(stage.id)
+        put_with_why(document, "loading_error_f_hz", None if value is None or entry is None else entry.loading_error_f_hz,
+                     why)
         for key, metric in (("zin_ohm_at_ref", "zin_ohm"), ("zout_ohm_at_ref", "zout_ohm")):
             if stage.bypass:
                 put_with_why(document, key, None, f'stage "{stage.id}" is bypassed, so it is not in the chain')

@@ -560,6 +560,9 @@ class StageInChain:
     loading_error_db_max : float or None
         The largest |loading_error_db| over the frequencies where it is finite (an exact zero
         of one response and not the other, a notch on the grid, gives ±∞ dB there).
+    loading_error_db_signed, loading_error_f_hz : float or None
+        The loading error with its sign (in chain minus isolated, dB: negative when the load
+        pulls the gain down) at the frequency of the largest deviation, and that frequency.
     loading_error_why : str or None
     z_in_ohm : ndarray (F,), complex
         Looking into this stage's input: the stage, the rest of the chain and the load.
@@ -582,6 +585,8 @@ class StageInChain:
     loading_error_why: str | None
     z_in_ohm: NDArray[np.complex128]
     z_out_ohm: NDArray[np.complex128]
+    loading_error_db_signed: float | None = None
+    loading_error_f_hz: float | None = None
 
     @property
     def in_chain(self) -> NDArray[np.complex128] | None:
@@ -973,6 +978,8 @@ def _stage_in_chain(position: int, stage: Stage, relation: PortRelation, alone: 
     error_db: NDArray[np.float64] | None = None
     error_deg: NDArray[np.float64] | None = None
     error_max: float | None = None
+    error_signed: float | None = None
+    error_f_hz: float | None = None
     error_why: str | None = None
     if alone.response is None:
         error_why = f"the isolated response cannot be computed: {alone.why}"
@@ -985,7 +992,10 @@ def _stage_in_chain(position: int, stage: Stage, relation: PortRelation, alone: 
         error_db, error_deg = _loading_error(own, alone.response)
         finite = np.isfinite(error_db)
         if np.any(finite):
-            error_max = float(np.max(np.abs(error_db[finite])))
+            deviation = np.where(finite, np.abs(error_db), -1.0)
+            worst = int(np.argmax(deviation))
+            error_max = float(deviation[worst])
+            error_signed, error_f_hz = float(error_db[worst]), float(alone.f_hz[worst])
         else:
             error_why = "the ratio of in-chain to isolated response is not finite at any frequency"
     return StageInChain(
@@ -1004,6 +1014,8 @@ def _stage_in_chain(position: int, stage: Stage, relation: PortRelation, alone: 
         loading_error_why=error_why,
         z_in_ohm=solution.z_in_ohm[:, position - 1],
         z_out_ohm=solution.z_out_ohm[:, position],
+        loading_error_db_signed=error_signed,
+        loading_error_f_hz=error_f_hz,
     )
 
 

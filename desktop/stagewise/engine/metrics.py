@@ -724,10 +724,12 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
     Returns
     -------
     dict
-        ``gain_db`` (at ``ref_hz``, or the band maximum), ``ref_hz``, ``peak_gain_db``,
-        ``peak_hz``, ``f_low_3db_hz``, ``f_high_3db_hz``, ``peaking_db``, ``unit``,
-        ``gain_constant``, ``poles`` and ``zeros`` (lists of ``{"re", "im", "f_hz", "q"}``, re/im
-        in rad/s), ``cancelled`` (``[{"pole": …, "zero": …}]``), ``step`` (``rise_s``,
+        ``gain_db`` (at ``ref_hz``; without it the pass-band gain), ``ref_hz``, ``ref`` (the
+        pass-band reference, :meth:`PassbandReference.as_dict`), ``peak_gain_db``, ``peak_hz``,
+        ``f_low_3db_hz``, ``f_high_3db_hz``, ``peaking_db``, ``unit``, ``gain_constant``,
+        ``poles`` and ``zeros`` (lists of ``{"re", "im", "f_hz", "q", "zeta", "half_plane"}``,
+        re/im in rad/s, ``q_why``/``zeta_why`` beside nulls, a ``note`` on right-half-plane
+        roots), ``cancelled`` (``[{"pole": …, "zero": …}]``), ``step`` (``rise_s``,
         ``overshoot_pct``, ``settle_1pct_s``, ``settle_0p1pct_s``, ``final``, ``settle_basis``).
         Beside every ``None`` value, ``"<key>_why"`` holds the reason. JSON-ready (floats,
         strings, lists, dicts; no NaN or infinity).
@@ -776,9 +778,9 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
                   f"K = ±10^{model.log_gain / math.log(10):.1f} lies outside the floating-point range "
                   "(the product of many poles); the response and the roots are unaffected")
     document["poles"] = root_table(model.poles_rad_s)
-    document["zeros"] = root_table(model.zeros_rad_s)
+    document["zeros"] = root_table(model.zeros_rad_s, "zero")
     document["cancelled"] = [
-        {"pole": root_table(np.array([pole]))[0], "zero": root_table(np.array([zero]))[0]}
+        {"pole": root_table(np.array([pole]))[0], "zero": root_table(np.array([zero]), "zero")[0]}
         for pole, zero in model.cancelled
     ]
     document["step"] = _step_document(step_response(model))

@@ -28,8 +28,9 @@ Public API
     The exact response at complex frequencies s (rad/s), one batched solve.
 ``index_one_state_space(g, c, b, output) -> (A, B, C, D)``
     An ODE form of an index-1 pencil (time responses when the zeros cannot be trusted).
-``root_table(roots) -> list[dict]``
-    Each root as ``{"re", "im", "f_hz", "q"}`` for reports (one entry per conjugate pair member).
+``root_table(roots, kind="pole") -> list[dict]``
+    Each root as ``{"re", "im", "f_hz", "q", "zeta", "half_plane"}`` for reports (one entry per
+    conjugate pair member), reasons beside null Q/ζ, a note on right-half-plane roots.
 
 References
 ----------
@@ -429,30 +430,49 @@ def _cancel(
     return kept_poles, kept_zeros, cancelled
 
 
-def root_table(roots: NDArray[np.complex128]) -> list[dict[str, float | None]]:
-    """Roots as report rows ``{"re", "im", "f_hz", "q", "zeta"}`` (re, im in rad/s).
+REAL_ROOT_WHY = ("a real root has no Q or ζ: they describe a complex pair; a real root is a first-order "
+                 "section with time constant 1/|s| (a pair of real roots counts as ζ ≥ 1, overdamped)")
+AXIS_ROOT_WHY = "on the jω axis: no damping, so Q is infinite (ζ = 0)"
+RIGHT_HALF_PLANE_NOTES = {
+    "zero": ("right-half-plane zero (non-minimum phase): the gain rises past it as past any zero, but the phase "
+             "lags (up to 90° per zero) instead of leading, and a step first moves the wrong way; in an op-amp stage it usually comes from the signal that "
+             "reaches the output directly through the feedback network and the op-amp's output resistance, "
+             "ahead of the amplifier; Q < 0 marks the right half-plane, |Q| is the usual figure"),
+    "pole": ("right-half-plane pole: the response grows without bound (unstable); Q < 0 marks the right "
+             "half-plane"),
+}
+
+
+def root_table(roots: NDArray[np.complex128], kind: str = "pole") -> list[dict[str, Any]]:
+    """Roots as report rows ``{"re", "im", "f_hz", "q", "zeta", "half_plane"}`` (re, im in rad/s).
 
     ``f_hz`` is the natural frequency |s|/(2π); ``q`` = |s|/(−2·Re s) for a complex root (negative
-    for a right-half-plane pair) and ``None`` for a real root or a root on the imaginary axis
-    (no damping: Q is infinite, and JSON has no infinity); ``zeta`` = −Re s/|s| = 1/(2Q) for a
-    complex root (0 on the axis), ``None`` for a real root.
+    for a right-half-plane pair) and ``zeta`` = −Re s/|s| = 1/(2Q). A real root gets ``q`` and
+    ``zeta`` null with ``q_why``/``zeta_why`` saying why (Q describes a complex pair); a root on
+    the imaginary axis gets ``q`` null (infinite) with its reason and ``zeta`` 0.
+    ``half_plane`` is ``"left"``, ``"right"`` or ``"axis"``; a right-half-plane root has a
+    plain-words ``note`` saying what it is (``kind`` is ``"pole"`` or ``"zero"``).
 
     References
     ----------
     Standard second-order section s² + (ω0/Q)·s + ω0², e.g. Ogata, *Modern Control Engineering*,
-    ch. 5.
+    ch. 5; non-minimum-phase zeros: same, ch. 7.
     """
-    rows: list[dict[str, float | None]] = []
+    rows: list[dict[str, Any]] = []
     for root in roots:
         magnitude = abs(root)
-        q: float | None = None
-        zeta: float | None = None
-        if root.imag != 0.0:
-            zeta = float(-root.real / magnitude) if root.real != 0.0 else 0.0
-            if root.real != 0.0:
-                q = float(magnitude / (-2.0 * root.real))
-        rows.append({"re": float(root.real), "im": float(root.imag),
-                     "f_hz": float(magnitude / TWO_PI), "q": q, "zeta": zeta})
+        row: dict[str, Any] = {"re": float(root.real), "im": float(root.imag), "f_hz": float(magnitude / TWO_PI)}
+        if root.imag != 0.0 and root.real != 0.0:
+            row["q"] = float(magnitude / (-2.0 * root.real))
+            row["zeta"] = float(-root.real / magnitude)
+        elif root.imag != 0.0:
+            row["q"], row["q_why"], row["zeta"] = None, AXIS_ROOT_WHY, 0.0
+        else:
+            row["q"], row["q_why"], row["zeta"], row["zeta_why"] = None, REAL_ROOT_WHY, None, REAL_ROOT_WHY
+        row["half_plane"] = "right" if root.real > 0 else "left" if root.real < 0 else "axis"
+        if root.real > 0:
+            row["note"] = RIGHT_HALF_PLANE_NOTES.get(kind, RIGHT_HALF_PLANE_NOTES["pole"])
+        rows.append(row)
     return rows
 
 

@@ -711,8 +711,14 @@ def _roots_rows(roots: Sequence[dict[str, Any]]) -> list[list[str]]:
     rows = []
     for root in roots:
         q = root.get("q")
+        if q is None:
+            q_text = "∞ (undamped)" if root.get("half_plane") == "axis" and root.get("im") else "real: no Q"
+        else:
+            q_text = f"{q:.4g}"
+        if root.get("half_plane") == "right":
+            q_text += " (right half-plane)"
         rows.append([f"{root.get('re', 0.0):.5g}", f"{root.get('im', 0.0):.5g}", _text(root.get("f_hz"), "Hz"),
-                     DASH if q is None else f"{q:.4g}"])
+                     q_text])
     return rows
 
 
@@ -730,6 +736,9 @@ def _poles_zeros(entry: dict[str, Any] | None, content: PacketContent) -> list[B
     blocks.append(Table(columns, _roots_rows(poles)) if poles else Paragraph("none", 11.5))
     blocks.append(_label(f"Zeros ({len(zeros)})"))
     blocks.append(Table(columns, _roots_rows(zeros)) if zeros else Paragraph("none (no finite zeros)", 11.5))
+    notes = dict.fromkeys(str(root["note"]) for root in [*poles, *zeros] if isinstance(root, dict) and root.get("note"))
+    for note in notes:
+        blocks.append(Paragraph(note[0].upper() + note[1:] + ".", 10.5))
     if poles or zeros:
         pole_values = [complex(p.get("re", 0.0), p.get("im", 0.0)) for p in poles]
         zero_values = [complex(z.get("re", 0.0), z.get("im", 0.0)) for z in zeros]
@@ -805,7 +814,11 @@ def _stage_metrics(entry: dict[str, Any] | None, content: PacketContent) -> list
             blocks.append(_unavailable(f"{label}: {entry.get(f'{key}_why') or 'no figures'}."))
     documents = [isolated, in_chain, from_input]
     rows = _metrics_rows(documents) if any(document is not None for document in documents) else []
-    rows.append(["Largest loading error", DASH, _value_or_why(entry, "loading_error_db_max", "dB"), DASH])
+    signed, at_hz = entry.get("loading_error_db"), entry.get("loading_error_f_hz")
+    loading = (f"{signed:+.3g} dB at {format_value(at_hz, 'Hz', 3)}"
+               if isinstance(signed, int | float) and isinstance(at_hz, int | float)
+               else _value_or_why(entry, "loading_error_db", "dB"))
+    rows.append(["Loading error (in chain − isolated, largest)", DASH, loading, DASH])
     rows.append(["Input impedance at the reference frequency", DASH, _value_or_why(entry, "zin_ohm_at_ref", "Ω"),
                  DASH])
     rows.append(["Output impedance at the reference frequency", DASH,

@@ -107,6 +107,10 @@ _TABLE: Final[tuple[Metric, ...]] = (
     Metric("loading_error_db_max", "Largest loading error", "dB", "unused", ("in_chain",),
            "Largest difference over the band between the stage's gain in chain and isolated.",
            "the same stage isolated (in chain minus isolated)"),
+    Metric("loading_error_db", "Loading error (signed)", "dB", "unused", ("in_chain",),
+           "In chain minus isolated gain at the frequency where they differ most; negative when the next stage "
+           "pulls the gain down (analyze --json gives the frequency as loading_error_f_hz).",
+           "the same stage isolated (in chain minus isolated)"),
     Metric("zin_ohm", "Input impedance", "Ω", "reference", _STAGE,
            "Magnitude of the impedance seen into the stage's input (in chain: into the rest of the chain)."),
     Metric("zout_ohm", "Output impedance", "Ω", "reference", _STAGE,
