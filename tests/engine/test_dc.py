@@ -310,3 +310,4 @@ def test_an_op_amp_without_dc_feedback_has_no_finite_gain_term() -> None:
     result = budget(project)
     assert not [item for item in result.contributions if item.kind == "finite_gain"]
     assert any("no DC feedback" in note for note in result.notes)
+    assert result.gain_ideal is None and "no DC solution" in result.why["gain_ideal"]

@@ -554,6 +554,9 @@ def _budget(place: _Place, solved: _Solved, collector: _Collector, project: Proj
         if ideal is not None and _gain(ideal, place) != 0:
             gain_ideal = _gain(ideal, place)
             finite_total = gain / gain_ideal - 1.0
+        else:
+            why["gain_ideal"] = ("with every op-amp here of infinite gain the circuit has no DC solution (an op-amp "
+                                 "without DC feedback), so there is no ideal gain to compare with")
     elif gain_defined:
         gain_ideal = gain
     # Largest first; terms without a value in volts after, by their gain error.
