@@ -216,3 +216,14 @@ def test_dc_only_keys_and_check_limits_leave_a_measurement_current() -> None:
     assert measurement_fingerprint(project, "isolated", "rc") == before
     project.stages[0].parts[0].value = type(project.stages[0].parts[0].value).of("22k1")  # type: ignore[union-attr]
     assert measurement_fingerprint(project, "isolated", "rc") != before
+
+
+def test_without_tolerances_there_is_no_spread_to_be_inside() -> None:
+    # Common practice, no source: a share of points inside a spread needs a spread; none is made up.
+    document = copy.deepcopy(DOCUMENT)
+    for part in document["stages"][0]["parts"]:
+        part.pop("tol")
+    project = loads_project(json.dumps(document), "no tolerances")
+    comparison = compare_measurement(project, _attach(project, F_HZ, _lowpass(F_HZ, R_OHM * C_F)))
+    assert comparison.dev_db_max is not None and comparison.dev_db_max < 1e-9
+    assert comparison.inside_spread_pct is None and "no part" in comparison.why["inside_spread_pct"]

@@ -13,8 +13,8 @@ measurement): the prediction is solved exactly there, for the place it was taken
   frequencies; each sample's ratio to the nominal gives an envelope of relative magnitude (dB)
   and relative phase (degrees). A measured point lies *inside the spread* when both its
   ``dev_db`` and its ``dev_deg`` lie within that envelope (bounds included);
-  ``inside_spread_pct`` is the share of such points. With no toleranced part the envelope is the
-  nominal itself and only an exact match is inside.
+  ``inside_spread_pct`` is the share of such points. With no toleranced part there is no spread:
+  the share is null, with that reason.
 - A step capture is measured by :func:`stagewise.engine.timeresp.step_metrics`, the code of the
   predicted step: time zero is the input edge (the trigger; samples before it give the baseline,
   else the first sample does), the final value is the mean of the last tenth of the capture, and
@@ -184,8 +184,8 @@ def compare_measurement(project: Project, measurement: Measurement,
             envelope_db = (relative_db.min(axis=0), relative_db.max(axis=0))
             envelope_deg = (relative_deg.min(axis=0), relative_deg.max(axis=0))
     else:
-        zero = np.zeros(f_hz.size)
-        envelope_db = envelope_deg = (zero, zero)
+        why["inside_spread_pct"] = ("no part at this place has a tolerance, so the prediction has no spread for "
+                                    "the measurement to lie inside")
     if envelope_db is not None and envelope_deg is not None:
         inside = ((dev_db >= envelope_db[0]) & (dev_db <= envelope_db[1])
                   & (dev_deg >= envelope_deg[0]) & (dev_deg <= envelope_deg[1]))
