@@ -327,8 +327,9 @@ class Document(QObject):
             self._project.audit = merged.audit
             self.auditRecorded.emit()
             return
-        path, modified = self._path, True
-        self.replace_project(merged, path, modified=modified)
+        selected = self._current_stage_id
+        self.replace_project(merged, self._path, modified=True)
+        self.set_current_stage(selected)  # the user's selection stays where it was
 
     def set_baseline(self, project: Project | None, path: str | Path | None = None) -> None:
         self._baseline = project
