@@ -64,3 +64,35 @@ def test_packet_refuses_the_project_by_another_name(tmp_path: Path, capsys: pyte
         assert status == 2 and "is the project file" in _one_sentence(capsys.readouterr().err)
     assert project.read_bytes() == before
     json.loads(before)
+
+
+@pytest.mark.parametrize("kind", ["device", "fifo"])
+def test_a_non_regular_cards_file_is_refused_before_reading_and_without_the_lock(
+        tmp_path: Path, kind: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # Common practice, no source: /dev/zero gives bytes without end and a FIFO with no writer
+    # blocks its reader forever; neither is a file to import.
+    import os
+
+    from stagewise.files.lock import lock_path
+
+    project = tmp_path / "greenhouse.stagewise.json"
+    shutil.copyfile(DEMO, project)
+    if kind == "device":
+        cards = Path("/dev/zero")
+    else:
+        cards = tmp_path / "cards.fifo"
+        os.mkfifo(cards)
+    before = project.read_bytes()
+    status = main(["import-cards", str(project), str(cards), "--name", "From a pipe"])
+    err = _one_sentence(capsys.readouterr().err)
+    assert status == 2 and "not a regular file" in err
+    assert project.read_bytes() == before and not lock_path(project).exists()
+
+
+def test_a_fifo_as_project_file_is_refused(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    import os
+
+    fifo = tmp_path / "pipe.stagewise.json"
+    os.mkfifo(fifo)
+    status = main(["check", str(fifo)])
+    assert status == 2 and "not a regular file" in _one_sentence(capsys.readouterr().err)

@@ -66,7 +66,13 @@ def _font(size_px: int, bold: bool, italic: bool, mono: bool) -> QFont:
 
 
 def wrap_text(text: str, metrics: QFontMetricsF, width: float) -> list[str]:
-    """Greedy word wrap to ``width``; words longer than a line are cut between characters."""
+    """Greedy word wrap to ``width``; words longer than a line are cut between characters.
+
+    Linear in the length of the text: a word too long for a line is cut by measuring only
+    prefixes up to about twice what a line holds (:func:`_fitting_prefix`), never the whole
+    remaining word, so a 100,000-character word (a pasted hash dump) costs no more than the same
+    text in words.
+    """
     lines: list[str] = []
     for paragraph in text.split("\n"):
         current = ""
@@ -78,15 +84,39 @@ def wrap_text(text: str, metrics: QFontMetricsF, width: float) -> list[str]:
             if current:
                 lines.append(current)
             # A word wider than the line (a hash, a long formula): cut it.
-            while metrics.horizontalAdvance(word) > width and len(word) > 1:
-                cut = len(word)
-                while cut > 1 and metrics.horizontalAdvance(word[:cut]) > width:
-                    cut -= 1
+            while len(word) > 1:
+                cut = _fitting_prefix(word, metrics, width)
+                if cut >= len(word):
+                    break
                 lines.append(word[:cut])
                 word = word[cut:]
             current = word
         lines.append(current)
     return lines
+
+
+def _fitting_prefix(word: str, metrics: QFontMetricsF, width: float) -> int:
+    """The length of the longest prefix of ``word`` no wider than ``width`` (at least 1).
+
+    Galloping then bisection: the prefixes measured are at most twice the answer long, so the
+    cost is O(answer · log answer) whatever the length of ``word``.
+    """
+    fits, reach = 1, 1
+    while reach < len(word) and metrics.horizontalAdvance(word[: reach * 2]) <= width:
+        reach *= 2
+        fits = reach
+    if reach >= len(word):
+        return len(word)
+    low, high = fits, min(reach * 2, len(word))  # prefix[:low] fits (or low is 1), prefix[:high] does not
+    if fits == 1 and metrics.horizontalAdvance(word[:1]) > width:
+        return 1
+    while high - low > 1:
+        middle = (low + high) // 2
+        if metrics.horizontalAdvance(word[:middle]) <= width:
+            low = middle
+        else:
+            high = middle
+    return low
 
 
 class Block:
