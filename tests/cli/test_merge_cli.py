@@ -45,6 +45,8 @@ def test_merge_writes_a_verified_file_exit_0(tmp_path: Path, capsys: pytest.Capt
     assert verify_trail(merged.audit).intact and check_records(merged).problems == ()
     assert merged.audit[-1].what == MERGE_EVENT and merged.audit[-1].who == "Cy"
     assert "Merged into" in capsys.readouterr().out
+    assert main(["verify", str(out)]) == 0
+    assert "1 merge of two branches each checked" in capsys.readouterr().out
 
 
 def test_conflict_exit_1_lists_path_and_both_values_and_writes_nothing(

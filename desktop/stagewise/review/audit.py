@@ -172,12 +172,15 @@ class VerifyResult:
     broken_index: int | None = None
     broken_seq: int | None = None
     why: str | None = None
+    merges: int = 0
 
     def sentence(self) -> str:
         """One sentence for people: the verdict and, when broken, where and why."""
         if self.intact:
             noun = "event" if self.events == 1 else "events"
-            return f"audit trail intact: {self.events} {noun}, every hash and link recomputed"
+            joined = (f", {self.merges} merge{'s' if self.merges != 1 else ''} of two branches each checked"
+                      if self.merges else "")
+            return f"audit trail intact: {self.events} {noun}, every hash and link recomputed{joined}"
         position = (self.broken_index or 0) + 1
         return (f"audit trail broken at event {position} of {self.events} (seq {self.broken_seq}): "
                 f"{self.why}")
@@ -244,7 +247,7 @@ def verify_trail(events: Sequence[AuditEvent]) -> VerifyResult:
         return VerifyResult(False, len(events), start, event.seq,
                             "it starts a second branch from an earlier event, and no merge event names the "
                             "branches' heads: the chain was cut or re-linked here")
-    return VerifyResult(True, len(events))
+    return VerifyResult(True, len(events), merges=sum(1 for event in events if event.what == MERGE_EVENT))
 
 
 def _merge_problem(event: AuditEvent, last_hash: str, seq_of: dict[str, int],
