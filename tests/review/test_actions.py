@@ -118,3 +118,23 @@ def test_waive_answer_comment_resolve_packet_are_all_recorded() -> None:
         "waiver", "waiver", "waiver withdrawn", "answer", "comment", "comment resolved", "packet"]
     assert [event.seq for event in project.audit] == list(range(1, 8))
     assert verify_trail(project.audit).intact
+
+
+def test_undoing_the_edit_a_fresh_signoff_was_given_to_brings_back_the_older_matching_one() -> None:
+    # Common practice, no source: a sign-off holds for the design it was given to; when the design
+    # returns to that state, the sign-off holds again.
+    project = base_project()
+    actions.sign(project, "rc", "Ana Ruiz", "analog lead", "accept", time=T)
+    stage = project.stage("rc")
+    assert stage is not None
+    part = stage.part("R1")
+    assert part is not None
+    original = part.value
+    part.value = Quantity.of("2k2")  # an edit
+    actions.sign(project, "rc", "Ana Ruiz", "analog lead", "rework", "the new value is too high", time=T)
+    state = signoff_state(project, "rc")
+    assert state.state is SignoffState.REWORK and [view.replaced for view in state.signoffs] == [True, False]
+    part.value = original  # the edit undone
+    state = signoff_state(project, "rc")
+    assert state.state is SignoffState.ACCEPTED
+    assert [(view.out_of_date, view.replaced) for view in state.signoffs] == [(False, False), (True, True)]

@@ -1,9 +1,11 @@
 """Sign-off states: which sign-offs still hold, which are out of date, and each stage's overall state.
 
 A sign-off stores the stage fingerprint it saw (:func:`stagewise.model.fingerprint.stage_fingerprint`);
-it is **out of date** as soon as the stage's current fingerprint differs. A sign-off followed by a
-later one of the same reviewer on the same stage is **replaced**. A stage's state looks at each
-reviewer's latest sign-off that is still current: any returning it for rework makes the stage
+it is **out of date** as soon as the stage's current fingerprint differs. Each reviewer is
+represented by one sign-off, their latest given to the current design (else their latest); their
+other sign-offs are **replaced** (normally by a later one; after an undo restores an earlier
+design, by the earlier sign-off that matches it). A stage's state looks at each reviewer's
+representing sign-off that is current: any returning it for rework makes the stage
 ``returned for rework``; otherwise any acceptance makes it ``accepted``; sign-offs that are all out
 of date make it ``out of date``; none at all is ``not signed``. A sign-off that no audit event
 accounts for (written or edited outside the program, :func:`stagewise.review.audit.check_records`)
@@ -29,8 +31,8 @@ __all__ = ["SignoffView", "StageSignoffs", "is_out_of_date", "last_changed_by", 
 @dataclass(frozen=True, slots=True)
 class SignoffView:
     """One recorded sign-off with its position in ``stage.signoffs``, whether it is out of date
-    (given to an earlier design of the stage) and whether it is replaced (the same reviewer
-    signed the stage again later)."""
+    (given to an earlier design of the stage) and whether it is replaced (another sign-off of the
+    same reviewer stands for them: a later one, or the one given to the current design)."""
 
     index: int
     signoff: Signoff
@@ -61,7 +63,8 @@ class SignoffView:
 class StageSignoffs:
     """A stage's sign-off state, its current fingerprint and every sign-off with its standing.
 
-    ``replaced`` sign-offs are earlier sign-offs of a reviewer who signed again later; they
+    ``replaced`` sign-offs are those of a reviewer another of their sign-offs stands for (a later
+    one, or the one given to the current design); they
     stay in the record and do not count towards the state.
     """
 
@@ -104,11 +107,18 @@ def last_changed_by(project: Project) -> dict[str, str]:
 def _state_of(stage: Stage, project: Project, records: RecordsCheck, changers: dict[str, str]) -> StageSignoffs:
     current = stage_fingerprint(stage, project)
     unrecorded = {index for index in range(len(stage.signoffs)) if records.is_unrecorded("signoff", stage.id, index)}
+    # Each reviewer is represented by one sign-off: their latest given to the design as it is now,
+    # else their latest. So undoing the edit a fresh sign-off was given to brings back the older
+    # sign-off that matches the restored design.
     latest_by_reviewer: dict[str, int] = {}
+    latest_current_by_reviewer: dict[str, int] = {}
     for index, signoff in enumerate(stage.signoffs):
         if index not in unrecorded:  # a record written outside the program replaces nothing
-            latest_by_reviewer[signoff.name.strip().casefold()] = index
-    latest = set(latest_by_reviewer.values())
+            reviewer = signoff.name.strip().casefold()
+            latest_by_reviewer[reviewer] = index
+            if signoff.fingerprint == current:
+                latest_current_by_reviewer[reviewer] = index
+    latest = {latest_current_by_reviewer.get(reviewer, index) for reviewer, index in latest_by_reviewer.items()}
     changer = changers.get(stage.id, "").strip().casefold() if project.settings.four_eyes else ""
 
     def breaks(signoff: Signoff) -> bool:

@@ -210,9 +210,12 @@ def _step(analysis: Any) -> StepTrace:
         words.append(f"rise {format_value(step.rise_s, 's')}")
     if step.overshoot_pct is not None:
         words.append(f"overshoot {step.overshoot_pct:.3g} %")
-    settle = getattr(step, "settle_1pct_s", None)
-    if settle is not None:
-        words.append(f"settles to 1 % in {format_value(settle, 's')}")
+    # Both settling bands, named, so the summary reads the same figure a check on either takes.
+    bands = [(band, getattr(step, name, None)) for band, name in (("1 %", "settle_1pct_s"),
+                                                                  ("0.1 %", "settle_0p1pct_s"))]
+    settled = [f"within {band} in {format_value(value, 's')}" for band, value in bands if value is not None]
+    if settled:
+        words.append("settles " + " and ".join(settled))
     return StepTrace(step.t_s, step.y, step.final, ", ".join(words))
 
 
@@ -345,6 +348,7 @@ def in_chain_poles(stage: Stage, project: Project, context: Context) -> RootSet:
 def stage_review(stage: Stage, project: Project, context: Context) -> ReviewSummary:
     """Evaluate the stage's checks against the analysis of this snapshot."""
     from stagewise.review.checks import automatic_findings, evaluate_stage, totals
+    from stagewise.review.words import CheckState
 
     provider = _metric_provider(project, context)
     results = tuple(evaluate_stage(stage, project, provider))
@@ -355,9 +359,12 @@ def stage_review(stage: Stage, project: Project, context: Context) -> ReviewSumm
     if not results:
         return ReviewSummary(results, states, "no checks" + found, "This stage has no checks" + found + ".",
                              findings)
-    passing = sum(1 for result in results if result.passing)
-    return ReviewSummary(results, states, f"{passing}/{len(results)} pass{found}", counts.sentence() + found,
-                         findings)
+    # A waived check is not met: the short count names it apart (and so does a not-applicable one).
+    apart = "".join(f", {number} {word}" for number, word in ((counts.waived, CheckState.WAIVED),
+                                                             (counts.not_applicable, CheckState.NOT_APPLICABLE))
+                    if number)
+    return ReviewSummary(results, states, f"{counts.met}/{len(results)} {CheckState.MET}{apart}{found}",
+                         counts.sentence() + found, findings)
 
 
 STAGE_ANALYSES: list[tuple[str, int, Any]] = [

@@ -112,7 +112,10 @@ class SignoffDialog(_Form):
                 "verdict": str(self.verdict.currentData()), "note": self.note.toPlainText().strip()}
 
 
-def _check_combo(checks: list[Check], selected: str, manual_only: bool = False) -> QComboBox:
+def _check_combo(checks: list[Check], selected: str, manual_only: bool = False,
+                 choose: str = "") -> QComboBox:
+    """The checks to choose from, ``selected`` chosen; with ``choose`` (a placeholder), nothing is
+    chosen unless ``selected`` names a check, so the user picks one."""
     combo = QComboBox()
     for check in checks:
         if manual_only and not check.is_manual:
@@ -121,6 +124,9 @@ def _check_combo(checks: list[Check], selected: str, manual_only: bool = False) 
     index = combo.findData(selected)
     if index >= 0:
         combo.setCurrentIndex(index)
+    elif choose:
+        combo.setPlaceholderText(choose)
+        combo.setCurrentIndex(-1)
     return combo
 
 
@@ -132,7 +138,9 @@ class WaiverDialog(_Form):
         super().__init__("Waive a check",
                          "A waived check counts as waived, never as met. The justification is "
                          "required and recorded in the audit trail.", parent)
-        self.check = _check_combo(checks, selected)
+        # Nothing is chosen for the user unless the caller names a check (one that does not pass):
+        # a met check is never offered as the one to waive.
+        self.check = _check_combo(checks, selected, choose="Choose the check to waive")
         self.name = QLineEdit(name)
         self.role = QLineEdit(role)
         self.justification = QPlainTextEdit()
@@ -141,12 +149,13 @@ class WaiverDialog(_Form):
         self.form.addRow("Name", self.name)
         self.form.addRow("Role", self.role)
         self.form.addRow("Justification", self.justification)
-        for signal in (self.name.textChanged, self.justification.textChanged):
+        for signal in (self.name.textChanged, self.justification.textChanged, self.check.currentIndexChanged):
             signal.connect(self.update_ok)
         self.update_ok()
 
     def complete(self) -> bool:
-        return bool(self.check.count() and self.name.text().strip() and self.justification.toPlainText().strip())
+        return bool(self.check.currentIndex() >= 0 and self.name.text().strip()
+                    and self.justification.toPlainText().strip())
 
     def values(self) -> dict[str, str]:
         return {"check_id": str(self.check.currentData()), "by": self.name.text().strip(),

@@ -749,12 +749,23 @@ class MainWindow(QMainWindow):
             self.show_message("This stage has no checks to waive.")
             return
         name, role = reviewer_identity()
-        dialog = WaiverDialog(stage.checks, check_id, name, role, self)
+        dialog = WaiverDialog(stage.checks, check_id or self._first_failing_check(stage.id), name, role, self)
         if dialog.exec() != WaiverDialog.DialogCode.Accepted:
             return
         values = dialog.values()
         remember_reviewer(values["by"], values["role"])
         self._run_review(lambda: self.review_panel.waive(**values))
+
+    def _first_failing_check(self, stage_id: str) -> str:
+        """The first check of the stage that does not pass (not met, no value, open), or ""."""
+        from stagewise.review.words import CheckState
+
+        latest = self.worker.latest
+        review = latest.of_stage(stage_id, "review") if latest is not None else None
+        if review is None or not review.ok:
+            return ""
+        failing = {str(CheckState.NOT_MET), str(CheckState.NO_VALUE), str(CheckState.OPEN)}
+        return next((check_id for check_id, state in review.value.check_states.items() if state in failing), "")
 
     def answer_dialog(self, check_id: str) -> None:
         from stagewise.ui.dialogs import AnswerDialog
