@@ -13,6 +13,9 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+from PySide6.QtWidgets import QMessageBox
+
 from conftest import make_window
 from stagewise.files.lock import inspect_lock
 from stagewise.files.project_file import load_project, save_project
@@ -97,5 +100,30 @@ def test_the_review_panel_shows_a_pasted_signoff_as_unrecorded(qtbot, sample_pat
         shown = panel.signoffs.item(0).text()
         assert shown.startswith(str(SignoffState.UNRECORDED)) and "no audit event holds this record" in shown
         assert str(SignoffState.ACCEPTED) not in panel.state.text()
+    finally:
+        window.shutdown()
+
+
+def test_declining_the_conflict_question_writes_nothing(qtbot, sample_path: Path,  # type: ignore[no-untyped-def]
+                                                        monkeypatch: pytest.MonkeyPatch) -> None:
+    asked: list[str] = []
+
+    def decline(_parent: object, _title: str, text: str, *_args: object) -> QMessageBox.StandardButton:
+        asked.append(text)
+        return QMessageBox.StandardButton.Cancel
+
+    monkeypatch.setattr(QMessageBox, "question", decline)
+    window = make_window(qtbot, sample_path, interactive=True)
+    try:
+        outside = load_project(sample_path)
+        outside.stage("rc").part("R1").value = Quantity.of("10k")  # type: ignore[union-attr]
+        save_project(sample_path, outside)
+        on_disk = sample_path.read_bytes()
+        window.document.set_part_field("rc", "R1", "value", "4k7")
+        assert not window.save_to(sample_path)
+        assert asked and ".value" in asked[0] and '"10k"' in asked[0] and '"4k7"' in asked[0]
+        assert sample_path.read_bytes() == on_disk
+        assert not list(sample_path.parent.glob("sample.outside-*"))
+        assert window.document.is_modified  # the edit is still there, unsaved
     finally:
         window.shutdown()
