@@ -311,3 +311,26 @@ def test_an_op_amp_without_dc_feedback_has_no_finite_gain_term() -> None:
     assert not [item for item in result.contributions if item.kind == "finite_gain"]
     assert any("no DC feedback" in note for note in result.notes)
     assert result.gain_ideal is None and "no DC solution" in result.why["gain_ideal"]
+
+
+def test_from_input_adds_the_upstream_offsets_through_the_gains_after_them() -> None:
+    rf2, rg2 = 33e3, 10e3
+    stage_two = [
+        {"ref": "Rg", "type": "R", "nodes": ["n", "0"], "value": rg2},
+        {"ref": "Rf", "type": "R", "nodes": ["n", "out"], "value": rf2},
+        {"ref": "U1", "type": "opamp", "nodes": ["in", "n", "out"], "model": "vos_only"},
+    ]
+    stages = [{"id": "a", "name": "first", "ports": {"in": "in", "out": "out"}, "parts": non_inverting()},
+              {"id": "b", "name": "second", "ports": {"in": "in", "out": "out"}, "parts": stage_two}]
+    models = {"op": model(vos_v=VOS, ib_a=IB, ios_a=IOS), "vos_only": model(vos_v=0.5e-3)}
+    project = make_project([], models=models, stages=stages)
+    budgets = dc_budgets(project)
+    second_from_input, second_in_chain = budgets.from_input["b"], budgets.in_chain["b"]
+    assert isinstance(second_from_input, DcBudget) and isinstance(second_in_chain, DcBudget)
+    gain_two = 1 + rf2 / rg2
+    # Source: S. Franco, 3rd ed., sec. 5.1 (value from memory): each stage's input offset is multiplied
+    # by its own noise gain and then by the gain of every stage after it.
+    first_vos = next(item for item in second_from_input.contributions if item.stage_id == "a" and item.kind == "vos")
+    assert first_vos.out_v == pytest.approx(VOS * (1 + RF / RG) * gain_two, rel=1e-9)
+    assert [item.stage_id for item in second_in_chain.contributions if item.kind == "vos"] == ["b"]
+    assert by_kind(second_in_chain, "vos").out_v == pytest.approx(0.5e-3 * gain_two, rel=1e-9)

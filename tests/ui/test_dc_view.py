@@ -45,5 +45,9 @@ def test_dc_view_lists_the_budget_largest_first_with_units(qtbot, tmp_path: Path
         # Source: Franco, 3rd ed., sec. 5.1-5.2 (value from memory): Vos·(1 + R2/R1) = 0.8 mV × 3.
         assert abs(float(rows["U1 Vos"]) - 2.4) < 1e-3
         assert "the output of gain, in chain" in view.summary.text()
+        # Every stage up to the gain stage: the photodiode's and the transimpedance stage's terms appear too.
+        view.place.setCurrentIndex(2)
+        stages = {table.item(row, 1).text() for row in range(table.rowCount())}
+        assert stages == {"diode", "tia", "gain"}
     finally:
         window.shutdown()

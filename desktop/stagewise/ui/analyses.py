@@ -545,6 +545,7 @@ def chain_dc(project: Project, context: Context) -> DcTrace:
     places[("chain", "")] = _dc_place(document, why, "the converter input")
     for stage in project.stages:
         for where, words in (("in_chain", f"the output of {stage.id}, in chain"),
+                             ("from_input", f"the output of {stage.id}, every stage up to it"),
                              ("isolated", f"the output of {stage.id}, alone")):
             document, why = analysis.dc_document(where, stage.id)
             places[(where, stage.id)] = _dc_place(document, why, words)

@@ -26,8 +26,10 @@ __all__ = ["DcView", "table_headers"]
 
 BARS_SHOWN = 12
 # The place selector: its words and the (where, stage?) it picks.
-PLACES = (("At the converter input (whole chain)", "chain"), ("At the selected stage's output, in chain", "in_chain"),
-          ("At the selected stage's output, alone", "isolated"))
+PLACES = (("At the converter input (whole chain)", "chain"),
+          ("At the selected stage's output: its own errors, in chain", "in_chain"),
+          ("At the selected stage's output: every stage up to it", "from_input"),
+          ("At the selected stage's output: the stage alone", "isolated"))
 
 
 def table_headers(unit: str, where: str = "chain") -> list[str]:
