@@ -48,6 +48,13 @@ def test_each_measurement_has_its_section_with_sha256_checks_and_staleness(tmp_p
         f"{float(f)!r},{float(20 * np.log10(abs(v)))!r},{float(np.degrees(np.angle(v)))!r}"
         for f, v in zip(F_HZ, rc, strict=True)) + "\n", encoding="utf-8")
     assert main(["measure", str(path), str(rc_file), "--stage", "rc", "--by", "Bench Person"]) == 0
+    tau = 3.3e3 * 6.8e-9  # the sample's rc stage
+    t_s = np.linspace(-tau, 12 * tau, 3001)
+    capture = tmp_path / "rc step.csv"
+    capture.write_text("Time (s),CH1 (V)\n" + "\n".join(
+        f"{float(t)!r},{float(0.5 * (1 - np.exp(-t / tau)) if t >= 0 else 0.0)!r}" for t in t_s) + "\n",
+        encoding="utf-8")
+    assert main(["measure", str(path), str(capture), "--stage", "rc", "--by", "Bench Person"]) == 0
     # The amplifier changes after the board was measured: the chain measurement is out of date,
     # the filter's (isolated) is not.
     changed = load_project(path)
@@ -69,5 +76,10 @@ def test_each_measurement_has_its_section_with_sha256_checks_and_staleness(tmp_p
     # gives no value; the filter equals its prediction (deviation below 1e-9 dB), so it is met.
     assert re.search(r"adc/bench .* no value .*out of date", chain_part), chain_part
     assert re.search(r"rc/bench .* met", rc_part), rc_part
+    # The step capture beside the predicted step, both measured by the same code.
+    # Source: first-order step, 10–90 % rise time ln(9)·RC ≈ 49.3 µs here (any control text).
+    step_part = section[section.index("Measurement rc-step:"):]
+    assert "predicted (per unit step)" in step_part
+    assert re.search(r"Rise time \(10–90 %\) 49\.[23] ?µs 49\.[23] ?µs", step_part), step_part[:1500]
     document = json.loads(path.read_text(encoding="utf-8"))
-    assert [item["id"] for item in document["measurements"]] == ["board-chain", "rc"]
+    assert [item["id"] for item in document["measurements"]] == ["board-chain", "rc", "rc-step"]

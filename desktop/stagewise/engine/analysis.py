@@ -667,6 +667,23 @@ class ProjectAnalysis:
 
         return [compare_measurement(self.project, item, self.engine) for item in self.project.measurements]
 
+    def _measurement_document(self, comparison: Any, entry: dict[str, Any]) -> dict[str, Any]:
+        """A step capture's entry gains the predicted step at the same place, measured by the same code."""
+        measurement = comparison.measurement
+        if measurement.kind != "step":
+            return entry
+        analysis = self._analysis_for(measurement.where, measurement.stage or "")
+        if isinstance(analysis, _Failure):
+            entry["predicted_step"] = None
+            entry["predicted_step_why"] = analysis.why
+            return entry
+        where = measurement.where
+        step = self._metrics_document(where, measurement.stage or "", analysis).get("step")
+        entry["predicted_step"] = step if isinstance(step, dict) else None
+        if not isinstance(step, dict):
+            entry["predicted_step_why"] = "the predicted step response could not be computed"
+        return entry
+
     def _measured_value(self, metric: str, where: str, stage_id: str) -> tuple[float | None, str | None]:
         place = "the whole chain" if where == "chain" else f'stage "{stage_id}" {where.replace("_", " ")}'
         found = [item for item in self.measurements
@@ -878,7 +895,8 @@ class ProjectAnalysis:
             document["chain"] = chain
         from stagewise.engine.measured import comparison_to_json  # noqa: PLC0415
 
-        document["measurements"] = [comparison_to_json(item) for item in self.measurements]
+        document["measurements"] = [self._measurement_document(item, comparison_to_json(item))
+                                    for item in self.measurements]
         ready: dict[str, Any] = _json_ready(document)
         return ready
 

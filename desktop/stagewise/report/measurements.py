@@ -157,12 +157,23 @@ def _one(comparison: Any, index: int, content: PacketContent, results: Sequence[
         if step is None:
             blocks.append(Paragraph(f"Step metrics: {comparison.why.get('step', 'not measurable')}.", 11.0))
         else:
-            blocks.append(Table([Column("step metric"), Column("measured", "right")], [
-                ["Rise time (10–90 %)", _number(step.rise_s, "s")],
-                ["Overshoot", _number(step.overshoot_pct, "%")],
-                ["Settling time (1 %)", _number(step.settle_1pct_s, "s")],
-                ["Final value", _number(step.final, "V")],
+            entries = (content.analysis or {}).get("measurements") or []
+            entry = next((item for item in entries if item.get("id") == measurement.id), {})
+            predicted = entry.get("predicted_step") or {}
+
+            def predicted_text(key: str, unit: str) -> str:
+                value = predicted.get(key)
+                return _number(value, unit) if value is not None else DASH
+
+            blocks.append(Table([Column("step metric"), Column("measured", "right"),
+                                 Column("predicted (per unit step)", "right")], [
+                ["Rise time (10–90 %)", _number(step.rise_s, "s"), predicted_text("rise_s", "s")],
+                ["Overshoot", _number(step.overshoot_pct, "%"), predicted_text("overshoot_pct", "%")],
+                ["Settling time (1 %)", _number(step.settle_1pct_s, "s"), predicted_text("settle_1pct_s", "s")],
+                ["Final value", _number(step.final, "V"), predicted_text("final", "")],
             ], size_px=10.5))
+            if not predicted:
+                blocks.append(_unavailable_text(f"Predicted step: {entry.get('predicted_step_why') or 'not available'}."))
     checks = _checks_at(measurement, content, results)
     if checks:
         rows_checks = [[f"{result.stage_id}/{result.check_id}", METRICS[result.metric or ""].label, result.limits or DASH,
@@ -175,6 +186,10 @@ def _one(comparison: Any, index: int, content: PacketContent, results: Sequence[
         blocks.append(Paragraph("No check names a measured metric at this place.", 10.5, italic=True,
                                 color=QColor(MUTED)))
     return blocks
+
+
+def _unavailable_text(text: str) -> Paragraph:
+    return Paragraph(text, 10.5, italic=True, color=QColor(MUTED))
 
 
 def measurement_blocks(content: PacketContent, results: Sequence[CheckResult]) -> list[Block]:
