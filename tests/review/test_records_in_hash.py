@@ -176,3 +176,20 @@ def test_check_and_states_show_a_signoff_without_its_event_as_unrecorded(
     assert f"gain {SignoffState.UNRECORDED}" in out
     assert f"gain {SignoffState.ACCEPTED}" not in out
     assert load_project(path).stage("gain") is not None
+
+
+def test_check_fails_over_a_record_removed_from_the_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # Regression: with the "returned for rework" sign-off deleted, check showed the stage as
+    # "not signed" and said nothing else.
+    document = _demo_document()
+    _stage(document, "sensor")["signoffs"].clear()
+    path = tmp_path / "edited.stagewise.json"
+    path.write_text(json.dumps(document, indent=2, ensure_ascii=False), encoding="utf-8")
+    status = main(["check", str(path)])
+    out = capsys.readouterr().out
+    assert status == 1
+    assert ("review record does not match the audit trail: stage \"sensor\": the sign-off by Tobias Achebe "
+            "recorded by audit event seq 12") in out
+    status = main(["check", str(path), "--json"])
+    document = json.loads(capsys.readouterr().out)
+    assert status == 1 and any("missing from the file" in line for line in document["record_problems"])

@@ -21,6 +21,7 @@ from stagewise.commands.common import print_json
 from stagewise.files.project_file import file_sha256, load_project
 from stagewise.model.project import Project
 from stagewise.model.values import format_value
+from stagewise.review.audit import check_records
 from stagewise.review.checks import (
     FINDING_WORDS,
     AutomaticFinding,
@@ -148,8 +149,9 @@ def run(args: argparse.Namespace) -> int:
     if getattr(args, "json", False):
         document = _json(path, project, results, findings)
         document["four_eyes_breaches"] = breaches = _four_eyes_lines(signoff_states(project))
+        document["record_problems"] = mismatches = [problem.sentence for problem in check_records(project).problems]
         print_json(document)
-        return 0 if passing and not breaches else 1
+        return 0 if passing and not breaches and not mismatches else 1
     print(f"{printable(project.title)} (revision {printable(project.revision) or '—'}): {printable(path)}")
     print()
     if results:
@@ -171,10 +173,17 @@ def run(args: argparse.Namespace) -> int:
                                 if findings else ""))
     states = signoff_states(project)
     print("sign-offs: " + ", ".join(f"{printable(stage_id)} {state.state}" for stage_id, state in states.items()))
-    breaches = _four_eyes_lines(states)
+    breaches = _four_eyes_lines(states) + _record_lines(project)
     for line in breaches:
         print(line)
     return 0 if passing and not breaches else 1
+
+
+def _record_lines(project: Project) -> list[str]:
+    """One line per review record and audit event that do not match (written, edited or removed
+    outside the program; ``verify`` says the same): the checklist cannot pass over them."""
+    return [f"review record does not match the audit trail: {printable(problem.sentence)}"
+            for problem in check_records(project).problems]
 
 
 def _four_eyes_lines(states: dict[str, Any]) -> list[str]:
