@@ -37,21 +37,28 @@ from typing import Any, Final, Literal
 
 from stagewise.files.codec import ProjectFileError, encode
 from stagewise.model.project import AuditEvent, Project
-from stagewise.review.audit import GENESIS_PREV, MERGE_EVENT, append_event, check_records, event_hash, verify_trail
+from stagewise.review.audit import (
+    GENESIS_PREV,
+    MERGE_EVENT,
+    append_event,
+    check_records,
+    event_hash,
+    now_utc,
+    verify_trail,
+)
 
 __all__ = ["Conflict", "MergeResult", "merge_projects"]
 
 _MISSING: Final[Any] = object()
 
-# Lists whose items have an identity, by the key that holds the list (else a list is a value).
+# Lists whose items have an identity, by the key that holds the list (else a list is a value):
+# design items by id or ref, and the appended review records by who, when and what (both
+# sides' records are kept, an identical one once).
 _KEYED_LISTS: Final[dict[str, Callable[[dict[str, Any]], Any]]] = {
     "stages": lambda item: item.get("id"),
     "parts": lambda item: item.get("ref"),
     "checks": lambda item: item.get("id"),
     "measurements": lambda item: item.get("id"),
-}
-# Appended review records: identity is who, when and what; both sides' records are kept.
-_RECORD_LISTS: Final[dict[str, Callable[[dict[str, Any]], Any]]] = {
     "signoffs": lambda item: (item.get("name"), item.get("time"), item.get("verdict"), item.get("fingerprint")),
     "comments": lambda item: (item.get("author"), item.get("time"), item.get("text")),
 }
@@ -117,9 +124,7 @@ class _Merger:
             return self.object(path, {} if base is _MISSING else base, ours, theirs)
         if isinstance(ours, list) and isinstance(theirs, list) and (base is _MISSING or isinstance(base, list)):
             if key in _KEYED_LISTS:
-                return self.keyed(path, _KEYED_LISTS[key], [] if base is _MISSING else base, ours, theirs, False)
-            if key in _RECORD_LISTS:
-                return self.keyed(path, _RECORD_LISTS[key], [] if base is _MISSING else base, ours, theirs, True)
+                return self.keyed(path, _KEYED_LISTS[key], [] if base is _MISSING else base, ours, theirs)
         return self.conflict(path, base, ours, theirs)
 
     def object(self, path: str, base: dict[str, Any], ours: dict[str, Any], theirs: dict[str, Any]) -> dict[str, Any]:
@@ -133,10 +138,7 @@ class _Merger:
         return merged
 
     def keyed(self, path: str, identity: Callable[[dict[str, Any]], Any], base: list[Any], ours: list[Any],
-              theirs: list[Any], records: bool) -> list[Any]:
-        # ``records``: appended review records (``_RECORD_LISTS``); they merge like keyed items,
-        # a record's identity being who, when and what.
-        del records
+              theirs: list[Any]) -> list[Any]:
         if not all(isinstance(item, dict) for item in (*base, *ours, *theirs)):
             self.conflict(path, base, ours, theirs)
             return ours
@@ -223,14 +225,10 @@ def _merge_trails(ours: Sequence[AuditEvent], theirs: Sequence[AuditEvent], mode
             append_event(holder, event.who, event.what, event.detail, event.time)
         return holder.audit, len(mine), len(other)
     base_head = ours[shared - 1].hash if shared else GENESIS_PREV
-    head = AuditEvent(seq=max(mine[-1].seq, other[-1].seq) + 1, time=time or "", who=who, what=MERGE_EVENT,
+    head = AuditEvent(seq=max(mine[-1].seq, other[-1].seq) + 1, time=time or now_utc(), who=who, what=MERGE_EVENT,
                       detail={"heads": [mine[-1].hash, other[-1].hash], "base": base_head,
                               "events": [len(mine), len(other)]},
                       prev=other[-1].hash, hash="")
-    if time is None:
-        from stagewise.review.audit import now_utc
-
-        head.time = now_utc()
     head.hash = event_hash(head)
     trail.append(head)
     return trail, len(mine), len(other)
