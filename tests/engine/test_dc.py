@@ -334,3 +334,19 @@ def test_from_input_adds_the_upstream_offsets_through_the_gains_after_them() -> 
     assert first_vos.out_v == pytest.approx(VOS * (1 + RF / RG) * gain_two, rel=1e-9)
     assert [item.stage_id for item in second_in_chain.contributions if item.kind == "vos"] == ["b"]
     assert by_kind(second_in_chain, "vos").out_v == pytest.approx(0.5e-3 * gain_two, rel=1e-9)
+
+
+def test_an_unstable_place_has_no_dc_budget() -> None:
+    from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
+
+    # More positive feedback (10k/(10k + 4k7) = 0.68 to the + input) than negative (0.5): a pole in the right
+    # half-plane, so the circuit never settles (common practice, no source).
+    parts = [{"ref": "R1", "type": "R", "nodes": ["in", "p"], "value": "10k"},
+             {"ref": "R2", "type": "R", "nodes": ["p", "out"], "value": "4k7"},
+             {"ref": "R3", "type": "R", "nodes": ["n", "0"], "value": "10k"},
+             {"ref": "R4", "type": "R", "nodes": ["n", "out"], "value": "10k"},
+             {"ref": "U1", "type": "opamp", "nodes": ["p", "n", "out"], "model": "op"}]
+    project = make_project(parts, models={"op": {"a0_db": 100, "gbw_hz": "1M", "vos_v": "1m"}})
+    analysis = ProjectAnalysis(project, spread=False)
+    document, why = analysis.dc_document("isolated", "s")
+    assert document is None and "unstable" in why

@@ -377,6 +377,11 @@ class ProjectAnalysis:
         budget = self.dc_budget(where, stage_id)
         if isinstance(budget, _Failure):
             return None, budget.why
+        verdict = self.stability(where, stage_id)
+        if verdict is not None and not verdict.stable:
+            subject = "the chain" if where == "chain" else f'stage "{stage_id}" {PLACE_WORDS.get(where, where)}'
+            return None, (f"{subject} is unstable: {verdict.reason}; it never settles to a DC operating point, "
+                          "so it has no DC budget")
         return budget_to_json(budget, self.project.converter if where == "chain" else None), None
 
     @cached_property
