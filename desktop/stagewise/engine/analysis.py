@@ -377,7 +377,8 @@ class ProjectAnalysis:
         budget = self.dc_budget(where, stage_id)
         if isinstance(budget, _Failure):
             return None, budget.why
-        verdict = self.stability(where, stage_id)
+        # Seen from the chain's input a stage has the whole chain's poles: its verdict is the chain's.
+        verdict = self.stability("chain", "") if where == "from_input" else self.stability(where, stage_id)
         if verdict is not None and not verdict.stable:
             subject = "the chain" if where == "chain" else f'stage "{stage_id}" {PLACE_WORDS.get(where, where)}'
             return None, (f"{subject} is unstable: {verdict.reason}; it never settles to a DC operating point, "
