@@ -158,6 +158,7 @@ class ProjectDialog(_ApplyDialog):
         settings = project.settings
         form = QFormLayout()
         self.title = QLineEdit(project.title)
+        self.title.setCursorPosition(0)
         self.revision = QLineEdit(project.revision)
         self.drive = QComboBox()
         self.drive.addItem("Voltage source", "voltage")
@@ -324,6 +325,7 @@ class CheckEditorDialog(_ApplyDialog):
         self._loading = False
         self.list = QListWidget()
         self.list.setObjectName("checkList")
+        self.list.setWordWrap(True)
         buttons = QHBoxLayout()
         self.add_numeric = QPushButton("New numeric check")
         self.add_question = QPushButton("New question")
@@ -358,6 +360,7 @@ class CheckEditorDialog(_ApplyDialog):
             self.library_name.addItem(name.replace("_", " "), name)
         self.library_list = QListWidget()
         self.library_list.setObjectName("libraryChecks")
+        self.library_list.setWordWrap(True)
         self.add_library = QPushButton("Add ticked checks")
         library_layout = QVBoxLayout(library_box)
         library_layout.addWidget(self.library_name)
@@ -371,7 +374,7 @@ class CheckEditorDialog(_ApplyDialog):
         columns.addLayout(left, 3)
         columns.addWidget(library_box, 2)
         self.body.addLayout(columns)
-        self.resize(900, 560)
+        self.resize(980, 600)
         self.list.currentRowChanged.connect(self._show_check)
         self.metric_choice.currentIndexChanged.connect(self._metric_changed)
         for field in (self.id, self.text, self.at_hz, self.minimum, self.maximum):
