@@ -38,7 +38,7 @@ from stagewise.engine.chain import (
     merged_system,
 )
 from stagewise.engine.diagnostics import Finding
-from stagewise.engine.metrics import metric_at, put_with_why, reference_words, stage_metrics
+from stagewise.engine.metrics import bandwidth, metric_at, put_with_why, reference_words, stage_metrics
 from stagewise.engine.mna import CircuitError, StageSystem
 from stagewise.engine.stability import Stability, stability_of_poles, stability_to_json
 from stagewise.engine.stage import StageAnalysis, analyze_stage, analyze_system
@@ -49,6 +49,7 @@ from stagewise.model.values import format_value
 __all__ = ["ProjectAnalysis", "analyze_project", "metric_provider", "response_points"]
 
 VOLTAGE_UNIT = "V/V"
+MEMO_ENTRIES = 400
 CURRENT_UNIT = "Ω"
 
 NO_OPAMP = "the stage has no finite-gain op-amp, so it has no loop to measure"
@@ -98,12 +99,36 @@ class ProjectAnalysis:
         A chain engine whose caches are reused (the GUI keeps one per document).
     spread : bool
         Whether the Monte Carlo spread is part of the document (it is the slowest piece).
+    memo : dict, optional
+        Results of earlier analyses of the same document, kept by the caller (the GUI's worker)
+        and keyed here by what decides them: a stage alone by its id and fingerprint, a stage in
+        chain by the ids and fingerprints of it and every stage after it and the load. After an
+        edit only what the edit touches is computed again. Its size is bounded.
     """
 
-    def __init__(self, project: Project, engine: ChainEngine | None = None, *, spread: bool = True) -> None:
+    def __init__(self, project: Project, engine: ChainEngine | None = None, *, spread: bool = True,
+                 memo: dict[tuple[Any, ...], Any] | None = None) -> None:
         self.project = project
         self.engine = engine or ChainEngine()
         self.with_spread = spread
+        self._memo = memo
+
+    def _memoized(self, key: tuple[Any, ...], compute: Any) -> Any:
+        if self._memo is None:
+            return compute()
+        settings = self.project.settings
+        full = (settings.f_min_hz.si, settings.f_max_hz.si, settings.points_per_decade, *key)
+        if full not in self._memo:
+            if len(self._memo) >= MEMO_ENTRIES:
+                self._memo.clear()
+            self._memo[full] = compute()
+        return self._memo[full]
+
+    @cached_property
+    def _fingerprints(self) -> dict[str, str]:
+        from stagewise.model.fingerprint import stage_fingerprint  # noqa: PLC0415
+
+        return {stage.id: stage_fingerprint(stage, self.project) for stage in self.project.stages}
 
     # -- the pieces ------------------------------------------------------------------------
 
@@ -142,52 +167,77 @@ class ProjectAnalysis:
 
     def isolated(self, stage_id: str) -> StageAnalysis:
         """The stage alone: its own drive, output unloaded (cached)."""
-        return self._isolated[stage_id]
+        results = self._isolated
+        if stage_id not in results:
+            stage = self.project.stage(stage_id)
+            if stage is None:
+                raise KeyError(stage_id)
+            results[stage_id] = self._memoized(
+                ("isolated", stage_id, self._fingerprints[stage_id]),
+                lambda: analyze_stage(stage, self.project, self.f_hz))
+        return results[stage_id]
 
     @cached_property
     def _isolated(self) -> dict[str, StageAnalysis]:
-        return {stage.id: analyze_stage(stage, self.project, self.f_hz) for stage in self.project.stages}
+        return {}
 
     def in_chain(self, stage_id: str) -> StageAnalysis | _Failure:
-        """The stage where it sits: its own drive at its input, loaded by the rest of the chain."""
-        return self._in_chain[stage_id]
+        """The stage where it sits: its own drive at its input, loaded by the rest of the chain.
+
+        Computed for this stage only, when first asked (``check`` asks for a few stages).
+        """
+        results = self._in_chain
+        if stage_id not in results:
+            results[stage_id] = self._compute_in_chain(stage_id)
+        return results[stage_id]
+
+    def _in_chain_key(self, stage_id: str) -> tuple[Any, ...] | None:
+        active = [stage.id for stage in self.project.active_stages]
+        if stage_id not in active:
+            return None
+        rest = active[active.index(stage_id):]
+        load = self.project.load
+        return ("in_chain", tuple((item, self._fingerprints[item]) for item in rest),
+                repr(load))
 
     @cached_property
     def _in_chain(self) -> dict[str, StageAnalysis | _Failure]:
-        results: dict[str, StageAnalysis | _Failure] = {}
-        active = self.project.active_stages
-        for stage in self.project.stages:
-            if stage.bypass:
-                results[stage.id] = _Failure(f'stage "{stage.id}" is bypassed, so it is not in the chain')
+        return {}
+
+    def _compute_in_chain(self, stage_id: str) -> StageAnalysis | _Failure:
+        stage = self.project.stage(stage_id)
+        if stage is None:
+            return _Failure(f'there is no stage "{stage_id}"')
+        if stage.bypass:
+            return _Failure(f'stage "{stage.id}" is bypassed, so it is not in the chain')
         try:
             load_r, load_c = load_admittance(self.project)
         except CircuitError as error:
-            for stage in active:
-                results[stage.id] = _Failure(str(error))
-            return results
-        for position, stage in enumerate(active):
-            rest = active[position:]
-            systems = [self._systems[item.id] for item in rest]
-            failed = next((system for system in systems if isinstance(system, _Failure)), None)
-            if failed is not None:
-                results[stage.id] = _Failure(failed.why)
-                continue
-            current = stage.drive == "current"
-            unit = CURRENT_UNIT if current else VOLTAGE_UNIT
-            reason = self._undefined_in_chain(stage.id)
-            if reason is not None:
-                results[stage.id] = _Failure(reason)
-                continue
+            return _Failure(str(error))
+        active = self.project.active_stages
+        position = next(index for index, item in enumerate(active) if item.id == stage_id)
+        rest = active[position:]
+        systems = [self._systems[item.id] for item in rest]
+        failed = next((system for system in systems if isinstance(system, _Failure)), None)
+        if failed is not None:
+            return _Failure(failed.why)
+        current = stage.drive == "current"
+        unit = CURRENT_UNIT if current else VOLTAGE_UNIT
+        reason = self._undefined_in_chain(stage.id)
+        if reason is not None:
+            return _Failure(reason)
+        def compute() -> StageAnalysis | _Failure:
             merged = merge_systems([item.id for item in rest], [s for s in systems if isinstance(s, StageSystem)],
                                    current_drive=current, load_r_ohm=load_r, load_c_f=load_c)
             driven = drive(merged.system, current)
             driven = DrivenSystem(driven.g, driven.c, driven.b, merged.interface_indices[1], current)
             analysis = analyze_system(driven, self.f_hz, unit, stage.id, "")
             if analysis.why is not None:
-                results[stage.id] = _Failure(f'stage "{stage.id}" in chain: {analysis.why}')
-            else:
-                results[stage.id] = analysis
-        return results
+                return _Failure(f'stage "{stage.id}" in chain: {analysis.why}')
+            return analysis
+
+        key = self._in_chain_key(stage_id)
+        return compute() if key is None else self._memoized(key, compute)
 
     def from_input(self, stage_id: str) -> StageAnalysis | _Failure:
         """The chain's drive to this stage's output, as it sits (V/V, or Ω for a current drive).
@@ -262,9 +312,12 @@ class ProjectAnalysis:
             if isinstance(system, _Failure) or stage.is_block:
                 result[stage.id] = []
                 continue
-            result[stage.id] = loops_module.loops_to_json(
-                loops_module.loop_gains(system, current_drive=stage.drive == "current",
-                                        stability=self.stability("isolated", stage.id)))
+            current = stage.drive == "current"
+            result[stage.id] = self._memoized(
+                ("loops", stage.id, self._fingerprints[stage.id]),
+                lambda system=system, current=current, stage_id=stage.id: loops_module.loops_to_json(
+                    loops_module.loop_gains(system, current_drive=current,
+                                            stability=self.stability("isolated", stage_id))))
         return result
 
     @cached_property
@@ -337,7 +390,7 @@ class ProjectAnalysis:
         corner = None
         chain = self.whole_chain
         if not isinstance(chain, _Failure):
-            corner = self._metrics_document("chain", "", chain).get("f_high_3db_hz")
+            corner, _why = self._band_value("chain", "", chain, "f_high_3db_hz")
         try:
             result = converter_review(merged.system, self.project, current_drive=merged.current_drive,
                                       noise=None if isinstance(noise, _Failure) else noise,
@@ -604,9 +657,9 @@ class ProjectAnalysis:
                     return None, f"{metric} needs a frequency (at_hz)"
                 point = metric_at(analysis, metric, at_hz, settings)
                 return _finite(point.value), point.why
-            document = self._metrics_document(where, stage_id, analysis)
             if metric in BAND_KEYS:
-                return _document_value(document, metric)
+                return self._band_value(where, stage_id, analysis, metric)
+            document = self._metrics_document(where, stage_id, analysis)
             step = document.get("step")
             if not isinstance(step, dict):
                 return None, str(document.get("step_why", "the step response could not be computed"))
@@ -774,6 +827,23 @@ class ProjectAnalysis:
 
     @cached_property
     def _documents(self) -> dict[tuple[str, str], dict[str, Any]]:
+        return {}
+
+    def _band_value(self, where: str, stage_id: str, analysis: StageAnalysis,
+                    metric: str) -> tuple[float | None, str | None]:
+        """A corner, peak or peaking figure without the rest of the metrics document (whose step
+        response is the slowest piece of it: ``check`` and the converter need only the corners)."""
+        document = self._documents.get((where, stage_id if where != "chain" else ""))
+        if document is None:
+            key = (where, stage_id if where != "chain" else "")
+            if key not in self._bands:
+                self._bands[key] = bandwidth(analysis, self.project.settings)
+            limits = self._bands[key]
+            document = {metric: getattr(limits, metric), f"{metric}_why": limits.why.get(metric) or "not computed"}
+        return _document_value(document, metric)
+
+    @cached_property
+    def _bands(self) -> dict[tuple[str, str], Any]:
         return {}
 
     def stage_document(self, stage: Stage) -> dict[str, Any]:

@@ -6,7 +6,8 @@ own: conversions are the engine's. Engine modules are imported inside the functi
 module costs nothing at start-up and sympy or scipy.signal load only in the worker thread.
 
 Two registries say what runs for each stage and for the whole chain, and in which phase
-(1: quick, shown at once; 2: slower, shown when ready). A view looks its results up by name.
+(1: quick, shown at once; 2: the review state, shown when ready; 3: the Monte Carlo spread,
+which follows in the background). A view looks its results up by name.
 """
 
 from __future__ import annotations
@@ -59,6 +60,10 @@ class Context:
         self._grid_key: tuple[float, float, int] = (0.0, 0.0, 0)
         self.chain_state: dict[str, Any] = {}
         self._engine: Any = None
+        # Results of the engine's project analysis kept across snapshots (keyed by what decides
+        # them: see ProjectAnalysis), and the steps drawn from in-chain analyses already seen.
+        self.analysis_memo: dict[tuple[Any, ...], Any] = {}
+        self.steps_of: dict[int, tuple[Any, Any]] = {}
 
     @property
     def engine(self) -> Any:
@@ -85,6 +90,8 @@ class Context:
         # Keep the cache small: a long session of edits must not grow it without end.
         if len(self._cache) > 400:
             self._cache.clear()
+        if len(self.steps_of) > 100:
+            self.steps_of.clear()
 
     def cached(self, key: tuple[str, ...], compute: Any) -> Any:
         if key not in self._cache:
@@ -298,7 +305,8 @@ def _project_analysis(project: Project, context: Context) -> Any:
     from stagewise.engine.analysis import ProjectAnalysis
 
     if "project_analysis" not in context.chain_state:
-        context.chain_state["project_analysis"] = ProjectAnalysis(project)
+        context.chain_state["project_analysis"] = ProjectAnalysis(project, context.engine,
+                                                                  memo=context.analysis_memo)
     return context.chain_state["project_analysis"]
 
 
@@ -335,8 +343,18 @@ def from_input_poles(stage: Stage, project: Project, context: Context) -> RootSe
 
 
 def in_chain_step(stage: Stage, project: Project, context: Context) -> StepTrace:
-    """Unit-step response of the stage where it sits, loaded by the rest of the chain."""
-    return _step(_in_chain_analysis(stage, project, context))
+    """Unit-step response of the stage where it sits, loaded by the rest of the chain.
+
+    The project analysis gives back the same in-chain analysis object while the stage and
+    everything after it are unchanged; its step is then not computed again.
+    """
+    analysis = _in_chain_analysis(stage, project, context)
+    known = context.steps_of.get(id(analysis))
+    if known is not None and known[0] is analysis:
+        return known[1]  # type: ignore[no-any-return]
+    trace = _step(analysis)
+    context.steps_of[id(analysis)] = (analysis, trace)
+    return trace
 
 
 def in_chain_poles(stage: Stage, project: Project, context: Context) -> RootSet:
@@ -564,7 +582,7 @@ CHAIN_ANALYSES: list[tuple[str, int, Any]] = [
     ("step", 2, chain_step),
     ("noise", 2, chain_noise),
     ("dc", 2, chain_dc),
-    ("spread", 2, chain_spread),
+    ("spread", 3, chain_spread),
     ("measurements", 2, measurements),
 ]
 

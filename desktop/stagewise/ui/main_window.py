@@ -1420,8 +1420,8 @@ class MainWindow(QMainWindow):
         app = QApplication.instance()
         while time.monotonic() < deadline:
             app.processEvents()  # type: ignore[union-attr]
-            busy = self.worker.is_busy or (formula and self.worker.formula_busy())
-            if not busy and self.worker.latest is not None and self.worker.latest.phase == 2:
+            busy = self.worker.is_busy or self.worker.spread_busy or (formula and self.worker.formula_busy())
+            if not busy and self.worker.latest is not None and self.worker.latest.phase == 3:
                 app.processEvents()  # type: ignore[union-attr]
                 return True
             time.sleep(0.01)

@@ -65,8 +65,17 @@ def result_for(outcome: Outcome | None, spec: TraceSpec, kind: str) -> Computed:
     return outcome.of_stage(spec.stage_id, name)
 
 
+def _entry(outcome: Outcome, key: tuple[str, str]) -> Computed | None:
+    where, name = key
+    return outcome.chain.get(name) if where == "chain" else outcome.stage.get(where, {}).get(name)
+
+
 class PlotView(QWidget):
-    """Base of the plot views: header line, stale marking, subscriptions and clean-up."""
+    """Base of the plot views: header line, stale marking, subscriptions and clean-up.
+
+    A new outcome whose results read by the last drawing are the very objects already drawn
+    (the worker carries unchanged results from phase to phase) changes only the header.
+    """
 
     updated = Signal()
 
@@ -105,7 +114,13 @@ class PlotView(QWidget):
         self.subscriptions.close()
 
     def _on_outcome(self, outcome: Outcome) -> None:
-        self.outcome = outcome
+        previous, self.outcome = self.outcome, outcome
+        # The worker carries unchanged results from phase to phase as the same objects: when
+        # everything this view read in its last drawing is unchanged, only the header changes.
+        if previous is not None and self._read and all(
+                _entry(outcome, key) is _entry(previous, key) for key in self._read):
+            self._show_header()
+            return
         self.refresh()
 
     def _on_selection(self, _stage_id: str) -> None:
@@ -165,7 +180,7 @@ class PlotView(QWidget):
 
     def note(self, label: str, computed: Computed) -> None:
         """Record why a trace is missing; shown in the header (not while it is still coming)."""
-        if computed.why == "not computed yet" and self.worker.is_busy:
+        if computed.why == "not computed yet" and (self.worker.is_busy or self.worker.spread_busy):
             return
         if not computed.ok:
             self._problems.append(f"{label}: {computed.why}")
@@ -603,6 +618,7 @@ class SpreadView(PlotView):
         self.summary.setTextFormat(Qt.TextFormat.PlainText)
         self.summary.setWordWrap(True)
         self.layout().addWidget(self.summary)
+        self.subscriptions.connect(worker.spreadBusyChanged, lambda _busy: self._show_header())
         self.refresh()
 
     def draw(self) -> None:

@@ -1,10 +1,12 @@
 """The background compute worker: engine calls off the GUI thread, newest edit wins.
 
 Each request snapshots the project (a deep copy, so the user can keep editing) and runs the
-registered analyses on a private thread pool. Results come back as an :class:`Outcome` in two
-phases: the quick ones (responses, step, poles and zeros) first, then the slower ones (noise,
-spread, check evaluation). A result that belongs to an older edit than the newest request is
-dropped, so views never flash old numbers after new ones.
+registered analyses on a private thread pool. Results come back as an :class:`Outcome` in three
+phases: the quick ones (responses, step, poles and zeros) first, then the review state (check
+evaluation, noise, the chain's step), then the Monte Carlo spread, which follows in the
+background (``spread_busy`` says it is still running; the review state does not wait for it).
+A result that belongs to an older edit than the newest request is dropped, so views never flash
+old numbers after new ones.
 
 Scheduling is a throttle with a trailing run: a request when the worker has been idle for the
 debounce interval starts at once (one edit → plots update without waiting); requests that
@@ -50,7 +52,8 @@ class Outcome:
     """Everything the views show for one state of the project.
 
     ``stage[stage_id][name]`` and ``chain[name]`` hold :class:`Computed` results; ``phase`` is 1
-    for the quick results and 2 when every analysis has run.
+    for the quick results, 2 when the review state (checks, noise) is in too, and 3 when every
+    analysis has run (the spread).
     """
 
     generation: int
@@ -134,6 +137,7 @@ def compute_outcome(project: Project, baseline: Project | None, generation: int,
         outcome.stage = {key: dict(value) for key, value in previous.stage.items()}
         outcome.chain = dict(previous.chain)
         outcome.analysis = previous.analysis
+        outcome.carried = set(previous.carried)
     context.begin(project, baseline)
     def check() -> None:
         if superseded is not None and superseded():
@@ -145,13 +149,19 @@ def compute_outcome(project: Project, baseline: Project | None, generation: int,
             if analysis_phase == phase:
                 check()
                 results[name] = _run(function, stage, project, context)
+                outcome.carried.discard((stage.id, name))
     for name, analysis_phase, function in analyses.CHAIN_ANALYSES:
         if analysis_phase == phase:
             check()
             outcome.chain[name] = _run(function, project, context)
+            outcome.carried.discard(("chain", name))
     outcome.analysis = context.chain_state.get("project_analysis", outcome.analysis)
     outcome.elapsed_s = time.perf_counter() - start
     return outcome
+
+
+# Quiet time after an edit's review state before the Monte Carlo starts (milliseconds).
+SPREAD_DELAY_MS = 600
 
 
 class _JobSignals(QObject):
@@ -174,16 +184,19 @@ class ComputeWorker(QObject):
 
     Signals
     -------
-    outcomeReady(Outcome) : new results (phase 1, then phase 2) for the newest request.
+    outcomeReady(Outcome) : new results (phase 1, 2, then 3) for the newest request.
     busyChanged(bool) : computing or waiting to compute; views mark their results stale.
+    spreadBusyChanged(bool) : the Monte Carlo spread (phase 3) of the newest edit is running.
     formulaReady(str, object) : the symbolic formula of a stage (its fingerprint, the result).
     """
 
     outcomeReady = Signal(object)
     busyChanged = Signal(bool)
+    spreadBusyChanged = Signal(bool)
     formulaReady = Signal(str, object)
 
-    def __init__(self, document: Document, debounce_ms: int = 150, parent: QObject | None = None) -> None:
+    def __init__(self, document: Document, debounce_ms: int = 150, parent: QObject | None = None,
+                 spread_delay_ms: int = SPREAD_DELAY_MS) -> None:
         super().__init__(parent)
         self._document = document
         # Quick results and slow results run on separate threads, so that an edit made while the
@@ -192,13 +205,18 @@ class ComputeWorker(QObject):
         self._pool.setMaxThreadCount(1)
         self._slow_pool = QThreadPool(self)
         self._slow_pool.setMaxThreadCount(1)
+        self._spread_pool = QThreadPool(self)
+        self._spread_pool.setMaxThreadCount(1)
         self._formula_pool = QThreadPool(self)
         self._formula_pool.setMaxThreadCount(1)
         self._context = analyses.Context()
         self._slow_context = analyses.Context()
+        self._spread_context = analyses.Context()
         self._formula_context = analyses.Context()
         self._generation = 0
         self._completed_generation = 0
+        self._spread_generation = 0
+        self._spread_busy = False
         self._running = False
         self._pending = False
         self._busy = False
@@ -209,6 +227,11 @@ class ComputeWorker(QObject):
         self._timer = QTimer(self)
         self._timer.setSingleShot(True)
         self._timer.timeout.connect(self._start)
+        self._spread_delay_ms = spread_delay_ms
+        self._spread_args: tuple[Outcome, Project, Project | None] | None = None
+        self._spread_timer = QTimer(self)
+        self._spread_timer.setSingleShot(True)
+        self._spread_timer.timeout.connect(self._start_spread_now)
         self._formulas: dict[str, Computed] = {}
         self._formula_running: set[str] = set()
         self._deferred_formulas: list[str] = []
@@ -233,6 +256,16 @@ class ComputeWorker(QObject):
         """Computing or about to: quick results, or slow results of the newest edit."""
         return (self._running or self._pending or self._timer.isActive()
                 or self._completed_generation < self._generation)
+
+    @property
+    def spread_busy(self) -> bool:
+        """The spread (phase 3) of the newest edit is not in yet."""
+        return self._spread_generation < self._generation
+
+    def _set_spread_busy(self, busy: bool) -> None:
+        if busy != self._spread_busy:
+            self._spread_busy = busy
+            self.spreadBusyChanged.emit(busy)
 
     def formula_busy(self) -> bool:
         return bool(self._formula_running)
@@ -276,6 +309,7 @@ class ComputeWorker(QObject):
         context = self._context
         self._running = True
         self._since_start.start()
+        self._set_spread_busy(True)
 
         def quick() -> Outcome:
             return compute_outcome(project, baseline, generation, 1, context)
@@ -310,26 +344,56 @@ class ComputeWorker(QObject):
             slow_context = self._slow_context
 
             def slow() -> Outcome | None:
-                # A newer edit makes this one obsolete: skip the rest of the work.
+                # After the quick results (they share two cores and one interpreter lock, and the
+                # plots come first); a newer edit makes it obsolete: skip the rest of the work.
                 try:
                     return compute_outcome(project, baseline, first.generation, 2, slow_context, previous=first,
                                            superseded=lambda: first.generation != self._generation)
                 except Superseded:
                     return None
 
-            self._submit(self._slow_pool, slow, self._slow_done)
+            self._submit(self._slow_pool, slow, lambda second: self._slow_done(second, project, baseline))
         if self._pending:
             self._start()
 
-    def _slow_done(self, outcome: Outcome | None) -> None:
+    def _slow_done(self, outcome: Outcome | None, project: Project | None = None,
+                   baseline: Project | None = None) -> None:
         if self._closed or outcome is None:
             return
         self._completed_generation = max(self._completed_generation, outcome.generation)
+        if outcome.phase >= 3:
+            self._spread_generation = max(self._spread_generation, outcome.generation)
         if outcome.generation == self._generation and not self._pending and not self._running:
             self._latest = outcome
             self.outcomeReady.emit(outcome)
         if not self.is_busy:
             self._set_busy(False)
+        if not self.spread_busy:
+            self._set_spread_busy(False)
+        if outcome.phase == 2 and project is not None and outcome.generation == self._generation:
+            # The Monte Carlo keeps both cores busy for a while: it starts once the user has
+            # paused (no edit for SPREAD_DELAY_MS), so a run of edits gets its review state at once.
+            self._spread_args = (outcome, project, baseline)
+            self._spread_timer.start(self._spread_delay_ms)
+
+    def _start_spread_now(self) -> None:
+        arguments, self._spread_args = self._spread_args, None
+        if arguments is None or self._closed or arguments[0].generation != self._generation:
+            return
+        self._start_spread(*arguments)
+
+    def _start_spread(self, second: Outcome, project: Project, baseline: Project | None) -> None:
+        """Phase 3 on a thread of its own, so that the next edit's review state never waits for it."""
+        spread_context = self._spread_context
+
+        def spread() -> Outcome | None:
+            try:
+                return compute_outcome(project, baseline, second.generation, 3, spread_context, previous=second,
+                                       superseded=lambda: second.generation != self._generation)
+            except Superseded:
+                return None
+
+        self._submit(self._spread_pool, spread, self._slow_done)
 
     def analysis_of(self, project: Project) -> Any:
         """The engine's ProjectAnalysis of ``project`` as it is now, or ``None``.
@@ -339,7 +403,7 @@ class ComputeWorker(QObject):
         an event changes no number).
         """
         latest = self._latest
-        if self.is_busy or latest is None or latest.phase != 2 or latest.analysis is None:
+        if self.is_busy or self.spread_busy or latest is None or latest.phase < 3 or latest.analysis is None:
             return None
         analysed = getattr(latest.analysis, "project", None)
         if not isinstance(analysed, Project):
@@ -387,7 +451,9 @@ class ComputeWorker(QObject):
         """Stop scheduling; wait for the running jobs so no thread outlives the window."""
         self._closed = True
         self._timer.stop()
-        for pool in (self._pool, self._slow_pool, self._formula_pool):
+        self._spread_timer.stop()
+        for pool in (self._pool, self._slow_pool, self._spread_pool, self._formula_pool):
             pool.clear()
             pool.waitForDone(60000)
         self._set_busy(False)
+        self._set_spread_busy(False)
