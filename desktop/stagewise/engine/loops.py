@@ -234,7 +234,9 @@ def loop_gain(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates
         the crossings are refined on exact solves of the broken loop either way.
     """
     opened = _broken(g, opamp)
-    if values is None:
+    if values is None or not np.any(np.abs(values) > 1e-9):
+        # A loop gain near zero everywhere is decided on the exact broken-loop solve: the
+        # shared solve leaves rounding residue where the exact one gives zero (no loop).
         values = _evaluate(opened, c, opamp, f_hz)
     magnitude = np.abs(values)
     if not np.any(magnitude > 0):
