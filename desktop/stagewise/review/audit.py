@@ -296,11 +296,12 @@ class RecordsCheck:
     """Every review record matched with the event that created it, both ways."""
 
     problems: tuple[RecordProblem, ...]
+    # ``(kind, stage_id, key)`` of every record in the file that its events do not account for.
+    unrecorded: frozenset[tuple[str, str, int | str]] = frozenset()
 
-    @property
-    def unrecorded(self) -> frozenset[tuple[str, str, int | str]]:
-        """``(kind, stage_id, key)`` of every record in the file that its events do not account for."""
-        return frozenset((p.kind, p.stage_id, p.key) for p in self.problems if not p.removed)
+    @classmethod
+    def of(cls, problems: Sequence[RecordProblem]) -> RecordsCheck:
+        return cls(tuple(problems), frozenset((p.kind, p.stage_id, p.key) for p in problems if not p.removed))
 
     def is_unrecorded(self, kind: str, stage_id: str, key: int | str) -> bool:
         return (kind, stage_id, key) in self.unrecorded
@@ -360,10 +361,14 @@ def check_records(project: Project) -> RecordsCheck:
     problems: list[RecordProblem] = []
     used: set[int] = set()
 
+    by_key: dict[tuple[str, str, str], list[int]] = {}
+    for index, event in enumerate(events):
+        by_key.setdefault((event.what, event.who, event.time), []).append(index)
+
     def candidates(what: str, who: str, time: str, stage_id: str, check_id: str | None = None) -> list[int]:
-        return [i for i, e in enumerate(events)
-                if i not in used and e.what == what and e.who == who and e.time == time
-                and e.detail.get("stage") == stage_id and (check_id is None or e.detail.get("check") == check_id)]
+        return [i for i in by_key.get((what, who, time), [])
+                if i not in used and events[i].detail.get("stage") == stage_id
+                and (check_id is None or events[i].detail.get("check") == check_id)]
 
     def match(kind: str, stage_id: str, key: int | str, label: str, what: str, record: Any, who: str, time: str,
               fields: Sequence[tuple[str, str]], check_id: str | None = None) -> None:
@@ -426,7 +431,7 @@ def check_records(project: Project) -> RecordsCheck:
                                           f'measurement "{measurement.id}" ({measurement.file}) has no matching '
                                           "audit event"))
     problems.extend(_removed_records(project, events, used))
-    return RecordsCheck(tuple(problems))
+    return RecordsCheck.of(problems)
 
 
 def _removed_records(project: Project, events: Sequence[AuditEvent], used: set[int]) -> list[RecordProblem]:
