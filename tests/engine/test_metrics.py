@@ -336,7 +336,7 @@ def test_band_pass_corners_around_its_mid_band_gain() -> None:
     # Source: an AC-coupled buffer, high-pass sC1R1/(1 + sC1R1) then low-pass 1/(1 + sR2C2) behind an ideal
     # follower (any circuits text): mid-band gain 1 (0 dB, Sedra & Smith, the mid-band gain A_M) and
     # corners where |H|² = 1/2: with a = f/fl, b = f/fh, (1 + 1/a²)(1 + b²) = 2.
-    r1, c1, r2, c2 = 100e3, 1e-6, 1e3, 10e-9
+    r1, c1, r2, c2 = 100e3, 1e-6, 1e3, 1e-9
     fl, fh = 1 / (TWO_PI * r1 * c1), 1 / (TWO_PI * r2 * c2)
     analysis, settings = analyse([part("C1", "C", ["in", "a"], c1), part("R1", "R", ["a", "0"], r1),
                                   part("U1", "opamp", ["a", "b", "b"], model="ideal"),
@@ -358,11 +358,11 @@ def test_band_pass_corners_around_its_mid_band_gain() -> None:
     assert limits.f_low_3db_hz is not None and limits.f_high_3db_hz is not None
     assert gain(limits.f_low_3db_hz) == pytest.approx(level, abs=1e-7)
     assert gain(limits.f_high_3db_hz) == pytest.approx(level, abs=1e-7)
-    # Two decades apart, the corners sit within 0.1 % of the single-section ones (Sedra & Smith's
+    # Five decades apart, the corners sit within 0.1 % of the single-section ones (Sedra & Smith's
     # dominant-pole approximation)
     assert limits.f_low_3db_hz == pytest.approx(fl, rel=1e-3)
     assert limits.f_high_3db_hz == pytest.approx(fh, rel=1e-3)
-    # ref_hz inside the flat mid-band, a decade or more from both corners, is used as given.
+    # ref_hz inside the flat mid-band, two decades or more from both corners, is used as given.
     settings.ref_hz = q(1e3)
     reference = bandwidth(analysis, settings).reference
     assert reference is not None and reference.kind == "ref_hz" and reference.f_hz == 1e3
@@ -570,3 +570,23 @@ def test_right_half_plane_zero_of_an_op_amp_model_is_named_and_real_roots_say_wh
     assert zero["q"] is None and "real root" in zero["q_why"] and zero["zeta"] is None and zero["zeta_why"]
     pole = document["poles"][0]
     assert pole["half_plane"] == "left" and "note" not in pole and pole["q"] is None and pole["q_why"]
+
+
+def test_op_amp_feedthrough_floor_does_not_make_a_band_pass_a_high_pass() -> None:
+    # Source: any op-amp text: an AC-coupled inverting stage, −(R2/R1)·sR1C/(1 + sR1C), has its mid-band
+    # gain R2/R1 and its lower corner at 1/(2πR1C). A finite op-amp with output resistance adds, far above
+    # the band, a flat floor (the input fed through R2 and r_out); its pole/zero model then has
+    # relative degree 0, but the pass band is still the mid-band, not that floor.
+    r1, r2, c = 4.7e3, 47e3, 1e-6
+    models = {"m": OpampModel(a0_db=q(120.0), gbw_hz=q(10e6), rout_ohm=q(75.0))}
+    analysis, settings = analyse([part("C1", "C", ["in", "a"], c), part("R1", "R", ["a", "n"], r1),
+                                  part("R2", "R", ["n", "out"], r2),
+                                  part("U1", "opamp", ["0", "n", "out"], model="m")], ref_hz=1e3, models=models)
+    assert analysis.model is not None and analysis.model.relative_degree == 0
+    limits = bandwidth(analysis, settings)
+    assert limits.reference is not None and limits.reference.shape == "band-pass"
+    assert limits.reference.kind in ("midband", "ref_hz")
+    assert limits.gain_db == pytest.approx(20 * math.log10(r2 / r1), abs=0.01)
+    assert limits.f_low_3db_hz == pytest.approx(1 / (TWO_PI * r1 * c), rel=1e-3)
+    # Common practice, no source: closed-loop bandwidth ≈ GBW / noise gain (1 + R2/R1)
+    assert limits.f_high_3db_hz == pytest.approx(10e6 / (1 + r2 / r1), rel=0.05)

@@ -253,9 +253,10 @@ def group_delay_s_at(analysis: StageAnalysis, at_hz: float) -> float:
 # -- the pass-band reference -------------------------------------------------------------------
 
 REFERENCE_KINDS = ("dc", "hf", "midband", "ref_hz")
-# A Bode asymptote is within 0.05 dB of the exact gain a decade away from a first-order break;
-# ``ref_hz`` counts as mid-band only that far inside the flat stretch of a band-pass.
-MIDBAND_MARGIN = 10.0
+# A Bode asymptote is within 0.0004 dB of the exact gain two decades away from a first-order
+# break; ``ref_hz`` counts as mid-band only that far inside the flat stretch of a band-pass, so
+# that reading the reference there moves a corner by no more than 0.01 %.
+MIDBAND_MARGIN = 100.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -376,62 +377,71 @@ def _asymptote_log(model: Any, omega: float) -> float:
                  - np.sum(np.log(np.maximum(omega, poles))))
 
 
-def _midband(model: Any, e0: int) -> tuple[float, float | None, float | None]:
-    """(ω_mid, ω_flat_low, ω_flat_high) of a band-pass from its Bode asymptote, in rad/s.
+def _stretches(model: Any, e0: int) -> tuple[list[tuple[float, float]], list[float]]:
+    """The flat stretches of the Bode asymptote and its peaks without a stretch, in rad/s.
 
-    The asymptote's slope starts at e0 > 0 and changes by +1 at every non-zero zero and −1 at
-    every non-zero pole. Mid-band is the stretch where it is flat (the geometric centre of the
-    highest flat stretch); a narrow band-pass, whose slope jumps from rising to falling at one
-    break, has its mid-band at that break (the centre frequency). The flat ends are ``None``
-    when there is no flat stretch.
+    The asymptote's slope starts at e0 and changes by +1 at every non-zero zero and −1 at every
+    non-zero pole (breaks at one frequency, a complex pair, act together). A flat stretch is
+    ``(low, high)`` with ``low`` 0 for a flat low end and ``high`` inf for a flat high end; a
+    peak without a stretch is a break where the slope jumps from rising to falling (the centre
+    frequency of a narrow band-pass).
     """
     breaks = sorted([(abs(complex(z)), 1) for z in model.zeros_rad_s if z != 0]
                     + [(abs(complex(p)), -1) for p in model.poles_rad_s if p != 0])
-    # Breaks at one frequency (a complex pair, coinciding sections) act together.
     groups: list[tuple[float, int]] = []
     for omega, step in breaks:
         if groups and omega <= groups[-1][0] * (1.0 + 1e-9):
             groups[-1] = (groups[-1][0], groups[-1][1] + step)
         else:
             groups.append((omega, step))
-    slope = e0
     flats: list[tuple[float, float]] = []
     turns: list[float] = []
+    if e0 == 0:
+        flats.append((0.0, groups[0][0] if groups else math.inf))
+    slope = e0
     for index, (omega, step) in enumerate(groups):
         before = slope
         slope += step
-        if slope == 0 and index + 1 < len(groups):
-            flats.append((omega, groups[index + 1][0]))
+        following = groups[index + 1][0] if index + 1 < len(groups) else math.inf
+        if slope == 0 and step == 0 and flats and flats[-1][1] == omega:
+            flats[-1] = (flats[-1][0], following)  # a notch's zeros and poles at one frequency
+        elif slope == 0:
+            flats.append((omega, following))
         elif before > 0 and slope < 0:
             turns.append(omega)
-    if flats:
-        low, high = max(flats, key=lambda item: _asymptote_log(model, math.sqrt(item[0] * item[1])))
-        return math.sqrt(low * high), low, high
-    if turns:
-        return max(turns, key=lambda omega: _asymptote_log(model, omega)), None, None
-    candidates = [omega for omega, _ in groups] or [model.scale_rad_s]
-    return max(candidates, key=lambda omega: _asymptote_log(model, omega)), None, None
+    return flats, turns
+
+
+def _stretch_level(model: Any, stretch: tuple[float, float]) -> float:
+    """ln of the asymptote's gain on a flat stretch (the same anywhere on it)."""
+    low, high = stretch
+    omega = high / 10.0 if low == 0.0 else low * 10.0 if math.isinf(high) else math.sqrt(low * high)
+    return _asymptote_log(model, omega)
 
 
 def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandReference:
     """The pass-band gain of a response, by the trade's definitions (DESIGN 3.5).
 
-    The shape comes from the pole/zero model: with |H| ~ ω^e0 at low and ~ ω^e∞ at high
-    frequencies (e0 = zeros at s = 0 minus poles at s = 0, e∞ = zeros minus poles),
+    The pass band is the flat stretch of the response's Bode asymptote (from its pole/zero
+    model) with the highest gain (among stretches within 3 dB of the highest, the widest, so that
+    near-cancelling pole/zero doublets cannot move it):
 
-    - e0 = 0, e∞ < 0: low-pass; the reference is the DC gain;
-    - e0 > 0, e∞ = 0: high-pass; the high-frequency gain |K|;
-    - e0 > 0, e∞ < 0: band-pass; the mid-band gain, read where the Bode asymptote is flat (its
-      geometric centre, or the centre frequency of a narrow band-pass), or at ``ref_hz`` when
-      that lies in the flat stretch at least a decade from both of its ends;
-    - e0 = 0, e∞ = 0: flat at both ends (band-stop, all-pass, shelf); the end with the higher
-      gain (DC on a tie);
-    - e0 = 0, e∞ > 0: rising without bound; the DC gain;
-    - otherwise (a pole at s = 0, or no flat end at all) the shape has no pass-band gain of its
-      own: the gain at ``ref_hz`` when given, else no reference.
+    - the stretch from DC (a low-pass, or the higher end of a band-stop or shelf): the DC gain;
+    - the stretch to infinite frequency (a high-pass): the high-frequency gain |K|;
+    - a stretch between two breaks (a band-pass): the mid-band gain, read at the stretch's
+      geometric centre, or at ``ref_hz`` when that lies in the stretch at least two decades from
+      both of its ends; a narrow band-pass, whose asymptote rises straight into falling, has its
+      mid-band at that break (the centre frequency).
 
-    ``ref_hz`` is never used for a low-pass or high-pass: their corners are 3 dB below the DC
-    or high-frequency gain whatever ``ref_hz`` says; the note says so.
+    So an op-amp stage whose gain falls to a tiny floor far above its band (the signal fed
+    through its feedback network and output resistance) is still a low- or band-pass. A pole at
+    s = 0 (an integrator), or a gain rising without bound above zeros at s = 0, gives no
+    pass-band gain of its own: the gain at ``ref_hz`` is used when given, else there is no
+    reference. ``ref_hz`` is never used for a low-pass or high-pass: their corners are 3 dB
+    below the DC or high-frequency gain whatever ``ref_hz`` says; the note says so.
+
+    Where the model's zeros are ill-conditioned (deep chains, ``fit_error``), the end slopes come
+    from exact solves far outside the roots and a band-pass's mid-band gain is its largest.
 
     References
     ----------
@@ -455,49 +465,63 @@ def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandR
                                  f"the gain at ref_hz: a {shape} response has no pass-band gain of its own "
                                  f"({because})")
 
+    def at_dc(shape: str) -> PassbandReference:
+        words = {"low-pass": "the DC gain of a low-pass shape",
+                 "rising": "the DC gain: the gain rises without bound at high frequencies"}.get(
+                     shape, "the DC gain, the higher flat end")
+        return PassbandReference("dc", 0.0, _dc_gain_db(analysis), shape, words + unused)
+
+    def at_hf(shape: str) -> PassbandReference:
+        words = ("the high-frequency gain of a high-pass shape" if shape == "high-pass"
+                 else "the high-frequency gain, the higher flat end")
+        return PassbandReference("hf", None, _hf_gain_db(analysis, from_model), shape, words + unused)
+
+    def midband(f_mid: float, gain_db: float, where: str) -> PassbandReference:
+        note = f"the mid-band gain of a band-pass shape, at {where}"
+        if ref_hz is not None:
+            note += (f"; ref_hz ({format_value(ref_hz, 'Hz')}) is not used: it does not lie two decades or "
+                     "more inside a flat mid-band")
+        return PassbandReference("midband", f_mid, gain_db, "band-pass", note)
+
     if e0 < 0:
         return at_ref_hz("integrating", "a pole at s = 0: the gain grows without bound towards DC")
-    if e0 == 0:
-        dc_db = _dc_gain_db(analysis)
-        if e_inf < 0:
-            return PassbandReference("dc", 0.0, dc_db, "low-pass", f"the DC gain of a low-pass shape{unused}")
-        if e_inf > 0:
-            return PassbandReference("dc", 0.0, dc_db, "rising",
-                                     f"the DC gain: the gain rises without bound at high frequencies{unused}")
-        hf_db = _hf_gain_db(analysis, from_model)
-        if hf_db > dc_db + 1e-9:
-            return PassbandReference("hf", None, hf_db, "flat at both ends",
-                                     f"the high-frequency gain, the higher of the two flat ends{unused}")
-        return PassbandReference("dc", 0.0, dc_db, "flat at both ends",
-                                 f"the DC gain, the higher (or equal) of the two flat ends{unused}")
-    if e_inf == 0:
-        return PassbandReference("hf", None, _hf_gain_db(analysis, from_model), "high-pass",
-                                 f"the high-frequency gain of a high-pass shape{unused}")
-    if e_inf > 0:
+    if e0 > 0 and e_inf > 0:
         return at_ref_hz("rising", "zeros at s = 0 and a gain rising without bound")
-    # Band-pass.
     if not from_model:
+        if e0 == 0:
+            return at_dc("low-pass" if e_inf < 0 else "rising" if e_inf > 0 else "flat at both ends")
+        if e_inf == 0:
+            return at_hf("high-pass")
         f_peak, peak_db = _peak(analysis)
-        return PassbandReference("midband", f_peak, peak_db, "band-pass",
-                                 "the largest gain in the band: this response's zeros are ill-conditioned, so its "
-                                 f"mid-band is taken at its maximum instead of from the pole/zero model{unused}")
-    omega_mid, flat_low, flat_high = _midband(model, e0)
-    if (ref_hz is not None and flat_low is not None and flat_high is not None
-            and flat_low * MIDBAND_MARGIN <= TWO_PI * ref_hz <= flat_high / MIDBAND_MARGIN):
+        return midband(f_peak, peak_db, "its largest gain in the band (this response's zeros are ill-conditioned, "
+                                        "so its mid-band is not taken from the pole/zero model)")
+    flats, turns = _stretches(model, e0)
+    if not flats:
+        omega = max(turns, key=lambda item: _asymptote_log(model, item)) if turns else model.scale_rad_s
+        return midband(omega / TWO_PI, gain_db_at(analysis, omega / TWO_PI), "its centre frequency")
+    # The pass band: among the stretches within 3 dB of the highest, the widest (in decades; an
+    # end reaching DC or infinity counts as endless; on a tie the lower one). Near-cancelling
+    # pole/zero doublets cut a flat stretch into pieces that differ by a hair; they do not move it.
+    levels = [_stretch_level(model, stretch) for stretch in flats]
+    top = max(levels)
+    candidates = [stretch for stretch, level in zip(flats, levels, strict=True)
+                  if level >= top - HALF_POWER_DB * math.log(10.0) / 20.0]
+
+    def width(stretch: tuple[float, float]) -> float:
+        low_end, high_end = stretch
+        return math.inf if low_end == 0.0 or math.isinf(high_end) else math.log10(high_end / low_end)
+
+    low, high = max(candidates, key=width)
+    if low == 0.0:
+        return at_dc("low-pass" if e_inf < 0 else "rising" if e_inf > 0 else "flat at both ends")
+    if math.isinf(high):
+        return at_hf("high-pass" if e0 > 0 else "flat at both ends")
+    band = f"{format_value(low / TWO_PI, 'Hz')}–{format_value(high / TWO_PI, 'Hz')}"
+    if ref_hz is not None and low * MIDBAND_MARGIN <= TWO_PI * ref_hz <= high / MIDBAND_MARGIN:
         return PassbandReference("ref_hz", ref_hz, gain_db_at(analysis, ref_hz), "band-pass",
-                                 "the mid-band gain read at ref_hz, which lies in the flat mid-band "
-                                 f"({format_value(flat_low / TWO_PI, 'Hz')}–{format_value(flat_high / TWO_PI, 'Hz')})")
-    f_mid = omega_mid / TWO_PI
-    if flat_low is not None and flat_high is not None:
-        where = (f"the centre of its flat mid-band ({format_value(flat_low / TWO_PI, 'Hz')}–"
-                 f"{format_value(flat_high / TWO_PI, 'Hz')})")
-    else:
-        where = "its centre frequency"
-    note = f"the mid-band gain of a band-pass shape, at {where}"
-    if ref_hz is not None:
-        note += (f"; ref_hz ({format_value(ref_hz, 'Hz')}) is not used: it does not lie a decade or more inside "
-                 "a flat mid-band")
-    return PassbandReference("midband", f_mid, gain_db_at(analysis, f_mid), "band-pass", note)
+                                 f"the mid-band gain read at ref_hz, which lies in the flat mid-band ({band})")
+    f_mid = math.sqrt(low * high) / TWO_PI
+    return midband(f_mid, gain_db_at(analysis, f_mid), f"the centre of its flat mid-band ({band})")
 
 
 def _hf_gain_db(analysis: StageAnalysis, from_model: bool) -> float:
