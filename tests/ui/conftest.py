@@ -48,3 +48,14 @@ def window(qtbot, sample_path: Path) -> Iterator[object]:  # type: ignore[no-unt
     created = make_window(qtbot, sample_path)
     yield created
     created.shutdown()
+
+
+def type_into(qtbot, field, text: str) -> None:  # type: ignore[no-untyped-def]
+    """Select what a line edit holds and type over it, as a user does."""
+    from PySide6.QtCore import Qt
+
+    field.setFocus()
+    field.selectAll()
+    qtbot.keyClick(field, Qt.Key.Key_Backspace)
+    if text:
+        qtbot.keyClicks(field, text)

@@ -9,18 +9,10 @@ from typing import Any
 import numpy as np
 import pytest
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QDialog, QFileDialog, QLineEdit
+from PySide6.QtWidgets import QDialog, QFileDialog
 
+from conftest import type_into
 from stagewise.review.metrics import METRICS
-
-
-def type_into(qtbot, field: QLineEdit, text: str) -> None:  # type: ignore[no-untyped-def]
-    """Select what the field holds and type over it, as a user does."""
-    field.setFocus()
-    field.selectAll()
-    qtbot.keyClick(field, Qt.Key.Key_Backspace)
-    if text:
-        qtbot.keyClicks(field, text)
 
 
 def press_ok(qtbot, dialog: Any) -> None:  # type: ignore[no-untyped-def]

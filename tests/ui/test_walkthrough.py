@@ -10,17 +10,11 @@ from pathlib import Path
 import pypdf
 import pytest
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QFileDialog, QLineEdit
+from PySide6.QtWidgets import QFileDialog
 
+from conftest import type_into
 from stagewise.files.project_file import load_project
 from stagewise.review.audit import verify_trail
-
-
-def type_into(qtbot, field: QLineEdit, text: str) -> None:  # type: ignore[no-untyped-def]
-    field.setFocus()
-    field.selectAll()
-    qtbot.keyClick(field, Qt.Key.Key_Backspace)
-    qtbot.keyClicks(field, text)
 
 
 def press(qtbot, window, key: Qt.Key, modifiers: Qt.KeyboardModifier) -> None:  # type: ignore[no-untyped-def]

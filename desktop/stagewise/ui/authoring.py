@@ -40,6 +40,7 @@ from stagewise.model.project import Check, Converter, InputDrive, OpampModel, Pr
 from stagewise.model.values import Quantity, ValueSyntaxError, format_value
 from stagewise.review.metrics import METRICS, WHERE_VALUES
 from stagewise.review.words import WHERE_WORDS
+from stagewise.ui.dialogs import FormDialog
 from stagewise.ui.document import EditRefused
 
 __all__ = [
@@ -102,12 +103,11 @@ def format_roots(roots: list[Quantity | tuple[Quantity, Quantity]]) -> str:
     return ", ".join(f"{root[0].raw} Q{root[1].raw}" if isinstance(root, tuple) else str(root.raw) for root in roots)
 
 
-class _ApplyDialog(QDialog):
+class _ApplyDialog(FormDialog):
     """OK hands :meth:`result_value` to ``apply``; a refusal is shown and the dialog stays open."""
 
     def __init__(self, title: str, intro: str, apply: Apply, parent: QWidget | None = None) -> None:
-        super().__init__(parent)
-        self.setWindowTitle(title)
+        super().__init__(title, intro, parent)
         self._apply = apply
         self.body = QVBoxLayout()
         self.problem = QLabel("")
@@ -116,17 +116,10 @@ class _ApplyDialog(QDialog):
         self.problem.setStyleSheet("color: #a4262c;")
         self.problem.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
         self.problem.hide()
-        self.buttons = QDialogButtonBox(QDialogButtonBox.StandardButton.Ok | QDialogButtonBox.StandardButton.Cancel)
-        self.buttons.accepted.connect(self.accept)
-        self.buttons.rejected.connect(self.reject)
-        layout = QVBoxLayout(self)
-        if intro:
-            label = QLabel(intro)
-            label.setWordWrap(True)
-            layout.addWidget(label)
-        layout.addLayout(self.body, 1)
-        layout.addWidget(self.problem)
-        layout.addWidget(self.buttons)
+        layout = self.layout()
+        assert isinstance(layout, QVBoxLayout)
+        layout.insertLayout(layout.indexOf(self.buttons), self.body, 1)
+        layout.insertWidget(layout.indexOf(self.buttons), self.problem)
         self.setMinimumWidth(460)
 
     @property
@@ -144,7 +137,7 @@ class _ApplyDialog(QDialog):
             self.problem.show()
             return
         self.problem.hide()
-        super().accept()
+        QDialog.accept(self)
 
 
 class ProjectDialog(_ApplyDialog):

@@ -30,6 +30,7 @@ __all__ = [
     "AboutDialog",
     "AnswerDialog",
     "CommentDialog",
+    "FormDialog",
     "NewPartDialog",
     "SignoffDialog",
     "TemplateDialog",
@@ -48,7 +49,7 @@ CAUTIONS = (
 )
 
 
-class _Form(QDialog):
+class FormDialog(QDialog):
     """A form with OK/Cancel; OK is enabled only while :meth:`complete` holds."""
 
     def __init__(self, title: str, intro: str, parent: QWidget | None = None) -> None:
@@ -78,7 +79,7 @@ class _Form(QDialog):
             super().accept()
 
 
-class SignoffDialog(_Form):
+class SignoffDialog(FormDialog):
     """Reviewer's name, role, verdict and note for a stage."""
 
     def __init__(self, stage_name: str, name: str = "", role: str = "", parent: QWidget | None = None) -> None:
@@ -130,7 +131,7 @@ def _check_combo(checks: list[Check], selected: str, manual_only: bool = False,
     return combo
 
 
-class WaiverDialog(_Form):
+class WaiverDialog(FormDialog):
     """Waive a check: who, role and a justification (required)."""
 
     def __init__(self, checks: list[Check], selected: str = "", name: str = "", role: str = "",
@@ -162,7 +163,7 @@ class WaiverDialog(_Form):
                 "role": self.role.text().strip(), "justification": self.justification.toPlainText().strip()}
 
 
-class AnswerDialog(_Form):
+class AnswerDialog(FormDialog):
     """Record the answer to a manual check."""
 
     def __init__(self, checks: list[Check], selected: str = "", name: str = "", parent: QWidget | None = None) -> None:
@@ -188,7 +189,7 @@ class AnswerDialog(_Form):
                 "by": self.name.text().strip(), "note": self.note.text().strip()}
 
 
-class CommentDialog(_Form):
+class CommentDialog(FormDialog):
     """A comment on the stage or on one of its checks."""
 
     def __init__(self, checks: list[Check], selected: str = "", name: str = "", parent: QWidget | None = None) -> None:
@@ -216,7 +217,7 @@ class CommentDialog(_Form):
                 "text": self.text.toPlainText().strip()}
 
 
-class NewPartDialog(_Form):
+class NewPartDialog(FormDialog):
     """A new part: type, reference, nodes and value (or op-amp model)."""
 
     def __init__(self, suggest_ref: object, models: list[str], parent: QWidget | None = None) -> None:
@@ -262,7 +263,7 @@ class NewPartDialog(_Form):
                 "model": self.model.currentText()}
 
 
-class TemplateDialog(_Form):
+class TemplateDialog(FormDialog):
     """Choose a stage template (from resources/templates) for a new stage."""
 
     def __init__(self, templates: list[tuple[str, str, str]], parent: QWidget | None = None) -> None:
