@@ -110,13 +110,13 @@ def test_worst_case_equals_exhaustive_corner_enumeration() -> None:
     ref_hz = fc / 1e4
     result = run(rc_divider(r1, t1, r2, t2, c, tc, ref_hz), samples=400, phase_margins=False)
     # Source: H(jω) = R2 / (R1 + R2 + jω·R1·R2·C) (impedances R and 1/(jωC), any circuits text).
-    # Relative to the gain at ref, the −3 dB point is where 1 + (f/fc)² = 2·(1 + (ref/fc)²).
+    # A low-pass corner is 3 dB below the DC gain: at the pole, whatever ref_hz says.
     gains, corners = [], []
     for s1, s2, s3 in itertools.product((-1, 1), repeat=3):  # all 2^3 tolerance corners
         a, b, cap = r1 * (1 + s1 * t1), r2 * (1 + s2 * t2), c * (1 + s3 * tc)
         pole = (a + b) / (TWO_PI * a * b * cap)
         gains.append(20 * math.log10(b / abs(a + b + 1j * TWO_PI * ref_hz * a * b * cap)))
-        corners.append(pole * math.sqrt(1 + 2 * (ref_hz / pole) ** 2))
+        corners.append(pole)
     gain_case = result.worst_case["gain_db"]
     assert gain_case.low == pytest.approx(min(gains), abs=1e-9)
     assert gain_case.high == pytest.approx(max(gains), abs=1e-9)
@@ -166,14 +166,11 @@ def test_low_corner_worst_case_of_a_high_pass_equals_its_corners() -> None:
         {"ref": "R1", "type": "R", "nodes": ["out", "0"], "value": r, "tol": tr},
     ], ref_hz=ref_hz)
     result = run(project, samples=300, phase_margins=False)
-    # Source: H = jωRC/(1 + jωRC) (any circuits text). Relative to ref (x = f/fc, q = ref/fc):
-    # x²/(1 + x²) = q²/(2(1 + q²))  =>  x² = a/(1 − a), a = q²/(2(1 + q²)).
+    # Source: H = jωRC/(1 + jωRC) (any circuits text): a high-pass corner is 3 dB below the
+    # high-frequency gain, at the pole, whatever ref_hz says.
     corners = []
     for s1, s2 in itertools.product((-1, 1), repeat=2):
-        pole = 1 / (TWO_PI * r * (1 + s2 * tr) * c * (1 + s1 * tc))
-        q = ref_hz / pole
-        a = q**2 / (2 * (1 + q**2))
-        corners.append(pole * math.sqrt(a / (1 - a)))
+        corners.append(1 / (TWO_PI * r * (1 + s2 * tr) * c * (1 + s1 * tc)))
     case = result.worst_case["f_low_3db_hz"]
     assert case.low == pytest.approx(min(corners), rel=1e-8)
     assert case.high == pytest.approx(max(corners), rel=1e-8)
@@ -205,3 +202,19 @@ def test_phase_margin_of_each_sample_matches_stability_margins() -> None:
         assert margins[row] == pytest.approx(pm, abs=1e-6)
     spread = result.metrics["phase_margin_deg:U1"]
     assert spread.minimum is not None and spread.maximum is not None and spread.minimum < spread.maximum
+
+
+def test_spread_corners_are_taken_against_the_pass_band_like_the_nominal_analysis() -> None:
+    # Source: first-order corner 1/(2πRC) (any circuits text): with ref_hz = 1 kHz beyond a 159 Hz corner,
+    # each sample's corner is still its own pole, 3 dB below its DC gain, and peaking over DC is zero.
+    r, c, tol = 1e3, 1e-6, 0.05
+    project = make_project([
+        {"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": r, "tol": tol},
+        {"ref": "C1", "type": "C", "nodes": ["out", "0"], "value": c},
+    ], ref_hz=1000, seed=4)
+    result = run(project, samples=200, phase_margins=False)
+    corner = result.metrics["f_high_3db_hz"]
+    assert corner.nominal == pytest.approx(1 / (TWO_PI * r * c), rel=1e-9)
+    assert corner.minimum >= 1 / (TWO_PI * r * (1 + tol) * c) * (1 - 1e-9)
+    assert corner.maximum <= 1 / (TWO_PI * r * (1 - tol) * c) * (1 + 1e-9)
+    assert result.metrics["peaking_db"].maximum == pytest.approx(0.0, abs=1e-9)

@@ -16,11 +16,14 @@ the nominal matrix (shared by all samples), per sample and frequency one (terms 
 all in batched LAPACK calls chunked over samples to bound memory. Parts on the same node pair
 (R ∥ C) share one term. No Python loop runs per sample or per frequency.
 
-Metrics per sample: ``gain_db`` at the reference (``settings.ref_hz``, else the nominal band
-maximum, the same frequency for every sample); ``peak_gain_db`` the largest gain on the grid
-(not refined between points); ``peaking_db`` peak minus reference gain; ``f_low_3db_hz`` and
-``f_high_3db_hz`` the half-power points (10·log10 2 ≈ 3.0103 dB below the reference gain)
-nearest the reference on either side; ``phase_margin_deg`` of every finite op-amp, on a window
+Metrics per sample: ``gain_db`` at ``settings.ref_hz`` (else the nominal band maximum, the same
+frequency for every sample); ``peak_gain_db`` the largest gain on the grid (not refined between
+points); ``peaking_db`` peak minus the sample's pass-band gain; ``f_low_3db_hz`` and
+``f_high_3db_hz`` the half-power points (10·log10 2 ≈ 3.0103 dB below the pass-band gain)
+nearest the pass band on either side. The pass-band gain is read where the nominal circuit's
+pass-band reference is (``metrics.passband_reference``: DC for a low-pass, far above every root
+for a high-pass, the mid-band or ``ref_hz`` frequency otherwise), so the spread's corners are
+the same figures as the nominal analysis's; ``phase_margin_deg`` of every finite op-amp, on a window
 of half a decade either side of its nominal crossover. Corners and crossovers are bracketed on
 the grid, then refined per sample in ln f to 1e-10: the first point interpolated from the four
 grid values around the bracket (inverse cubic), then a Newton step with that cubic's slope,
@@ -683,28 +686,78 @@ class SpreadResult:
     notes: tuple[str, ...] = field(default_factory=tuple)
 
 
+@dataclass(frozen=True, slots=True)
+class Passband:
+    """Where each sample's pass-band gain is read (the nominal's pass-band reference kind).
+
+    ``kind`` is ``"dc"`` (read at ``f_hz``, far below every root: the DC gain; no lower corner),
+    ``"hf"`` (far above every root: the high-frequency gain; no upper corner) or ``"at"`` (the
+    mid-band or ``ref_hz`` frequency ``f_hz``), as :func:`stagewise.engine.metrics.passband_reference`
+    decides for the nominal circuit.
+    """
+
+    kind: str
+    f_hz: float
+
+
+def nominal_passband(system: StageSystem, project: Project, current_drive: bool,
+                     f_hz: NDArray[np.float64]) -> Passband | None:
+    """The nominal circuit's pass-band reference as a :class:`Passband` (None when it has none)."""
+    from stagewise.engine.metrics import passband_reference  # noqa: PLC0415
+    from stagewise.engine.stage import analyze_system  # noqa: PLC0415
+
+    analysis = analyze_system(drive(system, current_drive), f_hz)
+    reference = passband_reference(analysis, project.settings)
+    if reference.kind is None or analysis.model is None:
+        return None
+    roots = np.abs(np.concatenate([analysis.model.poles_rad_s, analysis.model.zeros_rad_s])) / (2.0 * math.pi)
+    roots = roots[roots > 0]
+    if reference.kind == "dc":
+        low = min(float(np.min(roots)) if roots.size else float(f_hz[0]), float(f_hz[0]))
+        return Passband("dc", low * 1e-6)
+    if reference.kind == "hf":
+        high = max(float(np.max(roots)) if roots.size else float(f_hz[-1]), float(f_hz[-1]))
+        return Passband("hf", high * 1e6)
+    return Passband("at", float(reference.f_hz or f_hz[0]))
+
+
 def _evaluate_samples(
     model: ToleranceModel, multipliers: NDArray[np.float64], f_hz: NDArray[np.float64], ref_hz: float,
     extra_f_hz: NDArray[np.float64], loop_grids: dict[str, tuple[NDArray[np.float64], float]],
+    passband: Passband | None = None,
 ) -> SpreadSamples:
-    """All metrics of all samples: one batched sweep, then batched corner and crossover refinement."""
+    """All metrics of all samples: one batched sweep, then batched corner and crossover refinement.
+
+    Corners and peaking are taken against each sample's pass-band gain where ``passband`` is
+    given (read where the nominal's reference is), else against the gain at ``ref_hz``.
+    """
     count = multipliers.shape[0]
-    grid = np.concatenate([f_hz, [ref_hz], extra_f_hz])
+    pass_f = [] if passband is None else [passband.f_hz]
+    grid = np.concatenate([f_hz, [ref_hz], extra_f_hz, pass_f])
     response_all = sampled_response(model, multipliers, grid)
     response = response_all[:, : f_hz.size]
     ref_response = response_all[:, f_hz.size]
-    extra = response_all[:, f_hz.size + 1:]
+    extra = response_all[:, f_hz.size + 1: f_hz.size + 1 + extra_f_hz.size]
     with np.errstate(divide="ignore"):
         mag_db = 20.0 * np.log10(np.abs(response))
         gain_db = 20.0 * np.log10(np.abs(ref_response))
+        pass_db = gain_db if passband is None else 20.0 * np.log10(np.abs(response_all[:, -1]))
     peak = np.max(mag_db, axis=1)
-    ref_index = int(np.argmin(np.abs(np.log(f_hz / ref_hz))))
-    (lo_a, lo_b, lv_a, lv_b), (hi_a, hi_b, hv_a, hv_b) = corners_3db(f_hz, mag_db, ref_index, gain_db)
+    if passband is None or passband.kind == "at":
+        anchor = ref_hz if passband is None else passband.f_hz
+        ref_index = int(np.argmin(np.abs(np.log(f_hz / anchor))))
+    else:
+        ref_index = 0 if passband.kind == "dc" else f_hz.size - 1
+    (lo_a, lo_b, lv_a, lv_b), (hi_a, hi_b, hv_a, hv_b) = corners_3db(f_hz, mag_db, ref_index, pass_db)
+    if passband is not None and passband.kind == "dc":
+        lo_a = np.full_like(lo_a, np.nan)  # the pass band reaches DC: no lower corner
+    if passband is not None and passband.kind == "hf":
+        hi_a = np.full_like(hi_a, np.nan)  # the pass band reaches infinity: no upper corner
 
     dense = _DenseCache(model, multipliers)
     ln_f = np.log(f_hz)
     with np.errstate(invalid="ignore"):
-        excess_grid = mag_db - (gain_db[:, None] - HALF_POWER_DB)
+        excess_grid = mag_db - (pass_db[:, None] - HALF_POWER_DB)
     # Both corners of every sample refined together: one batched solve per step.
     low_rows, high_rows = np.flatnonzero(np.isfinite(lo_a)), np.flatnonzero(np.isfinite(hi_a))
     rows = np.concatenate([low_rows, high_rows])
@@ -713,7 +766,7 @@ def _evaluate_samples(
     found = np.zeros(0)
     if rows.size:
         g, c = dense.matrices()
-        target = gain_db[rows] - HALF_POWER_DB
+        target = pass_db[rows] - HALF_POWER_DB
         output = _unit(model.size, model.output)
 
         def excess(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -730,7 +783,7 @@ def _evaluate_samples(
     margins = _sampled_phase_margins(model, multipliers, dense, loop_grids)
     return SpreadSamples(
         multipliers=multipliers, f_hz=f_hz, response=response, ref_hz=ref_hz, gain_db=gain_db,
-        peak_gain_db=peak, peaking_db=np.maximum(peak - gain_db, 0.0),
+        peak_gain_db=peak, peaking_db=np.maximum(peak - pass_db, 0.0),
         f_low_3db_hz=corners[0], f_high_3db_hz=corners[1], phase_margin_deg=margins,
         extra_f_hz=extra_f_hz, extra_response=extra,
     )
@@ -1030,9 +1083,10 @@ def monte_carlo(
     else:
         nominal_sweep = sampled_response(model, nominal_only, f_hz)[0]
         ref_hz = float(f_hz[int(np.argmax(np.abs(nominal_sweep)))])
+    passband = nominal_passband(system, project, current_drive, f_hz)
     multipliers = sample_multipliers(model.tol, count, seed_value, law)
     everything = np.vstack([nominal_only, multipliers])
-    evaluated = _evaluate_samples(model, everything, f_hz, ref_hz, extra, loop_grids)
+    evaluated = _evaluate_samples(model, everything, f_hz, ref_hz, extra, loop_grids, passband)
     nominal, sampled = _split(evaluated, 1)
     mag_db = 20.0 * np.log10(np.abs(sampled.response))
     phase_deg = np.degrees(np.unwrap(np.angle(sampled.response), axis=1))
@@ -1051,7 +1105,7 @@ def monte_carlo(
             "phase_margin_deg", "deg", float(nominal.phase_margin_deg[ref][0]), values, levels)
     worst: dict[str, WorstCase] = {}
     if worst_case and model.refs:
-        worst = _worst_cases(model, f_hz, ref_hz, nominal, sampled)
+        worst = _worst_cases(model, f_hz, ref_hz, nominal, sampled, passband)
     yield_pct: float | None = None
     yield_why: str | None = "no check applies to the spread"
     passes: list[tuple[str, float]] = []
@@ -1101,14 +1155,15 @@ def _split(evaluated: SpreadSamples, head: int) -> tuple[SpreadSamples, SpreadSa
 
 
 def _worst_cases(model: ToleranceModel, f_hz: NDArray[np.float64], ref_hz: float,
-                 nominal: SpreadSamples, sampled: SpreadSamples) -> dict[str, WorstCase]:
+                 nominal: SpreadSamples, sampled: SpreadSamples, passband: Passband | None = None
+                 ) -> dict[str, WorstCase]:
     """Sensitivity signs by central differences (batched), then the two vertices per metric."""
     parts = len(model.refs)
     steps = np.ones((2 * parts, parts))
     steps[np.arange(parts), np.arange(parts)] += SENSITIVITY_STEP
     steps[parts + np.arange(parts), np.arange(parts)] -= SENSITIVITY_STEP
     none: NDArray[np.float64] = np.zeros(0)
-    probed = _evaluate_samples(model, steps, f_hz, ref_hz, none, {})
+    probed = _evaluate_samples(model, steps, f_hz, ref_hz, none, {}, passband)
     signs: dict[str, NDArray[np.float64]] = {}
     sensitivities: dict[str, NDArray[np.float64]] = {}
     vertices: list[NDArray[np.float64]] = []
@@ -1122,7 +1177,8 @@ def _worst_cases(model: ToleranceModel, f_hz: NDArray[np.float64], ref_hz: float
         vertices.append(1.0 - model.tol * signs[key])  # the low vertex
         vertices.append(1.0 + model.tol * signs[key])  # the high vertex
     results: dict[str, WorstCase] = {}
-    evaluated = _evaluate_samples(model, np.array(vertices).reshape(-1, parts), f_hz, ref_hz, none, {}) if keys else None
+    evaluated = (_evaluate_samples(model, np.array(vertices).reshape(-1, parts), f_hz, ref_hz, none, {}, passband)
+                 if keys else None)
     for number, key in enumerate(keys):
         assert evaluated is not None
         values = evaluated.metric(key)
