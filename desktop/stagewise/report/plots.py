@@ -37,6 +37,7 @@ __all__ = [
     "ResponseTrace",
     "bars_plot",
     "legend_text",
+    "pole_zero_caption",
     "pole_zero_plot",
     "render_plot",
     "response_plot",
@@ -240,34 +241,63 @@ def _add_limits(plot: pg.PlotItem, limits: Sequence[Limit], traces: Sequence[Res
         plot.addItem(text, ignoreBounds=True)
 
 
-def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex],
+def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex], f_top_hz: float,
                    style: PlotStyle = PRINT) -> pg.GraphicsLayoutWidget:
-    """Poles (×, blue) and zeros (○, vermillion) in the s-plane, axes in rad/s with SI prefixes."""
+    """Poles (×, blue) and zeros (○, vermillion) on the program's signed logarithmic radius.
+
+    The frame is :func:`stagewise.present.framing.pole_zero_frame`, as in the program: every root
+    from the lowest to ``f_top_hz`` (the analysis band's top) in view, decade rings labelled in
+    hertz, roots above the top on a dashed edge ring (:func:`pole_zero_caption` says so).
+    """
+    from stagewise.present.framing import pole_zero_frame
+
     widget = pg.GraphicsLayoutWidget()
     widget.setBackground(style.background)
     plot = widget.addPlot(enableMenu=False)  # no context menu: nobody clicks on paper
     _style_axes(plot, style)
-    for name in ("left", "bottom"):
-        plot.getAxis(name).enableAutoSIPrefix(True)
-    _label(plot, "bottom", "real part σ (rad/s)", style)
-    _label(plot, "left", "imaginary part ω (rad/s)", style)
-    values = [complex(v) for v in list(poles_rad_s) + list(zeros_rad_s)]
-    extent = max([abs(v.real) for v in values] + [abs(v.imag) for v in values] + [0.0]) * 1.15 or 1.0
-    plot.addLine(x=0, pen=pg.mkPen(style.foreground, width=0.6, style=Qt.PenStyle.DashLine))
-    plot.addLine(y=0, pen=pg.mkPen(style.foreground, width=0.6, style=Qt.PenStyle.DashLine))
+    plot.showGrid(x=False, y=False)
+    plot.hideAxis("bottom")
+    plot.hideAxis("left")
+    plot.setAspectLocked(True)
+    frame = pole_zero_frame(list(poles_rad_s), list(zeros_rad_s), f_top_hz)
+    angles = np.linspace(0.0, 2 * math.pi, 181)
+    for radius, f_hz in frame.rings:
+        plot.plot(radius * np.cos(angles), radius * np.sin(angles), pen=pg.mkPen("#c8c8c8", width=0.6))
+        label = pg.TextItem(format_value(f_hz, "Hz", 3), color="#606060", anchor=(0.5, 1.0))
+        label.setFont(_tick_font(style))
+        label.setPos(0.0, radius)
+        plot.addItem(label, ignoreBounds=True)
+    plot.plot(frame.edge_radius * np.cos(angles), frame.edge_radius * np.sin(angles),
+              pen=pg.mkPen(style.foreground, width=0.6, style=Qt.PenStyle.DashLine))
+    plot.plot([-frame.limit, frame.limit], [0, 0], pen=pg.mkPen(style.foreground, width=0.6))
+    plot.plot([0, 0], [-frame.limit, frame.limit], pen=pg.mkPen(style.foreground, width=0.6))
     # useCache=False: pyqtgraph otherwise stamps symbols from a pixmap atlas, which would put
     # raster images into the PDF; drawn each time they stay vector paths.
-    if poles_rad_s:
-        plot.addItem(pg.ScatterPlotItem([p.real for p in poles_rad_s], [p.imag for p in poles_rad_s], symbol="x",
-                                        size=11, pen=pg.mkPen(trace_style(1).colour, width=1.8), brush=None,
-                                        useCache=False, name="poles"))
-    if zeros_rad_s:
-        plot.addItem(pg.ScatterPlotItem([z.real for z in zeros_rad_s], [z.imag for z in zeros_rad_s], symbol="o",
-                                        size=10, pen=pg.mkPen(trace_style(2).colour, width=1.6), brush=None,
-                                        useCache=False, name="zeros"))
-    plot.setXRange(-extent, max(extent * 0.25, max([v.real for v in values] + [0.0]) * 1.15), padding=0)
-    plot.setYRange(-extent, extent, padding=0)
+    for kind, values, symbol, colour_index in (("poles", poles_rad_s, "x", 1), ("zeros", zeros_rad_s, "o", 2)):
+        if not values:
+            continue
+        x, y, _above = frame.map(values)
+        plot.addItem(pg.ScatterPlotItem(x, y, symbol=symbol, size=11 if symbol == "x" else 10,
+                                        pen=pg.mkPen(trace_style(colour_index).colour, width=1.8), brush=None,
+                                        useCache=False, name=kind))
+    plot.setRange(xRange=(-frame.limit, frame.limit), yRange=(-frame.limit, frame.limit), padding=0)
     return widget
+
+
+def pole_zero_caption(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex], f_top_hz: float) -> str:
+    """How to read :func:`pole_zero_plot`, and how many roots sit on its edge ring."""
+    from stagewise.present.framing import pole_zero_frame
+
+    frame = pole_zero_frame(list(poles_rad_s), list(zeros_rad_s), f_top_hz)
+    far = {kind: int(np.count_nonzero(frame.map(values)[2])) for kind, values in
+           (("poles", poles_rad_s), ("zeros", zeros_rad_s))}
+    caption = (f"Distance from the centre: decades of |s|/2π above {format_value(frame.f_floor_hz, 'Hz')} "
+               "(rings in hertz); direction as in the s-plane, so the angle reads as damping.")
+    counted = [f"{count}\u00a0{kind if count != 1 else kind[:-1]}" for kind, count in far.items() if count]
+    if counted:
+        caption += (f" {' and '.join(counted)} above the analysis band's top "
+                    f"({format_value(f_top_hz, 'Hz')}) on the dashed edge ring.")
+    return caption
 
 
 def step_plot(traces: Sequence[tuple[str, NDArray[np.float64], NDArray[np.float64]]], y_label: str,

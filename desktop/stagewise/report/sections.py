@@ -42,6 +42,7 @@ from stagewise.report.plots import (
     ResponseTrace,
     bars_plot,
     legend_text,
+    pole_zero_caption,
     pole_zero_plot,
     render_plot,
     response_plot,
@@ -742,8 +743,10 @@ def _poles_zeros(entry: dict[str, Any] | None, content: PacketContent) -> list[B
     if poles or zeros:
         pole_values = [complex(p.get("re", 0.0), p.get("im", 0.0)) for p in poles]
         zero_values = [complex(z.get("re", 0.0), z.get("im", 0.0)) for z in zeros]
-        blocks.append(_plot_figure(lambda: pole_zero_plot(pole_values, zero_values), 250.0,
-                                   "s-plane: poles × (blue), zeros ○ (vermillion)."))
+        f_top = content.project.settings.f_max_hz.si
+        caption = pole_zero_caption(pole_values, zero_values, f_top)
+        blocks.append(_plot_figure(lambda: pole_zero_plot(pole_values, zero_values, f_top), 250.0,
+                                   f"Poles × (blue), zeros ○ (vermillion). {caption}"))
     return blocks
 
 

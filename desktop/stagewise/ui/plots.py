@@ -164,6 +164,9 @@ class PlotView(QWidget):
 
     def refresh(self) -> None:
         """Redraw from the latest outcome and the current overlay selection."""
+        for item in self.graphics.ci.items:
+            if isinstance(item, pg.PlotItem) and item.menuEnabled():
+                _no_stock_menu(item)
         self._problems = []
         outcome = self.outcome
         if outcome is not None:
@@ -485,19 +488,33 @@ class StepView(PlotView):
 
 
 class PoleZeroView(PlotView):
-    """Poles (×) and zeros (○) of the selected stage alone and of the chain, with hover values."""
+    """Poles (×) and zeros (○) of the shown traces on a signed logarithmic radius, with hover values.
+
+    Framed by :func:`stagewise.present.framing.pole_zero_frame` (shared with the packet): every
+    root from the lowest to the analysis band's top in view; roots above the top sit on a dashed
+    edge ring, counted in the header line below the plot.
+    """
 
     def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
                  parent: QWidget | None = None) -> None:
         super().__init__(document, worker, overlays, parent)
         self.plot = self.graphics.addPlot()
-        self.plot.showGrid(x=True, y=True, alpha=0.25)
-        self.plot.setLabel("bottom", "Real part σ/2π", units="Hz")
-        self.plot.setLabel("left", "Imaginary part ω/2π", units="Hz")
-        self.plot.addLine(x=0, pen=pg.mkPen("#a0a0a0", width=1))
-        self.plot.addLine(y=0, pen=pg.mkPen("#a0a0a0", width=1))
+        _no_stock_menu(self.plot)
+        self.plot.setAspectLocked(True)
+        self.plot.hideAxis("bottom")
+        self.plot.hideAxis("left")
+        self.axes = [self.plot.plot([], [], pen=pg.mkPen("#a0a0a0", width=1)) for _ in range(2)]
+        self.rings: list[pg.PlotDataItem] = []
+        self.ring_labels: list[pg.TextItem] = []
+        self.edge = self.plot.plot([], [], pen=pg.mkPen("#7a7a7a", width=1, style=Qt.PenStyle.DashLine))
+        self.frame: Any = None
         # Colours as in the response legend; × marks poles and ○ zeros (hover a mark for its value).
         self.scatters: dict[str, pg.ScatterPlotItem] = {}
+        self.scale_note = QLabel(self)
+        self.scale_note.setObjectName("poleZeroScale")
+        self.scale_note.setTextFormat(Qt.TextFormat.PlainText)
+        self.scale_note.setWordWrap(True)
+        self.layout().addWidget(self.scale_note)
         self.refresh()
 
     def _scatter(self, key: str) -> pg.ScatterPlotItem:
@@ -512,8 +529,35 @@ class PoleZeroView(PlotView):
     def _tip(x: float, y: float, data: Any) -> str:
         return str(data)
 
+    def _draw_frame(self, frame: Any) -> None:
+        angles = np.linspace(0.0, 2 * math.pi, 181)
+        while len(self.rings) < len(frame.rings):
+            ring = self.plot.plot([], [], pen=pg.mkPen("#d0d0d0", width=1))
+            label = pg.TextItem("", color="#707070", anchor=(0.5, 1.0))
+            self.plot.addItem(label, ignoreBounds=True)
+            self.rings.append(ring)
+            self.ring_labels.append(label)
+        for index, (ring, label) in enumerate(zip(self.rings, self.ring_labels, strict=True)):
+            if index < len(frame.rings):
+                radius, f_hz = frame.rings[index]
+                ring.setData(radius * np.cos(angles), radius * np.sin(angles))
+                label.setText(format_value(f_hz, "Hz", 3))
+                label.setPos(0.0, radius)
+                ring.setVisible(True)
+                label.setVisible(True)
+            else:
+                ring.setVisible(False)
+                label.setVisible(False)
+        self.edge.setData(frame.edge_radius * np.cos(angles), frame.edge_radius * np.sin(angles))
+        self.axes[0].setData([-frame.limit, frame.limit], [0.0, 0.0])
+        self.axes[1].setData([0.0, 0.0], [-frame.limit, frame.limit])
+        self.plot.setRange(xRange=(-frame.limit, frame.limit), yRange=(-frame.limit, frame.limit), padding=0)
+
     def draw(self) -> None:
+        from stagewise.present.framing import pole_zero_frame
+
         wanted: set[str] = set()
+        shown = []
         for spec in self.specs():
             if spec.view == BASELINE:
                 continue
@@ -522,32 +566,60 @@ class PoleZeroView(PlotView):
                 if self.outcome is not None:
                     self.note(spec.label, computed)
                 continue
-            roots = computed.value
+            shown.append((spec, computed.value))
+        f_top = self.document.project.settings.f_max_hz.si
+        frame = pole_zero_frame([p for _, roots in shown for p in roots.poles_rad_s],
+                                [z for _, roots in shown for z in roots.zeros_rad_s], f_top)
+        self.frame = frame
+        self._draw_frame(frame)
+        off_scale = {"poles": 0, "zeros": 0}
+        for spec, roots in shown:
             for kind, symbol, values in (("poles", "x", roots.poles_rad_s), ("zeros", "o", roots.zeros_rad_s)):
                 key = f"{spec.key}:{kind}"
                 wanted.add(key)
                 item = self._scatter(key)
                 values = np.asarray(values, dtype=complex)
-                x = values.real / (2 * math.pi)
-                y = values.imag / (2 * math.pi)
-                tips = [_root_tip(spec.label, kind[:-1], value) for value in values]
-                brush = None if symbol == "x" else pg.mkBrush(None)
+                x, y, above = frame.map(values)
+                off_scale[kind] += int(np.count_nonzero(above))
+                tips = [_root_tip(spec.label, kind[:-1], value, bool(far), f_top)
+                        for value, far in zip(values, above, strict=True)]
+                brush = pg.mkBrush(spec.style.colour) if symbol == "x" else pg.mkBrush(None)
                 item.setData(x=x, y=y, data=tips, symbol=symbol, size=13,
-                             pen=pg.mkPen(spec.style.colour, width=2), brush=brush or pg.mkBrush(spec.style.colour))
+                             pen=pg.mkPen(spec.style.colour, width=2), brush=brush)
                 item.setVisible(True)
         for key, item in self.scatters.items():
             if key not in wanted:
                 item.setData(x=[], y=[])
                 item.setVisible(False)
+        words = [f"Distance from the centre: decades of |s|/2π above {format_value(frame.f_floor_hz, 'Hz')} "
+                 "(rings in hertz); direction as in the s-plane, so the angle reads as damping."]
+        far = [f"{count} {kind if count != 1 else kind[:-1]}" for kind, count in off_scale.items() if count]
+        if far:
+            words.append(f"{' and '.join(far)} above the band's top ({format_value(f_top, 'Hz')}) drawn on the "
+                         "dashed edge ring.")
+        words.append("Hover a mark for f, Q and ζ.")
+        self.scale_note.setText(" ".join(words))
 
 
-def _root_tip(label: str, kind: str, value: complex) -> str:
-    f_hz = abs(value) / (2 * math.pi)
-    text = f"{label}: {kind} at s = {value.real:.4g} {value.imag:+.4g}j rad/s, |s|/2π = {format_value(f_hz, 'Hz')}"
-    if abs(value.imag) > 1e-12 * abs(value) and value.real != 0:
-        # Q of a complex pair: |s| / (−2·Re s) (second-order section in standard form).
-        text += f", Q = {abs(value) / (-2 * value.real):.3g}"
+def _root_tip(label: str, kind: str, value: complex, off_scale: bool = False, f_top_hz: float = math.inf) -> str:
+    from stagewise.present.framing import root_words
+
+    words = root_words(value)
+    f_hz = float(words["f_hz"] or 0.0)
+    text = f"{label}: {kind} at s = {value.real:.4g} {value.imag:+.4g}j rad/s, f = |s|/2π = {format_value(f_hz, 'Hz')}"
+    if words["q"] is not None and words["zeta"] is not None:
+        # Q and ζ of a complex pair: ζ = −Re s/|s|, Q = 1/(2ζ) (second-order section in standard form).
+        text += f", Q = {words['q']:.3g}, ζ = {words['zeta']:.3g}"
+    if off_scale:
+        text += f" (above the band's top, {format_value(f_top_hz, 'Hz')}: drawn on the edge ring)"
     return text
+
+
+def _no_stock_menu(plot: pg.PlotItem) -> None:
+    """No pyqtgraph right-click menu: its axis and range commands would change the views under
+    the program (the framing is ours; the mouse wheel and drag still zoom and pan)."""
+    plot.setMenuEnabled(False)
+    plot.getViewBox().setMenuEnabled(False)
 
 
 class NoiseView(PlotView):

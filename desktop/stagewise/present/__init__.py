@@ -1,0 +1,1 @@
+"""Presentation helpers without Qt, shared by the program (ui) and the packet (report)."""
