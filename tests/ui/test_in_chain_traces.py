@@ -76,3 +76,25 @@ def test_from_input_column_overlays_the_chain_seen_from_its_drive(window) -> Non
     chain = window.response_view.trace_data("chain")
     assert last is not None and chain is not None
     np.testing.assert_allclose(last[1], chain[1], atol=1e-9)
+
+
+def test_review_panel_names_the_reference_beside_a_corner(qtbot, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    # Common practice, no source: a corner is read against a stated reference; the greenhouse demo's
+    # Sallen-Key low-pass (unity gain, DC gain 1 = 0 dB) has its corner check shown "re DC gain 0.00 dB".
+    import shutil
+
+    from conftest import make_window
+
+    path = tmp_path / "greenhouse.stagewise.json"
+    shutil.copyfile(GREENHOUSE, path)
+    window = make_window(qtbot, path)
+    try:
+        window.document.set_current_stage("lpf")
+        assert window.wait_until_idle(60, formula=False)
+        table = window.review_panel.checks
+        rows = {table.item(row, 0).text(): row for row in range(table.rowCount())}
+        assert "re DC gain 0.00 dB" in table.item(rows["corner"], 3).text()
+        assert "re DC gain 0.00 dB" in table.item(rows["peak"], 3).text()
+        assert "re " not in table.item(rows["pm"], 3).text()  # a phase margin has no pass-band reference
+    finally:
+        window.shutdown()
