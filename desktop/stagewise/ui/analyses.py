@@ -315,20 +315,22 @@ def _metric_provider(project: Project, context: Context) -> Any:
     return _project_analysis(project, context)
 
 
-def _in_chain_analysis(stage: Stage, project: Project, context: Context) -> Any:
-    analysis = _project_analysis(project, context).in_chain(stage.id)
+def _placed_analysis(stage: Stage, project: Project, context: Context, place: str = "in_chain") -> Any:
+    """The stage ``in_chain`` or ``from_input`` from the shared project analysis, with its model."""
+    whole = _project_analysis(project, context)
+    analysis = whole.in_chain(stage.id) if place == "in_chain" else whole.from_input(stage.id)
     why = getattr(analysis, "why", None)
     if why is not None or getattr(analysis, "model", None) is None:
-        raise NotAvailable(why or "no pole/zero model in chain")
+        raise NotAvailable(why or f"no pole/zero model {place.replace('_', ' ')}")
     return analysis
+
+
+def _in_chain_analysis(stage: Stage, project: Project, context: Context) -> Any:
+    return _placed_analysis(stage, project, context)
 
 
 def _from_input_analysis(stage: Stage, project: Project, context: Context) -> Any:
-    analysis = _project_analysis(project, context).from_input(stage.id)
-    why = getattr(analysis, "why", None)
-    if why is not None or getattr(analysis, "model", None) is None:
-        raise NotAvailable(why or "no pole/zero model from the chain input")
-    return analysis
+    return _placed_analysis(stage, project, context, "from_input")
 
 
 def from_input_step(stage: Stage, project: Project, context: Context) -> StepTrace:
