@@ -20,6 +20,9 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent.parent / "desktop"))
+# Before any benchmark module imports numpy: the package sets its BLAS thread count, as the
+# program does when it starts (stagewise/__init__.py).
+import stagewise  # noqa: E402, F401
 
 
 @dataclass

@@ -111,6 +111,40 @@ def _in_chunks(count: int, chunk: int, solve_rows: Callable[[int, int], None], m
     for future in [_pool[0].submit(solve_rows, start, stop) for start, stop in bounds]:
         future.result()  # re-raises a chunk's CircuitError here
 REFINE_STEPS = 12
+# The Monte Carlo's cost bound. Each sample costs about one (terms × terms) solve per frequency
+# (and per loop, for the phase margins): work ≈ samples · frequencies · max(terms, 12)³ · (1 +
+# loops). WORK_BOUND is ten times that of the larger demo (500 samples, 200 frequencies, 16
+# terms, 5 loops: 0.8 s of one core here), so a spread never runs for minutes; past it the
+# samples are reduced, and below MIN_BOUNDED_SAMPLES the spread is refused, saying why.
+WORK_BOUND = 2.5e10
+MIN_BOUNDED_SAMPLES = 100
+
+
+def _bounded_samples(model: ToleranceModel, asked: int, frequencies: int, phase_margins: bool,
+                     notes: list[str]) -> int:
+    """The number of samples within :data:`WORK_BOUND` (``asked`` when it fits; a note when not).
+
+    Raises
+    ------
+    ValueError
+        Fewer than MIN_BOUNDED_SAMPLES samples fit: the circuit is too large for a Monte Carlo.
+    """
+    terms = max(_merged_terms(model)[0].shape[1], 12)
+    loops = len(model.opamps) if phase_margins else 0
+    per_sample = float(frequencies) * float(terms) ** 3 * (1 + loops)
+    fitting = int(WORK_BOUND // per_sample)
+    if fitting >= asked:
+        return asked
+    seconds = asked * per_sample / WORK_BOUND * 8.0
+    if fitting < MIN_BOUNDED_SAMPLES:
+        raise ValueError(f"{asked} Monte Carlo samples of this circuit ({terms} toleranced terms, {frequencies} "
+                         f"frequencies{f', {loops} loops' if loops else ''}) would take about {seconds:.0f} s, and "
+                         f"fewer than {MIN_BOUNDED_SAMPLES} samples fit in the bound of about 8 s; the spread is not "
+                         "computed (the cost grows with the cube of the number of toleranced parts)")
+    notes.append(f"{fitting} of the {asked} samples asked (settings.mc_samples) were drawn: all {asked} would take "
+                 f"about {seconds:.0f} s, past the bound of about 8 s; percentiles and yield are from {fitting} "
+                 "samples")
+    return fitting
 SENSITIVITY_STEP = 1e-4
 METRIC_KEYS = ("gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz", "phase_margin_deg")
 WORST_CASE_KEYS = ("gain_db", "f_low_3db_hz", "f_high_3db_hz")
@@ -1071,6 +1105,7 @@ def monte_carlo(
     f_hz = np.asarray(f_hz, dtype=float)
     model = tolerance_model(system, current_drive=current_drive)
     notes = list(model.notes)
+    count = _bounded_samples(model, count, f_hz.size, phase_margins, notes)
     notes.append("op-amp model parameters are held at nominal")
     if not model.refs:
         notes.append("no part has a tolerance: every sample equals the nominal circuit")
