@@ -178,3 +178,37 @@ def test_converter_headroom_and_an_over_range_finding() -> None:
         assert bool(findings) is over
         if over:
             assert "over-range" in findings[0].sentence
+
+
+def test_yield_counts_every_numeric_check_with_the_same_part_values_everywhere() -> None:
+    from stagewise.engine.spread import monte_carlo
+
+    r_ohm, c_f = 10e3, 15e-9
+    rc = {"id": "rc", "name": "RC", "ports": {"in": "in", "out": "out"},
+          "parts": [{"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": r_ohm, "tol": "5%"},
+                    {"ref": "C1", "type": "C", "nodes": ["out", "0"], "value": c_f, "tol": "10%"}]}
+    fc = 1 / (TWO_PI * r_ohm * c_f)
+    band = {"min": 0.95 * fc, "max": 1.05 * fc}
+    rc["checks"] = [
+        {"id": "corner-chain", "text": "t", "metric": "f_high_3db_hz", "where": "chain", **band},
+        {"id": "corner-alone", "text": "t", "metric": "f_high_3db_hz", "where": "isolated", **band},
+        {"id": "corner-here", "text": "t", "metric": "f_high_3db_hz", "where": "in_chain", **band},
+        {"id": "noise", "text": "t", "metric": "noise_out_rms_v", "where": "chain", "max": 1},
+        {"id": "waived", "text": "t", "metric": "gain_db", "where": "chain", "at_hz": 100, "min": 10,
+         "waiver": {"by": "A. Reviewer", "time": "2026-12-01T00:00:00Z", "justification": "bench value"}},
+    ]
+    project = project_of([rc], settings={"mc_samples": 400})
+    document = ProjectAnalysis(project).spread
+    counts = {item["label"]: item["pass_count"] for item in document["limits"]}
+    assert set(counts) == {"rc/corner-chain", "rc/corner-alone", "rc/corner-here"}
+    skipped = {item["label"]: item["why"] for item in document["not_evaluated"]}
+    assert set(skipped) == {"rc/noise", "rc/waived"} and "waived" in skipped["rc/waived"]
+    # Source: first-order RC corner 1/(2πRC) (any circuits text), for each sample's part values.
+    reference = monte_carlo(ProjectAnalysis(project).merged.system, project, current_drive=False)
+    values = dict(zip(reference.parts, reference.sample_values.multipliers.T, strict=True))
+    corner = fc / (values["rc:R1"] * values["rc:C1"])
+    expected = int(np.count_nonzero((corner >= band["min"]) & (corner <= band["max"])))
+    assert 0 < expected < 400
+    # The same part values in every place: one stage alone, in chain and as the chain agree.
+    assert counts == {"rc/corner-chain": expected, "rc/corner-alone": expected, "rc/corner-here": expected}
+    assert document["yield_pct"] == pytest.approx(100 * expected / 400)

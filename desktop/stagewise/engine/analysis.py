@@ -19,8 +19,8 @@ Every value that cannot be computed is ``None`` with a ``"<key>_why"`` sentence 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
-from functools import cached_property
+from dataclasses import dataclass, replace
+from functools import cached_property, partial
 from pathlib import Path
 from typing import Any
 
@@ -66,8 +66,13 @@ RESPONSE_KEYS = ("gain_db", "peak_gain_db", "peak_hz", "f_low_3db_hz", "f_high_3
 CHAIN_LEVEL_METRICS = frozenset({"noise_out_rms_v", "noise_in_rms", "snr_db", "snr_noise_only_db",
                                  "alias_attenuation_db", "converter_headroom_db", "yield_pct", "headroom_v",
                                  "slew_margin", "swing_margin_v", "slew_margin_pct"})
+# Metrics the spread evaluates in every sample (the others are listed as not evaluated).
+SAMPLED_METRICS = frozenset({"gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz",
+                             "attenuation_db"})
+NOT_SAMPLED = ("the spread samples gains, corners, peaking, attenuation and phase margins; this metric is "
+               "not evaluated per sample")
 # The places of a stage whose stability is a verdict of its own, in the order they are shown.
-STAGE_PLACES = ("isolated", "in_chain")
+STAGE_PLACES = ("isolated", "in_chain", "from_input")
 PLACE_WORDS = {"isolated": "isolated", "in_chain": "in chain", "from_input": "seen from the chain's input",
                "chain": "the whole chain"}
 POINT_KEYS = ("phase_deg", "attenuation_db", "group_delay_s")
@@ -274,6 +279,27 @@ class ProjectAnalysis:
             return _Failure(f'stage "{stage_id}" seen from the chain input: {analysis.why}')
         return analysis
 
+    def _in_chain_system(self, stage_id: str) -> tuple[StageSystem, bool] | _Failure:
+        """The stage with the rest of the chain and the load after it, its own drive at its input,
+        output at its output port; and whether that drive is a current."""
+        active = self.project.active_stages
+        position = next((index for index, item in enumerate(active) if item.id == stage_id), None)
+        if position is None:
+            return _Failure(f'stage "{stage_id}" is bypassed, so it is not in the chain')
+        try:
+            load_r, load_c = load_admittance(self.project)
+        except CircuitError as error:
+            return _Failure(str(error))
+        rest = active[position:]
+        systems = [self._systems[item.id] for item in rest]
+        failed = next((system for system in systems if isinstance(system, _Failure)), None)
+        if failed is not None:
+            return _Failure(failed.why)
+        current = active[position].drive == "current"
+        merged = merge_systems([item.id for item in rest], [s for s in systems if isinstance(s, StageSystem)],
+                               current_drive=current, load_r_ohm=load_r, load_c_f=load_c)
+        return replace(merged.system, output_index=merged.interface_indices[1]), current
+
     def _undefined_in_chain(self, stage_id: str) -> str | None:
         chain = self.chain
         if isinstance(chain, _Failure):
@@ -440,51 +466,157 @@ class ProjectAnalysis:
 
     @cached_property
     def spread(self) -> Any:
-        """Monte Carlo spread of the chain with the yield against the applicable checks."""
+        """Monte Carlo spread of the chain, with the yield against every numeric check.
+
+        Every numeric check is counted where the spread can evaluate it per sample (gains,
+        corners, peaking and attenuation of the chain, of a stage isolated or in chain, and the
+        op-amps' phase margins), each place sampled with the same part values; the others are
+        listed in ``not_evaluated`` with the reason. The yield is the share of samples that meet
+        every counted check; ``limits`` says, per check, how many samples met it.
+        """
         from stagewise.engine.spread import monte_carlo, spread_to_json  # noqa: PLC0415
 
         merged = self.merged
         if isinstance(merged, _Failure):
             return merged
-        limits, basis = self._yield_limits(merged)
+        plan, skipped = self._yield_plan()
+        chain_limits = plan.pop(("chain", ""), [])
         try:
-            result = monte_carlo(merged.system, self.project, current_drive=merged.current_drive, limits=limits)
+            result = monte_carlo(merged.system, self.project, current_drive=merged.current_drive,
+                                 limits=chain_limits)
         except (ValueError, np.linalg.LinAlgError) as error:
             return _Failure(f"the spread analysis failed: {error}")
         document = spread_to_json(result)
-        document["yield_basis"] = basis
-        if not basis and document.get("yield_pct") is None:
-            document["yield_pct_why"] = ("no numeric check of the project applies to the whole chain's gain, "
-                                         "corners or phase margins, so there is nothing to count a yield against")
+        counted: list[tuple[str, Any]] = []
+        for limit in chain_limits:
+            self._count(limit, result.sample_values, counted, skipped)
+        by_ref = dict(zip(result.parts, result.sample_values.multipliers.T, strict=True))
+        for (where, stage_id), limits in plan.items():
+            place = self._place_samples(where, stage_id, by_ref, limits)
+            if isinstance(place, _Failure):
+                skipped += [(limit.label, place.why) for limit in limits]
+                continue
+            for limit in limits:
+                self._count(limit, place, counted, skipped)
+        samples = result.samples
+        all_met = np.ones(samples, dtype=bool)
+        per_check: dict[str, Any] = {}
+        for label, met in counted:  # a check with several op-amps is met when all of them are
+            per_check[label] = met if label not in per_check else per_check[label] & met
+        for met in per_check.values():
+            all_met &= met
+        document["limits"] = [{"label": label, "pass_count": int(np.count_nonzero(met)),
+                               "pass_pct": 100.0 * float(np.mean(met))} for label, met in per_check.items()]
+        document["not_evaluated"] = [{"label": label, "why": reason} for label, reason in skipped]
+        document["yield_basis"] = list(per_check)
+        if per_check:
+            document["yield_pct"] = 100.0 * float(np.mean(all_met))
+            document.pop("yield_pct_why", None)
+        else:
+            document["yield_pct"] = None
+            document["yield_pct_why"] = ("no numeric check of the project can be evaluated per sample"
+                                         + ("" if not skipped else f" ({len(skipped)} listed under not_evaluated)"))
         return document
 
-    def _yield_limits(self, merged: MergedChain) -> tuple[list[Any], list[str]]:
+    @staticmethod
+    def _count(limit: Any, samples: Any, counted: list[tuple[str, Any]], skipped: list[tuple[str, str]]) -> None:
+        try:
+            counted.append((limit.label, limit.met(samples)))
+        except KeyError as error:
+            skipped.append((limit.label, str(error.args[0]) if error.args else "not sampled"))
+
+    def _place_samples(self, where: str, stage_id: str, by_ref: dict[str, Any], limits: list[Any]) -> Any:
+        """The per-sample metrics of a stage isolated or in chain, with the chain's part values."""
+        from stagewise.engine.spread import monte_carlo  # noqa: PLC0415
+
+        stage = self.project.stage(stage_id)
+        assert stage is not None
+        if stage.bypass:
+            return _Failure(f'stage "{stage_id}" is bypassed: its parts are not sampled with the chain')
+        if where == "isolated":
+            system = self._systems[stage_id]
+            if isinstance(system, _Failure):
+                return system
+            current, prefix = stage.drive == "current", f"{stage_id}:"
+        elif where == "from_input":
+            merged = self.merged
+            if isinstance(merged, _Failure):
+                return merged
+            output = merged.interface_indices[merged.stage_ids.index(stage_id) + 1]
+            system, current, prefix = replace(merged.system, output_index=output), merged.current_drive, ""
+        else:
+            built = self._in_chain_system(stage_id)
+            if isinstance(built, _Failure):
+                return built
+            system, current, prefix = built[0], built[1], ""
+        mapped = {ref[len(prefix):]: values for ref, values in by_ref.items() if ref.startswith(prefix)}
+        try:
+            result = monte_carlo(system, self.project, current_drive=current, limits=limits, worst_case=False,
+                                 phase_margins=any(limit.metric == "phase_margin_deg" for limit in limits),
+                                 multipliers_by_ref=mapped)
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return _Failure(f"the spread of stage \"{stage_id}\" {PLACE_WORDS[where]} failed: {error}")
+        return result.sample_values
+
+    def _yield_plan(self) -> tuple[dict[tuple[str, str], list[Any]], list[tuple[str, str]]]:
+        """Every numeric check as a per-sample limit at its place, or the reason it cannot be one."""
         from stagewise.engine.spread import YieldLimit  # noqa: PLC0415
 
-        limits: list[Any] = []
-        basis: list[str] = []
-        supported = {"gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz"}
-        opamp_refs = [opamp.ref for opamp in merged.system.opamps]
+        plan: dict[tuple[str, str], list[Any]] = {}
+        skipped: list[tuple[str, str]] = []
+        settings = self.project.settings
         for stage in self.project.stages:
             for check in stage.checks:
-                if check.metric is None or check.waiver is not None:
+                if check.metric is None:
+                    continue
+                label = f"{stage.id}/{check.id}"
+                if check.waiver is not None:
+                    skipped.append((label, "waived: accepted whatever its value, so not counted"))
                     continue
                 low = None if check.min is None else check.min.si
                 high = None if check.max is None else check.max.si
-                label = f"{stage.id}/{check.id}"
-                if check.where == "chain" and check.metric in supported:
-                    at_hz = None if check.at_hz is None else check.at_hz.si
-                    if check.metric == "gain_db" and at_hz is None and self.project.settings.ref_hz is not None:
-                        at_hz = self.project.settings.ref_hz.si
-                    limits.append(YieldLimit(check.metric, low, high, at_hz=at_hz, label=label))
-                    basis.append(label)
-                elif check.metric == "phase_margin_deg" and check.where == "in_chain" and not stage.bypass:
-                    for ref in opamp_refs:
-                        if ref.startswith(f"{stage.id}:"):
-                            limits.append(YieldLimit("phase_margin_deg", low, high, opamp=ref, label=label))
-                            if label not in basis:
-                                basis.append(label)
-        return limits, basis
+                at_hz = None if check.at_hz is None else check.at_hz.si
+                place = (check.where, "" if check.where == "chain" else stage.id)
+                if check.metric in SAMPLED_METRICS:
+                    if check.metric == "gain_db" and at_hz is None and settings.ref_hz is not None:
+                        at_hz = settings.ref_hz.si
+                    if check.metric == "attenuation_db":
+                        if at_hz is None:
+                            skipped.append((label, "attenuation is read at a frequency, and the check names none"))
+                            continue
+                        limit = YieldLimit(check.metric, low, high, at_hz=at_hz, label=label,
+                                           function=partial(_sampled_attenuation, at_hz=at_hz))
+                    else:
+                        limit = YieldLimit(check.metric, low, high, at_hz=at_hz, label=label)
+                    plan.setdefault(place, []).append(limit)
+                elif check.metric == "phase_margin_deg" and check.where in ("in_chain", "from_input", "chain"):
+                    refs = self._chain_opamps(None if check.where == "chain" else stage.id)
+                    if not refs:
+                        skipped.append((label, NO_OPAMP))
+                        continue
+                    plan.setdefault(("chain", ""), []).extend(
+                        YieldLimit("phase_margin_deg", low, high, opamp=ref, label=label) for ref in refs)
+                elif check.metric == "phase_margin_deg":
+                    refs = [opamp.ref for opamp in self._stage_opamps(stage.id)]
+                    if not refs:
+                        skipped.append((label, NO_OPAMP))
+                        continue
+                    plan.setdefault(place, []).extend(
+                        YieldLimit("phase_margin_deg", low, high, opamp=ref, label=label) for ref in refs)
+                else:
+                    skipped.append((label, NOT_SAMPLED))
+        return plan, skipped
+
+    def _chain_opamps(self, stage_id: str | None) -> list[str]:
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return []
+        refs = [opamp.ref for opamp in merged.system.opamps]
+        return refs if stage_id is None else [ref for ref in refs if ref.startswith(f"{stage_id}:")]
+
+    def _stage_opamps(self, stage_id: str) -> tuple[Any, ...]:
+        system = self._systems.get(stage_id)
+        return () if system is None or isinstance(system, _Failure) else system.opamps
 
     # -- impedances ------------------------------------------------------------------------
 
@@ -975,6 +1107,13 @@ class ProjectAnalysis:
                                     for item in self.measurements]
         ready: dict[str, Any] = _json_ready(document)
         return ready
+
+
+def _sampled_attenuation(samples: Any, at_hz: float) -> NDArray[np.float64]:
+    """Each sample's pass-band gain minus its gain at ``at_hz``, in dB (as the nominal figure)."""
+    reference = samples.gain_db if samples.pass_gain_db is None else samples.pass_gain_db
+    values: NDArray[np.float64] = reference - samples.metric("gain_db", at_hz)
+    return values
 
 
 def _swing_text(entry: dict[str, Any]) -> str:

@@ -52,7 +52,7 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any
@@ -594,6 +594,7 @@ class SpreadSamples:
     phase_margin_deg: dict[str, NDArray[np.float64]]
     extra_f_hz: NDArray[np.float64]
     extra_response: NDArray[np.complex128]
+    pass_gain_db: NDArray[np.float64] | None = None  # each sample's pass-band gain (corners' reference)
 
     def metric(self, key: str, at_hz: float | None = None, opamp: str | None = None) -> NDArray[np.float64]:
         """The samples of a metric named by a DESIGN section 6 key (see ``METRIC_KEYS``).
@@ -819,7 +820,7 @@ def _evaluate_samples(
         multipliers=multipliers, f_hz=f_hz, response=response, ref_hz=ref_hz, gain_db=gain_db,
         peak_gain_db=peak, peaking_db=np.maximum(peak - pass_db, 0.0),
         f_low_3db_hz=corners[0], f_high_3db_hz=corners[1], phase_margin_deg=margins,
-        extra_f_hz=extra_f_hz, extra_response=extra,
+        extra_f_hz=extra_f_hz, extra_response=extra, pass_gain_db=pass_db,
     )
 
 
@@ -1063,6 +1064,7 @@ def monte_carlo(
     limits: Sequence[YieldLimit] = (),
     phase_margins: bool = True,
     worst_case: bool = True,
+    multipliers_by_ref: Mapping[str, NDArray[np.float64]] | None = None,
 ) -> SpreadResult:
     """Monte Carlo spread over part tolerances, worst case and yield.
 
@@ -1088,6 +1090,10 @@ def monte_carlo(
         Also the phase margin of every finite op-amp in every sample.
     worst_case : bool
         Also the extreme-vertex worst case of gain at ref and the −3 dB corners.
+    multipliers_by_ref : mapping of str to ndarray, optional
+        The samples' part multipliers by part ref (each of shape (samples,)), instead of drawing
+        them: so a stage alone and the chain it sits in are sampled with the same part values.
+        Every toleranced part of the system must be in it.
 
     Returns
     -------
@@ -1119,7 +1125,15 @@ def monte_carlo(
         nominal_sweep = sampled_response(model, nominal_only, f_hz)[0]
         ref_hz = float(f_hz[int(np.argmax(np.abs(nominal_sweep)))])
     passband = nominal_passband(system, project, current_drive, f_hz)
-    multipliers = sample_multipliers(model.tol, count, seed_value, law)
+    if multipliers_by_ref is None:
+        multipliers = sample_multipliers(model.tol, count, seed_value, law)
+    else:
+        missing = [ref for ref in model.refs if ref not in multipliers_by_ref]
+        if missing:
+            raise ValueError(f"no sampled values for {', '.join(missing)}")
+        multipliers = np.column_stack([np.asarray(multipliers_by_ref[ref], dtype=float) for ref in model.refs]) \
+            if model.refs else np.ones((count, 0))
+        count = multipliers.shape[0]
     everything = np.vstack([nominal_only, multipliers])
     evaluated = _evaluate_samples(model, everything, f_hz, ref_hz, extra, loop_grids, passband)
     nominal, sampled = _split(evaluated, 1)
@@ -1185,6 +1199,7 @@ def _split(evaluated: SpreadSamples, head: int) -> tuple[SpreadSamples, SpreadSa
             f_high_3db_hz=evaluated.f_high_3db_hz[rows],
             phase_margin_deg={ref: values[rows] for ref, values in evaluated.phase_margin_deg.items()},
             extra_f_hz=evaluated.extra_f_hz, extra_response=evaluated.extra_response[rows],
+            pass_gain_db=None if evaluated.pass_gain_db is None else evaluated.pass_gain_db[rows],
         )
     return part(slice(0, head)), part(slice(head, None))
 

@@ -585,9 +585,16 @@ def _spread(chain: dict[str, Any]) -> list[Block]:
             blocks.append(Table([Column("metric"), Column("low", "right"), Column("high", "right"), Column("")],
                                 rows, size_px=10.5))
     limits = spread.get("limits")
+    samples = spread.get("samples")
     if isinstance(limits, list) and limits:
-        blocks.append(Table([Column("check counted in the yield"), Column("samples passing", "right", wrap=False)],
-                            [[str(item.get("label", "")), _text(item.get("pass_pct"), "%")] for item in limits],
+        blocks.append(Table([Column("check counted in the yield"), Column("samples meeting it", "right", wrap=False)],
+                            [[str(item.get("label", "")),
+                              f"{item.get('pass_count', DASH)} of {samples} ({_text(item.get('pass_pct'), '%')})"]
+                             for item in limits], size_px=10.5))
+    skipped = spread.get("not_evaluated")
+    if isinstance(skipped, list) and skipped:
+        blocks.append(Table([Column("check not counted in the yield", wrap=False), Column("why")],
+                            [[str(item.get("label", "")), str(item.get("why", ""))] for item in skipped],
                             size_px=10.5))
     for note in spread.get("notes") or []:
         blocks.append(Paragraph(f"Note: {note}", 10.5, color=QColor(MUTED)))
