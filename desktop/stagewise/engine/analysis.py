@@ -702,6 +702,8 @@ class ProjectAnalysis:
             for place in STAGE_PLACES:
                 if place != "isolated" and stage.bypass:
                     continue
+                if place == "from_input" and self.from_input(stage.id) is self.whole_chain:
+                    continue  # the last stage seen from the input is the chain itself (said below)
                 verdict = self.stability(place, stage.id)
                 if verdict is not None and not verdict.stable:
                     found.append(Finding("unstable", stage.id, place, None,
