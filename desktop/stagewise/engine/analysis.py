@@ -664,6 +664,14 @@ class ProjectAnalysis:
 
     def stability(self, where: str, stage_id: str) -> Stability | None:
         """The closed-loop verdict of a place (``None`` when that place cannot be analysed)."""
+        if where == "from_input":
+            # Seen from the input, a stage has the merged chain's pencil (only its output differs),
+            # so its poles are among the chain's: a stable chain settles it without more work.
+            chain = self.stability("chain", "")
+            whole = self.whole_chain
+            hidden = [] if isinstance(whole, _Failure) else [pole for pole, _ in whole.cancelled]
+            if chain is not None and chain.stable and stability_of_poles(hidden).stable:
+                return chain
         analysis = self._analysis_for(where, stage_id)
         if isinstance(analysis, _Failure) or analysis.poles_rad_s is None:
             return None
