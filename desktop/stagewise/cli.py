@@ -189,11 +189,12 @@ def build_parser() -> argparse.ArgumentParser:
 
     check = _command(commands, "check", "checklist status (exit 0 all met or waived, 1 otherwise)",
                      "a table on stdout (stage, check, state, value, limits, metric, text), the reasons, the "
-                     "totals and each stage's sign-off state (a sign-off no audit event holds shows as "
+                     "automatic findings (an unstable stage or chain, converter over-range, an op-amp output "
+                     "that clips or is slew-limited), the totals and each stage's sign-off state (a sign-off no audit event holds shows as "
                      "unrecorded), then any acceptance that breaks the project's four-eyes rule and any review "
                      "record that does not match its audit event; or JSON with --json",
                      "exit status: 0 every check met, waived or not applicable; 1 any check not met, without "
-                     "a value or open, an acceptance that breaks the four-eyes rule, or a review record written, "
+                     "a value or open, any automatic finding, an acceptance that breaks the four-eyes rule, or a review record written, "
                      "edited or removed outside the program; 2 the file cannot be read.")
     check.add_argument("file", metavar="FILE")
     check.add_argument("--json", action="store_true", help="print JSON instead of a table")

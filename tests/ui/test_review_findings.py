@@ -40,3 +40,12 @@ def test_unstable_stage_shows_its_finding_and_a_check_without_value(qtbot, tmp_p
         assert text.startswith("UNSTABLE") and "right-half-plane pole" in text
     finally:
         window.shutdown()
+
+
+def test_a_value_with_another_parts_unit_is_refused_in_the_parts_table(window) -> None:  # type: ignore[no-untyped-def]
+    window.document.set_current_stage("rc")
+    window.parts_table.edit_cell("R1", "value", "10nF")
+    # Common practice, no source: farads are a capacitance; a resistor's value is in ohms.
+    assert window.document.project.stage("rc").part("R1").value.raw == "3k3"
+    assert '"10nF" is a capacitance, a resistor takes ohms' in window.parts_table.feedback.text()
+    assert not window.document.is_modified
