@@ -37,3 +37,29 @@ def test_packet_takes_over_a_stale_lock_saying_so_and_releases_it(tmp_path: Path
     assert "took over the stale lock" in err and "Gone Away" in err
     assert not lock_path(project).exists()
     assert [event.what for event in load_project(project).audit][-1] == "packet"
+
+
+def test_packet_waits_for_a_command_that_holds_the_lock_for_a_moment(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                                                     capsys: pytest.CaptureFixture[str]) -> None:
+    # Common practice, no source: a writer that holds a lock briefly is waited for, not raced.
+    import threading
+
+    import stagewise.report.packet as packet_module
+    from stagewise.files.lock import acquire_lock, lock_path
+
+    project = tmp_path / "p.stagewise.json"
+    shutil.copy(DEMO, project)
+    other_writer = acquire_lock(project, "Another Command")
+    real_build = packet_module.build_packet
+
+    def build_then_let_go(*args: object, **kwargs: object) -> object:
+        result = real_build(*args, **kwargs)  # type: ignore[arg-type]
+        threading.Timer(0.3, other_writer.release).start()  # the other command finishes its write
+        return result
+
+    monkeypatch.setattr(packet_module, "build_packet", build_then_let_go)
+    assert main(["packet", str(project), "-o", str(tmp_path / "p.pdf"), "--by", "Quality Desk"]) == 0
+    err = capsys.readouterr().err
+    assert "merges it into its next save" not in err
+    assert not lock_path(project).exists()
+    assert load_project(project).audit[-1].what == "packet"

@@ -10,7 +10,9 @@ The edit lock is taken while the file is read and written (a stale one is taken 
 line saying so). When someone holds it (the project is open in the desktop program), the packet
 is still printed and its event appended, because that changes nothing they edit: their
 program merges what was appended into its next save (``ui.document.Document.save_merging``),
-and a line on stderr says so. In every case the file is replaced only if its bytes are still
+and a line on stderr says so. Before that append the packet waits up to
+:data:`WAIT_FOR_WRITER_S` for the lock: a command writing the project holds it only for a moment,
+and is then never raced. In every case the file is replaced only if its bytes are still
 those the packet was printed from (checked after printing and again just before the atomic
 replace; two writers racing inside that last instant are not excluded).
 """
@@ -20,11 +22,15 @@ from __future__ import annotations
 import argparse
 import hashlib
 import sys
+import time
 from pathlib import Path
 
 from stagewise.cli import CommandError
 from stagewise.commands.common import load, note, person
 from stagewise.files.lock import LockError, ProjectLock, acquire_lock
+
+# How long a packet waits for a command holding the edit lock to finish its write (seconds).
+WAIT_FOR_WRITER_S = 2.0
 
 
 def run(args: argparse.Namespace) -> int:
@@ -69,6 +75,18 @@ def _take_lock(path: str, who: str) -> tuple[ProjectLock | None, str | None]:
     return lock, None
 
 
+def _wait_for_lock(path: str, who: str, seconds: float) -> ProjectLock | None:
+    """The edit lock if its holder lets it go within ``seconds``, else ``None``."""
+    deadline = time.monotonic() + seconds
+    while time.monotonic() < deadline:
+        time.sleep(0.1)
+        try:
+            return acquire_lock(path, who)
+        except LockError:
+            continue
+    return None
+
+
 def _print_and_record(args: argparse.Namespace, output: Path, who: str, holder: str | None) -> int:
     from stagewise.files.project_file import file_sha256, loads_project, save_project
     from stagewise.report.packet import build_packet
@@ -83,6 +101,10 @@ def _print_and_record(args: argparse.Namespace, output: Path, who: str, holder: 
                            f"{output} but not recorded, print it again")
     assert result.sha256 is not None
     record_packet(project, result.sha256, who, file_sha256=result.file_sha256)
+    # A command that writes the project holds its lock for a moment only: wait for it, so the
+    # append below never races another command's write. The desktop program holds it for its
+    # whole session: then append without it (its save merges what was appended).
+    late_lock = _wait_for_lock(args.file, who, WAIT_FOR_WRITER_S) if holder is not None else None
     try:
         if file_sha256(args.file) != sha_before:  # checked again just before replacing it
             raise CommandError(f"{args.file} changed while the packet was printed; the packet was written to "
@@ -91,6 +113,11 @@ def _print_and_record(args: argparse.Namespace, output: Path, who: str, holder: 
     except OSError as error:
         raise CommandError(f"the packet was written to {output}, but {args.file} could not be saved to record it "
                            f"in the audit trail ({error.strerror or error}); the project file is unchanged") from error
+    finally:
+        if late_lock is not None:
+            late_lock.release()
+    if late_lock is not None:
+        holder = None
     sys.stdout.write(f"{output}: {result.pages} pages, SHA-256 {result.sha256}; recorded in the audit trail of "
                      f"{args.file}\n")
     if holder is not None:
