@@ -405,6 +405,26 @@ class ProjectAnalysis:
             return _Failure(f"the headroom analysis failed: {error}")
 
     @cached_property
+    def converter_range(self) -> dict[str, Any] | _Failure:
+        """``converter_peak_v``, ``converter_peak_hz`` and ``converter_headroom_db`` (each null with a
+        ``*_why``) without the noise the other converter figures need; or why not."""
+        from stagewise.engine.converter import converter_range  # noqa: PLC0415
+
+        merged = self.merged
+        if isinstance(merged, _Failure):
+            return merged
+        try:
+            peak, peak_hz, headroom_db, why = converter_range(merged.system, self.project,
+                                                              current_drive=merged.current_drive)
+        except (ValueError, np.linalg.LinAlgError) as error:
+            return _Failure(f"the converter headroom could not be computed: {error}")
+        document: dict[str, Any] = {}
+        for key, value in (("converter_peak_v", peak), ("converter_peak_hz", peak_hz),
+                           ("converter_headroom_db", headroom_db)):
+            put_with_why(document, key, value, why)
+        return document
+
+    @cached_property
     def converter(self) -> dict[str, Any] | _Failure:
         """The converter figures (alias attenuation, noise against LSB and full scale), or why not."""
         from stagewise.engine.converter import converter_review, converter_to_json  # noqa: PLC0415
@@ -725,18 +745,19 @@ class ProjectAnalysis:
 
     def _range_findings(self) -> list[Finding]:
         found: list[Finding] = []
-        converter = self.converter
+        converter = self.converter_range
         headroom_db = None if isinstance(converter, _Failure) else converter.get("converter_headroom_db")
         if isinstance(converter, dict) and headroom_db is not None and headroom_db < 0:
             amplitude = self.project.input.amplitude
             unit = "A" if self.project.input.drive == "current" else "V"
             declared = "" if amplitude is None else f" ({format_value(amplitude.si, unit)} peak)"
+            peak = float(converter["converter_peak_v"])
+            full_scale_peak = peak * 10.0 ** (headroom_db / 20.0)  # the headroom's own definition
             found.append(Finding(
                 "over_range", None, "chain", None,
                 f"the converter input is over-range: the declared input{declared} gives "
-                f"{format_value(converter['converter_peak_v'], 'V')} peak at "
-                f"{format_value(converter['converter_peak_hz'], 'Hz')} against a full scale of "
-                f"±{format_value(converter['full_scale_vpp'] / 2, 'V')} ({headroom_db:.3g} dB of headroom)"))
+                f"{format_value(peak, 'V')} peak at {format_value(converter['converter_peak_hz'], 'Hz')} "
+                f"against a full scale of ±{format_value(full_scale_peak, 'V')} ({headroom_db:.3g} dB of headroom)"))
         headroom = self.headroom
         if isinstance(headroom, _Failure):
             return found
@@ -839,7 +860,10 @@ class ProjectAnalysis:
             if isinstance(noise, _Failure):
                 return None, noise.why
             return _document_value(noise, {"noise_out_rms_v": "out_rms_v", "noise_in_rms": "in_rms"}[metric])
-        if metric in ("alias_attenuation_db", "snr_db", "snr_noise_only_db", "converter_headroom_db"):
+        if metric == "converter_headroom_db":
+            peak = self.converter_range
+            return (None, peak.why) if isinstance(peak, _Failure) else _document_value(peak, metric)
+        if metric in ("alias_attenuation_db", "snr_db", "snr_noise_only_db"):
             converter = self.converter
             if isinstance(converter, _Failure):
                 return None, converter.why

@@ -43,7 +43,7 @@ from stagewise.engine.noise import NoiseResult, ideal_converter_snr_db
 from stagewise.engine.sweep import drive, frequency_grid, solve_batched
 from stagewise.model.project import Project
 
-__all__ = ["ConverterResult", "converter_review", "converter_to_json", "high_corner_hz"]
+__all__ = ["ConverterResult", "converter_range", "converter_review", "converter_to_json", "high_corner_hz"]
 
 TWO_PI = 2.0 * math.pi
 HALF_POWER_DB = 10.0 * math.log10(2.0)
@@ -117,6 +117,29 @@ def high_corner_hz(system: StageSystem, project: Project, *, current_drive: bool
         else:
             high = middle
     return math.sqrt(low * high), ref_hz, None
+
+
+def converter_range(system: StageSystem, project: Project, *,
+                    current_drive: bool) -> tuple[float | None, float | None, float | None, str | None]:
+    """The largest peak at the converter input for the declared input, and the headroom to full scale.
+
+    Returns ``(peak_v, peak_hz, converter_headroom_db, why)``: the peak ``max_f |H(f)|·amplitude``
+    over the analysis grid at the chain's output, the frequency where it occurs, and
+    ``20·log10((full_scale_vpp/2)/peak)`` (negative: over-range); ``why`` when they are null.
+    """
+    full_scale = project.converter.full_scale_vpp
+    amplitude = project.input.amplitude
+    if full_scale is None:
+        return None, None, None, "the converter's full_scale_vpp is not given"
+    if amplitude is None:
+        return None, None, None, "project input.amplitude is not given"
+    grid = frequency_grid(project.settings)
+    magnitude = np.abs(_output_transfer(system, current_drive, grid)) * float(amplitude.si)
+    at = int(np.argmax(magnitude))
+    peak, peak_hz = float(magnitude[at]), float(grid[at])
+    if not peak > 0:
+        return peak, peak_hz, None, "the chain's output does not respond to its input"
+    return peak, peak_hz, 20.0 * math.log10(0.5 * float(full_scale.si) / peak), None
 
 
 def converter_review(system: StageSystem, project: Project, *, current_drive: bool,
@@ -216,24 +239,10 @@ def converter_review(system: StageSystem, project: Project, *, current_drive: bo
                 whys["snr_noise_only_db"] = "the output noise is zero (no noise source in the model)"
             if quantization is not None and math.hypot(noise_rms, quantization) > 0:
                 snr_total = 20.0 * math.log10(full_scale_rms / math.hypot(noise_rms, quantization))
-    peak = peak_hz = headroom_db = None
-    amplitude = project.input.amplitude
-    if full_scale is None:
-        whys["converter_headroom_db"] = "the converter's full_scale_vpp is not given"
-    elif amplitude is None:
-        whys["converter_headroom_db"] = "project input.amplitude is not given"
-    else:
-        grid = frequency_grid(project.settings)
-        magnitude = np.abs(_output_transfer(system, current_drive, grid)) * float(amplitude.si)
-        at = int(np.argmax(magnitude))
-        peak, peak_hz = float(magnitude[at]), float(grid[at])
-        if peak > 0:
-            headroom_db = 20.0 * math.log10(0.5 * full_scale / peak)
-        else:
-            whys["converter_headroom_db"] = "the chain's output does not respond to its input"
-    for key in ("converter_peak_v", "converter_peak_hz"):
-        if peak is None:
-            whys[key] = whys.get("converter_headroom_db", "not computed")
+    peak, peak_hz, headroom_db, range_why = converter_range(system, project, current_drive=current_drive)
+    if range_why is not None:
+        for key in ("converter_peak_v", "converter_peak_hz", "converter_headroom_db"):
+            whys[key] = range_why
     return ConverterResult(
         fs_hz=fs, bits=bits, full_scale_vpp=full_scale, lsb_v=lsb, quantization_noise_v_rms=quantization,
         ideal_snr_db=ideal, ref_hz=ref_hz, f_pass_hz=f_pass, f_pass_source=source, alias_hz=alias,
