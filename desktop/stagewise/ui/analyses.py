@@ -396,8 +396,10 @@ STAGE_ANALYSES: list[tuple[str, int, Any]] = [
     ("in_chain_poles", 2, in_chain_poles),
     ("in_chain_response", 1, in_chain_response),
     ("from_input_response", 1, from_input_response),
-    ("from_input_step", 2, from_input_step),
-    ("from_input_poles", 2, from_input_poles),
+    # Step and poles from the chain input need a pole/zero model of the whole chain per stage:
+    # computed with the spread (phase 3), so that an edit's check states never wait for them.
+    ("from_input_step", 3, from_input_step),
+    ("from_input_poles", 3, from_input_poles),
 ]
 
 
