@@ -193,3 +193,15 @@ def test_check_fails_over_a_record_removed_from_the_file(tmp_path: Path, capsys:
     status = main(["check", str(path), "--json"])
     document = json.loads(capsys.readouterr().out)
     assert status == 1 and any("missing from the file" in line for line in document["record_problems"])
+
+
+def test_a_withdrawn_waiver_put_back_by_hand_is_named() -> None:
+    # Common practice, no source: a withdrawn decision pasted back is not the decision that stands.
+    project = _reviewed()
+    waiver = project.stage("rc").checks[0].waiver  # type: ignore[union-attr]
+    actions.withdraw_waiver(project, "rc", "corner", "Ana Ruiz", time=T)
+    assert check_records(project).problems == ()
+    project.stage("rc").checks[0].waiver = waiver  # type: ignore[union-attr]
+    problems = check_records(project).problems
+    assert len(problems) == 1 and not problems[0].removed
+    assert "withdrew or replaced it, and the record was put back outside the program" in problems[0].sentence

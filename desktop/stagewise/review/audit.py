@@ -370,9 +370,21 @@ def check_records(project: Project) -> RecordsCheck:
                 if i not in used and events[i].detail.get("stage") == stage_id
                 and (check_id is None or events[i].detail.get("check") == check_id)]
 
+    standing = _standing_decisions(events)
+
     def match(kind: str, stage_id: str, key: int | str, label: str, what: str, record: Any, who: str, time: str,
               fields: Sequence[tuple[str, str]], check_id: str | None = None) -> None:
         found = candidates(what, who, time, stage_id, check_id)
+        if check_id is not None and found:
+            # A check holds one waiver and one answer: only the last decision on it stands.
+            last = standing.get((kind, stage_id, check_id))
+            if last not in found:
+                assert last is not None  # found holds events of this kind on this check
+                problems.append(RecordProblem(kind, stage_id, key, False,
+                                              f"{label}: audit event seq {events[last].seq} withdrew or replaced "
+                                              "it, and the record was put back outside the program"))
+                return
+            found = [last]
         for index in found:
             if not _content_differences(record, events[index], fields):
                 used.add(index)
@@ -434,17 +446,21 @@ def check_records(project: Project) -> RecordsCheck:
     return RecordsCheck.of(problems)
 
 
+def _standing_decisions(events: Sequence[AuditEvent]) -> dict[tuple[str, str, str], int]:
+    """The position of the last waiver (or withdrawal) and the last answer event on each check,
+    keyed by ``(kind, stage, check)``: only those decisions stand, earlier ones were replaced."""
+    last: dict[tuple[str, str, str], int] = {}
+    for index, event in enumerate(events):
+        kind = "waiver" if event.what in ("waiver", "waiver withdrawn") else event.what
+        if kind in ("waiver", "answer"):
+            last[(kind, str(event.detail.get("stage")), str(event.detail.get("check")))] = index
+    return last
+
+
 def _removed_records(project: Project, events: Sequence[AuditEvent], used: set[int]) -> list[RecordProblem]:
     """Events whose record is no longer in the file (the other direction of :func:`check_records`)."""
     problems: list[RecordProblem] = []
-    # Only the last waiver or answer decision on a check stands; earlier ones were replaced.
-    last_on_check: dict[tuple[str, str, str], int] = {}
-    for index, event in enumerate(events):
-        if event.what in ("waiver", "waiver withdrawn"):
-            last_on_check[("waiver", str(event.detail.get("stage")), str(event.detail.get("check")))] = index
-        elif event.what == "answer":
-            last_on_check[("answer", str(event.detail.get("stage")), str(event.detail.get("check")))] = index
-    standing = set(last_on_check.values())
+    standing = set(_standing_decisions(events).values())
     for index, event in enumerate(events):
         if index in used:
             continue
