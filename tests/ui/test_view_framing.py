@@ -105,3 +105,126 @@ def test_no_stock_right_click_menu_on_any_plot(qtbot) -> None:  # type: ignore[n
         np.testing.assert_allclose(view.magnitude.getViewBox().viewRange(), before)
     finally:
         window.shutdown()
+
+
+def _independent_dominant_tau(poles: np.ndarray, zeros: np.ndarray) -> float:
+    """Slowest time constant among the step's modes of at least 1 % of the largest amplitude.
+
+    Reference library: scipy.signal.residue (partial fractions of H(s)/s, gain 1: only the
+    modes' relative sizes matter). Source: the step response is H(0) + Σ r_k/p_k·e^{p_k t}
+    (Ogata, Modern Control Engineering, ch. 5).
+    """
+    from scipy import signal
+
+    numerator, denominator = signal.zpk2tf(zeros, poles, 1.0)
+    residues, roots, _ = signal.residue(np.real_if_close(numerator), np.polymul(np.real_if_close(denominator),
+                                                                                 [1.0, 0.0]))
+    keep = np.abs(roots) > 1e-9 * np.max(np.abs(roots))
+    amplitude = np.abs(residues[keep])
+    roots = roots[keep]
+    dominant = amplitude >= 1e-2 * amplitude.max()
+    return float(1.0 / np.min(np.abs(roots[dominant].real)))
+
+
+@pytest.mark.parametrize("demo", DEMOS)
+def test_step_view_is_linear_and_spans_within_20_dominant_time_constants(qtbot, demo: str) -> None:  # type: ignore[no-untyped-def]
+    from stagewise.ui.overlays import IN_CHAIN
+
+    window = _window(qtbot, demo)
+    try:
+        view = window.step_view
+        checked = 0
+        for stage in window.document.project.stages:
+            window.document.set_current_stage(stage.id)
+            window.overlays.set_chain(False)
+            window.overlays.show_only_stage(stage.id)
+            window.overlays.set_stage(stage.id, IN_CHAIN, False)
+            window.wait_until_idle(60, formula=False)
+            roots = window.worker.latest.of_stage(stage.id, "poles")
+            if not roots.ok or len(roots.value.poles_rad_s) == 0 or len(roots.value.poles_rad_s) > 8:
+                continue
+            assert not view.plot.getViewBox().state["logMode"][0]
+            tau = _independent_dominant_tau(np.asarray(roots.value.poles_rad_s), np.asarray(roots.value.zeros_rad_s))
+            (t_low, t_high), _ = view.plot.getViewBox().viewRange()
+            span = t_high - max(t_low, 0.0)
+            assert tau <= span <= 20 * tau, (stage.id, span, tau)
+            checked += 1
+        assert checked >= 3
+    finally:
+        window.shutdown()
+
+
+def test_step_traces_in_different_units_are_each_over_their_own_final_value(qtbot) -> None:  # type: ignore[no-untyped-def]
+    from stagewise.ui.overlays import ISOLATED
+
+    window = _window(qtbot, "greenhouse")
+    try:
+        project = window.document.project
+        current = next(stage for stage in project.stages if stage.drive == "current")
+        voltage = next(stage for stage in project.stages if stage.drive != "current" and not stage.is_block)
+        window.overlays.set_chain(False)
+        window.overlays.show_only_stage(current.id)
+        window.overlays.set_stage(voltage.id, ISOLATED, True)
+        window.wait_until_idle(60, formula=False)
+        view = window.step_view
+        assert view.normalized
+        assert "own final value" in view.plot.getAxis("left").labelText
+        for key in (f"{current.id}:isolated", f"{voltage.id}:isolated"):
+            item = view.traces.items[key]
+            t_s, y = item.getOriginalDataset()
+            step = window.worker.latest.of_stage(key.split(":")[0], "step").value
+            # Common practice, no source: each trace is drawn over its own final value, so
+            # ohms and volts per volt share a dimensionless axis (both settle towards 1).
+            assert step.final is not None and abs(step.final) > 0
+            np.testing.assert_allclose(y, step.y / step.final, rtol=1e-12)
+            assert y[-1] == pytest.approx(1.0, abs=1e-2)
+    finally:
+        window.shutdown()
+
+
+def test_settling_limit_is_drawn_where_its_time_is(qtbot) -> None:  # type: ignore[no-untyped-def]
+    window = _window(qtbot, "hydrophone")
+    try:
+        stage = next(stage for stage in window.document.project.stages
+                     if any(check.metric == "settle_01pct_s" for check in stage.checks))
+        check = next(check for check in stage.checks if check.metric == "settle_01pct_s")
+        window.document.set_current_stage(stage.id)
+        window.wait_until_idle(60, formula=False)
+        view = window.step_view
+        rects = [item for item in view.limits.items if hasattr(item, "rect")]
+        assert rects
+        rect = rects[0].rect()
+        # Common practice, no source: a settling limit of T is the band from 0 to T on a
+        # linear time axis (seconds as data, no logarithm).
+        assert not view.plot.getViewBox().state["logMode"][0]
+        assert rect.left() == pytest.approx(0.0, abs=1e-15)
+        assert rect.right() == pytest.approx(check.max.si, rel=1e-12)
+    finally:
+        window.shutdown()
+
+
+def test_noise_sources_keep_their_colour_when_re_ranked(qtbot) -> None:  # type: ignore[no-untyped-def]
+    from stagewise.ui.analyses import NoiseTrace
+    from stagewise.ui.worker import Computed, Outcome
+
+    window = _window(qtbot, "hydrophone")
+    try:
+        view = window.noise_view
+        f_hz = np.logspace(1, 4, 31)
+        flat = np.ones_like(f_hz)
+
+        def show(order: list[str], generation: int) -> dict[str, tuple[str, object]]:
+            contributions = tuple((name, flat * (3 - rank)) for rank, name in enumerate(order))
+            outcome = Outcome(generation, 3)
+            outcome.chain["noise"] = Computed(NoiseTrace(f_hz, flat * 4, contributions, "summary"))
+            view._on_outcome(outcome)  # noqa: SLF001 - as the worker delivers a result
+            return {name: (view.traces.items[f"source:{name}"].opts["pen"].color().name(),
+                           view.traces.items[f"source:{name}"].opts["pen"].style()) for name in order}
+
+        before = show(["gain:R2", "sensor:R1", "buffer:U1 en"], 10_001)
+        after = show(["buffer:U1 en", "gain:R2", "sensor:R1"], 10_002)
+        # Common practice, no source: a trace keeps its colour while it stays on the plot.
+        assert before == after
+        assert len({colour for colour, _ in before.values()}) == 3
+    finally:
+        window.shutdown()

@@ -27,7 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-__all__ = ["PoleZeroFrame", "pole_zero_frame", "root_words"]
+__all__ = ["PoleZeroFrame", "dominant_time_constant_s", "pole_zero_frame", "root_words", "step_span_s"]
 
 TWO_PI = 2.0 * math.pi
 # How far outside the band's ring the edge ring of off-scale roots sits (in decades).
@@ -104,3 +104,39 @@ def root_words(value: complex) -> dict[str, float | None]:
         words["zeta"] = zeta
         words["q"] = 1.0 / (2.0 * zeta) if zeta != 0 else math.inf
     return words
+
+
+# A step view spans this many of the slowest dominant time constant (e^-8 ≈ 0.03 % left).
+STEP_SPAN_TIME_CONSTANTS = 8.0
+# A pole is dominant in a step when its mode's amplitude is at least this share of the largest.
+DOMINANT_SHARE = 1e-2
+
+
+def dominant_time_constant_s(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex]) -> float | None:
+    """The slowest time constant 1/|Re p| among the poles that shape a step response.
+
+    The step response of H(s) = K·∏(s − z)/∏(s − p) is H(0) + Σ r_k/p_k·e^{p_k t}, r_k the residue
+    of H at p_k (partial fractions; any control text, e.g. Ogata, ch. 5). A mode counts as
+    dominant when |r_k/p_k| is at least 1 % of the largest mode's: a pole almost cancelled by a
+    zero, or a far op-amp pole, barely moves the step and does not set its time scale. ``None``
+    for an unstable or empty model (nothing settles).
+    """
+    poles = np.asarray(list(poles_rad_s), dtype=complex)
+    zeros = np.asarray(list(zeros_rad_s), dtype=complex)
+    if poles.size == 0 or np.any(poles.real >= 0):
+        return None
+    logs = np.empty(poles.size)
+    for index, pole in enumerate(poles):
+        scale = max(abs(pole), 1e-300)
+        others = np.delete(poles, index)
+        near = np.maximum(np.abs(pole - others), 1e-9 * scale)  # repeated poles: a large mode
+        logs[index] = (np.sum(np.log(np.maximum(np.abs(pole - zeros), 1e-300))) - np.sum(np.log(near))
+                       - math.log(scale))
+    dominant = logs >= logs.max() + math.log(DOMINANT_SHARE)
+    return float(1.0 / np.min(np.abs(poles.real[dominant])))
+
+
+def step_span_s(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex]) -> float | None:
+    """How long a step view shows: 8 slowest dominant time constants (see above), or None."""
+    tau = dominant_time_constant_s(poles_rad_s, zeros_rad_s)
+    return None if tau is None else STEP_SPAN_TIME_CONSTANTS * tau

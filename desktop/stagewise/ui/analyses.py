@@ -203,15 +203,23 @@ class StepTrace:
     y: NDArray[np.float64]
     final: float | None
     summary: str
+    unit: str = "V/V"
+    # The window the view frames: 8 slowest dominant time constants (present/framing.py).
+    span_s: float | None = None
 
 
 def _step(analysis: Any) -> StepTrace:
     from stagewise.engine.timeresp import step_response
     from stagewise.model.values import format_value
 
+    from stagewise.present.framing import step_span_s
+
     if analysis.model is None:
         raise NotAvailable(analysis.why or "no pole/zero model")
-    step = step_response(analysis.model)
+    span = step_span_s(analysis.model.poles_rad_s, analysis.model.zeros_rad_s)
+    # Computed on the window the view shows, so the edge is drawn from many points; the metrics
+    # are refined on the exact response whatever the grid.
+    step = step_response(analysis.model, None if span is None else np.linspace(0.0, span, 1201))
     words = []
     if step.rise_s is not None:
         words.append(f"rise {format_value(step.rise_s, 's')}")
@@ -223,7 +231,7 @@ def _step(analysis: Any) -> StepTrace:
     settled = [f"within {band} in {format_value(value, 's')}" for band, value in bands if value is not None]
     if settled:
         words.append("settles " + " and ".join(settled))
-    return StepTrace(step.t_s, step.y, step.final, ", ".join(words))
+    return StepTrace(step.t_s, step.y, step.final, ", ".join(words), str(getattr(analysis, "unit", "V/V")), span)
 
 
 def isolated_step(stage: Stage, project: Project, context: Context) -> StepTrace:
@@ -426,7 +434,9 @@ def chain_step(project: Project, context: Context) -> StepTrace:
     """Unit-step response of the whole chain (slow for chains with very slow poles: phase 2)."""
     from types import SimpleNamespace
 
-    return _step(SimpleNamespace(model=_chain_model(project, context), why=None))
+    merged = _merged(project, context)
+    return _step(SimpleNamespace(model=_chain_model(project, context), why=None,
+                                 unit="Ω" if merged.current_drive else "V/V"))
 
 
 @dataclass(frozen=True, slots=True)

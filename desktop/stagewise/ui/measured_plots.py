@@ -223,7 +223,7 @@ class MeasuredSteps:
         self.items: dict[str, pg.PlotDataItem] = {}
 
     def draw(self, comparisons: Sequence[Any], rows: Sequence[tuple[TraceSpec, Any, Any]],
-             overlays: OverlaySelection) -> None:
+             overlays: OverlaySelection, finals: dict[str, float] | None = None) -> None:
         for item in self.items.values():
             self.plot.removeItem(item)
         self.items = {}
@@ -233,7 +233,10 @@ class MeasuredSteps:
             row = next((row for row in rows if _matches_place(comparison, row[0])), None)
             if row is None or len(row[2]) == 0:
                 continue
-            captured = scaled_capture(comparison, float(np.asarray(row[2])[-1]))
+            # The prediction's final value when the view knows it (its window may end before the
+            # step has fully settled), else its last point.
+            final = (finals or {}).get(row[0].key)
+            captured = scaled_capture(comparison, float(np.asarray(row[2])[-1]) if final is None else final)
             if captured is None:
                 continue
             t_s, y = captured

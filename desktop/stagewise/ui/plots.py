@@ -435,7 +435,9 @@ class StepView(PlotView):
         self.plot.showGrid(x=True, y=True, alpha=0.25)
         self.plot.setLabel("bottom", "Time", units="s")
         self.plot.setLabel("left", "Output per unit step")
-        self._log_time = False
+        self.plot.getAxis("left").enableAutoSIPrefix(False)
+        self.span_s: float | None = None
+        self.normalized = False
         # No legend of its own: traces keep the colours and line styles of the response legend.
         self.traces = _TraceItems(self.plot, None)
         self.limits = _LimitLayer(self.plot, log_x=False)
@@ -448,6 +450,7 @@ class StepView(PlotView):
 
     def draw(self) -> None:
         rows = []
+        steps = []
         summaries = []
         for spec in self.specs():
             if spec.view == BASELINE:
@@ -455,27 +458,36 @@ class StepView(PlotView):
             computed = result_for(self.outcome, spec, "step")
             if computed.ok:
                 rows.append((spec, computed.value.t_s, computed.value.y))
+                steps.append((spec, computed.value))
                 if computed.value.summary:
                     summaries.append(f"{spec.label}: {computed.value.summary}")
             elif self.outcome is not None:
                 self.note(spec.label, computed)
-        # Traces whose time scales differ a lot (a slow sensor pole beside a fast chain) share a
-        # logarithmic time axis, so that each one's edge stays visible.
-        spans = [float(t[-1]) for _, t, _ in rows if len(t) > 1 and t[-1] > 0]
-        log_time = len(spans) > 1 and max(spans) / min(spans) > 50
-        if log_time != self._log_time:
-            self._log_time = log_time
-            self.plot.setLogMode(x=log_time, y=False)
-            self.plot.getAxis("bottom").enableAutoSIPrefix(not log_time)
-            if log_time:
-                self.plot.setLabel("bottom", "Time (s, log)")
-            else:
-                self.plot.setLabel("bottom", "Time", units="s")
-        if log_time:
-            rows = [(spec, t[t > 0], y[t > 0]) for spec, t, y in rows]
+        # A linear time axis framed by the dominant poles of what is shown (present/framing.py):
+        # the longest window of the shown traces, 8 slowest dominant time constants each.
+        spans = [trace.span_s for _, trace in steps if trace.span_s is not None]
+        if not spans:
+            spans = [float(trace.t_s[-1]) for _, trace in steps if len(trace.t_s) > 1 and trace.t_s[-1] > 0]
+        self.span_s = max(spans) if spans else None
+        units = {trace.unit for _, trace in steps}
+        # Units that differ (a photodiode stage in ohms beside volts per volt) never share an
+        # axis: each trace is then drawn over its own final value (or its own peak when it
+        # settles at zero), dimensionless.
+        self.normalized = len(units) > 1
+        if self.normalized:
+            rows = [(spec, t, y / _own_scale(trace)) for (spec, t, y), (_, trace) in zip(rows, steps, strict=True)]
+            self.plot.setLabel("left", "Output ÷ its own final value")
+        else:
+            unit = next(iter(units)) if units else "V/V"
+            self.plot.setLabel("left", f"Output per unit step ({_step_unit(unit)})")
+        if self.span_s is not None:
+            self.plot.setXRange(0.0, self.span_s, padding=0.02)
         self.traces.show(rows)
         measured = self.outcome.of_chain("measurements") if self.outcome is not None else None
-        self.measured.draw(measured.value if measured is not None and measured.ok else [], rows, self.overlays)
+        finals = {spec.key: (trace.final / _own_scale(trace) if self.normalized else trace.final)
+                  for spec, trace in steps if trace.final is not None}
+        self.measured.draw(measured.value if measured is not None and measured.ok else [], rows, self.overlays,
+                           finals)
         self.summary.setText("\n".join(summaries))
         shapes = []
         stage = self.document.current_stage
@@ -485,6 +497,20 @@ class StepView(PlotView):
                     if plot == "step":
                         shapes.append((label, x_range, y_range))
         self.limits.set_shapes(shapes)
+
+
+def _own_scale(trace: Any) -> float:
+    """A step trace's own final value, or its largest |value| when it settles at (near) zero."""
+    peak = float(np.nanmax(np.abs(trace.y))) if len(trace.y) else 1.0
+    final = trace.final
+    if final is not None and math.isfinite(final) and abs(final) > 1e-3 * peak:
+        return float(final)
+    return peak or 1.0
+
+
+def _step_unit(unit: str) -> str:
+    """The unit of a step response's output per unit of input step (V per V, V per A)."""
+    return {"V/V": "V per V", "Ω": "V per A"}.get(unit, unit)
 
 
 class PoleZeroView(PlotView):
@@ -639,6 +665,7 @@ class NoiseView(PlotView):
         self.legend = pg.LegendItem(labelTextSize="8pt", colCount=2, verSpacing=-6)
         self.graphics.addItem(self.legend, row=1, col=0)
         self.traces = _TraceItems(self.plot, self.legend)
+        self._source_styles: dict[str, int] = {}
         self.summary = QLabel(self)
         self.summary.setTextFormat(Qt.TextFormat.PlainText)
         self.summary.setWordWrap(True)
@@ -653,8 +680,9 @@ class NoiseView(PlotView):
         if computed.ok:
             noise = computed.value
             rows.append((TraceSpec("total", "Total", CHAIN, "", trace_style(0, 2.5)), noise.f_hz, noise.total))
-            for index, (name, density) in enumerate(noise.contributions, start=1):
-                rows.append((TraceSpec(f"source:{name}", name, CHAIN, "", trace_style(index, 1.5)),
+            shown = [name for name, _ in noise.contributions]
+            for name, density in noise.contributions:
+                rows.append((TraceSpec(f"source:{name}", name, CHAIN, "", trace_style(self._style_of(name, shown), 1.5)),
                              noise.f_hz, density))
             self.summary.setText(noise.summary)
         else:
@@ -662,6 +690,16 @@ class NoiseView(PlotView):
                 self.note("Chain noise", computed)
             self.summary.setText("")
         self.traces.show(rows)
+
+
+    def _style_of(self, name: str, shown: list[str]) -> int:
+        """A noise source keeps its colour and line style while it stays in the view, whatever its
+        rank after an edit; a newcomer takes the first style no shown source is using."""
+        styles = self._source_styles
+        if name not in styles:
+            taken = {styles[other] for other in shown if other in styles}
+            styles[name] = next(index for index in range(1, 64) if index not in taken)
+        return styles[name]
 
 
 class SpreadView(PlotView):
