@@ -211,7 +211,6 @@ class StepTrace:
 def _step(analysis: Any) -> StepTrace:
     from stagewise.engine.timeresp import step_response
     from stagewise.model.values import format_value
-
     from stagewise.present.framing import step_span_s
 
     if analysis.model is None:
