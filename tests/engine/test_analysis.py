@@ -168,10 +168,10 @@ def test_the_document_has_every_key_of_design_section_6(path: Path) -> None:
     metric_keys = ("gain_db", "peak_gain_db", "f_low_3db_hz", "f_high_3db_hz", "peaking_db", "poles", "zeros",
                    "step", "loops")
     for stage in document["stages"]:
-        for key in ("id", "name", "isolated", "in_chain", "loading_error_db_max", "zin_ohm_at_ref",
-                    "zout_ohm_at_ref", "checks"):
+        for key in ("id", "name", "isolated", "in_chain", "from_input", "loading_error_db_max",
+                    "loading_error_db", "loading_error_f_hz", "zin_ohm_at_ref", "zout_ohm_at_ref", "checks"):
             assert key in stage
-        for where in ("isolated", "in_chain"):
+        for where in ("isolated", "in_chain", "from_input"):
             metrics = stage[where]
             assert metrics is not None, stage.get(f"{where}_why")
             for key in metric_keys:
@@ -182,6 +182,17 @@ def test_the_document_has_every_key_of_design_section_6(path: Path) -> None:
                 assert key in metrics["step"]
             for pole in metrics["poles"]:
                 assert set(pole) >= {"re", "im", "f_hz", "q"}
+                if pole["q"] is None:
+                    assert pole["q_why"], (stage["id"], where, pole)
+            # The contract: every M names its pass-band reference.
+            reference = metrics["ref"]
+            assert reference["kind"] in ("dc", "hf", "midband", "ref_hz")
+            assert set(reference) >= {"kind", "f_hz", "gain_db", "shape", "note"}
+            if reference["f_hz"] is None:
+                assert reference["f_hz_why"]
+        for check in stage["checks"]:
+            if check["metric"] in ("f_low_3db_hz", "f_high_3db_hz", "peaking_db", "attenuation_db"):
+                assert check["ref"]["kind"] in ("dc", "hf", "midband", "ref_hz"), check
     chain = document["chain"]
     for key in (*metric_keys, "noise", "snr_db", "alias_attenuation_db", "headroom", "spread"):
         assert key in chain

@@ -1252,7 +1252,8 @@ def response_points(project: Project, f_hz: list[float], stage_id: str | None = 
         isolated = engine.isolated(stage, project, np.asarray(f_hz, dtype=float))
         return isolated.unit, isolated.response, isolated.why
     if stage.bypass:
-        raise ValueError(f'stage "{stage_id}" is bypassed, so it has no response in chain')
+        place = "seen from the chain input" if from_input else "in chain"
+        raise ValueError(f'stage "{stage_id}" is bypassed, so it has no response {place}')
     if from_input:
         result = engine.analyze(project, f_hz)
         position = result.stage_ids.index(stage_id) + 1
