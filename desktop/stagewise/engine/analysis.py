@@ -274,7 +274,10 @@ class ProjectAnalysis:
         whole = merged.driven()
         driven = DrivenSystem(whole.g, whole.c, whole.b, merged.interface_indices[position], whole.current_drive)
         unit = CURRENT_UNIT if merged.current_drive else VOLTAGE_UNIT
-        analysis = analyze_system(driven, self.f_hz, unit, stage_id, "")
+        whole_chain = self.whole_chain
+        known = None if isinstance(whole_chain, _Failure) or whole_chain.model is None else (
+            whole_chain.model.all_poles_rad_s)  # the same pencil: the same poles at every output
+        analysis = analyze_system(driven, self.f_hz, unit, stage_id, "", poles=known)
         if analysis.why is not None:
             return _Failure(f'stage "{stage_id}" seen from the chain input: {analysis.why}')
         return analysis

@@ -547,6 +547,7 @@ def pole_zero_model(
     b: NDArray[np.float64],
     output: int,
     cancel_rtol: float = 1e-6,
+    poles: NDArray[np.complex128] | None = None,
 ) -> PoleZeroModel:
     """The minimal pole/zero model of ``(G + sC)·x = b·u``, ``y = x[output]``.
 
@@ -560,6 +561,9 @@ def pole_zero_model(
         Index of the output unknown.
     cancel_rtol : float
         Relative distance under which a pole and a zero cancel.
+    poles : ndarray of complex, optional
+        The pencil's finite poles when already known (they do not depend on ``b`` or
+        ``output``): another model's ``all_poles_rad_s`` of the same ``g`` and ``c``.
 
     Returns
     -------
@@ -575,7 +579,8 @@ def pole_zero_model(
     c = np.asarray(c, dtype=float)
     b = np.asarray(b, dtype=float)
     n = g.shape[0]
-    poles = finite_eigenvalues(g, c)
+    known = poles is not None
+    poles = np.asarray(poles, dtype=complex) if poles is not None else finite_eigenvalues(g, c)
     system_a = np.zeros((n + 1, n + 1))
     system_e = np.zeros((n + 1, n + 1))
     system_a[:n, :n] = g
@@ -588,7 +593,8 @@ def pole_zero_model(
     except SingularPencilError as error:
         raise SingularPencilError("the output does not respond to the input (the response is zero at every "
                                   "frequency)") from error
-    poles = _settle_origin(poles, origin_multiplicity(g, c))
+    if not known:
+        poles = _settle_origin(poles, origin_multiplicity(g, c))
     zeros = _settle_origin(zeros, origin_multiplicity(system_a, system_e))
     horizon = HORIZON * scale
     far = tuple(complex(r) for r in np.concatenate([poles[np.abs(poles) > horizon], zeros[np.abs(zeros) > horizon]]))

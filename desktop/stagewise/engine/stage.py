@@ -148,6 +148,7 @@ def analyze_system(
     unit: str = VOLTAGE_UNIT,
     label: str = "",
     fingerprint: str = "",
+    poles: NDArray[np.complex128] | None = None,
 ) -> StageAnalysis:
     """Sweep a driven pencil and compute its minimal pole/zero model.
 
@@ -161,6 +162,8 @@ def analyze_system(
         Unit of the response, for display.
     label : str
         Name carried into messages and results.
+    poles : ndarray of complex, optional
+        The pencil's finite poles when already known (the same G and C read at another output).
 
     Returns
     -------
@@ -170,7 +173,7 @@ def analyze_system(
     """
     f_hz = np.asarray(f_hz, dtype=float)
     try:
-        model = pole_zero_model(driven.g, driven.c, driven.b, driven.output)
+        model = pole_zero_model(driven.g, driven.c, driven.b, driven.output, poles=poles)
     except SingularPencilError as error:
         return _failed(f_hz, unit, str(error), label, fingerprint, driven)
     except (np.linalg.LinAlgError, ArithmeticError) as error:
