@@ -277,3 +277,25 @@ def test_response_command_in_chain_and_errors(tmp_path: Path) -> None:
                          capture_output=True, text=True, check=False, timeout=120)
     assert bad.returncode == 2
     assert bad.stderr.count("\n") == 1 and "Traceback" not in bad.stderr
+
+
+def test_bandwidth_check_on_an_rc_low_pass_is_not_fooled_by_ref_hz() -> None:
+    # Source: first-order corner 1/(2πRC), any circuits text: 1 kΩ and 1 µF give 159.15 Hz. With ref_hz at
+    # 1 kHz, a corner taken 3 dB below the gain there would read 1.42 kHz and meet "bandwidth ≥ 1 kHz";
+    # by the trade's definition (3 dB below the DC gain) the check is not met.
+    project = loads_project(json.dumps({
+        "format": "stagewise-project", "version": 1, "title": "RC low-pass",
+        "settings": {"f_min_hz": 1, "f_max_hz": 1e6, "points_per_decade": 50, "ref_hz": 1000},
+        "stages": [{"id": "rc", "name": "RC", "ports": {"in": "in", "out": "out"},
+                    "parts": [{"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": "1k"},
+                              {"ref": "C1", "type": "C", "nodes": ["out", "0"], "value": "1u"}],
+                    "checks": [{"id": "bw", "text": "Bandwidth at least 1 kHz", "metric": "f_high_3db_hz",
+                                "where": "isolated", "min": 1000}]}],
+    }))
+    from stagewise.review.checks import evaluate_project
+    from stagewise.review.words import CheckState
+
+    result = evaluate_project(project, ProjectAnalysis(project, spread=False))[0]
+    assert result.state is CheckState.NOT_MET
+    assert result.value == pytest.approx(1 / (2 * math.pi * 1e3 * 1e-6), rel=1e-9)
+    assert result.reference == "re DC gain 0.00 dB"
