@@ -69,3 +69,19 @@ def test_check_lists_the_greenhouse_over_range_and_clipping(capsys: pytest.Captu
     # 1 µA into 1 MΩ and a gain of 2 is 2 V peak against ±1.65 V: about −1.7 dB.
     # Common practice, no source: converter headroom = 20·log10(full-scale peak / signal peak).
     assert headroom["value"] == pytest.approx(20 * math.log10(1.65 / 2.0), abs=0.3)
+
+
+def test_a_chain_that_cannot_be_analysed_fails_check_even_without_checks(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # An ideal inverting input (+ on node 0) used as a voltage-driven input port: the op-amp holds
+    # that node at 0 V, so a voltage source there has no solution.
+    # Common practice, no source: an ideal op-amp with feedback keeps v− = v+ (virtual ground).
+    document = {"format": "stagewise-project", "version": 1, "title": "virtual ground",
+                "stages": [{"id": "tia", "name": "TIA", "ports": {"in": "n", "out": "out"},
+                            "parts": [{"ref": "U1", "type": "opamp", "nodes": ["0", "n", "out"], "model": "ideal"},
+                                      {"ref": "R1", "type": "R", "nodes": ["n", "out"], "value": "10k"}]}]}
+    path = tmp_path / "virtual-ground.stagewise.json"
+    path.write_text(json.dumps(document), encoding="utf-8")
+    status, out = _run(capsys, "check", str(path))
+    assert status == 1
+    assert "NOT ANALYSED" in out and "held at a fixed voltage" in out

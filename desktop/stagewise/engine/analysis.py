@@ -729,16 +729,26 @@ class ProjectAnalysis:
     @cached_property
     def _findings(self) -> tuple[Finding, ...]:
         found: list[Finding] = []
+        active = self.project.active_stages
+        last = active[-1].id if active else None
         for stage in self.project.stages:
             for place in STAGE_PLACES:
                 if place != "isolated" and stage.bypass:
                     continue
-                if place == "from_input" and self.from_input(stage.id) is self.whole_chain:
+                if place == "from_input" and stage.id == last:
                     continue  # the last stage seen from the input is the chain itself (said below)
                 verdict = self.stability(place, stage.id)
                 if verdict is not None and not verdict.stable:
                     found.append(Finding("unstable", stage.id, place, None,
                                          f'stage "{stage.id}" {PLACE_WORDS[place]} is unstable: {verdict.reason}'))
+        whole = self.whole_chain
+        if isinstance(whole, _Failure) and active:
+            # Nothing about the chain can be shown to hold: that fails the design too.
+            # The stage's own diagnosis names the node or part; the chain's pencil only says "singular".
+            stages = [self.isolated(stage.id).why for stage in active]
+            why = next((reason for reason in stages if reason), whole.why.removeprefix("the chain: "))
+            found.append(Finding("not_analysed", None, "chain", None, f"the chain cannot be analysed: {why}"))
+            return tuple(found)
         verdict = self.stability("chain", "")
         if verdict is not None and not verdict.stable:
             found.append(Finding("unstable", None, "chain", None, f"the chain is unstable: {verdict.reason}"))

@@ -47,7 +47,7 @@ COMPONENT_SHARE = 0.05
 
 
 # What an automatic finding can be (the words shown for each are in ``review.checks``).
-FINDING_KINDS = ("unstable", "over_range", "swing", "slew")
+FINDING_KINDS = ("unstable", "over_range", "swing", "slew", "not_analysed")
 
 
 @dataclass(frozen=True, slots=True)
@@ -59,7 +59,8 @@ class Finding:
     kind : str
         One of :data:`FINDING_KINDS`: ``unstable`` (a pole on or right of the jω axis),
         ``over_range`` (the converter input exceeds full scale for the declared input), ``swing``
-        (an op-amp output needs more than its swing), ``slew`` (more than its slew rate).
+        (an op-amp output needs more than its swing), ``slew`` (more than its slew rate),
+        ``not_analysed`` (the chain's equations cannot be solved, so nothing about it holds).
     stage_id : str or None
         The stage it belongs to (``None`` for the chain and the converter).
     where : str

@@ -61,6 +61,7 @@ FINDING_WORDS: Final[dict[str, str]] = {
     "over_range": "over-range",
     "swing": "clips",
     "slew": "slew-limited",
+    "not_analysed": "not analysed",
 }
 
 
