@@ -267,6 +267,12 @@ def test_stage_pages_show_the_pass_band_reference_from_input_figures_and_loops_i
     text = printed["text"]
     assert "from chain input" in text
     assert _normal("Pass-band reference (corners, peaking)") in text
+    # Common practice, no source: the chain seen from its input is drawn with the stage where it has the
+    # stage's unit (a voltage-driven chain), else the page says where its figures are.
+    if printed["project"].input.drive == "voltage":
+        assert "; from chain input:" in text  # a third trace in the caption's legend
+    else:
+        assert _normal("not in this plot's V/V") in text
     for entry in stages:
         seen = entry.get("from_input")
         if isinstance(seen, dict) and seen.get("f_high_3db_hz") is not None:

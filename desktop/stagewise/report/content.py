@@ -56,6 +56,9 @@ class Step:
 class StageCurves:
     isolated: Curve = field(default_factory=Curve)
     in_chain: Curve = field(default_factory=Curve)
+    # The chain's drive to this stage's output, in the chain's unit (``from_input_unit``).
+    from_input: Curve = field(default_factory=lambda: Curve(why="not computed in this build"))
+    from_input_unit: str = "V/V"
     step_isolated: Step = field(default_factory=lambda: Step(why=f"the step response is {NOT_IN_BUILD}"))
     step_in_chain: Step = field(default_factory=lambda: Step(why=f"the step response is {NOT_IN_BUILD}"))
 
@@ -143,7 +146,13 @@ def _curves_from_analysis(analysis: Any, project: Project) -> tuple[Curve, dict[
             entry = result.stage(stage.id)
             in_chain = (Curve(f_hz, np.asarray(entry.in_chain)) if entry.in_chain is not None
                         else Curve(why=entry.in_chain_why or "no response in chain"))
-        stages[stage.id] = StageCurves(isolated, in_chain)
+        if stage.bypass or not chain_ok:
+            from_input = Curve(why=in_chain.why)
+        else:
+            position = result.stage_ids.index(stage.id) + 1
+            from_input = Curve(f_hz, np.asarray(result.interface_response[:, position]))
+        stages[stage.id] = StageCurves(isolated, in_chain, from_input,
+                                       str(getattr(result, "unit", "V/V")) if chain_ok else "V/V")
     chain = Curve(f_hz, np.asarray(result.response)) if chain_ok else Curve(why=chain_why)
     return chain, stages
 

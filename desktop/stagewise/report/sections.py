@@ -776,19 +776,29 @@ def _magnitude_label(unit: str) -> str:
 def _response_blocks(stage: Stage, content: PacketContent) -> list[Block]:
     blocks: list[Block] = [Heading("Response: isolated and in chain", 3)]
     curves = content.stages[stage.id]
-    available = [(label, curve) for label, curve in (("isolated", curves.isolated), ("in chain", curves.in_chain))
-                 if curve.response is not None]
-    missing = [f"{label}: {curve.why}" for label, curve in (("isolated", curves.isolated),
-                                                            ("in chain", curves.in_chain)) if curve.response is None]
+    unit = "Ω" if stage.drive == "current" else "V/V"
+    places = [("isolated", curves.isolated), ("in chain", curves.in_chain)]
+    # Seen from the chain input: drawn on the same axes where it is in the stage's own unit.
+    drawn_from_input = curves.from_input_unit == unit and curves.from_input.response is not None
+    if drawn_from_input:
+        places.append(("from chain input", curves.from_input))
+    available = [(label, curve) for label, curve in places if curve.response is not None]
+    missing = [f"{label}: {curve.why}" for label, curve in places if curve.response is None]
     if available:
         traces = _traces(available)
-        limits = _limits(content.project, [stage], ("isolated", "in_chain"))
-        label = _magnitude_label("Ω" if stage.drive == "current" else "V/V")
+        limits = _limits(content.project, [stage], ("isolated", "in_chain", "from_input")
+                         if drawn_from_input else ("isolated", "in_chain"))
+        label = _magnitude_label(unit)
+        from_input_words = (" From chain input: the chain's drive to this stage's output, everything before and "
+                            "after it in place." if drawn_from_input else "")
         blocks.append(_plot_figure(lambda: response_plot(traces, limits, magnitude_label=label, legend=False), 300.0,
                                    f"Traces: {legend_text([trace.label for trace in traces])}. Isolated: ideal "
                                    "drive, unloaded. In chain: the stage where it sits (V_out/V_in, or V_out/I_in "
-                                   "for a current-driven stage). Shaded: limits of the stage's checks on gain or "
-                                   "phase at a frequency."))
+                                   f"for a current-driven stage).{from_input_words} Shaded: limits of the stage's "
+                                   "checks on gain or phase at a frequency."))
+    if not drawn_from_input and curves.from_input.response is not None:
+        blocks.append(Paragraph(f"From the chain input the response is in {curves.from_input_unit} (the chain's "
+                                f"drive), not in this plot's {unit}: its figures are in the table below.", 10.5))
     for line in missing:
         blocks.append(_unavailable(line[0].upper() + line[1:] + "."))
     blocks.extend(_step_blocks(stage, content))
