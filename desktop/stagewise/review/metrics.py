@@ -99,9 +99,11 @@ _TABLE: Final[tuple[Metric, ...]] = (
     Metric("settle_01pct_s", "Settling time (0.1 %)", "s", "unused", _ALL,
            "Time after which the step response stays within 0.1 % of its final value."),
     Metric("phase_margin_deg", "Phase margin", "°", "unused", _STAGE,
-           "Smallest phase margin among the loops of the stage's finite op-amps."),
+           "Smallest phase margin among the loops of the stage's finite op-amps (over every unit-gain "
+           "crossing, the distance of the loop gain to −1); no value when the closed loop is unstable."),
     Metric("gain_margin_db", "Gain margin", "dB", "unused", _STAGE,
-           "Smallest gain margin among the loops of the stage's finite op-amps."),
+           "Smallest gain margin among the loops of the stage's finite op-amps; no value when the closed "
+           "loop is unstable."),
     Metric("crossover_hz", "Loop crossover", "Hz", "unused", _STAGE,
            "Frequency where the loop gain of the stage's op-amp falls through 0 dB (lowest if several)."),
     Metric("loading_error_db_max", "Largest loading error", "dB", "unused", ("in_chain",),
@@ -141,7 +143,8 @@ _TABLE: Final[tuple[Metric, ...]] = (
            "How much faster the op-amp can slew than its output needs at the declared input, as a percentage "
            "of the need (smallest over the op-amps); negative means slew-limited."),
     Metric("yield_pct", "Yield over tolerances", "%", "unused", _CHAIN_ONLY,
-           "Share of tolerance samples that meet every numeric check of the project."),
+           "Share of tolerance samples that meet every numeric check of the project the spread can "
+           "evaluate per sample (the others are listed with the reason)."),
     # Bench measurements at the check's place (the worst of those attached there, none stale).
     Metric("measured_dev_db_max", "Largest measured gain deviation", "dB", "unused", _ALL,
            "Largest |measured − predicted| gain over the frequencies of the bench measurements taken there."),
