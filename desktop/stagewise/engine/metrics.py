@@ -312,7 +312,7 @@ class PassbandReference:
 
 def reference_words(record: dict[str, Any], unit: str = "dB") -> str:
     """A ``ref`` record in a few words, the same in every view: "re DC gain 0.00 dB",
-    "re high-frequency gain …", "re mid-band gain … at 1 kHz", "re gain … at ref_hz 1 kHz"."""
+    "re high-frequency gain …", "re mid-band gain … at 1 kHz", "re gain … at the reference frequency 1 kHz"."""
     kind, gain_db, f_hz = record.get("kind"), record.get("gain_db"), record.get("f_hz")
     if kind is None or not isinstance(gain_db, int | float):
         return "no pass-band reference"
@@ -324,7 +324,7 @@ def reference_words(record: dict[str, Any], unit: str = "dB") -> str:
     where = format_value(float(f_hz), "Hz") if isinstance(f_hz, int | float) else "an unknown frequency"
     if kind == "midband":
         return f"re mid-band gain {gain} at {where}"
-    return f"re gain {gain} at ref_hz {where}"
+    return f"re gain {gain} at the reference frequency {where}"
 
 
 def _end_exponents(analysis: StageAnalysis) -> tuple[int, int, bool]:
@@ -462,7 +462,7 @@ def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandR
             why = f"a {shape} response has no pass-band gain of its own ({because}) and settings.ref_hz is not set"
             return PassbandReference(None, None, None, shape, f"no reference: {why}", why)
         return PassbandReference("ref_hz", ref_hz, gain_db_at(analysis, ref_hz), shape,
-                                 f"the gain at ref_hz: a {shape} response has no pass-band gain of its own "
+                                 f"the gain at the reference frequency: a {shape} response has no pass-band gain of its own "
                                  f"({because})")
 
     def at_dc(shape: str) -> PassbandReference:
@@ -519,7 +519,7 @@ def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandR
     band = f"{format_value(low / TWO_PI, 'Hz')}–{format_value(high / TWO_PI, 'Hz')}"
     if ref_hz is not None and low * MIDBAND_MARGIN <= TWO_PI * ref_hz <= high / MIDBAND_MARGIN:
         return PassbandReference("ref_hz", ref_hz, gain_db_at(analysis, ref_hz), "band-pass",
-                                 f"the mid-band gain read at ref_hz, which lies in the flat mid-band ({band})")
+                                 f"the mid-band gain read at the reference frequency, which lies in the flat mid-band ({band})")
     f_mid = math.sqrt(low * high) / TWO_PI
     return midband(f_mid, gain_db_at(analysis, f_mid), f"the centre of its flat mid-band ({band})")
 

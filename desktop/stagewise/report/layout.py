@@ -20,6 +20,8 @@ from dataclasses import dataclass, field
 from PySide6.QtCore import QPointF, QRectF, Qt
 from PySide6.QtGui import QColor, QFont, QFontMetricsF, QPagedPaintDevice, QPainter, QPen
 
+from stagewise.present.typography import keep_units_together
+
 __all__ = [
     "LOGICAL_DPI",
     "Block",
@@ -179,7 +181,8 @@ class Paragraph(Block):
     def _lines(self, width: float) -> list[str]:
         if self.lines is not None:
             return self.lines
-        return wrap_text(self.text, QFontMetricsF(self._font()), width - self.indent)
+        # A number and its unit never end up on two lines.
+        return wrap_text(keep_units_together(self.text), QFontMetricsF(self._font()), width - self.indent)
 
     def _line_height(self) -> float:
         return QFontMetricsF(self._font()).lineSpacing()
@@ -358,7 +361,8 @@ class Table(Block):
                 text = row[index] if index < len(row) else ""
                 inner = widths[index] - 2 * self.PAD_X
                 metrics = QFontMetricsF(self._cell_font(index, mark))
-                wrapped.append(wrap_text(text, metrics, inner) if column.wrap else text.split("\n"))
+                wrapped.append(wrap_text(keep_units_together(text), metrics, inner) if column.wrap
+                               else keep_units_together(text).split("\n"))
             cells.append(wrapped)
         self._cached = (width, widths, cells)
         return widths, cells

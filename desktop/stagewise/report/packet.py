@@ -202,11 +202,21 @@ def build_packet(project: Project, path_or_sha: str | os.PathLike[str], output: 
         data = _write_pdf(temporary, project, frame, pages, steps)
         if data is None:
             raise PacketCancelled  # noqa: TRY301 (the temporary file is removed below)
+        # mkstemp makes the file readable by its owner only (0600); a packet is a document like
+        # any other the user writes: the mode an ordinary new file gets under their umask.
+        os.chmod(temporary, 0o666 & ~_umask())
         os.replace(temporary, target)
     except BaseException:
         Path(temporary).unlink(missing_ok=True)
         raise
     return PacketResult(str(target), hashlib.sha256(data).hexdigest(), len(pages), content.sha256)
+
+
+def _umask() -> int:
+    """The process's file-creation mask (read by setting it and setting it straight back)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
 
 
 def print_packet(project: Project, path_or_sha: str | os.PathLike[str], printer: object,

@@ -10,7 +10,6 @@ command line say the same thing.
 
 from __future__ import annotations
 
-import json
 import math
 from collections.abc import Callable, Sequence
 from datetime import UTC, datetime
@@ -287,7 +286,7 @@ def _diagram_boxes(content: PacketContent) -> list[DiagramBox]:
                         (f"{format_value(amplitude.si, unit)} peak",) if amplitude else (), end=True)
     boxes = [source]
     for stage in project.stages:
-        kind = "block" if stage.is_block else f"{len(stage.parts)} parts"
+        kind = "block" if stage.is_block else f"{len(stage.parts)} part{'s' if len(stage.parts) != 1 else ''}"
         if stage.bypass:
             boxes.append(DiagramBox(stage.name, f"{stage.id} · bypassed", (), bypassed=True))
         else:
@@ -890,8 +889,13 @@ def _checks(stage: Stage, results: list[CheckResult]) -> list[Block]:
             what = "manual question"
         reason = result.why or ""
         if check.waiver is not None:
-            reason = (f"waived by {check.waiver.by} ({check.waiver.time[:10]}): {check.waiver.justification}"
-                      + (f"; {reason}" if reason else ""))
+            # The check's own reason already says who waived it and why (review/checks.py); the
+            # packet adds only the date, so the justification is printed once.
+            if reason.startswith("waived by"):
+                reason = f"{reason} (waived {check.waiver.time[:10]})"
+            else:
+                reason = (f"waived by {check.waiver.by} ({check.waiver.time[:10]}): {check.waiver.justification}"
+                          + (f"; {reason}" if reason else ""))
         rows.append([f"{result.check_id}\n{result.text}" if result.text else result.check_id, what,
                      result.limits or DASH, result.value_text(), str(result.state), reason])
         marks.append("bad" if result.state in (CheckState.NOT_MET, CheckState.NO_VALUE, CheckState.OPEN)
@@ -964,20 +968,51 @@ def _stage(stage: Stage, number: int, content: PacketContent, results: list[Chec
 # --- audit trail -------------------------------------------------------------------------------
 
 
+def _is_hash(value: object) -> bool:
+    return isinstance(value, str) and len(value) == 64 and all(c in "0123456789abcdef" for c in value)
+
+
+def _readable(key: str, value: Any) -> str:
+    """An audit detail value in words: changes as sentences, records by who and what, hashes cut."""
+    if key == "verdict" and isinstance(value, str):
+        return VERDICT_WORDS.get(current_verdict(value), value)  # older events hold older words
+    if _is_hash(value):
+        return str(value)[:16] + "…"
+    if isinstance(value, str):
+        return value
+    if isinstance(value, bool) or value is None:
+        return "yes" if value else "no"
+    if isinstance(value, (int, float)):
+        return f"{value:g}"
+    if isinstance(value, dict):
+        if "subject" in value and "kind" in value:  # one change of a part-change event
+            field = f" {value['field']}" if value.get("field") else ""
+            words = f"{value.get('stage', '')}: {value['subject']}{field} {value['kind']}".strip(": ")
+            if value.get("old") is not None and value.get("new") is not None:
+                words += f" from {value['old']} to {value['new']}"
+            elif value.get("new") is not None:
+                words += f": {value['new']}"
+            return words
+        if "name" in value and "verdict" in value:  # a sign-off
+            verdict = VERDICT_WORDS.get(current_verdict(str(value["verdict"])), str(value["verdict"]))
+            return f"{value['name']} ({verdict}, {value.get('stage', '')}, {str(value.get('time', ''))[:10]})"
+        if all(_is_hash(item) for item in value.values()):  # fingerprints by stage
+            return ", ".join(f"{name} {str(item)[:8]}…" for name, item in value.items())
+        return ", ".join(f"{name.replace('_', ' ')} {_readable(name, item)}" for name, item in value.items()
+                         if item not in ("", None, [], {}))
+    if isinstance(value, list):
+        items = [_readable(key, item) for item in value]
+        return "; ".join(items) if items else "none"
+    return str(value)
+
+
 def _detail_text(detail: dict[str, Any]) -> str:
+    """An audit event's detail as readable words (``key: value`` parts, never raw JSON)."""
     parts = []
     for key, value in detail.items():
         if value in ("", None, [], {}):
             continue  # an empty note says nothing
-        if key == "verdict" and isinstance(value, str):
-            value = VERDICT_WORDS.get(current_verdict(value), value)  # older events hold older words
-        elif isinstance(value, str) and len(value) == 64 and all(c in "0123456789abcdef" for c in value):
-            value = value[:16] + "…"
-        elif not isinstance(value, str):
-            value = json.dumps(value, ensure_ascii=False, separators=(", ", ": "))
-            if len(value) > 160:
-                value = value[:157] + "…"
-        parts.append(f"{key}: {value}")
+        parts.append(f"{key.replace('_', ' ')}: {_readable(key, value)}")
     return "; ".join(parts)
 
 
