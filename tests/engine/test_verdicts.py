@@ -193,6 +193,7 @@ def test_yield_counts_every_numeric_check_with_the_same_part_values_everywhere()
         {"id": "corner-chain", "text": "t", "metric": "f_high_3db_hz", "where": "chain", **band},
         {"id": "corner-alone", "text": "t", "metric": "f_high_3db_hz", "where": "isolated", **band},
         {"id": "corner-here", "text": "t", "metric": "f_high_3db_hz", "where": "in_chain", **band},
+        {"id": "corner-from-input", "text": "t", "metric": "f_high_3db_hz", "where": "from_input", **band},
         {"id": "noise", "text": "t", "metric": "noise_out_rms_v", "where": "chain", "max": 1},
         {"id": "waived", "text": "t", "metric": "gain_db", "where": "chain", "at_hz": 100, "min": 10,
          "waiver": {"by": "A. Reviewer", "time": "2026-12-01T00:00:00Z", "justification": "bench value"}},
@@ -200,7 +201,7 @@ def test_yield_counts_every_numeric_check_with_the_same_part_values_everywhere()
     project = project_of([rc], settings={"mc_samples": 400})
     document = ProjectAnalysis(project).spread
     counts = {item["label"]: item["pass_count"] for item in document["limits"]}
-    assert set(counts) == {"rc/corner-chain", "rc/corner-alone", "rc/corner-here"}
+    assert set(counts) == {"rc/corner-chain", "rc/corner-alone", "rc/corner-here", "rc/corner-from-input"}
     skipped = {item["label"]: item["why"] for item in document["not_evaluated"]}
     assert set(skipped) == {"rc/noise", "rc/waived"} and "waived" in skipped["rc/waived"]
     # Source: first-order RC corner 1/(2πRC) (any circuits text), for each sample's part values.
@@ -210,5 +211,32 @@ def test_yield_counts_every_numeric_check_with_the_same_part_values_everywhere()
     expected = int(np.count_nonzero((corner >= band["min"]) & (corner <= band["max"])))
     assert 0 < expected < 400
     # The same part values in every place: one stage alone, in chain and as the chain agree.
-    assert counts == {"rc/corner-chain": expected, "rc/corner-alone": expected, "rc/corner-here": expected}
+    assert counts == {"rc/corner-chain": expected, "rc/corner-alone": expected, "rc/corner-here": expected,
+                      "rc/corner-from-input": expected}
     assert document["yield_pct"] == pytest.approx(100 * expected / 400)
+
+
+def test_yield_of_a_stage_in_chain_uses_the_loaded_corner_with_each_samples_part_values() -> None:
+    from stagewise.engine.spread import monte_carlo
+
+    r_ohm, c_f, load_ohm = 10e3, 15e-9, 22e3
+    rc = {"id": "rc", "name": "RC", "ports": {"in": "in", "out": "out"},
+          "parts": [{"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": r_ohm, "tol": "5%"},
+                    {"ref": "C1", "type": "C", "nodes": ["out", "0"], "value": c_f, "tol": "10%"}]}
+    load = {"id": "load", "name": "load", "ports": {"in": "in", "out": "in"},
+            "parts": [{"ref": "RL", "type": "R", "nodes": ["in", "0"], "value": load_ohm, "tol": "5%"}]}
+    # Source: first-order RC corner 1/(2πRC) (any circuits text); loaded by RL the source
+    # resistance seen by C is R ∥ RL (Thevenin).
+    loaded = 1 / (TWO_PI * (r_ohm * load_ohm / (r_ohm + load_ohm)) * c_f)
+    band = {"min": 0.96 * loaded, "max": 1.04 * loaded}
+    rc["checks"] = [{"id": "loaded", "text": "t", "metric": "f_high_3db_hz", "where": "in_chain", **band}]
+    project = project_of([rc, load], settings={"mc_samples": 300})
+    analysis = ProjectAnalysis(project)
+    counts = {item["label"]: item["pass_count"] for item in analysis.spread["limits"]}
+    reference = monte_carlo(analysis.merged.system, project, current_drive=False)
+    m = dict(zip(reference.parts, reference.sample_values.multipliers.T, strict=True))
+    r, rl = r_ohm * m["rc:R1"], load_ohm * m["load:RL"]
+    corner = 1 / (TWO_PI * (r * rl / (r + rl)) * c_f * m["rc:C1"])
+    expected = int(np.count_nonzero((corner >= band["min"]) & (corner <= band["max"])))
+    assert 0 < expected < 300
+    assert counts == {"rc/loaded": expected}
