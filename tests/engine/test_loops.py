@@ -87,3 +87,33 @@ def test_ideal_opamp_reports_no_loop() -> None:
                          "phase_crossover_hz": None, "crossover_hz_why": IDEAL_WHY,
                          "phase_margin_deg_why": IDEAL_WHY, "gain_margin_db_why": IDEAL_WHY,
                          "phase_crossover_hz_why": IDEAL_WHY}]
+
+
+def test_a_loop_crossing_unit_gain_three_times_reports_its_smallest_phase_margin() -> None:
+    # A series R-L-C notch from the feedback node to node 0 pulls β (and |T|) below 1 around
+    # 10 kHz, so |T| crosses 1 down, up and down again (the last near GBW·β).
+    rf, rg, rs, inductance, capacitance = 10e3, 10e3, 50.0, 10e-3, 25.3e-9
+    project = decode({
+        "format": "stagewise-project", "version": 1, "title": "notched loop",
+        "opamp_models": {"m": {"a0_db": 100, "gbw_hz": "1M"}},
+        "stages": [{"id": "s", "name": "stage", "ports": {"in": "in", "out": "out"}, "parts": [
+            {"ref": "U1", "type": "opamp", "nodes": ["in", "n", "out"], "model": "m"},
+            {"ref": "RF", "type": "R", "nodes": ["out", "n"], "value": rf},
+            {"ref": "RG", "type": "R", "nodes": ["n", "0"], "value": rg},
+            {"ref": "RS", "type": "R", "nodes": ["n", "a"], "value": rs},
+            {"ref": "L1", "type": "L", "nodes": ["a", "b"], "value": inductance},
+            {"ref": "C1", "type": "C", "nodes": ["b", "0"], "value": capacitance}]}],
+    })
+    (result,) = stage_loops(project.stages[0], project)
+    s = control.tf("s")
+    notch = rs + s * inductance + 1 / (s * capacitance)
+    ground = rg * notch / (rg + notch)
+    loop = control.minreal(open_loop(100, 1e6, None) * ground / (rf + ground), verbose=False)
+    # Reference library: control 0.10.2, stability_margins (returnall lists every crossing; the
+    # single answer is the smallest phase margin).
+    every = control.stability_margins(loop, returnall=True)
+    assert len(every[1]) == 3
+    _, pm, _, _, _ = control.stability_margins(loop)[:5]
+    assert result.phase_margin_deg == pytest.approx(pm, abs=1e-4)
+    assert result.phase_margin_deg < max(every[1]) - 30  # not the margin at the highest crossing
+    assert result.crossover_hz == pytest.approx(max(every[4]) / TWO_PI, rel=1e-6)
