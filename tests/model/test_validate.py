@@ -276,3 +276,16 @@ def test_a_value_carries_the_unit_of_its_part(kind: str, value: str, sentence: s
         assert problems == []
     else:
         assert len(problems) == 1 and problems[0].startswith(f"stages[0].parts[1].value: {sentence}")
+
+
+def test_a_transresistance_takes_ohms() -> None:
+    # Common practice, no source: a current-controlled voltage source's gain is volts per ampere,
+    # ohms; siemens (amperes per volt) is its inverse.
+    stage = Stage(id="s", name="S", parts=[Part("R1", "R", ["in", "out"], Quantity.of("1k")),
+                                           Part("H1", "ccvs", ["out", "0"], Quantity.of("2mS"), control="R1")])
+    project = Project(title="T", stages=[stage])
+    assert validate(project) == [
+        'stages[0].parts[1].value: "2mS" is a conductance, a current-controlled voltage source takes a '
+        "transresistance in ohms"]
+    stage.parts[1].value = Quantity.of("2k ohm")
+    assert validate(project) == []
