@@ -639,3 +639,74 @@ def evaluate_symbolic(form: SymbolicForm, f_hz: NDArray[np.float64]) -> NDArray[
     denominator = np.array([_numeric(sympy_expr, form.values) for sympy_expr in form.denominator], dtype=complex)
     s = 1j * TWO_PI * np.asarray(f_hz, dtype=float)
     return np.asarray(np.polyval(numerator, s) / np.polyval(denominator, s), dtype=complex)
+
+
+def finite_gain_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_TIME_LIMIT_S,
+                     formulas: dict[Any, Any] | None = None) -> dict[str, Any] | None:
+    """An op-amp stage as an engineer writes it: the ideal-op-amp form, then the finite-gain factor.
+
+    With finite op-amps the stage's full transfer function in part symbols is a coefficient soup
+    of the models' numbers. It is stated instead as H(s) = H_ideal(s) · 1/(1 + 1/(A(s)·β)):
+    H_ideal in the part symbols with every op-amp ideal (a nullor), and for each finite op-amp
+    its open-loop gain A(s) = A0/(1 + s·A0/ω_GBW) and its feedback factor β, the loop gain over
+    A at low frequency (β = T/A; T from :mod:`stagewise.engine.loops`), the crossover f ≈ β·GBW
+    and the factor's size at the reference frequency: the exact response over H_ideal there,
+    in dB and degrees. For one op-amp with ideal inputs and no output resistance the factor is
+    exact; otherwise the exact response is what the engine plots and this is its reading.
+
+    Returns ``None`` when the stage has no finite op-amp (its symbolic form is already clean).
+
+    References
+    ----------
+    H. S. Black, "Stabilized feedback amplifiers", Bell Syst. Tech. J. 13 (1934): closed-loop
+    gain A/(1 + Aβ) = (1/β)·1/(1 + 1/(Aβ)).
+    """
+    import dataclasses
+
+    from stagewise.engine.loops import loop_gain  # noqa: PLC0415 - loops imports nothing of this module
+    from stagewise.engine.stage import stage_response  # noqa: PLC0415
+
+    finite = [part for part in stage.parts if part.type == "opamp" and part.model not in (None, IDEAL_OPAMP)
+              and part.model in project.opamp_models]
+    if stage.is_block or not finite:
+        return None
+    ideal_stage = dataclasses.replace(stage, parts=[dataclasses.replace(part, model=IDEAL_OPAMP)
+                                                    if part.type == "opamp" else part for part in stage.parts])
+    ideal = symbolic_form(ideal_stage, project, time_limit_s, formulas)
+    document: dict[str, Any] = {"ideal": ideal.as_dict(), "opamps": [], "ref_hz": None}
+    try:
+        system = assemble(stage, project)
+        driven = drive(system, stage.drive == "current")
+    except (CircuitError, ValueError) as error:
+        document["why"] = f"the finite-gain factor could not be computed: {error}"
+        return document
+    low_hz = max(project.settings.f_min_hz.si / 10.0, 1e-3)
+    for opamp in system.opamps:
+        model = project.opamp_models.get(next((str(p.model) for p in finite if p.ref == opamp.ref), ""))
+        if model is None:
+            continue
+        a0 = 10.0 ** (model.a0_db.si / 20.0)
+        entry: dict[str, Any] = {"ref": opamp.ref, "a0": a0, "a0_db": model.a0_db.si, "gbw_hz": model.gbw_hz.si,
+                                 "p2_hz": None if model.p2_hz is None else model.p2_hz.si}
+        grid = np.logspace(math.log10(low_hz), math.log10(max(model.gbw_hz.si, low_hz) * 100.0), 241)
+        result = loop_gain(driven.g, driven.c, opamp, grid)
+        t_low = complex(result.loop_gain[0]) if len(result.loop_gain) else 0j
+        # A(s) at the lowest grid point, from the model's first pole: A0/(1 + j·f·A0/GBW).
+        a_low = a0 / (1 + 1j * grid[0] * a0 / model.gbw_hz.si)
+        entry["beta"] = float((t_low / a_low).real) if a_low != 0 else None
+        entry["crossover_hz"] = result.crossover_hz
+        entry["phase_margin_deg"] = result.phase_margin_deg
+        document["opamps"].append(entry)
+    ref = project.settings.ref_hz.si if project.settings.ref_hz is not None else None
+    if ref is not None and ideal.ok:
+        try:
+            exact = complex(stage_response(stage, project, np.array([ref]))[0])
+            wanted = complex(evaluate_symbolic(ideal, np.array([ref]))[0])
+        except (CircuitError, ValueError, np.linalg.LinAlgError, ZeroDivisionError):
+            exact = wanted = 0j
+        if wanted != 0 and exact != 0:
+            factor = exact / wanted
+            document["ref_hz"] = ref
+            document["factor_db_at_ref"] = 20.0 * math.log10(abs(factor))
+            document["factor_deg_at_ref"] = math.degrees(math.atan2(factor.imag, factor.real))
+    return document

@@ -238,12 +238,18 @@ def _symbolic(stage: Stage, project: Project, formulas: dict[Any, Any] | None = 
         _SYMBOLIC_CACHE.move_to_end(key)
         return _SYMBOLIC_CACHE[key]
     form = _optional("stagewise.engine.symbolic", "symbolic_form")
+    finite_form = _optional("stagewise.engine.symbolic", "finite_gain_form")
     if form is None:
         return {"why": f"the symbolic form is {NOT_IN_BUILD}"}
     try:
-        result = form(stage, project, formulas=formulas)
-        found: dict[str, Any] = {"form": result.as_dict()} if result.ok else {
-            "why": result.why or "no formula for this stage"}
+        # A stage with finite op-amps: its ideal-op-amp form and the finite-gain factor with its
+        # numbers, not the coefficient soup of the models' numbers (and much faster to derive).
+        finite = finite_form(stage, project, formulas=formulas) if finite_form is not None else None
+        if finite is not None and finite["ideal"].get("denominator"):
+            found: dict[str, Any] = {"form": finite["ideal"], "finite": finite}
+        else:
+            result = form(stage, project, formulas=formulas)
+            found = {"form": result.as_dict()} if result.ok else {"why": result.why or "no formula for this stage"}
     except (ValueError, ArithmeticError, TimeoutError) as error:
         return {"why": f"no symbolic form: {error}"}
     # A form that fell back to numbers because the clock ran out depends on the machine's load:

@@ -23,6 +23,7 @@ from stagewise import __version__
 from stagewise.engine.metrics import reference_words
 from stagewise.model.project import PART_TYPES, Project, Stage
 from stagewise.model.values import format_value
+from stagewise.present.formula import finite_gain_lines, polynomial, pretty
 from stagewise.report.content import NOT_IN_BUILD, Curve, PacketContent
 from stagewise.report.diagram import DiagramBox, diagram_height, draw_diagram
 from stagewise.report.layout import (
@@ -662,8 +663,12 @@ def _parameter(expression: Any, value: Any, unit: str = "") -> str:
     try:
         float(str(expression))
     except ValueError:
-        return f"{expression}\n= {shown}"
+        return f"{pretty(str(expression))}\n= {shown}"
     return shown
+
+
+def _superscript(power: int) -> str:
+    return "" if power == 1 else str(power).translate(str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹"))
 
 
 def _symbolic_blocks(stage: Stage, content: PacketContent) -> list[Block]:
@@ -678,23 +683,33 @@ def _symbolic_blocks(stage: Stage, content: PacketContent) -> list[Block]:
         blocks.append(_unavailable(f"Symbolic form: {found.get('why', NOT_IN_BUILD)}."))
         return blocks
     unit = form.get("unit") or "V/V"
-    transfer = str(form.get("transfer") or "")
-    if transfer and len(transfer) <= _FORMULA_SHOWN_WHOLE:
-        blocks.append(Paragraph(f"H(s) = {transfer}", 11.0, mono=True))
+    finite = found.get("finite")
+    name = "H_ideal(s)" if finite else "H(s)"
+    numerator_text = polynomial(list(form.get("numerator") or []))
+    denominator_text = polynomial(list(form.get("denominator") or []))
+    if finite:
+        blocks.append(_intro("With every op-amp ideal (a nullor), in the part symbols:"))
+    if len(numerator_text) + len(denominator_text) <= _FORMULA_SHOWN_WHOLE:
+        blocks.append(Paragraph(f"{name} = ({numerator_text}) / ({denominator_text})", 11.0))
     else:
         numerator = list(form.get("numerator") or [])
         denominator = list(form.get("denominator") or [])
         order = max(len(numerator), len(denominator))
-        blocks.append(_intro("H(s) = N(s) / D(s), with D monic; coefficients of s to each power, highest first:"))
+        blocks.append(_intro(f"{name} = N(s) / D(s), with D monic; coefficients of s to each power, highest first:"))
         rows = []
         for index in range(order):
             power_n = len(numerator) - 1 - index
             power_d = len(denominator) - 1 - index
-            rows.append([f"s^{max(power_n, power_d)}",
-                         numerator[index - (order - len(numerator))] if index >= order - len(numerator) else "0",
-                         denominator[index - (order - len(denominator))] if index >= order - len(denominator) else "0"])
-        blocks.append(Table([Column("power", wrap=False), Column("N(s)", mono=True), Column("D(s)", mono=True)],
-                            rows, size_px=9.5))
+            rows.append([f"s{_superscript(max(power_n, power_d))}",
+                         pretty(numerator[index - (order - len(numerator))]) if index >= order - len(numerator)
+                         else "0",
+                         pretty(denominator[index - (order - len(denominator))]) if index >= order - len(denominator)
+                         else "0"])
+        blocks.append(Table([Column("power", wrap=False), Column("N(s)"), Column("D(s)")], rows, size_px=9.5))
+    if finite:
+        blocks.append(_intro("Finite op-amp gain, as a factor on the ideal form:"))
+        for line in finite_gain_lines(finite):
+            blocks.append(Paragraph(line, 10.5))
     blocks.append(Paragraph(f"Unit of H: {unit}. Part symbols stand for the values in the parts table"
                             + ("; coefficients are numeric." if form.get("numeric") else "."), 10.5,
                             color=QColor(MUTED)))
@@ -709,8 +724,8 @@ def _symbolic_blocks(stage: Stage, content: PacketContent) -> list[Block]:
                          _parameter(section.get("f0_hz"), section.get("f0_hz_value"), "Hz"),
                          _parameter(section.get("q"), section.get("q_value"))])
         blocks.append(_intro("Standard-form sections (K, f0 = ω0/2π, Q) in the parts and their values:"))
-        blocks.append(Table([Column("order", "right", wrap=False), Column("kind", wrap=False), Column("K", mono=True),
-                             Column("f0", mono=True), Column("Q", mono=True)], rows, size_px=9.5))
+        blocks.append(Table([Column("order", "right", wrap=False), Column("kind", wrap=False), Column("K"),
+                             Column("f0"), Column("Q")], rows, size_px=9.5))
     return blocks
 
 

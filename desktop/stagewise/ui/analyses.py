@@ -612,13 +612,17 @@ class FormulaText:
 
 def stage_formula(stage: Stage, project: Project, context: Context) -> FormulaText:
     """The symbolic transfer function of a stage (engine/symbolic.py; sympy loads in this thread)."""
-    from stagewise.engine.symbolic import symbolic_form
+    from stagewise.engine.symbolic import finite_gain_form, symbolic_form
     from stagewise.ui.formula_html import formula_html
 
-    form = symbolic_form(stage, project).as_dict()
+    # An op-amp stage with finite op-amps: its ideal-op-amp form and the finite-gain factor
+    # (never the coefficient soup of the models' numbers).
+    finite = finite_gain_form(stage, project)
+    form = finite["ideal"] if finite is not None else symbolic_form(stage, project).as_dict()
     if not form.get("denominator"):
         raise NotAvailable(form.get("why") or "the stage has no transfer function")
-    return FormulaText(formula_html(form, stage.name), str(form.get("transfer") or ""), bool(form.get("numeric")))
+    return FormulaText(formula_html(form, stage.name, finite), str(form.get("transfer") or ""),
+                       bool(form.get("numeric")))
 
 
 def finite(values: NDArray[np.float64]) -> NDArray[np.float64]:

@@ -7,57 +7,30 @@ from sympy, values in SI); this module only lays the text out.
 from __future__ import annotations
 
 import html
-import re
 from typing import Any
 
 from stagewise.model.values import format_value
+from stagewise.present.formula import finite_gain_lines, polynomial, pretty
 
-__all__ = ["formula_html", "pretty"]
-
-_SUPERSCRIPTS = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
-
-
-def pretty(expression: str) -> str:
-    """sympy's plain text made readable: ``R1*C1**2`` → ``R1·C1²``, ``sqrt(x)`` → ``√(x)``."""
-    text = re.sub(r"\*\*(\d+)", lambda match: match[1].translate(_SUPERSCRIPTS), expression)
-    text = text.replace("**", "^").replace("*", "·").replace("sqrt", "√").replace("pi", "π")
-    return text
-
-
-def _polynomial(coefficients: list[str | None]) -> str:
-    """Σ c_i·s^(n−i), highest power first, terms with a zero coefficient left out."""
-    degree = len(coefficients) - 1
-    terms = []
-    for index, coefficient in enumerate(coefficients):
-        if coefficient is None or coefficient.strip() in ("0", "0.0"):
-            continue
-        power = degree - index
-        text = pretty(coefficient)
-        needs_brackets = power > 0 and any(sign in text.lstrip("-") for sign in "+-")
-        if needs_brackets:
-            text = f"({text})"
-        if power == 0:
-            terms.append(text)
-        else:
-            s_power = "s" if power == 1 else "s" + str(power).translate(_SUPERSCRIPTS)
-            terms.append(s_power if text == "1" else f"{text}·{s_power}")
-    return " + ".join(terms).replace("+ -", "− ") or "0"
+__all__ = ["formula_html", "pretty"]  # pretty: from stagewise.present.formula (one renderer)
 
 
 def _value(number: float | None, unit: str) -> str:
     return "" if number is None else f" = {format_value(number, unit)}"
 
 
-def formula_html(form: dict[str, Any], stage_name: str) -> str:
-    """Rich text for the formula view."""
+def formula_html(form: dict[str, Any], stage_name: str, finite: dict[str, Any] | None = None) -> str:
+    """Rich text for the formula view; ``finite`` is the stage's finite-gain form, when it has one
+    (then ``form`` is its ideal-op-amp form, and the finite-gain factor follows it)."""
     escape = html.escape
     unit = form.get("unit") or "V/V"
-    parts = [f"<p><b>{escape(stage_name)}</b>: transfer function, stage alone ({escape(unit)})</p>"]
+    title = "ideal op-amps" if finite is not None else "stage alone"
+    parts = [f"<p><b>{escape(stage_name)}</b>: transfer function, {title} ({escape(unit)})</p>"]
     if not form.get("denominator"):
         parts.append(f"<p>No formula: {escape(form.get('why') or 'unknown reason')}</p>")
         return "".join(parts)
-    numerator = escape(_polynomial(form["numerator"]))
-    denominator = escape(_polynomial(form["denominator"]))
+    numerator = escape(polynomial(form["numerator"]))
+    denominator = escape(polynomial(form["denominator"]))
     parts.append(
         "<table cellspacing='0' cellpadding='2'><tr>"
         "<td rowspan='3' valign='middle'><span style='font-size:large'>H(s) =&nbsp;</span></td>"
@@ -65,6 +38,9 @@ def formula_html(form: dict[str, Any], stage_name: str) -> str:
         "<tr><td><hr/></td></tr>"
         f"<tr><td align='center'>{denominator}</td></tr></table>"
     )
+    if finite is not None:
+        parts.append("<p><b>Finite op-amp gain</b></p><p>" + "<br/>".join(escape(line) for line in finite_gain_lines(finite))
+                     + "</p>")
     if form.get("numeric"):
         parts.append(f"<p><i>Numeric coefficients: {escape(form.get('why') or '')}</i></p>")
     sections = form.get("sections") or []
