@@ -39,7 +39,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from stagewise.engine.mna import CircuitError, StageSystem
-from stagewise.engine.sweep import DrivenSystem, drive
+from stagewise.engine.sweep import DrivenSystem, drive, solve_batched
 from stagewise.model.project import Converter, Project
 
 __all__ = [
@@ -330,11 +330,11 @@ def _adjoint_solutions(driven: DrivenSystem, f_hz: NDArray[np.float64]) -> NDArr
     """z_k with (G + s_k C)^T z_k = e_out for every frequency; shape (frequencies, size)."""
     size = driven.g.shape[0]
     s = 1j * TWO_PI * f_hz
-    matrices = driven.g.T[None, :, :] + s[:, None, None] * driven.c.T[None, :, :]
-    unit = np.zeros((f_hz.size, size, 1), dtype=complex)
-    unit[:, driven.output, 0] = 1.0
+    unit = np.zeros(size, dtype=complex)
+    unit[driven.output] = 1.0
     try:
-        solved: NDArray[np.complex128] = np.asarray(np.linalg.solve(matrices, unit)[:, :, 0], dtype=complex)
+        # Chunked over frequencies: memory O(size²) per chunk, not O(frequencies·size²).
+        solved: NDArray[np.complex128] = solve_batched(driven.g.T, driven.c.T, unit, s.astype(np.complex128))
     except np.linalg.LinAlgError as error:
         raise CircuitError("the circuit cannot be solved for noise: its matrix is singular "
                            "(a floating node or a loop of voltage sources)") from error

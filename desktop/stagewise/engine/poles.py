@@ -51,6 +51,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from stagewise.engine.sweep import solve_batched
+
 __all__ = [
     "PoleZeroModel",
     "SingularPencilError",
@@ -488,9 +490,8 @@ def transfer_at(
 ) -> NDArray[np.complex128]:
     """The response ``x[output]`` of ``(G + sC)·x = b`` at every s (rad/s), one batched solve."""
     points = np.atleast_1d(np.asarray(s, dtype=complex))
-    matrices = g[None, :, :] + points[:, None, None] * c[None, :, :]
-    right = np.broadcast_to(b.astype(complex)[None, :, None], (len(points), len(b), 1))
-    return np.asarray(np.linalg.solve(matrices, right)[:, output, 0], dtype=complex)
+    # Chunked over the points (memory O(n²) per chunk, not O(points·n²)).
+    return np.asarray(solve_batched(g, c, b.astype(complex), points)[:, output], dtype=complex)
 
 
 def _gain_point(roots: NDArray[np.complex128], scale: float) -> complex:

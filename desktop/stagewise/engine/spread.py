@@ -156,8 +156,8 @@ class ToleranceModel:
     """The drive-attached pencil and the pattern of every toleranced part, built once.
 
     Part k adds ``(m_k^powers_k − 1)·coefficients_k·left[:, k]·right[:, k]ᵀ`` to G, or to C where
-    ``capacitive[k]``; ``g_patterns``/``c_patterns`` (parts, n, n) hold the same as dense
-    nominal contributions. ``powers`` is −1 for resistors (their conductance is stamped).
+    ``capacitive[k]`` (:meth:`matrices` sums them without storing a (parts, n, n) array).
+    ``powers`` is −1 for resistors (their conductance is stamped).
     """
 
     g0: NDArray[np.float64]
@@ -171,8 +171,6 @@ class ToleranceModel:
     right: NDArray[np.float64]
     coefficients: NDArray[np.float64]
     capacitive: NDArray[np.bool_]
-    g_patterns: NDArray[np.float64]
-    c_patterns: NDArray[np.float64]
     opamps: tuple[OpampStates, ...]
     notes: tuple[str, ...]
 
@@ -182,12 +180,12 @@ class ToleranceModel:
 
     def matrices(self, multipliers: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         """G and C of every sample: multipliers (samples, parts) -> two (samples, n, n) arrays."""
-        scale = multipliers ** self.powers[None, :] - 1.0
-        count = multipliers.shape[0]
-        n = self.size
-        g = self.g0.reshape(1, -1) + scale @ self.g_patterns.reshape(len(self.refs), n * n)
-        c = self.c0.reshape(1, -1) + scale @ self.c_patterns.reshape(len(self.refs), n * n)
-        return g.reshape(count, n, n), c.reshape(count, n, n)
+        scale = (multipliers ** self.powers[None, :] - 1.0) * self.coefficients[None, :]
+        # Σ_k scale_k·left_k·right_kᵀ as (samples, n, parts) @ (parts, n): the rank-one patterns
+        # are never stored as (parts, n, n), which for 800 parts of a 400-section ladder was 2 GB.
+        g = self.g0[None] + (self.left[None, :, :] * np.where(self.capacitive, 0.0, scale)[:, None, :]) @ self.right.T
+        c = self.c0[None] + (self.left[None, :, :] * np.where(self.capacitive, scale, 0.0)[:, None, :]) @ self.right.T
+        return g, c
 
 
 def tolerance_model(system: StageSystem, *, current_drive: bool) -> ToleranceModel:
@@ -256,8 +254,6 @@ def tolerance_model(system: StageSystem, *, current_drive: bool) -> ToleranceMod
         g0=driven.g, c0=driven.c, b=driven.b, output=driven.output,
         refs=tuple(refs), tol=np.array(tols, dtype=float), powers=np.array(powers, dtype=float),
         left=left_matrix, right=right_matrix, coefficients=weights, capacitive=mask,
-        g_patterns=np.einsum("ip,jp,p->pij", left_matrix, right_matrix, np.where(mask, 0.0, weights)),
-        c_patterns=np.einsum("ip,jp,p->pij", left_matrix, right_matrix, np.where(mask, weights, 0.0)),
         opamps=system.opamps, notes=tuple(notes),
     )
 

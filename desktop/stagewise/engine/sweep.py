@@ -64,6 +64,9 @@ def drive(system: StageSystem, current: bool) -> DrivenSystem:
     return DrivenSystem(g, c, b, system.output_index, False)
 
 
+SOLVE_CHUNK_BYTES = 32 * 2**20
+
+
 def solve_batched(
     g: NDArray[np.float64], c: NDArray[np.float64], rhs: NDArray[np.complex128], s: NDArray[np.complex128]
 ) -> NDArray[np.complex128]:
@@ -84,12 +87,20 @@ def solve_batched(
     numpy.linalg.LinAlgError
         When a matrix is exactly singular.
     """
-    matrices = g[None, :, :] + s[:, None, None] * c[None, :, :]
-    if rhs.ndim == 1:
-        right = np.broadcast_to(rhs[None, :, None], (len(s), rhs.shape[0], 1)).astype(complex)
-        return np.asarray(np.linalg.solve(matrices, right)[:, :, 0], dtype=complex)
-    right = np.broadcast_to(rhs[None, :, :], (len(s),) + rhs.shape).astype(complex)
-    return np.asarray(np.linalg.solve(matrices, right), dtype=complex)
+    n = g.shape[0]
+    columns = 1 if rhs.ndim == 1 else rhs.shape[1]
+    # Chunked over frequencies so that the stacked complex matrices stay near SOLVE_CHUNK_BYTES:
+    # memory O(n²) per chunk instead of O(k·n²) (600 frequencies of a 400-node ladder were 3 GB).
+    chunk = max(1, int(SOLVE_CHUNK_BYTES // (16 * n * (n + columns))))
+    out = np.empty((len(s), n) if rhs.ndim == 1 else (len(s), n, columns), dtype=complex)
+    right_one = rhs.astype(complex).reshape(n, columns)
+    for start in range(0, len(s), chunk):
+        part = s[start:start + chunk]
+        matrices = g[None, :, :] + part[:, None, None] * c[None, :, :]
+        right = np.broadcast_to(right_one[None, :, :], (len(part), n, columns))
+        solved = np.linalg.solve(matrices, right)
+        out[start:start + chunk] = solved[:, :, 0] if rhs.ndim == 1 else solved
+    return out
 
 
 def transfer(system: DrivenSystem, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
