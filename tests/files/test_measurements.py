@@ -108,6 +108,20 @@ def test_step_capture_with_units_from_the_header() -> None:
     np.testing.assert_allclose(data.v, [0, 0, 0.5, 1.0])
 
 
+def test_a_unit_written_as_the_last_word_of_a_column_name_is_read() -> None:
+    # Common practice, no source: "gain_db" is a gain in decibels and "freq_khz" a frequency in
+    # kilohertz, as instrument exports and our own column names write them; -6 dB is a magnitude
+    # of 10^(-6/20), not a negative linear magnitude.
+    text = "freq_khz,gain_db,phase_deg\n0.1,0,-1\n1,-6,-9\n"
+    data = parse_measurement(text.encode(), "export.csv")
+    np.testing.assert_allclose(data.f_hz, [100.0, 1000.0])
+    assert abs(abs(data.response[1]) - 10 ** (-6 / 20)) < 1e-15
+    assert abs(np.angle(data.response[1], deg=True) + 9) < 1e-12
+    step = parse_measurement(b"time_us,ch1_mv\n0,0\n1,500\n", "step.csv")
+    np.testing.assert_allclose(step.t_s, [0, 1e-6])
+    np.testing.assert_allclose(step.v, [0, 0.5])
+
+
 # -- bad files: one sentence each, naming file, line and column --------------------------------
 
 BAD_FILES = {

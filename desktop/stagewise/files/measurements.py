@@ -67,6 +67,9 @@ _FREQUENCY_UNITS: Final = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
 _TIME_UNITS: Final = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "μs": 1e-6, "ns": 1e-9}
 _VOLTAGE_UNITS: Final = {"v": 1.0, "mv": 1e-3, "uv": 1e-6, "µv": 1e-6, "μv": 1e-6}
 
+_SUFFIX_UNITS: Final = frozenset({*_FREQUENCY_UNITS, *_TIME_UNITS, *_VOLTAGE_UNITS, "db", "deg", "degree", "degrees",
+                                   "rad", "radian", "radians", "lin", "linear"})
+
 _UNIT_SPELLING: Final = {"hz": "Hz", "khz": "kHz", "mhz": "MHz", "ghz": "GHz", "us": "us", "v": "V", "mv": "mV",
                           "uv": "uV"}
 
@@ -390,6 +393,11 @@ def _header_column(cell: str, file_name: str, line: int, column: int) -> _Column
 
     words = re.split(r"[\s_]+", name)
     first = words[0] if words else ""
+    if not unit and len(words) > 1 and words[-1] in _SUFFIX_UNITS:
+        # A unit written as the name's last word, as our own column names do (gain_db, time_us):
+        # read it, or "gain_db" would pass as a linear magnitude.
+        unit_text = words[-1]
+        unit = unit_text
     if first in ("f", "freq", "frequency"):
         return _Column("f", unit_of(_FREQUENCY_UNITS, "frequency", None))
     if first in ("t", "time"):
