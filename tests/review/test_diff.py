@@ -106,3 +106,22 @@ def test_records_added_and_removed_are_matched_by_identity() -> None:
                                                                           ("sign-off", "buf", "Ben Okafor")]
     assert [(r.kind, r.stage_id, r.who) for r in result.records_removed] == [("sign-off", "rc", "Ana Ruiz")]
     assert result.changes == ()  # records are not design changes
+
+
+def test_bench_measurements_added_and_removed_are_review_records() -> None:
+    # Common practice, no source: attaching or deleting evidence of a bench test is a change to
+    # the review that a reviewer comparing two revisions must be told about.
+    from stagewise.files.measurements import parse_measurement
+    from stagewise.review.measurements import attach_measurement
+
+    old = base_project()
+    data = parse_measurement(b"f_hz,gain_db,phase_deg\n100,0,-1\n1000,-0.5,-9\n", "board.csv")
+    new = copy.deepcopy(old)
+    attach_measurement(new, data, "isolated", "rc", "Ben Okafor", measurement_id="board", time=T)
+    attach_measurement(new, data, "chain", None, "Ana Ruiz", measurement_id="whole", time=T)
+    added = diff_projects(old, new).records_added
+    assert [(r.kind, r.stage_id, r.who) for r in added] == [("bench measurement", "rc", "Ben Okafor"),
+                                                             ("bench measurement", None, "Ana Ruiz")]
+    assert added[1].sentence().startswith("the whole chain: bench measurement by Ana Ruiz")
+    removed = diff_projects(new, old).records_removed
+    assert [r.who for r in removed] == ["Ben Okafor", "Ana Ruiz"]

@@ -21,7 +21,7 @@ from stagewise.model.fingerprint import stage_fingerprint
 from stagewise.model.project import Check, Part, Project, Stage
 from stagewise.model.values import Quantity
 from stagewise.review.checks import MetricProvider, evaluate_project
-from stagewise.review.words import ANSWER_WORDS, VERDICT_WORDS, VERDICTS, SignoffState, current_verdict
+from stagewise.review.words import ANSWER_WORDS, VERDICT_WORDS, VERDICTS, WHERE_WORDS, SignoffState, current_verdict
 
 __all__ = ["Change", "CheckMove", "ProjectDiff", "RecordChange", "StaleSignoff", "check_moves", "diff_projects"]
 
@@ -110,14 +110,15 @@ class RecordChange:
     resolution), matched by identity: who, when, on which stage and check, and what."""
 
     kind: str
-    stage_id: str
+    stage_id: str | None  # None: a record of the whole chain (a bench measurement of the chain)
     check_id: str | None
     who: str
     time: str
     summary: str
 
     def sentence(self) -> str:
-        where = f"stage {self.stage_id}" + (f", check {self.check_id}" if self.check_id else "")
+        where = (f"stage {self.stage_id}" if self.stage_id is not None else "the whole chain") \
+            + (f", check {self.check_id}" if self.check_id else "")
         return f"{where}: {self.kind} by {self.who} at {self.time}: {self.summary}"
 
     def as_json(self) -> dict[str, Any]:
@@ -235,6 +236,11 @@ def _records(project: Project) -> dict[tuple[Any, ...], RecordChange]:
             if comment.resolved:
                 found[("resolution", stage.id, comment.author, comment.time, comment.text)] = RecordChange(
                     "resolution", stage.id, comment.check, comment.author, comment.time, f"resolved: {comment.text}")
+    for measurement in project.measurements:
+        found[("measurement", measurement.id, measurement.sha256, measurement.by, measurement.time)] = RecordChange(
+            "bench measurement", measurement.stage, None, measurement.by, measurement.time,
+            f"{measurement.id} ({WHERE_WORDS.get(measurement.where, measurement.where)}) from {measurement.file}, "
+            f"SHA-256 {measurement.sha256[:12]}…")
     return found
 
 
