@@ -247,3 +247,59 @@ def test_noise_summary_and_packet_speak_words_not_keys(window, qtbot, tmp_path) 
     # A chain without checks is not said to pass them.
     assert "Every check is met" not in cover and "no checks yet" in cover
 
+
+
+def test_model_cell_offers_the_library_and_a_new_part_can_use_it(window, qtbot, monkeypatch: pytest.MonkeyPatch) -> None:  # type: ignore[no-untyped-def]
+    from PySide6.QtWidgets import QApplication, QComboBox, QInputDialog
+
+    from stagewise.files.templates import load_opamp_library
+    from stagewise.ui.dialogs import NewPartDialog
+
+    def no_rename(*_args: object, **_kwargs: object) -> None:
+        raise AssertionError("F2 in the parts table must edit the cell, not rename the stage")
+
+    monkeypatch.setattr(QInputDialog, "getText", no_rename)
+
+    library = sorted(load_opamp_library())
+    window.document.set_current_stage("amp")
+    table = window.parts_table.table
+    row = next(r for r in range(table.rowCount()) if table.item(r, 0).text() == "U1")
+    window.activateWindow()
+    table.setFocus()
+    table.setCurrentCell(row, 5)
+    qtbot.keyClick(table, Qt.Key.Key_F2)  # the platform's "edit" key opens the cell's editor
+    editor = QApplication.focusWidget()
+    combo = editor if isinstance(editor, QComboBox) else editor.parent()
+    assert isinstance(combo, QComboBox)
+    offered = [combo.itemText(index) for index in range(combo.count())]
+    assert offered[:2] == ["ideal", "trial-3M"] and set(library) <= set(offered)
+    combo.setCurrentIndex(offered.index(library[-1]))
+    qtbot.keyClick(combo, Qt.Key.Key_Return)
+    qtbot.waitUntil(lambda: table.state() != table.State.EditingState, timeout=5000)
+    project = window.document.project
+    assert project.stage("amp").part("U1").model == library[-1] and library[-1] in project.opamp_models
+
+    def add_follower(dialog: NewPartDialog) -> int:
+        dialog.type.setCurrentIndex(dialog.type.findData("opamp"))
+        dialog.nodes.setText("out x x")
+        dialog.model.setCurrentIndex(dialog.model.findText(library[0]))
+        dialog.accept()
+        return int(dialog.result())
+
+    monkeypatch.setattr(NewPartDialog, "exec", add_follower)
+    window.actions_by_name["addPart"].trigger()
+    added = [part for part in project.stage("amp").parts if part.type == "opamp" and part.ref != "U1"]
+    assert [part.model for part in added] == [library[0]] and library[0] in project.opamp_models
+    window.undo_action.trigger()  # the part and the model it brought go together
+    assert library[0] not in project.opamp_models
+
+
+def test_f2_in_the_chain_tree_renames_the_stage(window, qtbot, monkeypatch: pytest.MonkeyPatch) -> None:  # type: ignore[no-untyped-def]
+    from PySide6.QtWidgets import QInputDialog
+
+    monkeypatch.setattr(QInputDialog, "getText", lambda *args, **kwargs: ("Input filter", True))
+    window.document.set_current_stage("rc")
+    window.activateWindow()
+    window.tree.setFocus()
+    qtbot.keyClick(window.tree, Qt.Key.Key_F2)
+    assert window.document.project.stage("rc").name == "Input filter"

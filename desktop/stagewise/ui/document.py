@@ -475,8 +475,12 @@ class Document(QObject):
 
         self._push(f"{stage.name}: {BLOCK_FIELDS[field]} = {text or 'none'}", put(new_value), put(old_value))
 
-    def add_part(self, stage_id: str, part: Part) -> None:
-        """Append a part to a circuit stage (validated first)."""
+    def add_part(self, stage_id: str, part: Part, models: dict[str, OpampModel] | None = None) -> None:
+        """Append a part to a circuit stage (validated first).
+
+        ``models`` are op-amp models the part needs that the project lacks (from the op-amp
+        library); they are added with the part and removed again when it is undone.
+        """
         self._refuse_if_read_only()
         stage = self._stage(stage_id)
         if stage.is_block:
@@ -487,12 +491,26 @@ class Document(QObject):
             raise EditRefused(f"{stage.name} already has a part {part.ref}")
         candidate = copy.copy(stage)
         candidate.parts = [*stage.parts, part]
-        problems = self._stage_problems(candidate)
+        new_models = {name: copy.deepcopy(model) for name, model in (models or {}).items()
+                      if name not in self._project.opamp_models}
+        candidate_project = copy.copy(self._project)
+        candidate_project.opamp_models = {**self._project.opamp_models, **new_models}
+        index = self._project.stages.index(stage)
+        problems = validate_stage(candidate, candidate_project, f"stages[{index}]")
         if problems:
             raise EditRefused(_after_colon(problems[0]))
-        index = len(stage.parts)
-        self._push(f"add {part.ref} to {stage.name}", lambda: self._insert_part(stage_id, index, part),
-                   lambda: self._take_part(stage_id, part.ref))
+        position = len(stage.parts)
+
+        def insert() -> None:
+            self._project.opamp_models.update(copy.deepcopy(new_models))
+            self._insert_part(stage_id, position, part)
+
+        def take() -> None:
+            self._take_part(stage_id, part.ref)
+            for name in new_models:
+                self._project.opamp_models.pop(name, None)
+
+        self._push(f"add {part.ref} to {stage.name}", insert, take)
 
     def remove_part(self, stage_id: str, ref: str) -> None:
         """Remove a part. The stage may become unsolvable; the views then say why."""

@@ -281,6 +281,12 @@ class MainWindow(QMainWindow):
         ]:
             self.actions_by_name[action.objectName()] = action
         self.actions_by_name["bypassStage"].setCheckable(True)
+        # F2 renames the stage where the stage is chosen (the chain tree); in the parts table it
+        # is the platform's key for editing the current cell.
+        rename = self.actions_by_name["renameStage"]
+        rename.setShortcutContext(Qt.ShortcutContext.WidgetWithChildrenShortcut)
+        self.removeAction(rename)
+        self.tree.addAction(rename)
         self.undo_action = self.document.undo_stack.createUndoAction(self, "&Undo")
         self.undo_action.setShortcuts(key.Undo)
         self.undo_action.setIcon(icon("undo"))
@@ -516,11 +522,23 @@ class MainWindow(QMainWindow):
         stage_id = self._current_stage_id()
         if not stage_id:
             return
-        dialog = NewPartDialog(lambda part_type: self.document.unique_part_ref(stage_id, part_type),
-                               sorted(self.document.project.opamp_models), self)
+        library = self._opamp_library()
+        models = [*sorted(self.document.project.opamp_models),
+                  *sorted(name for name in library if name not in self.document.project.opamp_models)]
+        dialog = NewPartDialog(lambda part_type: self.document.unique_part_ref(stage_id, part_type), models, self)
         if dialog.exec() != NewPartDialog.DialogCode.Accepted:
             return
         self.add_part_from(dialog.values())
+
+    def _opamp_library(self) -> dict[str, Any]:
+        """The op-amp library's models (empty, with a message, when it cannot be read)."""
+        from stagewise.files.templates import TemplateError, load_opamp_library
+
+        try:
+            return load_opamp_library()
+        except TemplateError as error:
+            self.show_message(f"The op-amp library cannot be read: {error}")
+            return {}
 
     def add_part_from(self, values: dict[str, Any]) -> None:
         """Add a part from the new-part form's values; refusals are shown, nothing changes."""
@@ -530,7 +548,11 @@ class MainWindow(QMainWindow):
             value = None if part_type == "opamp" else Quantity.of(str(values["value"]))
             part = Part(ref=str(values["ref"]), type=part_type, nodes=list(values["nodes"]), value=value,
                         model=str(values["model"]) if part_type == "opamp" else None)
-            self.document.add_part(stage_id, part)
+            # A model of the op-amp library is copied into the project with the part.
+            library = self._opamp_library() if part.model and part.model not in self.document.project.opamp_models \
+                else {}
+            models = {part.model: library[part.model]} if part.model in library else None
+            self.document.add_part(stage_id, part, models)
         except (EditRefused, ValueSyntaxError) as error:
             self._refuse(error)
 
@@ -646,7 +668,6 @@ class MainWindow(QMainWindow):
 
     def opamp_dialog(self, ref: str = "") -> Any:
         """The op-amp model picker for ``ref`` (default: the selected part, else the stage's first op-amp)."""
-        from stagewise.files.templates import TemplateError, load_opamp_library
         from stagewise.ui.authoring import OpampLibraryDialog
 
         stage = self.document.current_stage
@@ -658,11 +679,7 @@ class MainWindow(QMainWindow):
         if part is None:
             self.show_message(f"{stage.name} has no op-amp.")
             return None
-        try:
-            library = load_opamp_library()
-        except TemplateError as error:
-            self.show_message(f"The op-amp library cannot be read: {error}")
-            library = {}
+        library = self._opamp_library()
         stage_id, part_ref = stage.id, part.ref
 
         def use(choice: tuple[str, Any]) -> None:

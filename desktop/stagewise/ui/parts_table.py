@@ -7,12 +7,17 @@ to the old value. Every accepted edit is an undoable command of the document.
 
 from __future__ import annotations
 
-from PySide6.QtCore import Qt, Signal
+from collections.abc import Callable
+
+from PySide6.QtCore import QAbstractItemModel, QModelIndex, QPersistentModelIndex, Qt, Signal
 from PySide6.QtGui import QBrush, QColor
 from PySide6.QtWidgets import (
     QAbstractItemView,
+    QComboBox,
     QHeaderView,
     QLabel,
+    QStyledItemDelegate,
+    QStyleOptionViewItem,
     QTableWidget,
     QTableWidgetItem,
     QTextBrowser,
@@ -39,6 +44,32 @@ def _root_text(root: object) -> str:
     return f"{root.raw} Hz"  # type: ignore[attr-defined]
 
 
+class _ModelCellDelegate(QStyledItemDelegate):
+    """The Model cell's editor: an editable list of "ideal", the project's models and the op-amp
+    library's (a library model chosen here is copied into the project by the table)."""
+
+    def __init__(self, names: Callable[[], list[str]], parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self._names = names
+
+    def createEditor(self, parent: QWidget, option: QStyleOptionViewItem,  # noqa: N802 - Qt's name
+                     index: QModelIndex | QPersistentModelIndex) -> QWidget:
+        combo = QComboBox(parent)
+        combo.setEditable(True)
+        combo.setObjectName("modelChoice")
+        combo.addItems(self._names())
+        return combo
+
+    def setEditorData(self, editor: QWidget, index: QModelIndex | QPersistentModelIndex) -> None:  # noqa: N802
+        if isinstance(editor, QComboBox):
+            editor.setCurrentText(str(index.data() or ""))
+
+    def setModelData(self, editor: QWidget, model: QAbstractItemModel,  # noqa: N802 - Qt's name
+                     index: QModelIndex | QPersistentModelIndex) -> None:
+        if isinstance(editor, QComboBox):
+            model.setData(index, editor.currentText())
+
+
 class PartsTable(QWidget):
     """Table of the current stage's parts (or a block's parameters); emits ``message`` on refusals."""
 
@@ -55,6 +86,8 @@ class PartsTable(QWidget):
         self.table.setEditTriggers(QAbstractItemView.EditTrigger.DoubleClicked
                                    | QAbstractItemView.EditTrigger.EditKeyPressed
                                    | QAbstractItemView.EditTrigger.AnyKeyPressed)
+        self._model_delegate = _ModelCellDelegate(self._model_names, self.table)
+        self.table.setItemDelegateForColumn(5, self._model_delegate)
         header = self.table.horizontalHeader()
         header.setSectionResizeMode(QHeaderView.ResizeMode.ResizeToContents)
         header.setStretchLastSection(True)
@@ -215,6 +248,17 @@ class PartsTable(QWidget):
             self.feedback.setText(text)
             self.message.emit(text)
             self.reload()
+
+    def _model_names(self) -> list[str]:
+        """What the Model cell offers: "ideal", the project's models, then the library's others."""
+        from stagewise.files.templates import TemplateError, load_opamp_library
+
+        project = sorted(self.document.project.opamp_models)
+        try:
+            library = sorted(name for name in load_opamp_library() if name not in project)
+        except TemplateError:
+            library = []
+        return ["ideal", *project, *library]
 
     def _library_model(self, text: str) -> OpampModel | None:
         """The op-amp library's model named ``text`` when the project has none of that name."""
