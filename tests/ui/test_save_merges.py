@@ -127,3 +127,30 @@ def test_declining_the_conflict_question_writes_nothing(qtbot, sample_path: Path
         assert window.document.is_modified  # the edit is still there, unsaved
     finally:
         window.shutdown()
+
+
+def test_a_conflicting_save_still_keeps_what_was_appended_outside(window, sample_path: Path) -> None:  # type: ignore[no-untyped-def]
+    # Common practice, no source: a conflict on one value loses nothing else; the event appended
+    # outside stays in the saved trail, the file's version is kept whole beside it, and the user
+    # is told where both are.
+    from stagewise.review.audit import append_event
+
+    outside = load_project(sample_path)
+    outside.stage("rc").part("R1").value = Quantity.of("10k")  # type: ignore[union-attr]
+    append_event(outside, "Quality Desk", "packet", {"pdf_sha256": "0" * 64})
+    save_project(sample_path, outside)
+    window.document.set_part_field("rc", "R1", "value", "4k7")
+    assert window.save_to(sample_path)
+    saved = load_project(sample_path)
+    assert saved.stage("rc").part("R1").value.raw == "4k7"  # type: ignore[union-attr]
+    whats = [event.what for event in saved.audit]
+    assert whats[0] == "packet" and "part change" in whats
+    assert verify_trail(saved.audit).intact
+    assert check_records(saved).problems == ()
+    copies = list(sample_path.parent.glob("sample.outside-*.stagewise.json"))
+    assert len(copies) == 1
+    kept = load_project(copies[0])
+    assert kept.stage("rc").part("R1").value.raw == "10k"  # type: ignore[union-attr]
+    assert [event.what for event in kept.audit] == ["packet"]
+    shown = window.statusBar().currentMessage()
+    assert sample_path.name in shown and copies[0].name in shown and "your version" in shown

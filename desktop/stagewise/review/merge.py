@@ -24,6 +24,10 @@ shape (:func:`stagewise.files.codec.encode`):
   it open) keeps theirs verbatim and re-appends our unsaved events after them, with new seq,
   prev and hash: ours were never written anywhere, so nothing recorded is rewritten.
 
+With ``prefer_ours`` (the desktop program saving over a file that changed and conflicts, once
+the user said so) each conflicting value takes ours and everything else of theirs still joins
+(their audit events and records above all); the conflicts are returned beside the project.
+
 The merged document must load (validation included) and its trail and records must verify;
 otherwise the result is refused with the reason, as a conflict. Nothing here writes a file.
 """
@@ -89,7 +93,8 @@ class Conflict:
 
 @dataclass(frozen=True, slots=True)
 class MergeResult:
-    """The merged project (``None`` when there are conflicts) and every conflict found."""
+    """The merged project (``None`` when there are conflicts, unless ours were preferred) and every
+    conflict found."""
 
     project: Project | None
     conflicts: tuple[Conflict, ...]
@@ -235,7 +240,7 @@ def _merge_trails(ours: Sequence[AuditEvent], theirs: Sequence[AuditEvent], mode
 
 
 def merge_projects(base: Project, ours: Project, theirs: Project, *, who: str, mode: Literal["fork", "rebase"] = "fork",
-                   time: str | None = None) -> MergeResult:
+                   time: str | None = None, prefer_ours: bool = False) -> MergeResult:
     """Merge ``ours`` and ``theirs``, two edited copies of ``base`` (see the module docstring).
 
     Parameters
@@ -246,6 +251,9 @@ def merge_projects(base: Project, ours: Project, theirs: Project, *, who: str, m
         How two grown audit trails are joined.
     time : str, optional
         ISO 8601 UTC time of the merge event (now when omitted).
+    prefer_ours : bool
+        Settle every conflicting value with ours and merge the rest (the conflicts are still
+        returned, beside the project).
     """
     from stagewise.files.project_file import loads_project
 
@@ -254,7 +262,7 @@ def merge_projects(base: Project, ours: Project, theirs: Project, *, who: str, m
     for document in documents:
         document.pop("audit", None)
     merged = merger.object("", documents[0], documents[1], documents[2])
-    if merger.conflicts:
+    if merger.conflicts and not prefer_ours:
         return MergeResult(None, tuple(merger.conflicts))
     trail, mine, other = _merge_trails(ours.audit, theirs.audit, mode, who, time)
     try:
@@ -267,4 +275,4 @@ def merge_projects(base: Project, ours: Project, theirs: Project, *, who: str, m
     if not verdict.intact or problems:
         why = verdict.sentence() if not verdict.intact else problems[0]
         return MergeResult(None, (Conflict("audit", "", "", "", f"the merged trail does not verify: {why}"),))
-    return MergeResult(project, (), mine, other)
+    return MergeResult(project, tuple(merger.conflicts), mine, other)

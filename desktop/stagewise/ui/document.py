@@ -259,8 +259,10 @@ class Document(QObject):
         the file's, and the result is saved. Where the two conflict (one value changed on both
         sides, or the file no longer loads), ``ask`` is called with the conflicts, one sentence
         each; when it returns True the file's version is kept beside it as
-        ``NAME.outside-<UTC time>.stagewise.json`` and ours is saved; otherwise nothing is
-        written. Without ``ask`` a conflict keeps both versions that way.
+        ``NAME.outside-<UTC time>.stagewise.json`` and ours is saved, with each conflicting value
+        ours and everything else the file gained merged in as above (when the merge verifies;
+        else ours as it is); otherwise nothing is written. Without ``ask`` a conflict keeps both
+        versions that way.
 
         Raises
         ------
@@ -276,6 +278,7 @@ class Document(QObject):
                    and _sha256_of(target) != self._disk_sha256)
         if changed:
             conflicts: list[str] = []
+            theirs: Project | None = None
             try:
                 theirs = load_project(target)
             except ProjectFileError as error:
@@ -294,7 +297,17 @@ class Document(QObject):
                 if ask is not None and not ask(conflicts):
                     return SaveOutcome(saved=False, conflicts=tuple(conflicts))
                 kept = _keep_outside_copy(target)
-                outcome = SaveOutcome(saved=True, conflicts=tuple(conflicts), outside_copy=kept)
+                merged_events = 0
+                if theirs is not None and self._disk_project is not None:
+                    # Ours wins each conflicting value; what else was appended (a packet's event,
+                    # another reviewer's records) still joins, so the saved file loses nothing.
+                    settled = merge_projects(self._disk_project, self._project, theirs, who=who, mode="rebase",
+                                             prefer_ours=True)
+                    if settled.project is not None:
+                        self._adopt(settled.project)
+                        merged_events = settled.events_theirs
+                outcome = SaveOutcome(saved=True, merged_events=merged_events, conflicts=tuple(conflicts),
+                                      outside_copy=kept)
         save_project(target, self._project)
         return outcome
 

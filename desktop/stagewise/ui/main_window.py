@@ -1289,7 +1289,8 @@ class MainWindow(QMainWindow):
         self._update_actions()
         merged = (f" {outcome.merged_events} audit event(s) written to the file meanwhile were merged in."
                   if outcome.merged_events else "")
-        kept = f" The file's own version is kept as {outcome.outside_copy.name}." if outcome.outside_copy else ""
+        kept = (f" {len(outcome.conflicts)} value(s) changed on both sides keep your version; the file's own "
+                f"version is kept whole as {outcome.outside_copy.name}." if outcome.outside_copy else "")
         self.show_message(f"Saved {path}.{merged}{kept}")
         return True
 
