@@ -350,3 +350,54 @@ def test_an_unstable_place_has_no_dc_budget() -> None:
     analysis = ProjectAnalysis(project, spread=False)
     document, why = analysis.dc_document("isolated", "s")
     assert document is None and "unstable" in why
+
+
+# The contract's dc keys and the check metric that reads each (the dc object's `gain` is `dc_gain`).
+CONTRACT_METRICS = {"gain": "dc_gain", "gain_error_pct": "gain_error_pct", "offset_out_v": "offset_out_v",
+                    "drift_out_v_per_c": "drift_out_v_per_c", "total_wc_v": "total_wc_v",
+                    "total_rss_v": "total_rss_v"}
+CHAIN_ONLY = {"total_wc_lsb": "total_wc_lsb", "total_rss_lsb": "total_rss_lsb", "total_wc_pct_fs": "total_wc_pct_fs"}
+
+
+def test_every_contract_key_of_dc_is_a_check_in_every_place() -> None:
+    # Common practice, no source: the contract; each dc key is a metric a check can name,
+    # and a check on it reads the number analyze --json reports at that place.
+    from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
+    from stagewise.model.project import Check  # noqa: PLC0415
+    from stagewise.model.validate import validate  # noqa: PLC0415
+    from stagewise.model.values import Quantity  # noqa: PLC0415
+    from stagewise.review.checks import evaluate_check  # noqa: PLC0415
+
+    project = make_project(non_inverting(Rf={"tol": "1%", "tc_ppm_per_c": 25}),
+                           settings_keys={"temp_range_c": [-20, 70]}, amplitude="0.1",
+                           converter={"full_scale_vpp": 5, "bits": 16})
+    stage = project.stages[0]
+    wanted = [(where, key, metric) for where in ("isolated", "in_chain", "chain")
+              for key, metric in (CONTRACT_METRICS | (CHAIN_ONLY if where == "chain" else {})).items()]
+    for index, (where, _key, metric) in enumerate(wanted):
+        stage.checks.append(Check(id=f"c{index}", text=metric, metric=metric, where=where,
+                                  max=Quantity.of("1e9")))
+    assert validate(project) == []
+    analysis = ProjectAnalysis(project, spread=False)
+    document = analysis.document()
+    places = {"isolated": document["stages"][0]["isolated"], "in_chain": document["stages"][0]["in_chain"],
+              "chain": document["chain"]}
+    for check, (where, key, _metric) in zip(stage.checks, wanted, strict=True):
+        result = evaluate_check(check, stage, project, analysis)
+        reported = places[where]["dc"][key]
+        assert reported is not None, (where, key)
+        assert result.value == pytest.approx(reported, rel=1e-12), (where, key)
+        assert result.state.name == "MET", (where, key, result.why)
+
+
+def test_a_check_naming_gain_is_told_the_metric_is_dc_gain() -> None:
+    # Common practice, no source: a refused name says which name to use.
+    from stagewise.model.project import Check  # noqa: PLC0415
+    from stagewise.model.validate import validate  # noqa: PLC0415
+    from stagewise.model.values import Quantity  # noqa: PLC0415
+
+    project = make_project(non_inverting())
+    project.stages[0].checks.append(Check(id="g", text="gain", metric="gain", where="isolated",
+                                          min=Quantity.of("5")))
+    problems = validate(project)
+    assert len(problems) == 1 and "dc_gain" in problems[0] and "stages[0].checks[0].metric" in problems[0]

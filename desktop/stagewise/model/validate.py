@@ -49,6 +49,12 @@ UNIT_NAMES = {"dB": "decibels", "Hz": "hertz", "Ω": "ohms", "F": "farads", "V":
 # without importing it (keeps the model free of the layers above it).
 KNOWN_METRICS_HOOK: list[frozenset[str]] = []
 
+# Names other tools read elsewhere that are metrics under another name: a check naming one is told.
+_METRIC_HINTS: dict[str, str] = {
+    "gain": " (the DC gain, the gain of analyze --json's dc object, is the metric dc_gain; the gain at a "
+            "frequency is gain_db)",
+}
+
 
 def validate(project: Project) -> list[str]:
     """Every semantic problem of ``project``, each as ``"json.path: sentence"``."""
@@ -168,7 +174,8 @@ def validate_stage(stage: Stage, project: Project, path: str) -> list[str]:
         check_ids.add(check.id)
         if check.metric is not None:
             if known_metrics is not None and check.metric not in known_metrics:
-                problems.append(f'{where}.metric: "{check.metric}" is not a metric Stagewise computes')
+                hint = _METRIC_HINTS.get(check.metric, "")
+                problems.append(f'{where}.metric: "{check.metric}" is not a metric Stagewise computes{hint}')
             if check.min is None and check.max is None:
                 problems.append(f"{where}: a numeric check needs min, max or both")
             if check.min is not None and check.max is not None and check.min.si > check.max.si:
