@@ -130,3 +130,22 @@ def test_response_on_a_singular_stage_is_null_with_the_reason_and_the_file(tmp_p
         assert status == 1 and captured.err == ""
         result = json.loads(captured.out)
         assert result["points"] is None and str(path) in result["why"]
+
+
+def test_an_op_amp_without_feedback_says_no_loop_not_a_math_error(tmp_path: Path,
+                                                                   capsys: pytest.CaptureFixture[str]) -> None:
+    # Common practice, no source: an op-amp whose output reaches neither input has no loop gain,
+    # so it has no phase margin; that is a reason, not a "math domain error".
+    document = {"format": "stagewise-project", "version": 1, "title": "Open loop",
+                "opamp_models": {"amp": {"a0_db": 96, "gbw_hz": "3M"}},
+                "stages": [{"id": "open", "name": "Open loop", "ports": {"in": "in", "out": "out"},
+                            "parts": [{"ref": "R1", "type": "R", "nodes": ["in", "p"], "value": "2k2"},
+                                      {"ref": "R2", "type": "R", "nodes": ["p", "0"], "value": "22k"},
+                                      {"ref": "U1", "type": "opamp", "nodes": ["p", "0", "out"], "model": "amp"}],
+                            "checks": [{"id": "pm", "text": "Phase margin", "metric": "phase_margin_deg",
+                                        "where": "isolated", "min": 45}]}]}
+    path = _write(tmp_path, document)
+    status = main(["check", str(path)])
+    captured = capsys.readouterr()
+    assert status == 1 and "math domain" not in captured.out + captured.err
+    assert "no loop" in captured.out
