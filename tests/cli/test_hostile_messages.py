@@ -149,3 +149,22 @@ def test_an_op_amp_without_feedback_says_no_loop_not_a_math_error(tmp_path: Path
     captured = capsys.readouterr()
     assert status == 1 and "math domain" not in captured.out + captured.err
     assert "no loop" in captured.out
+
+
+def test_a_long_ladder_computes_without_floating_point_warnings() -> None:
+    # Common practice, no source: an RC ladder's response falls by up to 20 dB per decade per section above its
+    # corners, so 100 sections reach far below the smallest double at the top of the band.
+    from stagewise.engine.analysis import ProjectAnalysis
+
+    parts = []
+    for index in range(100):
+        a = "in" if index == 0 else f"n{index}"
+        b = "out" if index == 99 else f"n{index + 1}"
+        parts.append({"ref": f"R{index + 1}", "type": "R", "nodes": [a, b], "value": "1k", "tol": "1%"})
+        parts.append({"ref": f"C{index + 1}", "type": "C", "nodes": [b, "0"], "value": "10n", "tol": "5%"})
+    document = {"format": "stagewise-project", "version": 1, "title": "Long ladder",
+                "stages": [{"id": "ladder", "name": "Ladder", "ports": {"in": "in", "out": "out"}, "parts": parts}]}
+    project = loads_project(json.dumps(document), "ladder.stagewise.json")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        json.dumps(ProjectAnalysis(project).document(), allow_nan=False)

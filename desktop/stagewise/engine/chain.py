@@ -650,14 +650,16 @@ class ChainResult:
 
 def _loading_error(in_chain: NDArray[np.complex128], isolated: NDArray[np.complex128]) -> tuple[
         NDArray[np.float64], NDArray[np.float64]]:
-    with np.errstate(divide="ignore", invalid="ignore"):
+    # A response that underflows (a long ladder far above its corner) makes the ratio overflow:
+    # the loading error is then not finite, and the metrics report it as having no value.
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         ratio = in_chain / isolated
         error_db = 20.0 * np.log10(np.abs(ratio))
     return error_db, np.degrees(np.angle(ratio))
 
 
 def _ratio(numerator: NDArray[np.complex128], denominator: NDArray[np.complex128]) -> NDArray[np.complex128]:
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         result: NDArray[np.complex128] = numerator / denominator
     return result
 
