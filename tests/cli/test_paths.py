@@ -96,3 +96,21 @@ def test_a_fifo_as_project_file_is_refused(tmp_path: Path, capsys: pytest.Captur
     os.mkfifo(fifo)
     status = main(["check", str(fifo)])
     assert status == 2 and "not a regular file" in _one_sentence(capsys.readouterr().err)
+
+
+def test_packet_removes_the_temporary_pdf_a_killed_packet_left(tmp_path: Path,
+                                                              capsys: pytest.CaptureFixture[str]) -> None:
+    import os
+    import time
+
+    from stagewise.files.atomic import LEFTOVER_AGE_S
+
+    project = tmp_path / "greenhouse.stagewise.json"
+    shutil.copyfile(DEMO, project)
+    leftover = tmp_path / ".review.pdf.x8k2m1qa.tmp"
+    leftover.write_bytes(b"%PDF-1.4 half written")
+    old = time.time() - LEFTOVER_AGE_S - 60
+    os.utime(leftover, (old, old))
+    status = main(["packet", str(project), "-o", str(tmp_path / "review.pdf"), "--by", "Tomas Berg"])
+    assert status == 0, capsys.readouterr().err
+    assert not leftover.exists() and (tmp_path / "review.pdf").is_file()

@@ -25,6 +25,7 @@ from PySide6.QtCore import QMarginsF
 from PySide6.QtGui import QPagedPaintDevice, QPageLayout, QPageSize, QPainter, QPdfWriter
 
 from stagewise import __version__
+from stagewise.files.atomic import remove_leftover_temporaries
 from stagewise.model.project import Project
 from stagewise.report.content import PacketContent, gather
 from stagewise.report.layout import LOGICAL_DPI, Page, PageFrame, paginate, paint_pages
@@ -196,6 +197,7 @@ def build_packet(project: Project, path_or_sha: str | os.PathLike[str], output: 
     content, _, frame, pages = _prepare(project, path_or_sha, steps, printed_utc, analysis)
     target = Path(output)
     folder = target.parent if str(target.parent) else Path(".")
+    remove_leftover_temporaries(target)  # what a killed packet left (files.atomic: ours, old, named so)
     handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
     os.close(handle)
     try:

@@ -1354,6 +1354,9 @@ class MainWindow(QMainWindow):
             return None
         target = self.recovery_file()
         try:
+            from stagewise.files.atomic import remove_leftover_temporaries
+
+            remove_leftover_temporaries(target)  # what a killed autosave left behind
             handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
             with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
                 stream.write(dumps(self.document.project))
