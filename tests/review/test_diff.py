@@ -125,3 +125,24 @@ def test_bench_measurements_added_and_removed_are_review_records() -> None:
     assert added[1].sentence().startswith("the whole chain: bench measurement by Ana Ruiz")
     removed = diff_projects(new, old).records_removed
     assert [r.who for r in removed] == ["Ben Okafor", "Ana Ruiz"]
+
+
+def test_a_record_edited_in_place_is_listed_removed_and_added() -> None:
+    # Common practice, no source: a reviewer comparing two revisions is told of every review
+    # record whose content differs, even when who, when and what are unchanged (a note edited).
+    old = base_project()
+    actions.sign(old, "rc", "Ana Ruiz", "analog lead", "rework", note="Raise R1.", time=T)
+    actions.comment(old, "rc", "Ben Okafor", "Which package?", time=T)
+    new = copy.deepcopy(old)
+    new.stage("rc").signoffs[0].note = "Raise R1 to 5k1."  # type: ignore[union-attr]
+    result = diff_projects(old, new)
+    assert not result.empty
+    assert [(r.kind, r.summary) for r in result.records_removed] == [("sign-off", "returned for rework, analog lead: "
+                                                                       "Raise R1. (edited)")]
+    assert [(r.kind, r.summary) for r in result.records_added] == [("sign-off", "returned for rework, analog lead: "
+                                                                     "Raise R1 to 5k1. (edited)")]
+    # Resolving a comment through the program adds its resolution; the comment itself is not "edited".
+    resolved = copy.deepcopy(old)
+    resolved.stage("rc").comments[0].resolved = True  # type: ignore[union-attr]
+    result = diff_projects(old, resolved)
+    assert [r.kind for r in result.records_added] == ["resolution"] and result.records_removed == ()

@@ -1,7 +1,8 @@
 """Semantic difference of two projects and what it does to the review.
 
 Part and setting changes; the sign-offs they put out of date; the review records (sign-offs,
-waivers, answers, comments, resolutions) added and removed, matched by identity; and, with a
+waivers, answers, comments, resolutions) added and removed, matched by identity (one edited in
+place is listed as removed and added, both marked edited); and, with a
 metric provider for each project (:func:`check_moves`), every check whose state moves.
 
 Stages are matched by id and parts by ref within their stage, so a reordered file or a
@@ -13,7 +14,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Literal
 
 from stagewise.files.codec import encode_opamp
@@ -211,36 +212,38 @@ class ProjectDiff:
         }
 
 
-def _records(project: Project) -> dict[tuple[Any, ...], RecordChange]:
-    """Every review record of ``project`` keyed by its identity."""
-    found: dict[tuple[Any, ...], RecordChange] = {}
+def _records(project: Project) -> dict[tuple[Any, ...], tuple[RecordChange, Any]]:
+    """Every review record of ``project`` keyed by its identity, with the record itself (to tell an
+    edited one: the same identity, other content)."""
+    found: dict[tuple[Any, ...], tuple[RecordChange, Any]] = {}
     for stage in project.stages:
         for signoff in stage.signoffs:
             word = VERDICT_WORDS.get(current_verdict(signoff.verdict), signoff.verdict)
-            found[("signoff", stage.id, signoff.name, signoff.time, current_verdict(signoff.verdict))] = RecordChange(
+            found[("signoff", stage.id, signoff.name, signoff.time, current_verdict(signoff.verdict))] = (RecordChange(
                 "sign-off", stage.id, None, signoff.name, signoff.time,
-                word + (f", {signoff.role}" if signoff.role else "") + (f": {signoff.note}" if signoff.note else ""))
+                word + (f", {signoff.role}" if signoff.role else "") + (f": {signoff.note}" if signoff.note else "")),
+                (signoff.role, signoff.fingerprint, signoff.note))
         for check in stage.checks:
             if check.waiver is not None:
                 waiver = check.waiver
-                found[("waiver", stage.id, check.id, waiver.by, waiver.time)] = RecordChange(
-                    "waiver", stage.id, check.id, waiver.by, waiver.time, waiver.justification)
+                found[("waiver", stage.id, check.id, waiver.by, waiver.time)] = (RecordChange(
+                    "waiver", stage.id, check.id, waiver.by, waiver.time, waiver.justification), waiver)
             if check.answer is not None:
                 answer = check.answer
-                found[("answer", stage.id, check.id, answer.by, answer.time, answer.answer)] = RecordChange(
+                found[("answer", stage.id, check.id, answer.by, answer.time, answer.answer)] = (RecordChange(
                     "answer", stage.id, check.id, answer.by, answer.time,
-                    ANSWER_WORDS.get(answer.answer, answer.answer) + (f": {answer.note}" if answer.note else ""))
+                    ANSWER_WORDS.get(answer.answer, answer.answer) + (f": {answer.note}" if answer.note else "")), answer)
         for comment in stage.comments:
-            found[("comment", stage.id, comment.author, comment.time, comment.text)] = RecordChange(
-                "comment", stage.id, comment.check, comment.author, comment.time, comment.text)
+            found[("comment", stage.id, comment.author, comment.time, comment.text)] = (RecordChange(
+                "comment", stage.id, comment.check, comment.author, comment.time, comment.text), comment.check)
             if comment.resolved:
-                found[("resolution", stage.id, comment.author, comment.time, comment.text)] = RecordChange(
-                    "resolution", stage.id, comment.check, comment.author, comment.time, f"resolved: {comment.text}")
+                found[("resolution", stage.id, comment.author, comment.time, comment.text)] = (RecordChange(
+                    "resolution", stage.id, comment.check, comment.author, comment.time, f"resolved: {comment.text}"), None)
     for measurement in project.measurements:
-        found[("measurement", measurement.id, measurement.sha256, measurement.by, measurement.time)] = RecordChange(
+        found[("measurement", measurement.id, measurement.sha256, measurement.by, measurement.time)] = (RecordChange(
             "bench measurement", measurement.stage, None, measurement.by, measurement.time,
             f"{measurement.id} ({WHERE_WORDS.get(measurement.where, measurement.where)}) from {measurement.file}, "
-            f"SHA-256 {measurement.sha256[:12]}…")
+            f"SHA-256 {measurement.sha256[:12]}…"), measurement)
     return found
 
 
@@ -446,6 +449,14 @@ def diff_projects(old: Project, new: Project) -> ProjectDiff:
             if signoff.fingerprint == old_print:
                 stale.append(StaleSignoff(stage.id, signoff.name, signoff.role, signoff.verdict, signoff.time))
     old_records, new_records = _records(old), _records(new)
-    added = tuple(record for key, record in new_records.items() if key not in old_records)
-    removed = tuple(record for key, record in old_records.items() if key not in new_records)
+    # A record with the same identity and other content (a note edited, a fingerprint refreshed)
+    # is the old one removed and the new one added, both said to be edited.
+    edited = {key for key in old_records.keys() & new_records.keys() if old_records[key][1] != new_records[key][1]}
+
+    def listed(records: dict[tuple[Any, ...], tuple[RecordChange, Any]], other: dict[tuple[Any, ...], Any]
+               ) -> tuple[RecordChange, ...]:
+        return tuple(replace(record, summary=f"{record.summary} (edited)") if key in edited else record
+                     for key, (record, _) in records.items() if key not in other or key in edited)
+
+    added, removed = listed(new_records, old_records), listed(old_records, new_records)
     return ProjectDiff(tuple(changes), tuple(stale), added, removed)
