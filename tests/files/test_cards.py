@@ -175,3 +175,6 @@ def test_semicolon_comments_and_milli_notes() -> None:
     assert values == [pytest.approx(1e6), pytest.approx(1e-8), pytest.approx(1e-3)]
     assert parts[4].model == "quiet 5 MHz"
     assert len(notes) == 1 and notes[0].startswith('line 4: L1 "1M" is read as milli (1m)')
+    notes.clear()
+    parse_cards("R1 in out 1Meg\nL1 out 0 1m\n", _project(), notes)
+    assert notes == []  # mega written as mega, milli as the project file writes it too

@@ -86,7 +86,8 @@ _CARD_DECIMAL = re.compile(
 )
 _CARD_LETTER_DIGIT = re.compile(r"(?P<whole>[0-9]+)(?P<letter>[RKGUµμNPF])(?P<fraction>[0-9]+)(?P<unit>OHMS?|Ω|Ω|F|H)?",
                                 re.IGNORECASE)
-_MILLI = re.compile(r"[0-9.]M(?!EG)", re.IGNORECASE)
+# A capital M read as milli (a lower-case m means milli in the project file too: nothing to say).
+_MILLI = re.compile(r"[0-9.]M(?![Ee][Gg])")
 CARD_VALUE_FORMS: Final = ("a number with an optional scale factor T G MEG K M U N P F (case-insensitive; "
                            "M is milli, MEG mega) and unit, such as 4.7k, 10nF, 1MEG, 2.2M or 4k7")
 
