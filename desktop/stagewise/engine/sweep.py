@@ -96,7 +96,9 @@ def solve_batched(
     right_one = rhs.astype(complex).reshape(n, columns)
     for start in range(0, len(s), chunk):
         part = s[start:start + chunk]
-        matrices = g[None, :, :] + part[:, None, None] * c[None, :, :]
+        matrices = np.empty((len(part), n, n), dtype=complex)  # built in place: one array, no temporaries
+        np.multiply(part[:, None, None], c[None, :, :], out=matrices)
+        matrices += g[None, :, :]
         right = np.broadcast_to(right_one[None, :, :], (len(part), n, columns))
         solved = np.linalg.solve(matrices, right)
         out[start:start + chunk] = solved[:, :, 0] if rhs.ndim == 1 else solved
