@@ -3,7 +3,7 @@
 Parts (type, nodes, values by what they mean, tolerances, control, model), ports, drive, the
 parameters of the op-amp models the stage uses, and the limits of its numeric checks. Not
 names, notes, comments, manual answers or waivers, not the order parts and checks are listed in,
-and not how a value was typed: ``"4k7"`` and ``4700`` are the same resistor. Sign-offs store this fingerprint and turn stale when it changes;
+and not how a value was typed: ``"4k7"`` and ``4700`` are the same resistor. Sign-offs store this fingerprint and are shown out of date when it changes;
 the engine keys its caches on it.
 """
 
