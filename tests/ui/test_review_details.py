@@ -71,3 +71,21 @@ def test_step_summary_names_both_settling_bands(window) -> None:  # type: ignore
     tau = 3.3e3 * 6.8e-9
     assert f"{tau * math.log(100) * 1e6:.4g} µs" in text.replace("\u00a0", " ")
     assert f"{tau * math.log(1000) * 1e6:.4g} µs" in text.replace("\u00a0", " ")
+
+
+def test_the_review_words_the_user_reads(window, qtbot) -> None:  # type: ignore[no-untyped-def]
+    from stagewise.ui.dialogs import SignoffDialog
+
+    dialog = SignoffDialog("Input RC", "Ines Okafor", "reviewer", window)
+    assert [dialog.verdict.itemText(index) for index in range(dialog.verdict.count())] == [
+        "Accepted", "Returned for rework"]
+    window.document.set_current_stage("rc")
+    window.review_panel.sign("Ines Okafor", "reviewer", "accept", "")
+    window.parts_table.edit_cell("R1", "value", "6k8")
+    window.review_panel.sign("Ines Okafor", "reviewer", "accept", "")
+    window.parts_table.edit_cell("R1", "value", "8k2")
+    lines = [window.review_panel.signoffs.item(row).text() for row in range(window.review_panel.signoffs.count())]
+    # Newest first: the latest sign-off is out of date, the earlier one is replaced by it.
+    assert lines[0].startswith("OUT OF DATE: Ines Okafor") and "accepted, given to an earlier design" in lines[0]
+    assert "replaced by a later sign-off of the same reviewer" in lines[1]
+    assert window.review_panel.state.text().startswith("Out of date: every sign-off was given to an earlier design")
