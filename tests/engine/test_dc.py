@@ -401,3 +401,29 @@ def test_a_check_naming_gain_is_told_the_metric_is_dc_gain() -> None:
                                           min=Quantity.of("5")))
     problems = validate(project)
     assert len(problems) == 1 and "dc_gain" in problems[0] and "stages[0].checks[0].metric" in problems[0]
+
+
+@pytest.mark.parametrize(("input_type", "range_c", "factor"), [
+    # Common practice, no source: JFET input bias current doubles about every 10 °C; over [0, 30] °C
+    # it is largest at 30 °C (2^0.5), although 0 °C lies farther from 25 °C (where it is 2^-2.5).
+    ("jfet", [0, 30], 2**0.5),
+    # Source: Gray, Hurst, Lewis and Meyer, ch. 1 (β +0.7 %/°C, value from memory): a bipolar Ib is
+    # largest at the cold end, 20 °C here, although 85 °C lies farther from 25 °C.
+    ("bipolar", [20, 85], math.exp(0.035)),
+    # Below 25 °C only, a JFET's Ib only shrinks: no drift is added to the 25 °C term.
+    ("jfet", [-20, 20], 1.0),
+])
+def test_bias_current_drift_is_taken_where_the_bias_current_is_largest(input_type: str, range_c: list[float],
+                                                                       factor: float) -> None:
+    ib = 150e-12
+    models = {"op": model(ib_a=ib, ios_a=ib / 4, input_type=input_type)}
+    project = make_project(non_inverting(), models=models, settings_keys={"temp_range_c": range_c})
+    result = budget(project, "isolated")
+    at_25 = by_kind(result, "ib").out_v
+    # Source: Franco, 3rd ed., sec. 5.1 (value from memory): Ib into both pins of a non-inverting
+    # stage gives Ib·(Rf − Rs·(1 + Rf/Rg)) at the output.
+    assert at_25 == pytest.approx(ib * (RF - RS * (1 + RF / RG)), rel=1e-9)
+    drift = [item for item in result.contributions if item.kind == "ib_drift"]
+    rise = sum(item.out_v for item in drift)
+    # The worst Ib error over the range is Ib(T_worst)·(...), the 25 °C term plus the drift term.
+    assert at_25 + rise == pytest.approx(at_25 * factor, rel=1e-9)

@@ -43,8 +43,8 @@ Over the temperature range ``settings.temp_range_c`` (ΔT = the larger distance 
 25 °C, the temperature of data-sheet figures):
 
 - ``vos_drift``: ``vos_drift_v_per_c``·ΔT, sign unknown.
-- ``ib_drift``, ``ios_drift``: the change of Ib (and Ios) at the end of the range where it
-  changes most, by the input type's law: CMOS and JFET inputs, Ib(T) = Ib(25 °C)·2^((T − 25)/10)
+- ``ib_drift``, ``ios_drift``: the rise of Ib (and Ios) at the end of the range where it is
+  largest (none when it is largest at 25 °C), by the input type's law: CMOS and JFET inputs, Ib(T) = Ib(25 °C)·2^((T − 25)/10)
   (the leakage of the input protection and gate junctions doubles about every 10 °C); bipolar
   inputs, Ib(T) = Ib(25 °C)·exp(−0.007·(T − 25)) (Ib = Ic/β and β rises about +0.7 %/°C). A model
   without ``input_type`` keeps Ib out of the drift, and the notes say so.
@@ -364,7 +364,7 @@ class _Collector:
             ib = model.ib_a.si
             via = (("in+", into_plus * ib), ("in-", into_minus * ib))
             self.add(f"{name} Ib", "ib", stage.id, opamp.ref, (into_plus + into_minus) * ib, signed=True, via=via)
-            if factor is not None:
+            if factor is not None and factor > 1.0:
                 change = ib * (factor - 1.0)
                 self.add(f"{name} Ib over temperature", "ib_drift", stage.id, opamp.ref,
                          (into_plus + into_minus) * change, signed=True, hot=True,
@@ -372,9 +372,9 @@ class _Collector:
         if model.ios_a is not None and model.ios_a.si != 0:
             half = 0.5 * model.ios_a.si
             self.add(f"{name} Ios", "ios", stage.id, opamp.ref, (into_plus - into_minus) * half)
-            if factor is not None:
+            if factor is not None and factor > 1.0:
                 self.add(f"{name} Ios over temperature", "ios_drift", stage.id, opamp.ref,
-                         (into_plus - into_minus) * half * abs(factor - 1.0), hot=True)
+                         (into_plus - into_minus) * half * (factor - 1.0), hot=True)
         if model.psrr_db is not None:
             variation = self.project.settings.supply_variation_v
             if variation is None:
@@ -389,7 +389,7 @@ class _Collector:
                      _unit(size, state, common / 10.0 ** (model.cmrr_db.si / 20.0)), gain_like=True)
 
     def _ib_factor(self, stage: Stage, opamp: OpampStates, input_type: str | None, ib: Any, ios: Any) -> float | None:
-        """Ib(T)/Ib(25 °C) at the end of the range where it changes most, or None."""
+        """Ib(T)/Ib(25 °C) at the end of the range where Ib is largest (at least 1), or None."""
         if self.delta_t is None or (ib is None and ios is None):
             return None
         low, high = self.project.settings.temp_range_c or (None, None)
@@ -399,7 +399,9 @@ class _Collector:
             self.notes.append(f"{stage.id}/{opamp.ref}: the model gives no input_type (cmos, jfet or bipolar), so "
                               "its bias current is held at the 25 °C value over the temperature range")
             return None
-        return max((float(value) for value in factors if value is not None), key=lambda value: abs(value - 1.0))
+        # The error Ib·R keeps its sign, so its worst case is where Ib is largest; an end where Ib
+        # shrinks makes the error smaller, not larger (no drift is counted when both ends do).
+        return max(1.0, *(float(value) for value in factors if value is not None))
 
 
 # -- solving ---------------------------------------------------------------------------------
