@@ -175,7 +175,8 @@ def build_parser() -> argparse.ArgumentParser:
     response = _command(commands, "response", "frequency response at chosen frequencies",
                         "a table on stdout (frequency, magnitude in dB, phase in degrees, real and imaginary "
                         "parts), or with --json {\"what\", \"unit\", \"points\": [{\"f_hz\", \"re\", \"im\", "
-                        "\"mag_db\", \"phase_deg\"}]}",
+                        "\"mag_db\", \"phase_deg\"}], \"stability\": {\"verdict\", \"why\", \"poles\"}}; "
+                        "the table warns under its title when the system shown is unstable",
                         "exit status: 0 printed; 1 the response is undefined (the reason is printed); "
                         "2 the file cannot be read or an option is wrong.")
     response.add_argument("file", metavar="FILE")

@@ -289,3 +289,49 @@ def test_a_transresistance_takes_ohms() -> None:
         "transresistance in ohms"]
     stage.parts[1].value = Quantity.of("2k ohm")
     assert validate(project) == []
+
+
+# Common practice, no source (SI Brochure, 9th ed., for the unit symbols): the same rule holds
+# for every numeric field of the settings, the drive, the converter, the load and a block stage:
+# a bare number takes the field's unit, a written unit must be that one.
+@pytest.mark.parametrize(("path", "value", "sentence"), [
+    (("converter", "fs_hz"), "10nF", '"10nF" is a capacitance, fs_hz takes hertz'),
+    (("converter", "fs_hz"), "96kHz", None),
+    (("converter", "full_scale_vpp"), "5 ohm", '"5 ohm" is a resistance, full_scale_vpp takes volts'),
+    (("load", "r_ohm"), "2.2u F", '"2.2u F" is a capacitance, r_ohm takes ohms'),
+    (("load", "r_ohm"), "10k", None),
+    (("load", "c_f"), "1kHz", '"1kHz" is a frequency, c_f takes farads'),
+    (("settings", "ref_hz"), "1kV", '"1kV" is a voltage, ref_hz takes hertz'),
+    (("settings", "f_max_hz"), "1MHz", None),
+    (("settings", "noise_band_hz"), ["10", "20kF"], None),  # the second edge is checked below
+    (("input", "amplitude"), "10mA", '"10mA" is a current, amplitude takes volts'),
+    (("input", "amplitude"), "10mV", None),
+    (("stages", 1, "zin", "c_f"), "22p", None),
+    (("stages", 1, "zin", "c_f"), "1kΩ", '"1kΩ" is a resistance, c_f takes farads'),
+    (("stages", 1, "zin", "r_ohm"), "10pF", '"10pF" is a capacitance, r_ohm takes ohms'),
+    (("stages", 1, "zout_ohm"), "50 V", '"50 V" is a voltage, zout_ohm takes ohms'),
+    (("stages", 1, "gain"), "2V", '"2V" is a voltage, gain takes a plain number (no unit)'),
+])
+def test_settings_converter_load_and_block_fields_carry_their_unit(
+        path: tuple[Any, ...], value: Any, sentence: str | None) -> None:
+    document = design_example()
+    _set(path, value)(document)
+    problems = problems_of(document)
+    json_path = ".".join(f"[{key}]" if isinstance(key, int) else key for key in path).replace(".[", "[")
+    if path[-1] == "noise_band_hz":
+        assert problems == [f'{json_path}[1]: "20kF" is a capacitance, noise_band_hz takes hertz']
+    elif sentence is None:
+        assert problems == []
+    else:
+        assert problems == [f"{json_path}: {sentence}"]
+
+
+def test_a_current_drive_amplitude_and_a_block_transimpedance_take_their_units() -> None:
+    # Common practice, no source: a current drive's amplitude is in amperes; a current-driven
+    # block's gain is volts per ampere, ohms.
+    document = design_example()
+    document["input"] = {"drive": "current", "amplitude": "1uA"}
+    document["stages"][0]["drive"] = "current"
+    assert not any(problem.startswith("input.amplitude") for problem in problems_of(document))
+    document["input"]["amplitude"] = "1uV"
+    assert 'input.amplitude: "1uV" is a voltage, amplitude takes amperes' in problems_of(document)

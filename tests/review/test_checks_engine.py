@@ -108,3 +108,34 @@ def test_hydrophone_sensor_in_chain_against_nodal_analysis() -> None:
     isolated = (1 / values["R1"] + 1j * omega * values["C1"]) / (
         1 / values["R1"] + 1j * omega * (values["C1"] + values["C2"]))
     assert results[("sensor", "mid-1k")].value == pytest.approx(20 * math.log10(abs(isolated)), abs=1e-9)
+
+
+def test_a_transimpedance_gain_is_shown_in_dbohm_where_the_place_is_current_driven() -> None:
+    # A 47 kΩ feedback resistor on an ideal op-amp's inverting input, current-driven: V_out/I_in
+    # = −47 kΩ, |Z| = 20·log10(47e3) dB re 1 V/A (dBΩ). Behind it, a voltage-driven unity follower
+    # in a current-driven chain: alone its gain is V/V (dB), seen from the chain input Ω (dBΩ).
+    # Source: ideal op-amp rules (virtual ground), any op-amp text; dBΩ = 20·log10(|Z| / 1 Ω).
+    document = {
+        "format": "stagewise-project", "version": 1, "title": "TIA units",
+        "settings": {"f_min_hz": 1, "f_max_hz": 1e6, "points_per_decade": 20, "ref_hz": 100},
+        "input": {"drive": "current", "amplitude": "1u"},
+        "stages": [
+            {"id": "tia", "name": "TIA", "drive": "current", "ports": {"in": "n", "out": "out"},
+             "parts": [{"ref": "U1", "type": "opamp", "nodes": ["0", "n", "out"], "model": "ideal"},
+                       {"ref": "R1", "type": "R", "nodes": ["n", "out"], "value": "47k"}],
+             "checks": [{"id": "zt", "text": "Zt", "metric": "gain_db", "where": "isolated", "min": 93}]},
+            {"id": "buf", "name": "Follower", "ports": {"in": "in", "out": "out"},
+             "parts": [{"ref": "U1", "type": "opamp", "nodes": ["in", "out", "out"], "model": "ideal"},
+                       {"ref": "R1", "type": "R", "nodes": ["in", "0"], "value": "100k"}],
+             "checks": [{"id": "alone", "text": "Unity", "metric": "gain_db", "where": "isolated", "min": -0.1},
+                        {"id": "chain", "text": "Zt from the input", "metric": "gain_db", "where": "from_input",
+                         "min": 93}]},
+        ],
+    }
+    project = loads_project(json.dumps(document))
+    results = {r.check_id: r for r in evaluate_project(project, analysis.metric_provider(project))}
+    expected = 20 * math.log10(47e3)
+    assert results["zt"].value == pytest.approx(expected, rel=1e-9)
+    assert results["zt"].unit == "dBΩ" and results["zt"].limits == "≥ 93 dBΩ"
+    assert results["chain"].unit == "dBΩ" and results["chain"].value == pytest.approx(expected, rel=1e-9)
+    assert results["alone"].unit == "dB" and results["alone"].value == pytest.approx(0.0, abs=1e-9)

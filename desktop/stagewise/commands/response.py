@@ -8,17 +8,24 @@ last output) by default, for a stage isolated with ``--stage``, and in chain wit
 chain's drive to that stage's output with ``--from-input`` (V/V, or Ω, a transimpedance, for a
 current drive). ``unit`` and ``what`` say which. Where the response is undefined, ``points`` is null with ``why`` beside it
 and the exit status is 1. Phase is the principal value in (−180°, 180°] at each frequency.
+
+``stability`` (``{"verdict": "stable" | "unstable" | null, "why", "poles"}``) gives the closed-loop
+verdict of the system whose points are shown: H(jω) of an unstable system is still the formula's
+value, but no measurement shows it (the output grows without bound), so the table prints a warning
+line under its title. ``verdict`` null means the poles could not be computed (``why`` says why).
 """
 
 from __future__ import annotations
 
 import argparse
 import math
+from typing import Any
 
 import numpy as np
 
 from stagewise.cli import CommandError, printable
 from stagewise.commands.common import load, parse_frequencies, print_json, stage_by_id
+from stagewise.model.project import Project
 from stagewise.model.values import format_value
 
 
@@ -66,11 +73,30 @@ def run(args: argparse.Namespace) -> int:
             "phase_deg": math.degrees(math.atan2(value.imag, value.real)),
         })
     document["points"] = points
+    document["stability"] = _stability(project, args.stage, "from_input" if from_input
+                                       else "in_chain" if args.in_chain else "isolated")
     if args.json:
         print_json(document)
     else:
-        _print_table(str(args.file), what, unit, points)
+        stability = document["stability"]
+        warning = None
+        if stability["verdict"] == "unstable":
+            warning = (f"warning: {what} is unstable: {stability['why']}; these points are the formula's H(jω), "
+                       "not what a measurement shows (an unstable system has no steady state)")
+        _print_table(str(args.file), what, unit, points, warning)
     return 0
+
+
+def _stability(project: Project, stage_id: str | None, place: str) -> dict[str, Any]:
+    """The closed-loop verdict of the place whose points are printed (DESIGN 4: stability)."""
+    from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
+    from stagewise.engine.stability import stability_to_json  # noqa: PLC0415
+
+    verdict = ProjectAnalysis(project, spread=False).stability(
+        "chain" if stage_id is None else place, stage_id or "")
+    if verdict is None:
+        return {"verdict": None, "why": "its poles could not be computed, so its stability is not known", "poles": []}
+    return stability_to_json(verdict)
 
 
 def _number(value: float | None, digits: int) -> str:
@@ -80,9 +106,12 @@ def _number(value: float | None, digits: int) -> str:
     return text.lstrip("-") if float(text) == 0 else text  # no "-0.000"
 
 
-def _print_table(path: str, what: str, unit: str, points: list[dict[str, float | None]]) -> None:
-    """One row per frequency, columns aligned, units in the header."""
+def _print_table(path: str, what: str, unit: str, points: list[dict[str, float | None]],
+                 warning: str | None = None) -> None:
+    """One row per frequency, columns aligned, units in the header (a warning line under the title)."""
     print(printable(f"{path}: {what} ({unit})"))
+    if warning:
+        print(printable(warning))
     header = ("frequency", "magnitude (dB)", "phase (°)", "real", "imaginary")
     rows = [(format_value(float(point["f_hz"] or 0.0), "Hz"), _number(point["mag_db"], 3),
              _number(point["phase_deg"], 2), f"{point['re']:.6g}", f"{point['im']:.6g}") for point in points]

@@ -1001,6 +1001,11 @@ class ProjectAnalysis:
                     if name in document:
                         document[name] = None
                         document[f"{name}_why"] = why
+                # The pass-band reference goes with the figures taken against it: an unstable
+                # system has no steady pass-band gain to refer to either.
+                if isinstance(document.get("ref"), dict):
+                    document["ref"] = {**document["ref"], "gain_db": None, "gain_db_why": why, "unstable": True,
+                                       "note": "no reference gain: the system is unstable"}
             cache[key] = document
         return cache[key]
 

@@ -314,6 +314,8 @@ def reference_words(record: dict[str, Any], unit: str = "dB") -> str:
     """A ``ref`` record in a few words, the same in every view: "re DC gain 0.00 dB",
     "re high-frequency gain …", "re mid-band gain … at 1 kHz", "re gain … at the reference frequency 1 kHz"."""
     kind, gain_db, f_hz = record.get("kind"), record.get("gain_db"), record.get("f_hz")
+    if record.get("unstable"):
+        return "no pass-band reference: unstable"
     if kind is None or not isinstance(gain_db, int | float):
         return "no pass-band reference"
     gain = f"{round(float(gain_db), 2) + 0.0:.2f} {unit}"  # + 0.0: no "-0.00"

@@ -41,9 +41,11 @@ PART_TAKES = {
 # cannot be written after a value, so only a bare number or a plain V or A is accepted there).
 OPAMP_UNITS = {"a0_db": "dB", "gbw_hz": "Hz", "p2_hz": "Hz", "rout_ohm": "Ω", "rin_ohm": "Ω", "cin_diff_f": "F",
                "cin_cm_f": "F", "en_v_rthz": "V", "en_corner_hz": "Hz", "in_a_rthz": "A", "in_corner_hz": "Hz",
-               "slew_v_per_s": "V/s"}
+               "slew_v_per_s": "V/s", "vos_v": "V", "ib_a": "A", "ios_a": "A", "cmrr_db": "dB", "psrr_db": "dB",
+               # a drift per kelvin cannot be written after a value: a bare number or a plain V
+               "vos_drift_v_per_c": "V"}
 UNIT_NAMES = {"dB": "decibels", "Hz": "hertz", "Ω": "ohms", "F": "farads", "V": "volts", "A": "amperes",
-              "V/s": "volts per second"}
+              "V/s": "volts per second", "": "a plain number (no unit)"}
 
 # The review layer registers the table of metric keys here so that the model can check names
 # without importing it (keeps the model free of the layers above it).
@@ -109,6 +111,7 @@ def validate(project: Project) -> list[str]:
             mismatch = unit_mismatch(limit.raw, "V", "swing_v takes volts")
             if mismatch is not None:
                 problems.append(f"opamp_models.{name}.swing_v[{index}]: {mismatch}")
+    problems.extend(_field_unit_problems(project))
     seen_ids: set[str] = set()
     for index, stage in enumerate(project.stages):
         if stage.id in seen_ids:
@@ -116,6 +119,46 @@ def validate(project: Project) -> list[str]:
         seen_ids.add(stage.id)
         problems.extend(validate_stage(stage, project, f"stages[{index}]"))
     problems.extend(_measurement_problems(project))
+    return problems
+
+
+def _field_unit_problems(project: Project) -> list[str]:
+    """Settings, input, converter, load and block-stage fields written with another quantity's unit.
+
+    The same rule as part values and op-amp model fields: a bare number takes the field's unit,
+    a written unit must be that one ("fs_hz": "10nF" is a capacitance, not a frequency).
+    """
+    settings, converter, load = project.settings, project.converter, project.load
+    fields: list[tuple[str, Quantity | None, str]] = [
+        ("settings.f_min_hz", settings.f_min_hz, "Hz"), ("settings.f_max_hz", settings.f_max_hz, "Hz"),
+        ("settings.ref_hz", settings.ref_hz, "Hz"), ("settings.temperature_c", settings.temperature_c, ""),
+        ("settings.supply_variation_v", settings.supply_variation_v, "V"),
+        ("input.amplitude", project.input.amplitude, "A" if project.input.drive == "current" else "V"),
+        ("converter.fs_hz", converter.fs_hz, "Hz"), ("converter.full_scale_vpp", converter.full_scale_vpp, "V"),
+        ("load.r_ohm", load.r_ohm, "Ω"), ("load.c_f", load.c_f, "F"),
+    ]
+    for key, pair, unit in (("noise_band_hz", settings.noise_band_hz, "Hz"), ("temp_range_c", settings.temp_range_c, "")):
+        fields += [(f"settings.{key}[{index}]", quantity, unit) for index, quantity in enumerate(pair or ())]
+    for index, stage in enumerate(project.stages):
+        path = f"stages[{index}]"
+        fields += [(f"{path}.zin.r_ohm", stage.zin_r_ohm, "Ω"), (f"{path}.zin.c_f", stage.zin_c_f, "F"),
+                   (f"{path}.zout_ohm", stage.zout_ohm, "Ω"), (f"{path}.offset_v", stage.offset_v, "V"),
+                   # a block's gain is V/V, or V/A (ohms) for a current-driven block
+                   (f"{path}.gain", stage.gain, "Ω" if stage.drive == "current" else "")]
+        for key in ("zeros_hz", "poles_hz"):
+            for number, root in enumerate(getattr(stage, key)):
+                if isinstance(root, tuple):
+                    fields += [(f"{path}.{key}[{number}][0]", root[0], "Hz"), (f"{path}.{key}[{number}][1]", root[1], "")]
+                else:
+                    fields.append((f"{path}.{key}[{number}]", root, "Hz"))
+    problems: list[str] = []
+    for path, quantity, unit in fields:
+        if quantity is None:
+            continue
+        name = "Q" if path.endswith("][1]") else path.rsplit(".", 1)[-1].split("[", 1)[0]
+        mismatch = unit_mismatch(quantity.raw, unit, f"{name} takes {UNIT_NAMES[unit]}")
+        if mismatch is not None:
+            problems.append(f"{path}: {mismatch}")
     return problems
 
 

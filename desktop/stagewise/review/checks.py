@@ -148,7 +148,7 @@ class CheckResult:
 
 def _format(value: float, unit: str) -> str:
     # Decibels, degrees and percentages read better without SI prefixes (−0.02 dB, not −20 mdB).
-    if unit in ("dB", "°", "%", ""):
+    if unit in ("dB", "dBΩ", "°", "%", ""):
         text = f"{value:.4g}"
         return f"{text} {unit}".rstrip() if unit != "°" else f"{text}°"
     return format_value(value, unit)
@@ -175,7 +175,9 @@ def evaluate_check(check: Check, stage: Stage, project: Project, provider: Metri
     waiver = check.waiver
     if check.metric is None:
         return _evaluate_manual(check, stage)
-    unit = metric_unit(check.metric, project.input.drive) if check.metric in METRICS else ""
+    # A stage alone or in chain is driven as the stage says; the chain, and a stage seen from it, as the chain.
+    drive = project.input.drive if check.where in ("chain", "from_input") else stage.drive
+    unit = metric_unit(check.metric, drive) if check.metric in METRICS else ""
     limits = format_limits(check, unit)
 
     def result(state: CheckState, value: float | None, why: str | None, at_hz: float | None) -> CheckResult:

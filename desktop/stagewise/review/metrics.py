@@ -193,11 +193,14 @@ def metric(key: str) -> Metric:
 
 
 def metric_unit(key: str, drive: str = "voltage") -> str:
-    """The unit of ``key``'s value; input-referred noise is in amperes when the chain is current-driven."""
+    """The unit of ``key``'s value where the place's drive is ``drive``: input-referred noise is in
+    amperes, and a gain is a transimpedance (Ω, dBΩ re 1 V/A) where the place is current-driven."""
     if key == "noise_in_rms" and drive == "current":
         return "A"
     if key == "dc_gain" and drive == "current":
         return "Ω"
+    if key in ("gain_db", "peak_gain_db") and drive == "current":
+        return "dBΩ"
     return metric(key).unit
 
 
