@@ -288,3 +288,22 @@ def test_stage_pages_show_the_pass_band_reference_from_input_figures_and_loops_i
         for loop in entry["in_chain"]["loops"]:
             if loop.get("phase_margin_deg") is not None:
                 assert f"{loop['phase_margin_deg']:.4g}°" in text
+
+
+def test_gains_carry_the_unit_of_their_place_and_say_where_they_are_read(
+        printed: dict[str, Any], capsys: pytest.CaptureFixture[str]) -> None:
+    # Common practice, no source: a transimpedance (V/A) in decibels is dBΩ (re 1 V/A), a voltage
+    # ratio plain dB; a gain printed as "126 dB" beside a reference in dBΩ would mix the two.
+    main(["analyze", str(printed["path"]), "--json"])
+    document = json.loads(capsys.readouterr().out)
+    text = printed["text"]
+    chain = document["chain"]
+    unit = "dBΩ" if chain["unit"] == "Ω" else "dB"
+    assert _normal(f"Gain at the reference frequency 1 kHz {chain['gain_db']:.4g} {unit}") in text
+    assert _normal(f"Peak gain {chain['peak_gain_db']:.4g} {unit}") in text
+    for entry in document["stages"]:
+        isolated = entry.get("isolated")
+        if isinstance(isolated, dict) and isinstance(isolated.get("gain_db"), float):
+            unit = "dBΩ" if isolated["unit"] == "Ω" else "dB"
+            # the block diagram's figure of each stage, isolated
+            assert _normal(f"gain {round(isolated['gain_db'], 2) + 0.0:+.2f} {unit}") in text

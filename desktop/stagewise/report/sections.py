@@ -95,7 +95,7 @@ def _text(value: Any, unit: str = "") -> str:
         number = float(value)
         if not math.isfinite(number):
             return DASH
-        if unit in ("dB", "%", ""):
+        if unit in ("dB", "dBΩ", "%", ""):
             return f"{number:.4g} {unit}".rstrip()
         if unit == "°":
             return f"{number:.4g}°"
@@ -270,7 +270,7 @@ def _stage_figures(entry: dict[str, Any] | None) -> tuple[str, ...]:
     lines = []
     gain = isolated.get("gain_db")
     if isinstance(gain, int | float):
-        lines.append(f"gain {round(gain, 2) + 0.0:+.2f} dB")  # + 0.0: no "-0.00"
+        lines.append(f"gain {round(gain, 2) + 0.0:+.2f} {_place_unit(isolated, 'dB')}")  # + 0.0: no "-0.00"
     low, high = isolated.get("f_low_3db_hz"), isolated.get("f_high_3db_hz")
     if isinstance(low, int | float) or isinstance(high, int | float):
         low_text = format_value(low, "Hz", 3) if isinstance(low, int | float) else "DC"
@@ -320,20 +320,35 @@ def _reference_cell(document: dict[str, Any] | None) -> str:
     return reference_words(document["ref"], "dBΩ" if document.get("unit") == "Ω" else "dB")
 
 
+def _place_unit(document: dict[str, Any] | None, unit: str) -> str:
+    """A gain's unit where the place is a transimpedance (unit Ω): dB becomes dBΩ (re 1 V/A), V/V becomes Ω."""
+    if not isinstance(document, dict) or document.get("unit") != "Ω":
+        return unit
+    return {"dB": "dBΩ", "": "Ω"}.get(unit, unit)
+
+
 def _metrics_rows(documents: Sequence[dict[str, Any] | None]) -> list[list[str]]:
     rows = [["Pass-band reference (corners, peaking)"] + [_reference_cell(document) for document in documents]]
+    ref_hz = next((document.get("ref_hz") for document in documents if isinstance(document, dict)), None)
     for key in _CHAIN_KEYS:
         unit = METRICS[key].unit
-        rows.append([METRICS[key].label] + [_value_or_why(document, key, unit) for document in documents])
+        label = METRICS[key].label
+        if key == "gain_db" and isinstance(ref_hz, int | float):
+            label = f"Gain at the reference frequency {format_value(float(ref_hz), 'Hz')}"
+        elif key == "gain_db":
+            label = "Gain (the pass-band reference gain; no reference frequency set)"
+        rows.append([label] + [_value_or_why(document, key, _place_unit(document, unit) if key != "peaking_db"
+                                             else unit) for document in documents])
     step_keys = (("rise_s", "s"), ("overshoot_pct", "%"), ("settle_1pct_s", "s"))
     for key, unit in step_keys:
         rows.append([METRICS[key].label] + [
             _value_or_why(document.get("step") if isinstance(document, dict) and isinstance(document.get("step"), dict)
                           else None, key, unit) if document is not None else DASH
             for document in documents])
-    rows.append(["Step final value"] + [
+    rows.append(["Step final value (per unit step)"] + [
         _value_or_why(document.get("step") if isinstance(document, dict) and isinstance(document.get("step"), dict)
-                      else None, "final", "") if document is not None else DASH for document in documents])
+                      else None, "final", _place_unit(document, "")) if document is not None else DASH
+        for document in documents])
     # The DC budget of each place (engine/dc.py): metric key -> key of the place's ``dc`` object.
     for key, field in (("dc_gain", "gain"), ("gain_error_pct", "gain_error_pct"), ("offset_out_v", "offset_out_v"),
                        ("drift_out_v_per_c", "drift_out_v_per_c"), ("total_wc_v", "total_wc_v"),
