@@ -303,3 +303,12 @@ def test_f2_in_the_chain_tree_renames_the_stage(window, qtbot, monkeypatch: pyte
     window.tree.setFocus()
     qtbot.keyClick(window.tree, Qt.Key.Key_F2)
     assert window.document.project.stage("rc").name == "Input filter"
+
+
+def test_check_editor_speaks_words_not_file_keys(window) -> None:  # type: ignore[no-untyped-def]
+    window.document.set_current_stage("amp")
+    dialog = window.check_editor_dialog()
+    for index in range(dialog.metric_choice.count()):
+        dialog.metric_choice.setCurrentIndex(index)
+        words = dialog.metric_words.text()
+        assert "settings." not in words and "at_hz" not in words, words

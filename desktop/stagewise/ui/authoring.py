@@ -299,7 +299,9 @@ def _metric_words(key: str) -> str:
     frequency = {"required": "Needs a frequency.", "reference": "At the frequency given, else the project's "
                  "reference frequency.", "unused": "Taken over the whole response; no frequency."}[entry.at_hz]
     places = ", ".join(WHERE_WORDS[where] for where in entry.where)
-    against = f" Taken against {entry.reference}." if entry.reference else ""
+    # The pass-band reference is stated in words; other reference notes name file keys, which the
+    # frequency sentence above already says in words.
+    against = f" Taken against {entry.reference}." if entry.referenced else ""
     return f"{entry.label}{unit}. {entry.description} {frequency} Places: {places}.{against}"
 
 
