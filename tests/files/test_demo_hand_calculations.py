@@ -147,3 +147,34 @@ def test_hydrophone_dc_budget_holds_only_the_converter_offset() -> None:
     # Common practice, no source: a series capacitor passes no DC, so the chain's DC gain is undefined.
     gain, why = analysis.metric_value("dc_gain", "chain", "adc", None)
     assert gain is None and "blocks DC" in why
+
+
+def test_hydrophone_buffer_bias_current_offset_and_the_proposed_22_megohm() -> None:
+    project = load_project(PROJECTS / "hydrophone.stagewise.json")
+    stage = _stage(project, "buffer")
+    model = project.opamp_models["low-noise-jfet-10M"]
+    assert model.vos_v is not None and model.ib_a is not None and model.ios_a is not None
+    r_bias = _value(stage, "R1") * 10e9 / (_value(stage, "R1") + 10e9)  # ∥ the element's 10 GΩ leakage
+    # Source: Franco, Design with Operational Amplifiers, 3rd ed., sec. 5.1 (value from memory): a
+    # follower's output offset is Vos + Ib·R at its input, and Ios/2·R for the offset current.
+    hand = model.vos_v.si + model.ib_a.si * r_bias + 0.5 * model.ios_a.si * r_bias
+    assert "1.49 mV" in stage.notes and round(hand * 1e3, 2) == 1.49
+    from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
+
+    value, why = ProjectAnalysis(project, spread=False).metric_value("offset_out_v", "in_chain", "buffer", None)
+    assert why is None and value == pytest.approx(hand, rel=1e-3)
+    check = _check(stage, "dc-offset")
+    assert check.max is not None and value <= check.max.si
+    # Common practice, no source: JFET input bias current doubles about every 10 °C (0.62 mV at 30 °C).
+    assert "0.62 mV" in stage.notes and round(model.ib_a.si * r_bias * 2**0.5 * 1e3, 2) == 0.62
+    # The 22 MΩ proposed in the review for the 20 Hz corner: Ib·R grows tenfold and the check fails.
+    part = stage.part("R1")
+    assert part is not None
+    from stagewise.model.values import Quantity  # noqa: PLC0415
+
+    part.value = Quantity.of("22M")
+    raised = 22e6 * 10e9 / (22e6 + 10e9)
+    hand_raised = model.vos_v.si + (model.ib_a.si + 0.5 * model.ios_a.si) * raised
+    assert "5.9 mV" in stage.notes and round(hand_raised * 1e3, 1) == 5.9
+    value, why = ProjectAnalysis(project, spread=False).metric_value("offset_out_v", "in_chain", "buffer", None)
+    assert why is None and value == pytest.approx(hand_raised, rel=1e-3) and value > check.max.si
