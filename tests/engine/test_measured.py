@@ -244,3 +244,40 @@ def test_a_step_capture_is_listed_beside_the_predicted_step_of_its_place() -> No
     assert entry["step"]["rise_s"] == pytest.approx(math.log(9) * tau, rel=2e-3)
     assert entry["predicted_step"]["rise_s"] == pytest.approx(math.log(9) * tau, rel=1e-6)
     assert entry["dev_db_max"] is None and "step capture" in entry["dev_db_max_why"]
+
+
+def test_checks_on_a_step_capture_read_its_rise_overshoot_and_settling() -> None:
+    from stagewise.model.project import Check  # noqa: PLC0415
+    from stagewise.model.values import Quantity  # noqa: PLC0415
+
+    project = _project()
+    tau = R_OHM * C_F
+    t_s = np.linspace(-0.1 * tau, 12 * tau, 6001)
+    v = np.where(t_s < 0, 0.0, 0.8 * (1 - np.exp(-np.clip(t_s, 0, None) / tau)))
+    stage = project.stages[0]
+    checks = [Check(id="rise", text="rise", metric="measured_rise_s", where="isolated", max=Quantity.of(3 * tau)),
+              Check(id="settle", text="settle", metric="measured_settle_1pct_s", where="isolated",
+                    max=Quantity.of(4 * tau)),
+              Check(id="over", text="overshoot", metric="measured_overshoot_pct", where="isolated",
+                    max=Quantity.of(1)),
+              Check(id="chain", text="chain rise", metric="measured_rise_s", where="chain", max=Quantity.of(1))]
+    stage.checks.extend(checks)
+    project.measurements.append(Measurement(
+        id="scope", kind="step", where="isolated", stage=stage.id, file="scope.csv", sha256="1" * 64, by="tester",
+        time="2026-12-03T10:00:00Z", fingerprint=measurement_fingerprint(project, "isolated", stage.id),
+        t_s=[float(t) for t in t_s], v=[float(x) for x in v]))
+    analysis = ProjectAnalysis(project, spread=False)
+    results = {check.id: evaluate_check(check, stage, project, analysis) for check in checks}
+    # Source: first-order RC step: 10–90 % rise ln(9)·RC, 1 % settling ln(100)·RC, no overshoot
+    # (any control text, e.g. Ogata, Modern Control Engineering, ch. 5).
+    assert results["rise"].value == pytest.approx(math.log(9) * tau, rel=2e-3)
+    assert results["rise"].state.name == "MET"
+    assert results["settle"].value == pytest.approx(math.log(100) * tau, rel=2e-3)
+    assert results["settle"].state.name == "NOT_MET"  # 4.6·RC > 4·RC
+    assert results["over"].value is not None and results["over"].value < 0.01
+    assert results["chain"].value is None and "no step capture is attached to the whole chain" in str(
+        results["chain"].why)
+    # A change of the stage makes the capture out of date: no value, as a measured response.
+    stage.parts[0].value = Quantity.of(R_OHM * 2)
+    result = evaluate_check(checks[0], stage, project, ProjectAnalysis(project, spread=False))
+    assert result.value is None and "out of date" in str(result.why)

@@ -21,6 +21,7 @@ REQUIRED_KEYS = {
     "gain_margin_db", "crossover_hz", "loading_error_db_max", "zin_ohm", "zout_ohm", "noise_out_rms_v",
     "noise_in_rms", "snr_db", "alias_attenuation_db", "headroom_v", "slew_margin", "yield_pct",
     "measured_dev_db_max", "measured_dev_deg_max", "measured_inside_spread_pct",
+    "measured_rise_s", "measured_overshoot_pct", "measured_settle_1pct_s",
     # The DC accuracy budget's contract (its keys are metrics usable in checks).
     "dc_gain", "gain_error_pct", "offset_out_v", "drift_out_v_per_c", "total_wc_v", "total_rss_v",
     "total_wc_lsb", "total_rss_lsb", "total_wc_pct_fs",

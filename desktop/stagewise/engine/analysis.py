@@ -59,6 +59,12 @@ IDEAL_ONLY = "its op-amps are ideal (infinite gain): there is no loop gain to me
 STEP_KEYS = {"rise_s": "rise_s", "overshoot_pct": "overshoot_pct", "settle_1pct_s": "settle_1pct_s",
              "settle_01pct_s": "settle_0p1pct_s"}
 BAND_KEYS = ("peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz")
+# Bench-measurement metrics -> (the kind of measurement, its comparison's field); the worst of
+# the current measurements at the check's place.
+MEASURED_KEYS = {"measured_dev_db_max": ("response", "dev_db_max"), "measured_dev_deg_max": ("response", "dev_deg_max"),
+                 "measured_inside_spread_pct": ("response", "inside_spread_pct"),
+                 "measured_rise_s": ("step", "rise_s"), "measured_overshoot_pct": ("step", "overshoot_pct"),
+                 "measured_settle_1pct_s": ("step", "settle_1pct_s")}
 # Response figures of an M that have no value when its system is unstable (the step fields say
 # so themselves, from the same poles).
 RESPONSE_KEYS = ("gain_db", "peak_gain_db", "peak_hz", "f_low_3db_hz", "f_high_3db_hz", "peaking_db")
@@ -883,7 +889,7 @@ class ProjectAnalysis:
             return _document_value(converter, metric)
         if metric in ("headroom_v", "swing_margin_v", "slew_margin", "slew_margin_pct"):
             return self._headroom_value(metric, where, stage_id)
-        if metric in ("measured_dev_db_max", "measured_dev_deg_max", "measured_inside_spread_pct"):
+        if metric in MEASURED_KEYS:
             return self._measured_value(metric, where, stage_id)
         if metric in DC_KEYS:
             budget, why = self.dc_document(where, stage_id)
@@ -924,24 +930,31 @@ class ProjectAnalysis:
 
     def _measured_value(self, metric: str, where: str, stage_id: str) -> tuple[float | None, str | None]:
         place = "the whole chain" if where == "chain" else f'stage "{stage_id}" {where.replace("_", " ")}'
+        kind, key = MEASURED_KEYS[metric]
         found = [item for item in self.measurements
-                 if item.measurement.kind == "response" and item.measurement.where == where
+                 if item.measurement.kind == kind and item.measurement.where == where
                  and (where == "chain" or item.measurement.stage == stage_id)]
         if not found:
-            return None, f"no frequency-response measurement is attached to {place}"
+            what = "frequency-response measurement" if kind == "response" else "step capture"
+            return None, f"no {what} is attached to {place}"
         current = [item for item in found if not item.stale]
         if not current:
             names = ", ".join(f'"{item.measurement.id}"' for item in found)
             return None, (f"the measurement {names} of {place} is out of date: the circuit changed after it was "
                           "measured; measure the board again")
-        key = {"measured_dev_db_max": "dev_db_max", "measured_dev_deg_max": "dev_deg_max",
-               "measured_inside_spread_pct": "inside_spread_pct"}[metric]
-        values = [getattr(item, key) for item in current]
-        if any(value is None for value in values):
-            item = current[values.index(None)]
-            return None, f'measurement "{item.measurement.id}": {item.why.get(key, "no value")}'
-        worst = min(values) if key == "inside_spread_pct" else max(values)
-        return float(worst), None
+        if kind == "step":
+            values = [None if item.step is None else getattr(item.step, key) for item in current]
+            if any(value is None for value in values):
+                item = current[values.index(None)]
+                why = item.why.get("step") if item.step is None else item.step.why.get(key)
+                return None, f'measurement "{item.measurement.id}": {why or key + " could not be measured"}'
+        else:
+            values = [getattr(item, key) for item in current]
+            if any(value is None for value in values):
+                item = current[values.index(None)]
+                return None, f'measurement "{item.measurement.id}": {item.why.get(key, "no value")}'
+        worst = min(values) if key == "inside_spread_pct" else max(values)  # type: ignore[type-var]
+        return float(worst), None  # type: ignore[arg-type]
 
     def metric_reference(self, metric: str, where: str, stage_id: str) -> dict[str, Any] | None:
         """The ``ref`` record a corner, peaking or attenuation at ``where`` was taken against.

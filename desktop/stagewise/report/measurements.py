@@ -42,7 +42,8 @@ from stagewise.ui.palette import measurement_style
 
 __all__ = ["measurement_blocks"]
 
-MEASURED_METRICS = ("measured_dev_db_max", "measured_dev_deg_max", "measured_inside_spread_pct")
+MEASURED_METRICS = ("measured_dev_db_max", "measured_dev_deg_max", "measured_inside_spread_pct", "measured_rise_s",
+                    "measured_overshoot_pct", "measured_settle_1pct_s")
 DASH = "—"
 
 

@@ -153,6 +153,13 @@ _TABLE: Final[tuple[Metric, ...]] = (
     Metric("measured_inside_spread_pct", "Measured points inside the predicted spread", "%", "unused", _ALL,
            "Share of measured frequencies where gain and phase lie within the Monte Carlo envelope of the "
            "prediction; 100 % means the board is within the predicted spread."),
+    Metric("measured_rise_s", "Measured rise time", "s", "unused", _ALL,
+           "Longest 10–90 % rise time of the step captures taken there, measured by the same code as the "
+           "predicted step."),
+    Metric("measured_overshoot_pct", "Measured overshoot", "%", "unused", _ALL,
+           "Largest overshoot of the step captures taken there, above their final value."),
+    Metric("measured_settle_1pct_s", "Measured settling time (1 %)", "s", "unused", _ALL,
+           "Longest time the step captures taken there need to stay within 1 % of their final value."),
     # DC accuracy budget (engine/dc.py); values at the place's output.
     Metric("dc_gain", "DC gain", "V/V", "unused", _ALL,
            "Gain at 0 Hz with the op-amps' finite open-loop gain (Ω for a current drive)."),
