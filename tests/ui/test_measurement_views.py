@@ -123,3 +123,50 @@ def test_attaching_in_the_program_records_it_and_saves_it(qtbot, sample_path: Pa
     assert verify_trail(saved.audit).intact
     assert any(event.what == "measurement" and event.detail["measurement"] == "amp" for event in saved.audit)
     assert unrecorded_decisions(saved) == []
+
+
+def test_the_attach_dialog_asks_place_instrument_setup_and_note(qtbot, sample_path: Path,  # type: ignore[no-untyped-def]
+                                                                tmp_path: Path, monkeypatch) -> None:
+    # Common practice, no source: the program asks what `stagewise measure` takes (--instrument,
+    # --setup, --note) in one form, and keeps each in its own field.
+    from PySide6.QtCore import QTimer
+    from PySide6.QtWidgets import QApplication, QFileDialog
+
+    from stagewise.ui.measurement_dialog import MeasurementDialog
+
+    data = tmp_path / "amp.csv"
+    data.write_text("f_hz,mag_db,phase_deg\n100,0,-1\n1000,-0.5,-9\n", encoding="utf-8")
+    window = make_window(qtbot, sample_path)
+    monkeypatch.setattr(QFileDialog, "getOpenFileName", staticmethod(lambda *args, **kwargs: (str(data), "")))
+    seen: list[str] = []
+
+    def fill() -> None:
+        dialog = QApplication.activeModalWidget()
+        if not isinstance(dialog, MeasurementDialog):
+            if dialog is not None:
+                dialog.close()
+            return
+        seen.append(dialog.windowTitle())
+        labels = [dialog.place.itemText(i) for i in range(dialog.place.count())]
+        in_chain = next((i for i, text in enumerate(labels) if text.endswith("in chain")
+                         and window.document.project.stage("amp").name in text), -1)  # type: ignore[union-attr]
+        if in_chain < 0:
+            dialog.reject()
+            return
+        dialog.place.setCurrentIndex(in_chain)
+        qtbot.keyClicks(dialog.instrument, "gain-phase analyser GP-2")
+        qtbot.keyClicks(dialog.setup, "100 mV source, 10x probe at the output")
+        qtbot.keyClicks(dialog.note, "board 7")
+        dialog.accept()
+
+    try:
+        QTimer.singleShot(0, fill)
+        window.attach_measurement_dialog()
+        assert seen == ["Attach amp.csv"]
+        (measurement,) = window.document.project.measurements
+        assert (measurement.where, measurement.stage) == ("in_chain", "amp")
+        assert measurement.instrument == "gain-phase analyser GP-2"
+        assert measurement.setup == "100 mV source, 10x probe at the output"
+        assert measurement.note == "board 7"
+    finally:
+        window.shutdown()

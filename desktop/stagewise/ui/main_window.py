@@ -1080,18 +1080,19 @@ class MainWindow(QMainWindow):
                 places.append((f"{stage.name} — in chain", "in_chain", stage.id))
         current = next((index for index, (_, where, stage_id) in enumerate(places)
                         if stage_id == self.document.current_stage_id and where == "isolated"), 0)
-        label, ok = QInputDialog.getItem(self, "Bench measurement", "Where was it measured?",
-                                         [place[0] for place in places], current, False)
-        if not ok:
+        from PySide6.QtWidgets import QDialog
+
+        from stagewise.ui.measurement_dialog import MeasurementDialog
+
+        dialog = MeasurementDialog(Path(path).name, places, current, self)
+        if dialog.exec() != QDialog.DialogCode.Accepted:
             return
-        instrument, ok = QInputDialog.getText(self, "Bench measurement", "Instrument and set-up (optional):")
-        if not ok:
-            return
-        _, where, stage_id = next(place for place in places if place[0] == label)
-        self.attach_measurement_file(path, where, stage_id, instrument.strip())
+        chosen = dialog.values()
+        self.attach_measurement_file(path, str(chosen["where"]), chosen["stage_id"], str(chosen["instrument"]),
+                                     setup=str(chosen["setup"]), note=str(chosen["note"]))
 
     def attach_measurement_file(self, path: str | Path, where: str, stage_id: str | None,
-                                instrument: str = "") -> bool:
+                                instrument: str = "", *, setup: str = "", note: str = "") -> bool:
         """Read a measurement file and attach it (recorded in the audit trail, saved with the next save)."""
         from stagewise.files.measurements import MeasurementError, read_measurement
         from stagewise.review.measurements import attach_measurement
@@ -1106,7 +1107,8 @@ class MainWindow(QMainWindow):
         name, _role = reviewer_identity()
         try:
             measurement = self.document.record_event(lambda target: attach_measurement(
-                target, data, where, stage_id, name or "unknown user", instrument=instrument))
+                target, data, where, stage_id, name or "unknown user", instrument=instrument, setup=setup,
+                note=note))
         except (ValueError, EditRefused) as error:
             self._refuse(error)
             return False
