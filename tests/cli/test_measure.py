@@ -98,6 +98,12 @@ def test_a_csv_of_the_chain_attaches_to_the_chain(project_file: Path, tmp_path: 
     assert main(["measure", str(project_file), str(data), "--chain", "--by", "C"]) == 0
     measurement = load_project(project_file).measurements[0]
     assert (measurement.where, measurement.stage, measurement.id) == ("chain", None, "chain")
+    # Round trip of a computed response through CSV (Python's repr keeps every digit): zero
+    # deviation from the prediction (common practice, no source).
+    from stagewise.engine.analysis import ProjectAnalysis
+
+    (entry,) = ProjectAnalysis(load_project(project_file), spread=False).document()["measurements"]
+    assert entry["dev_db_max"] < 1e-9 and entry["dev_deg_max"] < 1e-9 and entry["stale"] is False
 
 
 def test_edited_measurement_record_is_named_by_verify(project_file: Path, tmp_path: Path) -> None:
