@@ -942,19 +942,15 @@ class ProjectAnalysis:
             names = ", ".join(f'"{item.measurement.id}"' for item in found)
             return None, (f"the measurement {names} of {place} is out of date: the circuit changed after it was "
                           "measured; measure the board again")
-        if kind == "step":
-            values = [None if item.step is None else getattr(item.step, key) for item in current]
-            if any(value is None for value in values):
-                item = current[values.index(None)]
-                why = item.why.get("step") if item.step is None else item.step.why.get(key)
-                return None, f'measurement "{item.measurement.id}": {why or key + " could not be measured"}'
-        else:
-            values = [getattr(item, key) for item in current]
-            if any(value is None for value in values):
-                item = current[values.index(None)]
-                return None, f'measurement "{item.measurement.id}": {item.why.get(key, "no value")}'
-        worst = min(values) if key == "inside_spread_pct" else max(values)  # type: ignore[type-var]
-        return float(worst), None  # type: ignore[arg-type]
+        values: list[float] = []
+        for item in current:
+            figures = item.step if kind == "step" else item  # a capture's step metrics, or the comparison
+            value = None if figures is None else getattr(figures, key)
+            if value is None:
+                why = item.why.get("step") if figures is None else figures.why.get(key)
+                return None, f'measurement "{item.measurement.id}": {why or "no value"}'
+            values.append(float(value))
+        return (min(values) if key == "inside_spread_pct" else max(values)), None
 
     def metric_reference(self, metric: str, where: str, stage_id: str) -> dict[str, Any] | None:
         """The ``ref`` record a corner, peaking or attenuation at ``where`` was taken against.
