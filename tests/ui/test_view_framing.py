@@ -168,7 +168,7 @@ def test_step_traces_in_different_units_are_each_over_their_own_final_value(qtbo
         window.wait_until_idle(60, formula=False)
         view = window.step_view
         assert view.normalized
-        assert "own final value" in view.plot.getAxis("left").labelText
+        assert "own final value" in view.plot.getAxis("left").labelText  # noqa: SIM300
         for key in (f"{current.id}:isolated", f"{voltage.id}:isolated"):
             item = view.traces.items[key]
             t_s, y = item.getOriginalDataset()
@@ -226,5 +226,79 @@ def test_noise_sources_keep_their_colour_when_re_ranked(qtbot) -> None:  # type:
         # Common practice, no source: a trace keeps its colour while it stays on the plot.
         assert before == after
         assert len({colour for colour, _ in before.values()}) == 3
+    finally:
+        window.shutdown()
+
+
+@pytest.mark.parametrize("demo", DEMOS)
+def test_tree_columns_fit_at_1280_by_720(qtbot, demo: str) -> None:  # type: ignore[no-untyped-def]
+    window = _window(qtbot, demo)
+    try:
+        tree = window.tree
+        header = tree.header()
+        # Common practice, no source: no column runs past the visible width of the tree.
+        total = sum(header.sectionSize(column) for column in range(tree.columnCount()))
+        assert total <= tree.viewport().width()
+        assert header.sectionSize(0) >= 60  # room for the names, elided in the middle
+        metrics = tree.fontMetrics()
+        root = tree.topLevelItem(0)
+        for index in range(root.childCount()):
+            item = root.child(index)
+            if item.data(0, Qt.ItemDataRole.UserRole) != "stage":
+                continue
+            state = item.text(3)
+            # The review state is whole: a shape, a short word and the count, never cut.
+            assert metrics.horizontalAdvance(state) <= header.sectionSize(3)
+            assert any(glyph in state for glyph in "✓✗△○?")
+            # The whole name is in the tooltip, whatever the column shows.
+            assert item.text(0) in item.toolTip(0)
+        assert tree.textElideMode() == Qt.TextElideMode.ElideMiddle
+    finally:
+        window.shutdown()
+
+
+def _curve_points_in_scene(plot) -> list:  # type: ignore[no-untyped-def]
+    import pyqtgraph as pg
+
+    points = []
+    for item in plot.listDataItems():
+        if not isinstance(item, pg.PlotDataItem) or not item.isVisible():
+            continue
+        x, y = item.getData()
+        if x is None:
+            continue
+        for xi, yi in zip(x, y, strict=True):
+            if np.isfinite(xi) and np.isfinite(yi):
+                points.append(plot.getViewBox().mapViewToScene(pg.Point(float(xi), float(yi))))
+    return points
+
+
+@pytest.mark.parametrize("demo", DEMOS)
+def test_no_legend_covers_a_curve(qtbot, demo: str) -> None:  # type: ignore[no-untyped-def]
+    import pyqtgraph as pg
+
+    from stagewise.ui.plots import PlotView
+
+    window = _window(qtbot, demo)
+    try:
+        window.overlays.set_chain(True)
+        window.wait_until_idle(60, formula=False)
+        checked = 0
+        window.docks["spread"].raise_()  # tabbed with the noise view: show it too
+        qtbot.wait(50)
+        for view in window.findChildren(PlotView):
+            if not view.isVisible():
+                continue
+            scene = view.graphics.scene()
+            legends = [item for item in scene.items() if isinstance(item, pg.LegendItem) and item.isVisible()]
+            plots = [item for item in view.graphics.ci.items if isinstance(item, pg.PlotItem)]
+            for legend in legends:
+                box = legend.sceneBoundingRect()
+                for plot in plots:
+                    # Common practice, no source: a legend never hides data: no curve point
+                    # falls inside its rectangle.
+                    assert not any(box.contains(point) for point in _curve_points_in_scene(plot)), type(view)
+                    checked += 1
+        assert checked > 0
     finally:
         window.shutdown()

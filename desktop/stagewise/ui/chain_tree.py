@@ -7,7 +7,7 @@ names are edited in place (an undoable rename). Selecting any row selects its st
 
 from __future__ import annotations
 
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import QSize, Qt, Signal
 from PySide6.QtGui import QAction, QBrush, QColor, QFont
 from PySide6.QtWidgets import QAbstractItemView, QHeaderView, QMenu, QTreeWidget, QTreeWidgetItem, QWidget
 
@@ -16,6 +16,7 @@ from stagewise.review.words import WHERE_WORDS
 from stagewise.ui.document import Document, EditRefused
 from stagewise.ui.icons import icon
 from stagewise.ui.overlays import FROM_INPUT, IN_CHAIN, ISOLATED, OverlaySelection
+from stagewise.ui.palette import STATE_MARKS
 from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import ComputeWorker, Outcome
 
@@ -48,17 +49,24 @@ class ChainTree(QTreeWidget):
         self.outcome: Outcome | None = worker.latest
         self.context_actions: list[QAction] = []
         self.setColumnCount(5)
-        self.setHeaderLabels(["Chain", "Alone", "In chain", "Review", "From input"])
+        self.setHeaderLabels(["Chain", "Alone", "In chain", "Review", "Input"])
         self.setHeaderHidden(False)
         header = self.header()
         header.setStretchLastSection(False)
         header.setSectionResizeMode(COLUMN_NAME, QHeaderView.ResizeMode.Stretch)
         header.setMinimumSectionSize(24)
-        self.setIndentation(14)
-        for column, width in ((COLUMN_ALONE, 40), (COLUMN_IN_CHAIN, 50), (COLUMN_STATE, 92), (COLUMN_FROM_INPUT, 60)):
-            header.setSectionResizeMode(column, QHeaderView.ResizeMode.Interactive)
-            header.resizeSection(column, width)
-        self.setTextElideMode(Qt.TextElideMode.ElideRight)
+        self.setIndentation(12)
+        # Tick columns as wide as their header word, the review column as wide as its longest
+        # short state ("accepted ✓ 10/10 met"); names take the rest and are elided in the middle,
+        # with the whole name as a tooltip, so the columns fit a 1280×720 screen.
+        metrics = self.fontMetrics()
+        for column in (COLUMN_ALONE, COLUMN_IN_CHAIN, COLUMN_FROM_INPUT):
+            header.setSectionResizeMode(column, QHeaderView.ResizeMode.Fixed)
+            header.resizeSection(column, metrics.horizontalAdvance(self.headerItem().text(column)) + 14)
+        header.setSectionResizeMode(COLUMN_STATE, QHeaderView.ResizeMode.Fixed)
+        header.resizeSection(COLUMN_STATE, max(metrics.horizontalAdvance(f"{word} {glyph} 10/10 met")
+                                               for word, glyph, _ in STATE_MARKS.values()) + 12)
+        self.setTextElideMode(Qt.TextElideMode.ElideMiddle)
         self.headerItem().setToolTip(COLUMN_ALONE, "Overlay the stage alone (ideal drive, unloaded)")
         self.headerItem().setToolTip(COLUMN_IN_CHAIN, "Overlay the stage where it sits in the chain")
         self.headerItem().setToolTip(COLUMN_STATE, "Sign-off state, and checks passing of all")
@@ -89,6 +97,13 @@ class ChainTree(QTreeWidget):
     def disconnect_all(self) -> None:
         """Stop listening to the document and the worker (the window calls this when it closes)."""
         self.subscriptions.close()
+
+    def sizeHint(self) -> QSize:  # noqa: N802 - Qt's name
+        """Wide enough for the tick and review columns and about 18 characters of names."""
+        hint = super().sizeHint()
+        header = self.header()
+        columns = sum(header.sectionSize(column) for column in range(1, self.columnCount()))
+        return QSize(columns + self.fontMetrics().horizontalAdvance("M" * 12) + 40, hint.height())
 
     # ----------------------------------------------------------------- model → widget
     def rebuild(self, *_: object) -> None:
@@ -152,7 +167,7 @@ class ChainTree(QTreeWidget):
             item.setFont(0, font)
             item.setForeground(0, QBrush(QColor("#707070")))
             item.setText(0, f"{stage.name} (bypassed)")
-        item.setToolTip(0, tip)
+        item.setToolTip(0, f"{item.text(0)}\n{tip}")
         self._stage_items[stage.id] = item
         self._fill_children(item, stage)
         item.setExpanded(expanded)
@@ -173,7 +188,8 @@ class ChainTree(QTreeWidget):
             child.setData(0, ROLE_KEY, part.ref)
             child.setIcon(0, icon("part"))
             meaning = PART_TYPES.get(part.type, ("", part.type, ""))[1] or "op-amp"
-            child.setToolTip(0, f"{part.ref}: {part.type} ({meaning}) between {', '.join(part.nodes)}")
+            child.setToolTip(0, f"{describe_part(part)}\n{part.ref}: {part.type} ({meaning}) between "
+                                f"{', '.join(part.nodes)}")
             item.addChild(child)
         for check in stage.checks:
             child = QTreeWidgetItem([f"check {check.id}: {check.text}", "", "", ""])
@@ -181,7 +197,7 @@ class ChainTree(QTreeWidget):
             child.setData(0, ROLE_STAGE, stage.id)
             child.setData(0, ROLE_KEY, check.id)
             child.setIcon(0, icon("check"))
-            child.setToolTip(0, check.text)
+            child.setToolTip(0, f"check {check.id}: {check.text}")
             item.addChild(child)
 
     def _stage_changed(self, stage_id: str) -> None:
@@ -209,7 +225,6 @@ class ChainTree(QTreeWidget):
         """Sign-off state (read now, so an edit shows an out-of-date sign-off at once) and check totals
         from the latest analysis; the words come from stagewise.review."""
         from stagewise.review.signoff import signoff_state
-        from stagewise.review.words import SignoffState
 
         outcome = self.outcome
         for stage_id, item in self._stage_items.items():
@@ -227,11 +242,26 @@ class ChainTree(QTreeWidget):
                     child = item.child(index)
                     if child.data(0, ROLE_KIND) == "check":
                         child.setText(COLUMN_STATE, states.get(child.data(0, ROLE_KEY)) or "")
-            item.setText(COLUMN_STATE, " · ".join(words).replace(" pass", ""))
+            # A short word and a shape, readable without colour; the colour from our palette.
+            word, glyph, colour = STATE_MARKS.get(str(state), (str(state), "•", "#505050"))
+            short = [f"{word} {glyph}"]
+            if review is not None and review.ok and "/" in review.value.summary:
+                # The count of met checks and of waived ones; the whole sentence is the tooltip.
+                checks, _, findings = review.value.summary.partition("; ")
+                counts = checks.split(", ")
+                text = ", ".join([counts[0], *[part for part in counts[1:] if "waived" in part]])
+                if findings and findings.split()[0].isdigit():
+                    text += f" ⚑{findings.split()[0]}"  # automatic findings (the tooltip names them)
+                short.append(text)
+            item.setText(COLUMN_STATE, " ".join(short))
             item.setToolTip(COLUMN_STATE, "\n".join(tips))
-            colour = {SignoffState.OUT_OF_DATE: "#8a4b00", SignoffState.REWORK: "#b54a00",
-                      SignoffState.ACCEPTED: "#00704f"}.get(state, "#505050")
             item.setForeground(COLUMN_STATE, QBrush(QColor(colour)))
+        # The review column as wide as its widest text now, so the names get the rest.
+        metrics = self.fontMetrics()
+        widest = max([metrics.horizontalAdvance(item.text(COLUMN_STATE)) for item in self._stage_items.values()]
+                     + [metrics.horizontalAdvance(self.headerItem().text(COLUMN_STATE))])
+        if self.header().sectionSize(COLUMN_STATE) != widest + 14:
+            self.header().resizeSection(COLUMN_STATE, widest + 14)
 
     def _sync_ticks(self) -> None:
         was_blocked = self.blockSignals(True)

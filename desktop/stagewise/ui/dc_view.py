@@ -49,6 +49,10 @@ class DcView(PlotView):
         for words, _ in PLACES:
             self.place.addItem(words)
         self.place.currentIndexChanged.connect(self.refresh)
+        # Its longest place name must not set the dock's minimum width (the docks beside it would
+        # be squeezed at 1280×720): the box may be narrower than its text, elided.
+        self.place.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
+        self.place.setMinimumContentsLength(10)
         self.layout().insertWidget(1, self.place)
         self.plot = self.graphics.addPlot(enableMenu=False)
         self.plot.showGrid(x=True, y=False, alpha=0.25)

@@ -111,3 +111,14 @@ def measurement_style(index: int, size: float = 6.0) -> MarkerStyle:
     colour_name, colour = OKABE_ITO[_MEASUREMENT_COLOURS[index % len(_MEASUREMENT_COLOURS)]]
     symbol_name, symbol = MEASUREMENT_MARKERS[index % len(MEASUREMENT_MARKERS)]
     return MarkerStyle(colour, colour_name, symbol, symbol_name, size)
+
+
+# Each sign-off state as the tree shows it: a short word, a shape that reads without colour, and
+# a colour of the palette above (darkened where the pure colour is too light for text on white).
+STATE_MARKS: dict[str, tuple[str, str, str]] = {
+    "accepted": ("accepted", "✓", "#007a5a"),            # bluish green
+    "returned for rework": ("rework", "✗", "#b34700"),   # vermillion, darkened
+    "out of date": ("out of date", "△", "#9a6a00"),      # orange, darkened
+    "unrecorded": ("unrecorded", "?", "#b34700"),
+    "not signed": ("unsigned", "○", "#505050"),
+}

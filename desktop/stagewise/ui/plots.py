@@ -32,6 +32,8 @@ __all__ = ["NoiseView", "PlotView", "PoleZeroView", "ResponseView", "SpreadView"
 
 pg.setConfigOptions(antialias=True, background="w", foreground="#202020")
 
+# Step traces whose windows differ by more than this factor are framed by the fastest one.
+SPAN_RATIO_SHOWN = 20.0
 STALE_TEXT = "Recomputing… the traces show the previous results."
 PARTLY_STALE_TEXT = "Computing the slower results; shown from before the last edit until they arrive: {what}."
 
@@ -333,7 +335,9 @@ class ResponseView(PlotView):
             plot.getAxis("left").enableAutoSIPrefix(False)
             plot.getAxis("left").setWidth(64)
         self.phase.setXLink(self.magnitude)
-        self.legend = self.magnitude.addLegend(offset=(-10, 10), labelTextSize="9pt")
+        # The legend sits below the plots, outside the data area: it never covers a curve.
+        self.legend = pg.LegendItem(labelTextSize="8pt", colCount=2, verSpacing=-6)
+        self.graphics.addItem(self.legend, row=2, col=0)
         self.magnitude_traces = _TraceItems(self.magnitude, self.legend)
         self.phase_traces = _TraceItems(self.phase, None)
         self.magnitude_limits = _LimitLayer(self.magnitude, log_x=True)
@@ -469,6 +473,12 @@ class StepView(PlotView):
         if not spans:
             spans = [float(trace.t_s[-1]) for _, trace in steps if len(trace.t_s) > 1 and trace.t_s[-1] > 0]
         self.span_s = max(spans) if spans else None
+        if spans and max(spans) > SPAN_RATIO_SHOWN * min(spans):
+            # Time scales far apart (a sensor's slow corner beside the chain's edge): the window
+            # of the fastest trace, so its edge is seen; the slower ones are said to go on.
+            self.span_s = min(spans)
+            summaries.append(f"Window {format_value(self.span_s, 's')}: the slower traces go on beyond it "
+                             f"(up to {format_value(max(spans), 's')}).")
         units = {trace.unit for _, trace in steps}
         # Units that differ (a photodiode stage in ohms beside volts per volt) never share an
         # axis: each trace is then drawn over its own final value (or its own peak when it
@@ -476,10 +486,10 @@ class StepView(PlotView):
         self.normalized = len(units) > 1
         if self.normalized:
             rows = [(spec, t, y / _own_scale(trace)) for (spec, t, y), (_, trace) in zip(rows, steps, strict=True)]
-            self.plot.setLabel("left", "Output ÷ its own final value")
+            self.plot.setLabel("left", "Output ÷ own final value")
         else:
             unit = next(iter(units)) if units else "V/V"
-            self.plot.setLabel("left", f"Output per unit step ({_step_unit(unit)})")
+            self.plot.setLabel("left", f"Output ({_step_unit(unit)})")
         if self.span_s is not None:
             self.plot.setXRange(0.0, self.span_s, padding=0.02)
         self.traces.show(rows)
@@ -563,6 +573,9 @@ class PoleZeroView(PlotView):
             self.plot.addItem(label, ignoreBounds=True)
             self.rings.append(ring)
             self.ring_labels.append(label)
+        # Ring labels at least ~16 pixels apart: every k-th decade on a small plot.
+        pixels = self.plot.getViewBox().width() / (2 * frame.limit) if frame.limit > 0 else 0.0
+        every = max(1, math.ceil(16.0 / pixels)) if pixels > 0 else 2
         for index, (ring, label) in enumerate(zip(self.rings, self.ring_labels, strict=True)):
             if index < len(frame.rings):
                 radius, f_hz = frame.rings[index]
@@ -570,7 +583,7 @@ class PoleZeroView(PlotView):
                 label.setText(format_value(f_hz, "Hz", 3))
                 label.setPos(0.0, radius)
                 ring.setVisible(True)
-                label.setVisible(True)
+                label.setVisible((len(frame.rings) - 1 - index) % every == 0)
             else:
                 ring.setVisible(False)
                 label.setVisible(False)
@@ -714,7 +727,9 @@ class SpreadView(PlotView):
         self.plot.setLabel("bottom", "Frequency (Hz)")
         self.plot.setLabel("left", "Chain magnitude", units="dB")
         self.plot.getAxis("left").enableAutoSIPrefix(False)
-        self.legend = self.plot.addLegend(offset=(-10, 10), labelTextSize="9pt")
+        # Below the plot, outside the data area, as in the response view.
+        self.legend = pg.LegendItem(labelTextSize="8pt", colCount=3, verSpacing=-6)
+        self.graphics.addItem(self.legend, row=1, col=0)
         self.lines = {name: pg.PlotDataItem() for name in ("min", "max", "low", "high", "nominal")}
         for item in self.lines.values():
             self.plot.addItem(item)
