@@ -84,5 +84,5 @@ def test_pass_band_edge_falls_back_to_the_noise_band_and_missing_converter_is_ex
     bare = rc_project(r, c, {}, ref_hz=100)
     empty = converter_to_json(converter_review(assemble(bare.stages[0], bare), bare, current_drive=False))
     assert empty["alias_attenuation_db"] is None
-    assert empty["alias_attenuation_db_why"] == "the converter's fs_hz is not given"
+    assert empty["alias_attenuation_db_why"] == "the converter's sample rate is not given"
     assert empty["lsb_v"] is None and "bits and full_scale_vpp" in empty["lsb_v_why"]

@@ -74,6 +74,6 @@ def test_ideal_opamp_and_missing_data_are_null_with_reasons() -> None:
     assert entry["slew_margin"] is None and "ideal op-amp" in entry["slew_margin_why"]
     no_amplitude = stage(NON_INVERTING, {"a0_db": 100, "gbw_hz": "1M"}, amplitude=None)
     (missing,) = headroom(assemble(no_amplitude.stages[0], no_amplitude), no_amplitude, current_drive=False)
-    assert missing.peak_v is None and missing.peak_why == "project input.amplitude is not given"
+    assert missing.peak_v is None and missing.peak_why == "the project's input amplitude is not given"
     entry = headroom_to_json([missing])[0]
-    assert entry["peak_v"] is None and entry["peak_v_why"] == "project input.amplitude is not given"
+    assert entry["peak_v"] is None and entry["peak_v_why"] == "the project's input amplitude is not given"

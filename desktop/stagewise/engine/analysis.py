@@ -862,7 +862,7 @@ class ProjectAnalysis:
         if metric in ("zin_ohm", "zout_ohm"):
             frequency = at_hz if at_hz is not None else _reference_hz(self.project)
             if frequency is None:
-                return None, "no frequency: give at_hz or the project's settings.ref_hz"
+                return None, "no frequency: give the check a frequency (at_hz) or set the project's reference frequency"
             if where == "isolated":
                 z_in, z_out, why = self.isolated_impedances(stage_id, frequency)
             else:

@@ -130,9 +130,9 @@ def converter_range(system: StageSystem, project: Project, *,
     full_scale = project.converter.full_scale_vpp
     amplitude = project.input.amplitude
     if full_scale is None:
-        return None, None, None, "the converter's full_scale_vpp is not given"
+        return None, None, None, "the converter's full scale is not given"
     if amplitude is None:
-        return None, None, None, "project input.amplitude is not given"
+        return None, None, None, "the project's input amplitude is not given"
     grid = frequency_grid(project.settings)
     magnitude = np.abs(_output_transfer(system, current_drive, grid)) * float(amplitude.si)
     at = int(np.argmax(magnitude))
@@ -180,7 +180,7 @@ def converter_review(system: StageSystem, project: Project, *, current_drive: bo
     source = None
     if fs is None:
         for key in ("f_pass_hz", "alias_hz", "alias_attenuation_db"):
-            whys[key] = "the converter's fs_hz is not given"
+            whys[key] = "the converter's sample rate is not given"
     else:
         corner = f_high_3db_hz
         corner_why = None
@@ -197,8 +197,8 @@ def converter_review(system: StageSystem, project: Project, *, current_drive: bo
             notes.append("the chain's high corner " + ("is at or above fs/2" if corner is not None else
                          f"was not found ({corner_why})") + "; the top of the noise band is the pass band edge")
         else:
-            why = ("no high corner below fs/2 and no settings.noise_band_hz: the pass band edge is unknown"
-                   if corner_why is None else f"no pass band edge: {corner_why}, and no settings.noise_band_hz")
+            why = ("no high corner below fs/2 and no noise band in the project settings: the pass band edge is unknown"
+                   if corner_why is None else f"no pass band edge: {corner_why}, and no noise band in the project settings")
             for key in ("f_pass_hz", "alias_hz", "alias_attenuation_db"):
                 whys[key] = why
         if f_pass is not None:
@@ -230,7 +230,7 @@ def converter_review(system: StageSystem, project: Project, *, current_drive: bo
         if lsb is not None:
             noise_lsb = noise_rms / lsb
         if full_scale is None:
-            whys["snr_noise_only_db"] = whys["snr_db"] = "the converter's full_scale_vpp is not given"
+            whys["snr_noise_only_db"] = whys["snr_db"] = "the converter's full scale is not given"
         else:
             full_scale_rms = full_scale / (2.0 * math.sqrt(2.0))
             if noise_rms > 0:
@@ -274,7 +274,8 @@ def converter_to_json(result: ConverterResult) -> dict[str, Any]:
 
 
 def _input_why(key: str) -> str:
-    names = {"fs_hz": "converter.fs_hz", "bits": "converter.bits", "full_scale_vpp": "converter.full_scale_vpp"}
+    names = {"fs_hz": "the converter's sample rate", "bits": "the converter's resolution (bits)",
+             "full_scale_vpp": "the converter's full scale"}
     if key in names:
         return f"{names[key]} is not given"
     if key in ("ref_hz", "f_pass_source"):

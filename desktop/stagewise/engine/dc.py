@@ -595,8 +595,8 @@ def _budget(place: _Place, solved: _Solved, collector: _Collector, project: Proj
         totals = [wc25, rss25, wc, rss]
     drift: float | None = None
     if delta_t is None:
-        why["drift_out_v_per_c"] = "settings.temp_range_c is not given, so the budget is at 25 °C only"
-        notes.append("settings.temp_range_c is not given: the budget is at 25 °C only")
+        why["drift_out_v_per_c"] = "no operating temperature range is set in the project settings (temp_range_c), so the budget is at 25 °C only"
+        notes.append("no operating temperature range is set in the project settings (temp_range_c): the budget is at 25 °C only")
     elif delta_t == 0:
         why["drift_out_v_per_c"] = "the temperature range does not leave 25 °C"
     elif any(item.out_v is None for item in hot):
@@ -631,9 +631,9 @@ def _reference_drive(project: Project, output_per_unit: float) -> tuple[float | 
     if project.input.amplitude is not None:
         return project.input.amplitude.si, None
     if full_scale is not None:
-        return None, ("the chain passes no DC to the converter and input.amplitude is not given, so there is "
+        return None, ("the chain passes no DC to the converter and the project's input amplitude is not given, so there is "
                       "no reference signal level")
-    return None, "neither converter.full_scale_vpp nor input.amplitude is given, so there is no reference signal level"
+    return None, "neither the converter's full scale nor the project's input amplitude is given, so there is no reference signal level"
 
 
 def dc_budgets(project: Project, merged: MergedChain | None = None) -> DcBudgets:
@@ -791,18 +791,18 @@ def _converter_totals(document: dict[str, Any], budget: DcBudget, converter: Con
     """LSB, % and ppm of full scale (full scale = the converter's span, full_scale_vpp)."""
     full_scale = None if converter.full_scale_vpp is None else converter.full_scale_vpp.si
     lsb = None if full_scale is None or converter.bits is None else full_scale / 2.0**converter.bits
-    put_with_why(document, "full_scale_v", full_scale, "the converter's full_scale_vpp is not given")
-    put_with_why(document, "lsb_v", lsb, "the converter's full_scale_vpp or bits are not given")
+    put_with_why(document, "full_scale_v", full_scale, "the converter's full scale is not given")
+    put_with_why(document, "lsb_v", lsb, "the converter's full scale or resolution (bits) is not given")
     for suffix in ("", "_25c"):
         for total in ("wc", "rss"):
             volts = getattr(budget, f"total_{total}{suffix}_v")
             missing = budget.why.get(f"total_{total}{suffix}_v")
             put_with_why(document, f"total_{total}{suffix}_lsb", None if volts is None or lsb is None else volts / lsb,
-                 missing or "the converter's full_scale_vpp or bits are not given")
+                 missing or "the converter's full scale or resolution (bits) is not given")
             for unit, factor in (("pct_fs", 100.0), ("ppm_fs", 1e6)):
                 put_with_why(document, f"total_{total}{suffix}_{unit}",
                      None if volts is None or full_scale is None else factor * volts / full_scale,
-                     missing or "the converter's full_scale_vpp is not given")
+                     missing or "the converter's full scale is not given")
 
 
 # -- the budget as a table (shared by the GUI view and the packet) ----------------------------

@@ -104,7 +104,7 @@ def headroom(system: StageSystem, project: Project, *, current_drive: bool,
     if not outputs:
         return ()
     if amplitude is None:
-        why = "project input.amplitude is not given"
+        why = "the project's input amplitude is not given"
         return tuple(HeadroomResult(ref, None, None, None, None, None, None, None, None, None, None, why, why, why)
                      for ref, _, _ in outputs)
     driven = drive(system, current_drive)

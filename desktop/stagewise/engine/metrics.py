@@ -461,7 +461,7 @@ def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandR
 
     def at_ref_hz(shape: str, because: str) -> PassbandReference:
         if ref_hz is None:
-            why = f"a {shape} response has no pass-band gain of its own ({because}) and settings.ref_hz is not set"
+            why = f"a {shape} response has no pass-band gain of its own ({because}) and no reference frequency is set in the project settings"
             return PassbandReference(None, None, None, shape, f"no reference: {why}", why)
         return PassbandReference("ref_hz", ref_hz, gain_db_at(analysis, ref_hz), shape,
                                  f"the gain at the reference frequency: a {shape} response has no pass-band gain of its own "
@@ -770,7 +770,7 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
     else:
         put_with_why(document, "gain_db", limits.gain_db, limits.why.get("gain_db"))
         put_with_why(document, "ref_hz", limits.ref_hz,
-                     "settings.ref_hz is not set and the pass-band reference is the high-frequency limit"
+                     "no reference frequency is set in the project settings and the pass-band reference is the high-frequency limit"
                      if limits.gain_db is not None else limits.why.get("gain_db"))
     reference = limits.reference or passband_reference(analysis, settings)
     document["ref"] = reference.as_dict()

@@ -352,7 +352,7 @@ def snr_db(out_rms_v: float, converter: Converter) -> tuple[float | None, str | 
     Returns ``(value, None)`` or ``(None, why)``.
     """
     if converter.full_scale_vpp is None:
-        return None, "the converter's full_scale_vpp is not given"
+        return None, "the converter's full scale is not given"
     if out_rms_v <= 0:
         return None, "the output noise is zero (no noise source in the model)"
     full_scale_rms = converter.full_scale_vpp.si / (2.0 * math.sqrt(2.0))
