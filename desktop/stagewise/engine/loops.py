@@ -50,7 +50,7 @@ from numpy.typing import NDArray
 from stagewise.engine.mna import CircuitError, OpampStates, StageSystem, assemble
 from stagewise.engine.poles import SingularPencilError, finite_eigenvalues
 from stagewise.engine.stability import Stability, stability_of_poles
-from stagewise.engine.sweep import drive
+from stagewise.engine.sweep import drive, solve_batched
 from stagewise.model.project import Project, Stage
 
 __all__ = [
@@ -110,11 +110,10 @@ def _evaluate(g: NDArray[np.float64], c: NDArray[np.float64], opamp: OpampStates
               f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
     """T(j2πf) = −(v+ − v−)/u for an injection u in the state row."""
     s = 1j * TWO_PI * np.asarray(f_hz, dtype=float)
-    matrices = g[None, :, :] + s[:, None, None] * c[None, :, :]
-    rhs = np.zeros((s.size, g.shape[0], 1), dtype=complex)
-    rhs[:, opamp.state_row, 0] = 1.0
+    rhs = np.zeros(g.shape[0], dtype=complex)
+    rhs[opamp.state_row] = 1.0
     try:
-        x = np.linalg.solve(matrices, rhs)[:, :, 0]
+        x = solve_batched(g, c, rhs, s)
     except np.linalg.LinAlgError as error:
         raise CircuitError(f"{opamp.ref}: the circuit with its loop broken cannot be solved "
                            "(a floating node once the op-amp's input dependence is removed)") from error
@@ -186,12 +185,11 @@ def _all_loop_gains(g: NDArray[np.float64], c: NDArray[np.float64], opamps: tupl
     Statist. 21, 1950). Shape (len(opamps), len(f_hz)).
     """
     s = 1j * TWO_PI * np.asarray(f_hz, dtype=float)
-    matrices = g[None, :, :] + s[:, None, None] * c[None, :, :]
-    rhs = np.zeros((s.size, g.shape[0], len(opamps)), dtype=complex)
+    rhs = np.zeros((g.shape[0], len(opamps)), dtype=complex)
     for column, opamp in enumerate(opamps):
-        rhs[:, opamp.state_row, column] = 1.0
+        rhs[opamp.state_row, column] = 1.0
     try:
-        y = np.linalg.solve(matrices, rhs)
+        y = solve_batched(g, c, rhs, s)
     except np.linalg.LinAlgError:
         return None
     result = np.empty((len(opamps), s.size), dtype=complex)

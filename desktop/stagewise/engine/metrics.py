@@ -61,6 +61,7 @@ from numpy.typing import NDArray
 
 from stagewise.engine.poles import FIT_TOLERANCE, root_table, transfer_at
 from stagewise.engine.stage import StageAnalysis, response_at
+from stagewise.engine.sweep import solve_batched
 from stagewise.engine.timeresp import StepResponse, refine_crossing, step_response, step_response_of_pencil
 from stagewise.model.project import Settings
 from stagewise.model.values import format_value
@@ -177,16 +178,20 @@ def _anchored_phase_deg(analysis: StageAnalysis, f_hz: NDArray[np.float64],
 
 
 def _group_delay_s(analysis: StageAnalysis, f_hz: NDArray[np.float64]) -> NDArray[np.float64]:
-    """τ = −Re(H'(s)/H(s)) at s = jω, with H'(s) = −eᵀ(G+sC)⁻¹·C·(G+sC)⁻¹·b (two batched solves)."""
+    """τ = −Re(H'(s)/H(s)) at s = jω, with H'(s) = −eᵀ(G+sC)⁻¹·C·(G+sC)⁻¹·b.
+
+    Two batched solves with fixed right-hand sides: x = (G+sC)⁻¹·b and the adjoint
+    w = (G+sC)⁻ᵀ·e, so that H'(s) = −wᵀ·C·x (sparse for long chains, see ``solve_batched``).
+    """
     assert analysis.driven is not None
     driven = analysis.driven
     s = 1j * TWO_PI * np.atleast_1d(np.asarray(f_hz, dtype=float))
-    matrices = driven.g[None, :, :] + s[:, None, None] * driven.c[None, :, :]
-    right = np.broadcast_to(driven.b.astype(complex)[None, :, None], (len(s), len(driven.b), 1))
-    x = np.linalg.solve(matrices, right)
-    dx = np.linalg.solve(matrices, driven.c[None, :, :] @ x)
-    h = x[:, driven.output, 0]
-    derivative = -dx[:, driven.output, 0]
+    x = solve_batched(driven.g, driven.c, driven.b.astype(complex), s)
+    unit = np.zeros(len(driven.b), dtype=complex)
+    unit[driven.output] = 1.0
+    w = solve_batched(driven.g.T, driven.c.T, unit, s)
+    h = x[:, driven.output]
+    derivative = -np.einsum("kn,kn->k", w, x @ driven.c.T)
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.asarray(-np.real(derivative / h), dtype=float)
 
