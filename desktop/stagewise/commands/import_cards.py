@@ -14,12 +14,11 @@ before the lock is taken.
 from __future__ import annotations
 
 import argparse
-import getpass
 import hashlib
 from pathlib import Path
 
 from stagewise.cli import CommandError, printable
-from stagewise.commands.common import load, locked, read_input_file, stage_by_id
+from stagewise.commands.common import load, locked, person, read_input_file, stage_by_id
 from stagewise.files.cards import CardError, stage_from_cards
 from stagewise.files.project_file import save_project
 from stagewise.model.validate import validate
@@ -28,26 +27,19 @@ from stagewise.review.audit import append_event
 MAX_CARDS_BYTES = 2 * 1024 * 1024
 
 
-def _who(args: argparse.Namespace) -> str:
-    if args.by and str(args.by).strip():
-        return str(args.by).strip()
-    try:
-        return getpass.getuser()
-    except (OSError, KeyError):
-        return "unknown user"
-
 
 def run(args: argparse.Namespace) -> int:
     # Hold the edit lock while reading and writing, so an import never lands under a project
     # someone has open in the desktop program (their next save would drop it).
     load(args.file)  # a missing or invalid project is reported before any lock file is made
+    who = person(args.by, "who imported the cards")
     cards_path = Path(args.cards)
     data = read_input_file(cards_path, "an element-card file", MAX_CARDS_BYTES)  # never while locked
-    with locked(args.file, _who(args)):
-        return _import(args, cards_path, data)
+    with locked(args.file, who):
+        return _import(args, cards_path, data, who)
 
 
-def _import(args: argparse.Namespace, cards_path: Path, data: bytes) -> int:
+def _import(args: argparse.Namespace, cards_path: Path, data: bytes, who: str) -> int:
     project = load(args.file)
     try:
         text = data.decode("utf-8")
@@ -74,7 +66,7 @@ def _import(args: argparse.Namespace, cards_path: Path, data: bytes) -> int:
         "cards_sha256": hashlib.sha256(data).hexdigest(),
     }
     try:
-        append_event(project, _who(args), "import", detail)
+        append_event(project, who, "import", detail)
     except ValueError as error:
         raise CommandError(f"the audit event could not be recorded: {error}") from error
     problems = validate(project)

@@ -11,26 +11,16 @@ is left byte for byte as it was and the command exits with status 2 and one sent
 from __future__ import annotations
 
 import argparse
-import getpass
 from pathlib import Path
 
 from stagewise.cli import CommandError, printable
-from stagewise.commands.common import load, locked, stage_by_id
+from stagewise.commands.common import load, locked, person, stage_by_id
 from stagewise.files.measurements import MeasurementError, read_measurement
 from stagewise.files.project_file import save_project
 from stagewise.model.project import Measurement, Project
 from stagewise.model.validate import validate
 from stagewise.review.measurements import attach_measurement
 from stagewise.review.words import WHERE_WORDS
-
-
-def _who(args: argparse.Namespace) -> str:
-    if args.by and str(args.by).strip():
-        return str(args.by).strip()
-    try:
-        return getpass.getuser()
-    except (OSError, KeyError):
-        return "unknown user"
 
 
 def _place(args: argparse.Namespace) -> tuple[str, str | None]:
@@ -51,11 +41,12 @@ def run(args: argparse.Namespace) -> int:
         stage = stage_by_id(project, stage_id, args.file)
         if where == "in_chain" and stage.bypass:
             raise CommandError(f'stage "{stage_id}" is bypassed, so it has no place in the chain to measure')
-    with locked(args.file, _who(args)):  # a stale lock is taken over with a line saying so
-        return _attach(args, where, stage_id)
+    who = person(args.by, "who attached the measurement")
+    with locked(args.file, who):  # a stale lock is taken over with a line saying so
+        return _attach(args, where, stage_id, who)
 
 
-def _attach(args: argparse.Namespace, where: str, stage_id: str | None) -> int:
+def _attach(args: argparse.Namespace, where: str, stage_id: str | None, who: str) -> int:
     project = load(args.file)
     stage = None if stage_id is None else project.stage(stage_id)
     drive = project.input.drive if stage is None else stage.drive
@@ -65,7 +56,7 @@ def _attach(args: argparse.Namespace, where: str, stage_id: str | None) -> int:
     except MeasurementError as error:
         raise CommandError(str(error)) from error
     try:
-        measurement = attach_measurement(project, data, where, stage_id, _who(args),
+        measurement = attach_measurement(project, data, where, stage_id, who,
                                          measurement_id=args.measurement_id, instrument=args.instrument or "",
                                          setup=args.setup or "", note=args.note or "")
     except ValueError as error:
