@@ -225,6 +225,9 @@ def test_unstable_stage_step_says_so() -> None:
     assert analysis.poles_rad_s is not None and np.all(analysis.poles_rad_s.real > 0)
     document = stage_metrics(analysis, settings)["step"]
     assert document["rise_s"] is None and "unstable" in document["rise_s_why"]
+    # Same source: ω0 = 1/(RC), Q = 1/(3 − K) with K = 1 + RB/RA = 3.5, so the pair sits at
+    # f0 = 1/(2πRC) ≈ 1.592 kHz; the reason reads it in hertz, as the stability verdict does.
+    assert "right-half-plane pole at 1.592 kHz" in document["rise_s_why"]
 
 
 # -- frequency-domain metrics ----------------------------------------------------------------
@@ -567,6 +570,8 @@ def test_right_half_plane_zero_of_an_op_amp_model_is_named_and_real_roots_say_wh
     assert zero["f_hz"] == pytest.approx(gbw * (r2 / rout - 10 ** (-a0_db / 20)), rel=1e-9)
     assert zero["half_plane"] == "right" and "right-half-plane zero" in zero["note"]
     # Common practice, no source: Q and ζ describe a complex pair; a real root has neither
+    # (so its note says nothing of a sign of Q, which it does not have)
+    assert "Q" not in zero["note"]
     assert zero["q"] is None and "real root" in zero["q_why"] and zero["zeta"] is None and zero["zeta_why"]
     pole = document["poles"][0]
     assert pole["half_plane"] == "left" and "note" not in pole and pole["q"] is None and pole["q_why"]
@@ -590,3 +595,13 @@ def test_op_amp_feedthrough_floor_does_not_make_a_band_pass_a_high_pass() -> Non
     assert limits.f_low_3db_hz == pytest.approx(1 / (TWO_PI * r1 * c), rel=1e-3)
     # Common practice, no source: closed-loop bandwidth ≈ GBW / noise gain (1 + R2/R1)
     assert limits.f_high_3db_hz == pytest.approx(10e6 / (1 + r2 / r1), rel=0.05)
+
+
+def test_a_right_half_plane_complex_pair_reads_its_q_as_negative() -> None:
+    # Source: standard second-order section s² + (ω0/Q)s + ω0² (Ogata, ch. 5): Q = |s|/(−2·Re s), so a
+    # pair right of the jω axis has Q < 0; the note says how to read it only where Q exists.
+    from stagewise.engine.poles import root_table
+
+    pair, real = root_table(np.array([3.0 + 40.0j, 5.0 + 0.0j]), "pole")
+    assert pair["q"] == pytest.approx(-abs(3 + 40j) / 6.0, rel=1e-12) and "Q < 0" in pair["note"]
+    assert real["q"] is None and "Q" not in real["note"] and "unstable" in real["note"]

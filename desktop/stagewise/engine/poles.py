@@ -439,10 +439,11 @@ RIGHT_HALF_PLANE_NOTES = {
     "zero": ("right-half-plane zero (non-minimum phase): the gain rises past it as past any zero, but the phase "
              "lags (up to 90° per zero) instead of leading, and a step first moves the wrong way; in an op-amp stage it usually comes from the signal that "
              "reaches the output directly through the feedback network and the op-amp's output resistance, "
-             "ahead of the amplifier; Q < 0 marks the right half-plane, |Q| is the usual figure"),
-    "pole": ("right-half-plane pole: the response grows without bound (unstable); Q < 0 marks the right "
-             "half-plane"),
+             "ahead of the amplifier"),
+    "pole": "right-half-plane pole: the response grows without bound (unstable)",
 }
+# Said after the note of a right-half-plane complex pair only: a real root has no Q to read.
+RIGHT_HALF_PLANE_Q = "; Q < 0 marks the right half-plane, |Q| is the usual figure"
 
 
 def root_table(roots: NDArray[np.complex128], kind: str = "pole") -> list[dict[str, Any]]:
@@ -473,7 +474,8 @@ def root_table(roots: NDArray[np.complex128], kind: str = "pole") -> list[dict[s
             row["q"], row["q_why"], row["zeta"], row["zeta_why"] = None, REAL_ROOT_WHY, None, REAL_ROOT_WHY
         row["half_plane"] = "right" if root.real > 0 else "left" if root.real < 0 else "axis"
         if root.real > 0:
-            row["note"] = RIGHT_HALF_PLANE_NOTES.get(kind, RIGHT_HALF_PLANE_NOTES["pole"])
+            row["note"] = (RIGHT_HALF_PLANE_NOTES.get(kind, RIGHT_HALF_PLANE_NOTES["pole"])
+                           + (RIGHT_HALF_PLANE_Q if root.imag != 0.0 else ""))
         rows.append(row)
     return rows
 

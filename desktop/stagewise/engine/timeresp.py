@@ -406,8 +406,11 @@ def _instability(model: PoleZeroModel) -> str | None:
     limit = STABILITY_RTOL * np.abs(poles)
     right = poles[poles.real > limit]
     if len(right):
-        p = right[0]
-        return f"the stage is unstable: a pole at {p.real:.6g}{p.imag:+.6g}j rad/s lies in the right half-plane"
+        from stagewise.engine.stability import describe_pole  # noqa: PLC0415 (it imports this module)
+
+        # The same words as the stability verdict beside it (the pole furthest right, upper half).
+        first = max(right, key=lambda pole: (pole.real, pole.imag >= 0))
+        return f"the system is unstable: {describe_pole(complex(first.real, abs(first.imag)))}"
     if np.any(poles == 0):
         return "the step response grows without bound: a pole at s = 0 (an integrator)"
     axis = poles[np.abs(poles.real) <= limit]
