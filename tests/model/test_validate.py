@@ -335,3 +335,29 @@ def test_a_current_drive_amplitude_and_a_block_transimpedance_take_their_units()
     assert not any(problem.startswith("input.amplitude") for problem in problems_of(document))
     document["input"]["amplitude"] = "1uV"
     assert 'input.amplitude: "1uV" is a voltage, amplitude takes amperes' in problems_of(document)
+
+
+# Common practice, no source: a check's limits are in its metric's unit (the metric table), and
+# "5%" means the fraction 0.05, so on a metric already in percent it would set a limit 100 times
+# too small: a yield "≥ 99%" would pass a 1 % yield. That is refused with the number to write.
+@pytest.mark.parametrize(("check", "problem"), [
+    ({"metric": "f_high_3db_hz", "where": "isolated", "min": "10nF"},
+     '.min: "10nF" is a capacitance, f_high_3db_hz is in Hz'),
+    ({"metric": "f_high_3db_hz", "where": "isolated", "min": "10kHz"}, None),
+    ({"metric": "gain_db", "where": "isolated", "at_hz": "1kV", "min": -1}, '.at_hz: "1kV" is a voltage, at_hz takes hertz'),
+    ({"metric": "phase_margin_deg", "where": "isolated", "min": "45dB"},
+     '.min: "45dB" is a level in decibels, phase_margin_deg is in °'),
+    ({"metric": "overshoot_pct", "where": "isolated", "max": "5%"},
+     '.max: "5%" would be read as the fraction 0.05; overshoot_pct is already in percent, so write 5'),
+    ({"metric": "overshoot_pct", "where": "isolated", "max": 5}, None),
+    ({"metric": "swing_margin_v", "where": "chain", "min": "100mV"}, None),
+    ({"metric": "swing_margin_v", "where": "chain", "min": "100mA"}, '.min: "100mA" is a current, swing_margin_v is in V'),
+])
+def test_a_checks_limits_carry_the_unit_of_its_metric(check: dict[str, Any], problem: str | None) -> None:
+    document = design_example()
+    document["stages"][0]["checks"] = [{"id": "c", "text": "a check", **check}]
+    problems = problems_of(document)
+    if problem is None:
+        assert problems == []
+    else:
+        assert problems == [f"stages[0].checks[0]{problem}"]

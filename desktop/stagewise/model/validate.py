@@ -19,9 +19,9 @@ from stagewise.model.project import (
     Project,
     Stage,
 )
-from stagewise.model.values import Quantity, unit_mismatch
+from stagewise.model.values import Quantity, unit_mismatch, unit_symbol
 
-__all__ = ["KNOWN_METRICS_HOOK", "validate", "validate_stage"]
+__all__ = ["KNOWN_METRICS_HOOK", "METRIC_UNITS_HOOK", "validate", "validate_stage"]
 
 ABSOLUTE_ZERO_C = -273.15
 # Beyond this a sweep (and the GUI) would stall: 20 decades at 10000 points per decade.
@@ -50,6 +50,11 @@ UNIT_NAMES = {"dB": "decibels", "Hz": "hertz", "Ω": "ohms", "F": "farads", "V":
 # The review layer registers the table of metric keys here so that the model can check names
 # without importing it (keeps the model free of the layers above it).
 KNOWN_METRICS_HOOK: list[frozenset[str]] = []
+# ... and the unit of each metric's value (the table's unit), for the units of a check's limits.
+METRIC_UNITS_HOOK: list[dict[str, str]] = []
+# A metric's unit -> the unit symbol its limits may be written with ("" a plain number); units
+# left out (V/V, a transimpedance where the drive is a current) are not checked.
+_LIMIT_UNITS = {"Hz": "Hz", "V": "V", "dB": "dB", "s": "s", "Ω": "Ω", "°": "", "LSB": "", "": "", "V/°C": "V"}
 
 # Names other tools read elsewhere that are metrics under another name: a check naming one is told.
 _METRIC_HINTS: dict[str, str] = {
@@ -119,6 +124,38 @@ def validate(project: Project) -> list[str]:
         seen_ids.add(stage.id)
         problems.extend(validate_stage(stage, project, f"stages[{index}]"))
     problems.extend(_measurement_problems(project))
+    return problems
+
+
+def _limit_unit_problems(metric: str, low: Quantity | None, high: Quantity | None, at_hz: Quantity | None,
+                         where: str) -> list[str]:
+    """A check's limits written with another quantity's unit than its metric's, and ``at_hz`` not in hertz.
+
+    A percentage metric (``overshoot_pct``…) is already in percent: ``"5%"`` would be read as
+    0.05 (%), so it is refused with the number to write instead.
+    """
+    problems: list[str] = []
+    if at_hz is not None:
+        mismatch = unit_mismatch(at_hz.raw, "Hz", "at_hz takes hertz")
+        if mismatch is not None:
+            problems.append(f"{where}.at_hz: {mismatch}")
+    unit = METRIC_UNITS_HOOK[0].get(metric) if METRIC_UNITS_HOOK else None
+    for key, limit in (("min", low), ("max", high)):
+        if limit is None or unit is None:
+            continue
+        if unit == "%":
+            if unit_symbol(limit.raw) == "%":
+                problems.append(f'{where}.{key}: "{limit.raw}" would be read as the fraction {limit.si:g}; '
+                                f"{metric} is already in percent, so write {limit.si * 100:g}")
+                continue
+            mismatch = unit_mismatch(limit.raw, "", f"{metric} is in percent (a plain number)")
+        elif unit in _LIMIT_UNITS:
+            expected = _LIMIT_UNITS[unit]
+            mismatch = unit_mismatch(limit.raw, expected, f"{metric} is in {unit or 'a plain number'}")
+        else:
+            mismatch = None
+        if mismatch is not None:
+            problems.append(f"{where}.{key}: {mismatch}")
     return problems
 
 
@@ -223,6 +260,7 @@ def validate_stage(stage: Stage, project: Project, path: str) -> list[str]:
                 problems.append(f"{where}: a numeric check needs min, max or both")
             if check.min is not None and check.max is not None and check.min.si > check.max.si:
                 problems.append(f"{where}.min: {check.min.raw} is above max ({check.max.raw})")
+            problems.extend(_limit_unit_problems(check.metric, check.min, check.max, check.at_hz, where))
     for index, comment in enumerate(stage.comments):
         if comment.check is not None and comment.check not in check_ids:
             problems.append(f'{path}.comments[{index}].check: "{comment.check}" names no check of this stage')

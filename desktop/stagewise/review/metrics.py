@@ -15,7 +15,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Final, Literal
 
-from stagewise.model.validate import KNOWN_METRICS_HOOK
+from stagewise.model.validate import KNOWN_METRICS_HOOK, METRIC_UNITS_HOOK
 
 __all__ = [
     "METRICS",
@@ -218,6 +218,11 @@ def register_known_metrics() -> None:
         KNOWN_METRICS_HOOK[0] = keys
     else:
         KNOWN_METRICS_HOOK.append(keys)
+    units = {entry.key: entry.unit for entry in METRICS.values()}
+    if METRIC_UNITS_HOOK:
+        METRIC_UNITS_HOOK[0] = units
+    else:
+        METRIC_UNITS_HOOK.append(units)
 
 
 register_known_metrics()
