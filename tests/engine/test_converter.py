@@ -86,3 +86,23 @@ def test_pass_band_edge_falls_back_to_the_noise_band_and_missing_converter_is_ex
     assert empty["alias_attenuation_db"] is None
     assert empty["alias_attenuation_db_why"] == "the converter's sample rate is not given"
     assert empty["lsb_v"] is None and "bits and full_scale_vpp" in empty["lsb_v_why"]
+
+
+def test_alias_attenuation_is_taken_against_the_pass_band_gain_whatever_ref_hz_says() -> None:
+    # A 1 kΩ/1 µF low-pass (corner 159.2 Hz) in a project whose ref_hz (1 kHz) lies past its corner.
+    # Source: first-order RC, |H(f)|² = 1/(1 + (f/fc)²), fc = 1/(2πRC) (any circuits text); the
+    # pass-band gain of a low-pass is its DC gain, and sampling folds fs − f_pass onto the pass-band
+    # edge (Shannon 1949), so the attenuation there is 10·log10(1 + ((fs − fc)/fc)²) below DC.
+    from stagewise.engine.analysis import analyze_project  # noqa: PLC0415
+
+    r, c, fs = 1e3, 1e-6, 48000.0
+    fc = 1 / (TWO_PI * r * c)
+    project = rc_project(r, c, {"fs_hz": fs, "bits": 16, "full_scale_vpp": 2}, ref_hz=1000, noise_band_hz=[1, 100])
+    chain = analyze_project(project, spread=False)["chain"]
+    figures = chain["converter"]
+    assert figures["f_pass_hz"] == pytest.approx(fc, rel=1e-6)
+    expected = 10 * math.log10(1 + ((fs - fc) / fc) ** 2)
+    assert chain["alias_attenuation_db"] == pytest.approx(expected, abs=1e-6)
+    assert figures["ref"]["kind"] == "dc" and figures["ref"]["gain_db"] == pytest.approx(0.0, abs=1e-9)
+    # Against the gain at 1 kHz it would read about 16 dB less: the figure a reviewer must not see.
+    assert expected - 10 * math.log10(1 + (1000 / fc) ** 2) < chain["alias_attenuation_db"] - 15

@@ -443,16 +443,25 @@ class ProjectAnalysis:
             return merged
         noise = self.noise_result
         corner = None
+        record: dict[str, Any] | None = None
         chain = self.whole_chain
         if not isinstance(chain, _Failure):
             corner, _why = self._band_value("chain", "", chain, "f_high_3db_hz")
+            record = self._metrics_document("chain", "", chain).get("ref")
+        # The alias attenuation is taken against the chain's pass-band gain, like its corners.
+        reference = None
+        if isinstance(record, dict) and isinstance(record.get("gain_db"), int | float):
+            reference = (record.get("f_hz"), float(record["gain_db"]))
         try:
             result = converter_review(merged.system, self.project, current_drive=merged.current_drive,
                                       noise=None if isinstance(noise, _Failure) else noise,
-                                      f_high_3db_hz=corner)
+                                      f_high_3db_hz=corner, reference=reference)
         except (ValueError, np.linalg.LinAlgError) as error:
             return _Failure(f"the converter analysis failed: {error}")
-        return converter_to_json(result)
+        document = converter_to_json(result)
+        if reference is not None:
+            document["ref"] = record
+        return document
 
     @cached_property
     def dc(self) -> Any:

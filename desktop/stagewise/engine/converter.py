@@ -2,7 +2,8 @@
 
 Aliasing: a sampler at ``fs`` folds a tone at ``fs − f`` onto ``f``. What lands on the top of the
 pass band ``f_pass`` comes from ``fs − f_pass``, attenuated by the chain relative to its
-reference gain: ``alias_attenuation_db = 20·log10(|H(f_ref)| / |H(fs − f_pass)|)``.
+pass-band reference gain (the DC gain of a low-pass chain, the mid-band gain of a band-pass…, as
+for corners): ``alias_attenuation_db = 20·log10(|H_ref| / |H(fs − f_pass)|)``.
 ``f_pass`` is the chain's half-power (−3 dB) high corner when it lies below fs/2, otherwise the
 top of ``settings.noise_band_hz`` (the band the user cares about), as the result states.
 
@@ -143,7 +144,8 @@ def converter_range(system: StageSystem, project: Project, *,
 
 
 def converter_review(system: StageSystem, project: Project, *, current_drive: bool,
-                     noise: NoiseResult | None = None, f_high_3db_hz: float | None = None) -> ConverterResult:
+                     noise: NoiseResult | None = None, f_high_3db_hz: float | None = None,
+                     reference: tuple[float | None, float] | None = None) -> ConverterResult:
     """Alias attenuation, LSB, quantization noise and the chain's noise against the converter.
 
     Parameters
@@ -158,6 +160,11 @@ def converter_review(system: StageSystem, project: Project, *, current_drive: bo
         The chain's noise (``noise.analyze_noise``); without it the noise figures are null.
     f_high_3db_hz : float, optional
         The chain's high corner when the caller has it; computed here otherwise.
+    reference : (f_hz, gain_db), optional
+        The chain's pass-band reference (``metrics.passband_reference``: the DC gain of a
+        low-pass, the mid-band gain of a band-pass…; ``f_hz`` None for the high-frequency limit)
+        that the alias attenuation is taken against, as the trade defines attenuation. Without
+        it, the gain at ``settings.ref_hz`` (or at the chain's largest gain) is used.
     """
     converter = project.converter
     whys: dict[str, str] = {}
@@ -210,17 +217,27 @@ def converter_review(system: StageSystem, project: Project, *, current_drive: bo
                 if alias <= f_pass:
                     notes.append(f"fs − f_pass ({alias:g} Hz) lies inside the pass band: fs is below twice "
                                  "the pass band edge")
-                if ref_hz is None:
-                    ref_hz = float(project.settings.ref_hz.si) if project.settings.ref_hz is not None else None
-                if ref_hz is None:
-                    _, ref_hz, _ = high_corner_hz(system, project, current_drive=current_drive, f_hz=grid)
-                values = np.abs(_output_transfer(system, current_drive, np.array([ref_hz, alias])))
-                if values[1] == 0:
-                    whys["alias_attenuation_db"] = f"the chain's gain at {alias:g} Hz is exactly zero"
-                elif values[0] == 0:
-                    whys["alias_attenuation_db"] = f"the chain's gain at the reference {ref_hz:g} Hz is zero"
+                if reference is not None:
+                    ref_hz, ref_db = reference
+                    if ref_hz is None:
+                        whys["ref_hz"] = "the reference is the chain's high-frequency gain (s → ∞)"
+                    alias_gain = float(np.abs(_output_transfer(system, current_drive, np.array([alias])))[0])
+                    if alias_gain == 0:
+                        whys["alias_attenuation_db"] = f"the chain's gain at {alias:g} Hz is exactly zero"
+                    else:
+                        attenuation = ref_db - 20.0 * math.log10(alias_gain)
                 else:
-                    attenuation = 20.0 * math.log10(float(values[0] / values[1]))
+                    if ref_hz is None:
+                        ref_hz = float(project.settings.ref_hz.si) if project.settings.ref_hz is not None else None
+                    if ref_hz is None:
+                        _, ref_hz, _ = high_corner_hz(system, project, current_drive=current_drive, f_hz=grid)
+                    values = np.abs(_output_transfer(system, current_drive, np.array([ref_hz, alias])))
+                    if values[1] == 0:
+                        whys["alias_attenuation_db"] = f"the chain's gain at {alias:g} Hz is exactly zero"
+                    elif values[0] == 0:
+                        whys["alias_attenuation_db"] = f"the chain's gain at the reference {ref_hz:g} Hz is zero"
+                    else:
+                        attenuation = 20.0 * math.log10(float(values[0] / values[1]))
     noise_rms = noise_lsb = snr_chain = snr_total = None
     if noise is None:
         for key in ("noise_rms_v", "noise_rms_lsb", "snr_db", "snr_noise_only_db"):

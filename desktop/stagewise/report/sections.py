@@ -515,7 +515,9 @@ def _converter(chain: dict[str, Any], project: Project) -> list[Block]:
         ("Pass-band edge used", _value_or_why(figures, "f_pass_hz", "Hz")
          + (f" ({figures['f_pass_source']})" if figures.get("f_pass_source") else "")),
         ("Folds into the pass band from", _value_or_why(figures, "alias_hz", "Hz")),
-        ("Attenuation there (alias attenuation)", _value_or_why(figures, "alias_attenuation_db", "dB")),
+        ("Attenuation there (alias attenuation)", _value_or_why(figures, "alias_attenuation_db", "dB")
+         + (f" ({reference_words(figures['ref'], 'dBΩ' if chain.get('unit') == 'Ω' else 'dB')})"
+            if isinstance(figures.get("ref"), dict) and figures.get("alias_attenuation_db") is not None else "")),
         ("Chain noise at the converter (RMS)", _value_or_why(figures, "noise_rms_v", "V")),
         ("Chain noise in LSB (RMS)", _value_or_why(figures, "noise_rms_lsb", "")),
         ("SNR, chain and quantization noise against full-scale sine", _value_or_why(figures, "snr_db", "dB")),

@@ -130,7 +130,8 @@ _TABLE: Final[tuple[Metric, ...]] = (
            "Converter full scale (peak) over the largest peak at its input for the declared input amplitude "
            "anywhere in the band; negative means over-range."),
     Metric("alias_attenuation_db", "Alias attenuation", "dB", "unused", _CHAIN_ONLY,
-           "Attenuation of the chain at fs minus the upper pass-band edge, where signals fold into the band."),
+           "Attenuation of the chain at fs minus the upper pass-band edge, where signals fold into the band, "
+           "below the chain's pass-band gain.", PASSBAND),
     Metric("headroom_v", "Smallest headroom", "V", "unused", ("in_chain", "chain"),
            "Smallest distance between an op-amp output's peak and its swing limit at the declared input "
            "(the same figure as the swing margin; older name)."),
