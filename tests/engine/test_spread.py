@@ -218,3 +218,41 @@ def test_spread_corners_are_taken_against_the_pass_band_like_the_nominal_analysi
     assert corner.minimum >= 1 / (TWO_PI * r * (1 + tol) * c) * (1 - 1e-9)
     assert corner.maximum <= 1 / (TWO_PI * r * (1 - tol) * c) * (1 + 1e-9)
     assert result.metrics["peaking_db"].maximum == pytest.approx(0.0, abs=1e-9)
+
+
+def test_a_sample_that_goes_unstable_meets_no_check_of_the_yield() -> None:
+    # Equal-component Sallen-Key low-pass with gain K = 1 + RB/RA = 2.95 (Q = 20), RA and RB ±5 %:
+    # some samples have K > 3. Source: Sallen & Key (1955), equal components: the denominator is
+    # s²R²C² + s·RC·(3 − K) + 1, so K > 3 puts both poles in the right half-plane. Their H(jω)
+    # still has a corner above 1 Hz, so a bandwidth check alone would count them as met.
+    r, c, ra, rb = 10e3, 10e-9, 10e3, 19.5e3
+    project = make_project([
+        {"ref": "R1", "type": "R", "nodes": ["in", "a"], "value": r},
+        {"ref": "R2", "type": "R", "nodes": ["a", "b"], "value": r},
+        {"ref": "C1", "type": "C", "nodes": ["a", "out"], "value": c},
+        {"ref": "C2", "type": "C", "nodes": ["b", "0"], "value": c},
+        {"ref": "RA", "type": "R", "nodes": ["m", "0"], "value": ra, "tol": "5%"},
+        {"ref": "RB", "type": "R", "nodes": ["out", "m"], "value": rb, "tol": "5%"},
+        {"ref": "U1", "type": "opamp", "nodes": ["b", "m", "out"], "model": "ideal"},
+    ], mc_samples=400, seed=7)
+    system = assemble(project.stages[0], project)
+    result = monte_carlo(system, project, current_drive=False, worst_case=False, phase_margins=False,
+                         limits=[YieldLimit("f_high_3db_hz", min=1.0, label="bw")])
+    multipliers = dict(zip(result.parts, result.sample_values.multipliers.T, strict=True))
+    gain = 1 + rb * multipliers["RB"] / (ra * multipliers["RA"])
+    expected_stable = gain < 3
+    assert 0 < np.count_nonzero(~expected_stable) < 400  # the case is a real mix
+    assert result.sample_values.stable is not None
+    assert np.array_equal(result.sample_values.stable, expected_stable)
+    assert result.yield_pct == pytest.approx(100 * np.mean(expected_stable))
+    assert any("unstable" in note for note in result.notes)
+
+
+def test_stable_samples_keep_their_yield() -> None:
+    # Source: voltage divider R2/(R1 + R2), no pole at all: every sample is stable, and a gain
+    # check on the divider counts as before (both parts ±1 %, limits wider than any sample).
+    project = divider(1e3, "1%", 1e3, "1%", mc_samples=50)
+    system = assemble(project.stages[0], project)
+    result = monte_carlo(system, project, current_drive=False, worst_case=False, phase_margins=False,
+                         limits=[YieldLimit("gain_db", min=-6.3, max=-5.8, label="gain")])
+    assert result.yield_pct == pytest.approx(100.0)

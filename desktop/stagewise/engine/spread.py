@@ -54,7 +54,7 @@ import math
 import os
 from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -591,6 +591,8 @@ class SpreadSamples:
     extra_f_hz: NDArray[np.float64]
     extra_response: NDArray[np.complex128]
     pass_gain_db: NDArray[np.float64] | None = None  # each sample's pass-band gain (corners' reference)
+    # False for a sample with a pole right of the jω axis: it meets no limit (None: not decided).
+    stable: NDArray[np.bool_] | None = None
 
     def metric(self, key: str, at_hz: float | None = None, opamp: str | None = None) -> NDArray[np.float64]:
         """The samples of a metric named by a DESIGN section 6 key (see ``METRIC_KEYS``).
@@ -645,6 +647,8 @@ class YieldLimit:
     def met(self, samples: SpreadSamples) -> NDArray[np.bool_]:
         values = self.values(samples)
         ok = np.isfinite(values)
+        if samples.stable is not None:
+            ok &= samples.stable  # a sample that cannot settle meets nothing
         if self.min is not None:
             ok &= values >= self.min
         if self.max is not None:
@@ -1133,6 +1137,15 @@ def monte_carlo(
     everything = np.vstack([nominal_only, multipliers])
     evaluated = _evaluate_samples(model, everything, f_hz, ref_hz, extra, loop_grids, passband)
     nominal, sampled = _split(evaluated, 1)
+    if limits:
+        # The yield: a sample that cannot settle meets no check (its H(jω) is no steady state).
+        centre_hz = math.sqrt(float(f_hz[0]) * float(f_hz[-1]))
+        stable = sample_stability(model, multipliers, centre_hz)
+        sampled = replace(sampled, stable=stable)
+        unstable = int(np.count_nonzero(~stable))
+        if unstable:
+            notes.append(f"{unstable} of {count} samples are unstable (a pole right of the jω axis): "
+                         "they meet no check")
     mag_db = 20.0 * np.log10(np.abs(sampled.response))
     phase_deg = np.degrees(np.unwrap(np.angle(sampled.response), axis=1))
     nominal_phase = np.degrees(np.unwrap(np.angle(nominal.response[0])))
@@ -1183,6 +1196,43 @@ def monte_carlo(
         limit_pass_pct=tuple(passes), sample_values=sampled, limit_pass_count=tuple(counts),
         not_evaluated=tuple(skipped), notes=tuple(notes),
     )
+
+
+STABILITY_CHUNK = 256
+
+
+def sample_stability(model: ToleranceModel, multipliers: NDArray[np.float64], centre_hz: float) -> NDArray[np.bool_]:
+    """Whether each sample's closed-loop poles all lie left of the jω axis (right-half-plane test).
+
+    The poles of ``G(m) + s·C(m)`` are found for all samples at once from the batched standard
+    eigenproblem of ``M = (G + s0·C)⁻¹·C`` with the shift ``s0 = j·2π·centre_hz``: an eigenvalue
+    μ of M is a pole ``s = s0 − 1/μ`` (μ ≈ 0 are the infinite eigenvalues of a singular C and are
+    left out). A sample is unstable when a pole has ``Re s > STABILITY_RTOL·|s|``; poles at s = 0
+    (structural, as the charge behind a series capacitor) and on the axis are left to the
+    nominal verdict. No Python loop per sample: one batched solve and eigvals per chunk.
+    """
+    from stagewise.engine.timeresp import STABILITY_RTOL  # noqa: PLC0415
+
+    count = multipliers.shape[0]
+    stable = np.ones(count, dtype=bool)
+    if model.size == 0 or not np.any(model.c0) and not np.any(model.capacitive):
+        return stable
+    s0 = 1j * 2.0 * math.pi * centre_hz
+    for start in range(0, count, STABILITY_CHUNK):
+        rows = slice(start, min(start + STABILITY_CHUNK, count))
+        g, c = model.matrices(multipliers[rows])
+        try:
+            shifted = np.linalg.solve(g + s0 * c, c.astype(complex))
+        except np.linalg.LinAlgError:
+            continue  # s0 is a pole of some sample (on the axis): left to the nominal verdict
+        mu = np.linalg.eigvals(shifted)
+        size = np.abs(mu)
+        finite = size > 1e-10 * np.max(size, axis=1, keepdims=True)
+        poles = s0 - 1.0 / np.where(finite, mu, 1.0)
+        magnitude = np.abs(poles)
+        right = finite & (magnitude > 1e-9 * abs(s0)) & (poles.real > STABILITY_RTOL * magnitude)
+        stable[rows] = ~np.any(right, axis=1)
+    return stable
 
 
 def _split(evaluated: SpreadSamples, head: int) -> tuple[SpreadSamples, SpreadSamples]:
