@@ -360,8 +360,8 @@ CHAIN_ONLY = {"total_wc_lsb": "total_wc_lsb", "total_rss_lsb": "total_rss_lsb", 
 
 
 def test_every_contract_key_of_dc_is_a_check_in_every_place() -> None:
-    # Common practice, no source: the contract; each dc key is a metric a check can name,
-    # and a check on it reads the number analyze --json reports at that place.
+    # Common practice, no source: the contract; each dc key is a metric a check can name in
+    # every place a check can sit, and a check on it reads the number analyze --json reports there.
     from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
     from stagewise.model.project import Check  # noqa: PLC0415
     from stagewise.model.validate import validate  # noqa: PLC0415
@@ -372,7 +372,7 @@ def test_every_contract_key_of_dc_is_a_check_in_every_place() -> None:
                            settings_keys={"temp_range_c": [-20, 70]}, amplitude="0.1",
                            converter={"full_scale_vpp": 5, "bits": 16})
     stage = project.stages[0]
-    wanted = [(where, key, metric) for where in ("isolated", "in_chain", "chain")
+    wanted = [(where, key, metric) for where in ("isolated", "in_chain", "from_input", "chain")
               for key, metric in (CONTRACT_METRICS | (CHAIN_ONLY if where == "chain" else {})).items()]
     for index, (where, _key, metric) in enumerate(wanted):
         stage.checks.append(Check(id=f"c{index}", text=metric, metric=metric, where=where,
@@ -381,7 +381,7 @@ def test_every_contract_key_of_dc_is_a_check_in_every_place() -> None:
     analysis = ProjectAnalysis(project, spread=False)
     document = analysis.document()
     places = {"isolated": document["stages"][0]["isolated"], "in_chain": document["stages"][0]["in_chain"],
-              "chain": document["chain"]}
+              "from_input": document["stages"][0]["from_input"], "chain": document["chain"]}
     for check, (where, key, _metric) in zip(stage.checks, wanted, strict=True):
         result = evaluate_check(check, stage, project, analysis)
         reported = places[where]["dc"][key]
