@@ -111,3 +111,17 @@ def test_an_unstable_place_has_no_reference_gain_beside_its_nulled_figures() -> 
     assert chain["ref"]["gain_db"] is None and "unstable" in chain["ref"]["gain_db_why"]
     check = stage["checks"][0]
     assert check["state"] == "no value" and check["ref"]["gain_db"] is None
+
+
+def test_a_transimpedance_table_reads_its_magnitude_in_dbohm(tmp_path: Path) -> None:
+    # Source: ideal op-amp rules (virtual ground), any op-amp text: a 100 kΩ feedback resistor on
+    # the inverting input, current-driven, gives V_out/I_in = −100 kΩ, 20·log10(1e5) = 100 dBΩ.
+    tia = {**PROJECT, "opamp_models": {}, "input": {"drive": "current", "amplitude": "1u"}, "stages": [{
+        "id": "tia", "name": "TIA", "drive": "current", "ports": {"in": "n", "out": "out"},
+        "parts": [{"ref": "U1", "type": "opamp", "nodes": ["0", "n", "out"], "model": "ideal"},
+                  {"ref": "R1", "type": "R", "nodes": ["n", "out"], "value": "100k"}]}]}
+    path = tmp_path / "tia.stagewise.json"
+    path.write_text(json.dumps(tia), encoding="utf-8")
+    lines = _response(path, "--stage", "tia").stdout.splitlines()
+    assert "magnitude (dBΩ)" in lines[1]
+    assert lines[2].split()[2] == f"{20 * math.log10(1e5):.3f}"

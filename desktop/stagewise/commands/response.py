@@ -112,7 +112,8 @@ def _print_table(path: str, what: str, unit: str, points: list[dict[str, float |
     print(printable(f"{path}: {what} ({unit})"))
     if warning:
         print(printable(warning))
-    header = ("frequency", "magnitude (dB)", "phase (°)", "real", "imaginary")
+    # A transimpedance's magnitude in decibels is re 1 Ω (dBΩ), a voltage ratio's plain dB.
+    header = ("frequency", "magnitude (dBΩ)" if unit == "Ω" else "magnitude (dB)", "phase (°)", "real", "imaginary")
     rows = [(format_value(float(point["f_hz"] or 0.0), "Hz"), _number(point["mag_db"], 3),
              _number(point["phase_deg"], 2), f"{point['re']:.6g}", f"{point['im']:.6g}") for point in points]
     widths = [max(len(header[column]), *(len(row[column]) for row in rows)) for column in range(len(header))]
