@@ -98,3 +98,14 @@ def test_review_panel_names_the_reference_beside_a_corner(qtbot, tmp_path: Path)
         assert "re " not in table.item(rows["pm"], 3).text()  # a phase margin has no pass-band reference
     finally:
         window.shutdown()
+
+
+def test_the_spread_summary_names_the_reference_of_its_corner_range() -> None:
+    # Common practice, no source: a low-pass corner is 3 dB below its DC gain; the greenhouse chain
+    # is a transimpedance low-pass, so the words name its DC gain in dBΩ beside the corner range.
+    project = load_project(GREENHOUSE)
+    context = analyses.Context()
+    context.begin(project, None)
+    summary = analyses.chain_spread(project, context).summary
+    assert "Upper corner" in summary and "against its own pass-band gain; nominal re DC gain" in summary
+    assert "dBΩ" in summary

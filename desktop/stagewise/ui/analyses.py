@@ -467,7 +467,11 @@ def chain_spread(project: Project, context: Context) -> SpreadTrace:
     words = [f"{result.samples} samples, seed {result.seed}, {result.distribution} within each tolerance."]
     corner = result.metrics.get("f_high_3db_hz")
     if corner is not None and getattr(corner, "minimum", None) is not None:
-        words.append(f"Upper corner {format_value(corner.minimum, 'Hz')} to {format_value(corner.maximum, 'Hz')}.")
+        # Each sample's corner is 3 dB below its own pass-band gain, read where the nominal's is.
+        reference = _project_analysis(project, context).metric_reference_words("f_high_3db_hz", "chain", "")
+        against = f" (each sample against its own pass-band gain; nominal {reference})" if reference else ""
+        words.append(f"Upper corner {format_value(corner.minimum, 'Hz')} to "
+                      f"{format_value(corner.maximum, 'Hz')}{against}.")
     if result.yield_pct is not None:
         words.append(f"Yield {result.yield_pct:.1f} %.")
     words.extend(result.notes)
