@@ -256,3 +256,16 @@ def test_stable_samples_keep_their_yield() -> None:
     result = monte_carlo(system, project, current_drive=False, worst_case=False, phase_margins=False,
                          limits=[YieldLimit("gain_db", min=-6.3, max=-5.8, label="gain")])
     assert result.yield_pct == pytest.approx(100.0)
+
+
+def test_per_sample_stability_is_skipped_with_a_note_past_its_cost_bound(monkeypatch: pytest.MonkeyPatch) -> None:
+    # Common practice, no source: a cost bound says what it left out rather than running for minutes.
+    import stagewise.engine.spread as spread  # noqa: PLC0415
+
+    monkeypatch.setattr(spread, "STABILITY_WORK", 1e12)
+    project = divider(1e3, "1%", 1e3, "1%", mc_samples=50)
+    system = assemble(project.stages[0], project)
+    result = monte_carlo(system, project, current_drive=False, worst_case=False, phase_margins=False,
+                         limits=[YieldLimit("gain_db", min=-6.3, max=-5.8, label="gain")])
+    assert result.sample_values.stable is None
+    assert any("stability of each sample was not checked" in note for note in result.notes)
