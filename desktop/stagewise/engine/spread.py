@@ -1233,7 +1233,10 @@ def sample_stability(model: ToleranceModel, multipliers: NDArray[np.float64], ce
         try:
             shifted = np.linalg.solve(g + s0 * c, c.astype(complex))
         except np.linalg.LinAlgError:
-            continue  # s0 is a pole of some sample (on the axis): left to the nominal verdict
+            # s0 is exactly a pole of some sample (on the axis): shift into the left half-plane
+            # instead (an exact pole there too has probability zero).
+            s0 = s0 * (1.0 + 0.37j)
+            shifted = np.linalg.solve(g + s0 * c, c.astype(complex))
         mu = np.linalg.eigvals(shifted)
         size = np.abs(mu)
         finite = size > 1e-10 * np.max(size, axis=1, keepdims=True)
