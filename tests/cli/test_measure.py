@@ -140,7 +140,7 @@ def test_bad_input_changes_nothing(project_file: Path, tmp_path: Path, capsys: p
         data = tmp_path / "huge.csv"
         with open(data, "wb") as handle:
             handle.truncate(1024 ** 3)  # sparse
-        expected = "1073741824 bytes is more than"
+        expected = "1,073,741,824 bytes; measurement files over 8 MiB are refused"
         if case == "no place":
             place, expected = [], "say where the measurement was taken"
         elif case == "unknown stage":

@@ -173,7 +173,7 @@ def test_a_one_gigabyte_file_is_refused_by_its_size_unread(tmp_path: Path, monke
         return real_open(file, *args, **kwargs)  # type: ignore[call-overload]
 
     monkeypatch.setattr("builtins.open", watching_open)
-    with pytest.raises(MeasurementError, match=r"1073741824 bytes is more than the 8 MiB"):
+    with pytest.raises(MeasurementError, match=r"1,073,741,824 bytes; measurement files over 8 MiB are refused"):
         read_measurement(path)
     assert str(path) not in opened
     assert MAX_MEASUREMENT_BYTES < 1024 ** 3

@@ -9,13 +9,12 @@ from __future__ import annotations
 import getpass
 import json
 import os
-import stat
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
-from pathlib import Path
 from typing import Any
 
+from stagewise.files.input_files import InputFileError, read_regular_file
 from stagewise.files.lock import LockError, ProjectLock, acquire_lock
 from stagewise.files.project_file import load_project
 from stagewise.model.project import Project, Stage
@@ -90,12 +89,10 @@ def note(message: str) -> None:
     sys.stderr.write(f"stagewise: note: {printable(message)}\n")
 
 
-def read_input_file(path: str | os.PathLike[str], what: str, max_bytes: int) -> bytes:
-    """The bytes of an input file that is a regular file no larger than ``max_bytes``.
-
-    A device (``/dev/zero``), a pipe or a socket is refused before anything is read (it could
-    give bytes without end or block forever); the file is opened without blocking and checked
-    again once open, so a file swapped for a pipe in between is refused too.
+def read_input_file(path: str | os.PathLike[str], what: str, plural: str, max_bytes: int) -> bytes:
+    """The bytes of an input file that is a regular file no larger than ``max_bytes``
+    (:func:`stagewise.files.input_files.read_regular_file`; a device, a pipe or a socket is
+    refused before anything is read).
 
     Raises
     ------
@@ -104,39 +101,10 @@ def read_input_file(path: str | os.PathLike[str], what: str, max_bytes: int) -> 
     """
     from stagewise.cli import CommandError
 
-    where = Path(path)
     try:
-        descriptor = os.open(where, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
-    except FileNotFoundError as error:
-        raise CommandError(f"{where}: no such file") from error
-    except IsADirectoryError as error:
-        raise CommandError(f"{where}: this is a folder, not {what}") from error
-    except OSError as error:
-        raise CommandError(f"{where}: cannot be read ({error.strerror})") from error
-    try:
-        status = os.fstat(descriptor)
-        if stat.S_ISDIR(status.st_mode):
-            raise CommandError(f"{where}: this is a folder, not {what}")
-        if not stat.S_ISREG(status.st_mode):
-            raise CommandError(f"{where}: not a regular file (a device, a pipe or a socket); give {what}")
-        if status.st_size > max_bytes:
-            raise CommandError(f"{where}: {status.st_size} bytes is too large for {what} "
-                               f"(at most {max_bytes} bytes)")
-        chunks: list[bytes] = []
-        total = 0
-        while True:  # bounded even if the file grows while it is read
-            chunk = os.read(descriptor, min(1 << 20, max_bytes + 1 - total))
-            if not chunk:
-                break
-            chunks.append(chunk)
-            total += len(chunk)
-            if total > max_bytes:
-                raise CommandError(f"{where}: over {max_bytes} bytes is too large for {what}")
-    except OSError as error:
-        raise CommandError(f"{where}: cannot be read ({error.strerror})") from error
-    finally:
-        os.close(descriptor)
-    return b"".join(chunks)
+        return read_regular_file(path, what, plural, max_bytes)
+    except InputFileError as error:
+        raise CommandError(str(error)) from error
 
 
 def parse_frequencies(text: str, option: str = "--freqs") -> list[float]:

@@ -34,7 +34,7 @@ def run(args: argparse.Namespace) -> int:
     load(args.file)  # a missing or invalid project is reported before any lock file is made
     who = person(args.by, "who imported the cards")
     cards_path = Path(args.cards)
-    data = read_input_file(cards_path, "an element-card file", MAX_CARDS_BYTES)  # never while locked
+    data = read_input_file(cards_path, "an element-card file", "element-card files", MAX_CARDS_BYTES)  # never while locked
     with locked(args.file, who):
         return _import(args, cards_path, data, who)
 

@@ -40,13 +40,14 @@ import hashlib
 import math
 import os
 import re
-import stat
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Final
 
 import numpy as np
 from numpy.typing import NDArray
+
+from stagewise.files.input_files import InputFileError, read_regular_file
 
 __all__ = [
     "COLUMN_NAMES",
@@ -131,26 +132,10 @@ def read_measurement(path: str | os.PathLike[str], *, drive: str = "voltage",
     """
     name = os.fspath(path)
     try:
-        info = os.stat(name)
-    except FileNotFoundError as error:
-        raise MeasurementError(f"{name}: no such file") from error
-    except OSError as error:
-        raise MeasurementError(f"{name}: cannot be read ({error.strerror})") from error
-    if stat.S_ISDIR(info.st_mode):
-        raise MeasurementError(f"{name}: this is a folder, not a measurement file")
-    if not stat.S_ISREG(info.st_mode):
-        raise MeasurementError(f"{name}: not a regular file (a device, pipe or socket); give a measurement file")
-    if info.st_size > MAX_MEASUREMENT_BYTES:
-        raise MeasurementError(f"{name}: {info.st_size} bytes is more than the {MAX_MEASUREMENT_BYTES // (1024 * 1024)} "
-                               "MiB a measurement file may have; decimate the data first")
-    try:
-        with open(name, "rb") as handle:
-            data = handle.read(MAX_MEASUREMENT_BYTES + 1)
-    except OSError as error:
-        raise MeasurementError(f"{name}: cannot be read ({error.strerror})") from error
-    if len(data) > MAX_MEASUREMENT_BYTES:
-        raise MeasurementError(f"{name}: more than {MAX_MEASUREMENT_BYTES // (1024 * 1024)} MiB; "
-                               "decimate the data first")
+        data = read_regular_file(name, "a measurement file", "measurement files", MAX_MEASUREMENT_BYTES,
+                                 f"{MAX_MEASUREMENT_BYTES // (1024 * 1024)} MiB")
+    except InputFileError as error:
+        raise MeasurementError(str(error)) from error
     return parse_measurement(data, Path(name).name, drive=drive, columns=columns)
 
 

@@ -20,6 +20,7 @@ from typing import Any
 
 from stagewise.files.atomic import remove_leftover_temporaries, write_temporary
 from stagewise.files.codec import JsonObject, ProjectFileError, decode, dumps, encode
+from stagewise.files.input_files import InputFileError, read_regular_file
 from stagewise.files.lock import lock_path, real_path
 from stagewise.files.migrate import migrate
 from stagewise.model.project import FORMAT_VERSION, Project
@@ -205,32 +206,9 @@ def load_project(path: str | os.PathLike[str]) -> Project:
 def _read_bounded(path: Path, source: str) -> bytes:
     """The bytes of a regular file no larger than :data:`MAX_FILE_BYTES`."""
     try:
-        status = path.stat()
-    except FileNotFoundError as error:
-        raise ProjectFileError(["no such file"], source) from error
-    except PermissionError as error:
-        raise ProjectFileError(["permission denied"], source) from error
-    except OSError as error:
-        raise ProjectFileError([f"cannot be read ({error.strerror})"], source) from error
-    if stat.S_ISDIR(status.st_mode):
-        raise ProjectFileError(["this is a folder, not a project file"], source)
-    if not stat.S_ISREG(status.st_mode):
-        raise ProjectFileError(["not a regular file (a device, a pipe or a socket)"], source)
-    if status.st_size > MAX_FILE_BYTES:
-        raise ProjectFileError([f"the file is {status.st_size:,} bytes; project files over {MAX_FILE_TEXT} "
-                                "are refused"], source)
-    try:
-        with path.open("rb") as stream:
-            # Read one byte past the limit: a file that grew since stat() is still refused.
-            data = stream.read(MAX_FILE_BYTES + 1)
-    except PermissionError as error:
-        raise ProjectFileError(["permission denied"], source) from error
-    except OSError as error:
-        raise ProjectFileError([f"cannot be read ({error.strerror})"], source) from error
-    if len(data) > MAX_FILE_BYTES:
-        raise ProjectFileError([f"the file is over {MAX_FILE_TEXT}; project files over {MAX_FILE_TEXT} are "
-                                "refused"], source)
-    return data
+        return read_regular_file(path, "a project file", "project files", MAX_FILE_BYTES, MAX_FILE_TEXT)
+    except InputFileError as error:
+        raise ProjectFileError([error.problem], source) from error
 
 
 def save_project(path: str | os.PathLike[str], project: Project) -> None:
