@@ -394,11 +394,79 @@ def stage_review(stage: Stage, project: Project, context: Context) -> ReviewSumm
                          counts.sentence() + found, findings)
 
 
+def peaking_reference(stage: Stage, project: Project, context: Context) -> dict[str, float]:
+    """The pass-band reference gain (dB) where the stage's peaking checks are taken, so the view
+    can draw their limit as a level: reference + the allowed peaking (peak gain − peaking)."""
+    wheres = sorted({check.where for check in stage.checks if check.metric == "peaking_db" and check.where})
+    if not wheres:
+        raise NotAvailable("the stage has no peaking check")
+    analysis = _project_analysis(project, context)
+    found: dict[str, float] = {}
+    for where in wheres:
+        peak, _ = analysis.metric_value("peak_gain_db", where, stage.id, None)
+        peaking, _ = analysis.metric_value("peaking_db", where, stage.id, None)
+        if peak is not None and peaking is not None:
+            found[where] = float(peak) - float(peaking)
+    return found
+
+
+@dataclass(frozen=True, slots=True)
+class LoopTrace:
+    """One op-amp's loop gain T(j2πf) (engine/loops.py), alone or in chain, and its margins."""
+
+    label: str
+    place: str  # "alone" or "in chain"
+    f_hz: NDArray[np.float64]
+    loop_gain: NDArray[np.complex128]
+    crossover_hz: float | None
+    phase_margin_deg: float | None
+    gain_margin_db: float | None
+    phase_crossover_hz: float | None
+    why: str | None
+
+
+def _loop_traces(results: Any, place: str, prefix: str = "") -> list[LoopTrace]:
+    traces = []
+    for result in results:
+        if prefix and not str(result.ref).startswith(prefix):
+            continue
+        ref = str(result.ref)[len(prefix):]
+        if len(result.loop_gain) == 0:
+            continue  # an ideal op-amp: no loop to draw
+        traces.append(LoopTrace(f"{ref} {place}", place, result.f_hz, result.loop_gain, result.crossover_hz,
+                                result.phase_margin_deg, result.gain_margin_db, result.phase_crossover_hz,
+                                result.phase_margin_why))
+    return traces
+
+
+def stage_loops(stage: Stage, project: Project, context: Context) -> tuple[LoopTrace, ...]:
+    """Loop gain of each finite op-amp of the stage, alone and where it sits in the chain."""
+    from stagewise.engine.loops import loop_gains
+    from stagewise.engine.loops import stage_loops as alone_loops
+
+    if stage.is_block or not any(part.type == "opamp" for part in stage.parts):
+        raise NotAvailable("the stage has no op-amp, so no loop to draw")
+    _problems(stage, project)
+    traces = _loop_traces(context.cached(("loops", stage_key(stage, project)), lambda: alone_loops(stage, project)),
+                          "alone")
+    if not stage.bypass:
+        def chain() -> Any:
+            merged = _merged(project, context)
+            return loop_gains(merged.system, current_drive=merged.current_drive)
+
+        traces += _loop_traces(_once_per_snapshot("chain_loops", project, context, chain), "in chain", f"{stage.id}:")
+    if not traces:
+        raise NotAvailable("its op-amps are ideal (infinite gain): there is no loop gain to draw")
+    return tuple(traces)
+
+
 STAGE_ANALYSES: list[tuple[str, int, Any]] = [
     ("response", 1, isolated_response),
     ("poles", 1, isolated_roots),
     ("step", 1, isolated_step),
     ("review", 2, stage_review),
+    ("peaking_reference", 2, peaking_reference),
+    ("loops", 2, stage_loops),
     ("in_chain_step", 2, in_chain_step),
     ("in_chain_poles", 2, in_chain_poles),
     ("in_chain_response", 1, in_chain_response),

@@ -43,7 +43,7 @@ from stagewise.ui.icons import icon
 from stagewise.ui.measured_view import MeasurementView
 from stagewise.ui.overlays import IN_CHAIN, ISOLATED, OverlaySelection
 from stagewise.ui.parts_table import FormulaView, PartsTable
-from stagewise.ui.plots import NoiseView, PlotView, PoleZeroView, ResponseView, SpreadView, StepView
+from stagewise.ui.plots import LoopGainView, NoiseView, PlotView, PoleZeroView, ResponseView, SpreadView, StepView
 from stagewise.ui.review_panel import ReviewPanel
 from stagewise.ui.settings import add_recent, app_settings, recent_files, remember_reviewer, reviewer_identity
 from stagewise.ui.worker import ComputeWorker
@@ -53,7 +53,7 @@ __all__ = ["RECOVERY_SUFFIX", "MainWindow", "demo_path", "empty_project", "recov
 RECOVERY_SUFFIX = ".recovery"
 AUTOSAVE_INTERVAL_MS = 60_000
 AUTOSAVE_AFTER_EDIT_MS = 2_000
-LAYOUT_VERSION = 3
+LAYOUT_VERSION = 4  # 4: the loop-gain dock
 FILE_FILTER = "Stagewise projects (*.stagewise.json);;All files (*)"
 
 
@@ -179,6 +179,7 @@ class MainWindow(QMainWindow):
         self.noise_view = NoiseView(document, worker, overlays)
         self.dc_view = DcView(document, worker, overlays)
         self.spread_view = SpreadView(document, worker, overlays)
+        self.loop_view = LoopGainView(document, worker, overlays)
         self.measurement_view = MeasurementView(document, worker, overlays)
         self.review_panel = ReviewPanel(document, worker)
         self.parts_table = PartsTable(document)
@@ -192,6 +193,7 @@ class MainWindow(QMainWindow):
             "dc": self._dock("dcDock", "DC accuracy", self.dc_view),
             "spread": self._dock("spreadDock", "Spread over tolerances", self.spread_view),
             "measured": self._dock("measuredDock", "Bench measurements", self.measurement_view),
+            "loops": self._dock("loopsDock", "Loop gain", self.loop_view),
             "review": self._dock("reviewDock", "Review", self.review_panel),
             "parts": self._dock("partsDock", "Parts", self.parts_table),
             "formula": self._dock("formulaDock", "Formula", self.formula_view),
@@ -203,7 +205,7 @@ class MainWindow(QMainWindow):
 
     def plot_views(self) -> list[PlotView]:
         return [self.response_view, self.step_view, self.pole_zero_view, self.noise_view, self.dc_view,
-                self.spread_view, self.measurement_view]
+                self.spread_view, self.measurement_view, self.loop_view]
 
     def _action(self, name: str, text: str, slot: Any, shortcut: Any = None, icon_name: str = "",
                 tip: str = "") -> QAction:
@@ -376,6 +378,7 @@ class MainWindow(QMainWindow):
         self.tabifyDockWidget(d["noise"], d["dc"])
         self.tabifyDockWidget(d["dc"], d["spread"])
         self.tabifyDockWidget(d["spread"], d["measured"])
+        self.tabifyDockWidget(d["measured"], d["loops"])
         d["noise"].raise_()
         self.splitDockWidget(d["review"], d["formula"], Qt.Orientation.Vertical)
         self._default_sizes()

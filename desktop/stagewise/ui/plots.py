@@ -28,7 +28,7 @@ from stagewise.ui.palette import OKABE_ITO, limit_brush_colour
 from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import Computed, ComputeWorker, Outcome
 
-__all__ = ["NoiseView", "PlotView", "PoleZeroView", "ResponseView", "SpreadView", "StepView", "limit_shapes"]
+__all__ = ["LoopGainView", "NoiseView", "PlotView", "PoleZeroView", "ResponseView", "SpreadView", "StepView", "limit_shapes"]
 
 pg.setConfigOptions(antialias=True, background="w", foreground="#202020")
 
@@ -383,12 +383,21 @@ class ResponseView(PlotView):
         magnitude: list[tuple[str, tuple[float, float], tuple[float, float]]] = []
         phase: list[tuple[str, tuple[float, float], tuple[float, float]]] = []
         if stage is not None:
+            references = self.outcome.of_stage(stage.id, "peaking_reference") if self.outcome is not None else None
             for check in stage.checks:
                 for plot, label, x_range, y_range in limit_shapes(check, self.document.project):
                     if plot == "magnitude":
                         magnitude.append((label, x_range, y_range))
                     elif plot == "phase":
                         phase.append((label, x_range, y_range))
+                if check.metric == "peaking_db" and check.max is not None and references is not None \
+                        and references.ok and check.where in references.value:
+                    # Peaking is the peak gain over the pass-band reference: its limit is the level
+                    # reference + max across the band, above which the trace must not rise.
+                    level = references.value[check.where] + check.max.si
+                    where = {"isolated": "alone", "in_chain": "in chain", "chain": "whole chain"}.get(check.where, "")
+                    magnitude.append((f"{check.id} ({where}): peak ≤ {level:.2f} dB", (-math.inf, math.inf),
+                                      (level, level)))
         self.magnitude_limits.set_shapes(magnitude)
         self.phase_limits.set_shapes(phase)
 
@@ -781,3 +790,77 @@ class SpreadView(PlotView):
             self._legend_entries = legend
         self._styled = True
         self.summary.setText(spread.summary)
+
+
+class LoopGainView(PlotView):
+    """Loop gain T = A·β of each op-amp of the selected stage, alone (solid) and in chain (dashed):
+    magnitude and phase on log-frequency axes, the crossover and the margins marked."""
+
+    def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(document, worker, overlays, parent)
+        self.magnitude = self.graphics.addPlot(row=0, col=0)
+        self.phase = self.graphics.addPlot(row=1, col=0)
+        for plot in (self.magnitude, self.phase):
+            _log_axis(plot)
+            plot.showGrid(x=True, y=True, alpha=0.25)
+            plot.getAxis("left").enableAutoSIPrefix(False)
+            plot.getAxis("left").setWidth(56)
+        self.magnitude.setLabel("left", "|T| (dB)")
+        self.phase.setLabel("left", "∠T (°)")
+        self.phase.setLabel("bottom", "Frequency (Hz)")
+        self.phase.setXLink(self.magnitude)
+        self.magnitude.addLine(y=0, pen=pg.mkPen("#808080", width=1, style=Qt.PenStyle.DashLine))
+        self.legend = pg.LegendItem(labelTextSize="8pt", colCount=2, verSpacing=-6)
+        self.graphics.addItem(self.legend, row=2, col=0)
+        self.magnitude_traces = _TraceItems(self.magnitude, self.legend)
+        self.phase_traces = _TraceItems(self.phase, None)
+        self.markers: list[Any] = []
+        self.shown: list[Any] = []
+        self.summary = QLabel(self)
+        self.summary.setTextFormat(Qt.TextFormat.PlainText)
+        self.summary.setWordWrap(True)
+        self.layout().addWidget(self.summary)
+        self.refresh()
+
+    def draw(self) -> None:
+        from stagewise.ui.palette import trace_style
+
+        for plot, item in self.markers:
+            plot.removeItem(item)
+        self.markers = []
+        stage = self.document.current_stage
+        computed = self.outcome.of_stage(stage.id, "loops") if (self.outcome is not None and stage is not None) \
+            else Computed(None, "no stage selected")
+        rows_magnitude, rows_phase, words = [], [], []
+        self.shown = list(computed.value) if computed.ok else []
+        if not computed.ok and computed.why != "not computed yet":
+            # A stage without a finite op-amp has no loop: said below the plot, not as a fault.
+            words.append(computed.why)
+        for index, trace in enumerate(self.shown):
+            style = trace_style(index)
+            spec = TraceSpec(f"loop:{trace.label}", f"{trace.label}", IN_CHAIN if trace.place == "in chain" else ISOLATED,
+                             stage.id if stage is not None else "", style)
+            with np.errstate(divide="ignore"):
+                magnitude_db = 20.0 * np.log10(np.abs(trace.loop_gain))
+            phase_deg = np.degrees(np.unwrap(np.angle(trace.loop_gain)))
+            rows_magnitude.append((spec, trace.f_hz, finite(magnitude_db)))
+            rows_phase.append((spec, trace.f_hz, finite(phase_deg)))
+            if trace.crossover_hz is not None:
+                # The crossover: |T| = 1 (0 dB); the phase margin is read there (180° + ∠T).
+                for plot in (self.magnitude, self.phase):
+                    line = pg.InfiniteLine(math.log10(trace.crossover_hz), angle=90,
+                                           pen=pg.mkPen(style.colour, width=1, style=Qt.PenStyle.DotLine))
+                    plot.addItem(line, ignoreBounds=True)
+                    self.markers.append((plot, line))
+                text = f"{trace.label}: crossover {format_value(trace.crossover_hz, 'Hz')}"
+                if trace.phase_margin_deg is not None:
+                    text += f", phase margin {trace.phase_margin_deg:.1f}°"
+                if trace.gain_margin_db is not None:
+                    text += f", gain margin {trace.gain_margin_db:.1f} dB"
+                words.append(text)
+            else:
+                words.append(f"{trace.label}: {trace.why or 'no crossover'}")
+        self.magnitude_traces.show(rows_magnitude)
+        self.phase_traces.show(rows_phase)
+        self.summary.setText("\n".join(words))
