@@ -49,3 +49,31 @@ def test_a_value_with_another_parts_unit_is_refused_in_the_parts_table(window) -
     assert window.document.project.stage("rc").part("R1").value.raw == "3k3"
     assert '"10nF" is a capacitance, a resistor takes ohms' in window.parts_table.feedback.text()
     assert not window.document.is_modified
+
+
+def test_the_greenhouse_over_range_and_clipping_are_shown_in_the_review_panel(qtbot, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
+    # 1 µA into the 1 MΩ transimpedance and a gain of 2 is about 2 V peak at a converter of ±1.65 V,
+    # and the two op-amps before it need more than their swing. Common practice, no source:
+    # converter headroom = 20·log10(full-scale peak / signal peak), negative when over range.
+    demo = Path(__file__).resolve().parents[2] / "projects" / "greenhouse.stagewise.json"
+    path = tmp_path / "greenhouse.stagewise.json"
+    path.write_text(demo.read_text(encoding="utf-8"), encoding="utf-8")
+    window = make_window(qtbot, path)
+    try:
+        window.document.set_current_stage("adc")
+        assert window.wait_until_idle(60, formula=False)
+        panel = window.review_panel
+        assert panel.findings.isVisible()
+        lines = panel.findings.text().splitlines()
+        assert any(line.startswith("OVER-RANGE: the converter input is over-range") for line in lines)
+        assert panel.check_state("converter-range") == "not met"
+        # Each clipping op-amp is shown on the page of the stage that holds it (with the chain's findings).
+        window.document.set_current_stage("tia")
+        assert window.wait_until_idle(60, formula=False)
+        lines = panel.findings.text().splitlines()
+        assert [line for line in lines if line.startswith("CLIPS")] == [
+            line for line in lines if line.startswith("CLIPS: op-amp tia:U1 clips")]
+        assert any(line.startswith("CLIPS: op-amp tia:U1 clips") for line in lines)
+        assert any(line.startswith("OVER-RANGE") for line in lines)
+    finally:
+        window.shutdown()
