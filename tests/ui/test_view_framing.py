@@ -351,3 +351,28 @@ def test_loop_gain_view_marks_crossover_and_phase_margin(qtbot) -> None:  # type
         assert "phase margin" in view.summary.text()
     finally:
         window.shutdown()
+
+
+def test_transimpedance_traces_say_dbohm(qtbot) -> None:  # type: ignore[no-untyped-def]
+    from stagewise.ui.overlays import ISOLATED
+
+    window = _window(qtbot, "greenhouse")
+    try:
+        project = window.document.project
+        current = next(stage for stage in project.stages if stage.drive == "current")
+        voltage = next(stage for stage in project.stages if stage.drive != "current" and not stage.is_block)
+        window.overlays.set_chain(False)
+        window.overlays.show_only_stage(current.id)
+        window.overlays.set_stage(current.id, "in_chain", False)
+        window.wait_until_idle(60, formula=False)
+        view = window.response_view
+        # Common practice, no source: 20·log10 of ohms is dBΩ, never plain dB.
+        assert "dBΩ" in view.magnitude.getAxis("left").labelText
+        window.overlays.set_stage(voltage.id, ISOLATED, True)
+        window.wait_until_idle(60, formula=False)
+        label = view.magnitude.getAxis("left").labelText
+        assert "dBΩ" in label and "dB " in label.replace("dBΩ", "") + " "
+        names = [item.opts["name"] for item in view.magnitude_traces.items.values() if item.isVisible()]
+        assert any(name.endswith("(dBΩ)") for name in names) and any(name.endswith("(dB)") for name in names)
+    finally:
+        window.shutdown()

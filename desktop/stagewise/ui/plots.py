@@ -8,6 +8,7 @@ computed (with the reason).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Iterable
 from typing import Any
@@ -369,11 +370,19 @@ class ResponseView(PlotView):
                 shown.append((spec, computed.value))
             elif self.outcome is not None:
                 self.note(spec.label, computed)
+        units = {trace.unit for _, trace in shown}
+        if len(units) > 1:
+            # Two units on one axis, said in each trace's legend entry and on the axis.
+            shown = [(dataclasses.replace(spec, label=f"{spec.label} ({decibel_unit(trace.unit)})"), trace)
+                     for spec, trace in shown]
         self._shown = shown
         self.magnitude_traces.show((spec, trace.f_hz, finite(trace.mag_db)) for spec, trace in shown)
         self.phase_traces.show((spec, trace.f_hz, finite(trace.phase_deg)) for spec, trace in shown)
-        units = {trace.unit for _, trace in shown}
-        self.magnitude.setLabel("left", "Magnitude", units="dB Ω" if units == {"V/A"} else "dB")
+        if len(units) > 1:
+            label = "Magnitude (" + " and ".join(sorted(decibel_unit(unit) for unit in units)) + ", see legend)"
+        else:
+            label = f"Magnitude ({decibel_unit(next(iter(units)) if units else 'V/V')})"
+        self.magnitude.setLabel("left", label)
         measured = self.outcome.of_chain("measurements") if self.outcome is not None else None
         self.measured.draw(measured.value if measured is not None and measured.ok else [], shown, self.overlays)
         self._draw_limits()
@@ -516,6 +525,11 @@ class StepView(PlotView):
                     if plot == "step":
                         shapes.append((label, x_range, y_range))
         self.limits.set_shapes(shapes)
+
+
+def decibel_unit(unit: str) -> str:
+    """The decibel unit of a response in ``unit``: dB (V/V), dBΩ (transimpedance, V/A), dBS."""
+    return {"V/V": "dB", "Ω": "dBΩ", "V/A": "dBΩ", "S": "dBS", "A/V": "dBS"}.get(unit, f"dB re 1 {unit}")
 
 
 def _own_scale(trace: Any) -> float:
