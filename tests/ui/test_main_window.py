@@ -507,9 +507,8 @@ def test_new_project_analyses_saves_and_opens_again(window, tmp_path: Path) -> N
 
 
 def test_rapid_edits_never_wait_for_the_analysis_and_the_last_one_wins(window) -> None:  # type: ignore[no-untyped-def]
-    import time
-
     import gc
+    import time
 
     select(window, "rc")
     values = ["1k", "1k2", "1k5", "1k8", "2k2", "2k7", "3k3", "3k9", "4k7", "5k6"]

@@ -379,9 +379,9 @@ class ResponseView(PlotView):
         self.magnitude_traces.show((spec, trace.f_hz, finite(trace.mag_db)) for spec, trace in shown)
         self.phase_traces.show((spec, trace.f_hz, finite(trace.phase_deg)) for spec, trace in shown)
         if len(units) > 1:
-            label = "Magnitude (" + " and ".join(sorted(decibel_unit(unit) for unit in units)) + ", see legend)"
+            label = "|H| (" + ", ".join(sorted(decibel_unit(unit) for unit in units)) + ")"
         else:
-            label = f"Magnitude ({decibel_unit(next(iter(units)) if units else 'V/V')})"
+            label = f"|H| ({decibel_unit(next(iter(units)) if units else 'V/V')})"
         self.magnitude.setLabel("left", label)
         measured = self.outcome.of_chain("measurements") if self.outcome is not None else None
         self.measured.draw(measured.value if measured is not None and measured.ok else [], shown, self.overlays)
@@ -501,7 +501,10 @@ class StepView(PlotView):
         # Units that differ (a photodiode stage in ohms beside volts per volt) never share an
         # axis: each trace is then drawn over its own final value (or its own peak when it
         # settles at zero), dimensionless.
-        self.normalized = len(units) > 1
+        finals = [abs(trace.final) for _, trace in steps if trace.final is not None and trace.final != 0]
+        # Units that differ, or final values more than 10x apart (a 200 MΩ stage beside the
+        # chain's 2 MΩ), would flatten a trace: each is then drawn over its own final value.
+        self.normalized = len(units) > 1 or (len(finals) > 1 and max(finals) > 10 * min(finals))
         if self.normalized:
             rows = [(spec, t, y / _own_scale(trace)) for (spec, t, y), (_, trace) in zip(rows, steps, strict=True)]
             self.plot.setLabel("left", "Output ÷ own final value")
@@ -596,9 +599,9 @@ class PoleZeroView(PlotView):
             self.plot.addItem(label, ignoreBounds=True)
             self.rings.append(ring)
             self.ring_labels.append(label)
-        # Ring labels at least ~16 pixels apart: every k-th decade on a small plot.
-        pixels = self.plot.getViewBox().width() / (2 * frame.limit) if frame.limit > 0 else 0.0
-        every = max(1, math.ceil(16.0 / pixels)) if pixels > 0 else 2
+        # Three ring labels (the lowest ring, one between, the band's top), so they never crowd.
+        count = len(frame.rings)
+        labelled = {0, count // 2, count - 1} if count > 3 else set(range(count))
         for index, (ring, label) in enumerate(zip(self.rings, self.ring_labels, strict=True)):
             if index < len(frame.rings):
                 radius, f_hz = frame.rings[index]
@@ -606,7 +609,7 @@ class PoleZeroView(PlotView):
                 label.setText(format_value(f_hz, "Hz", 3))
                 label.setPos(0.0, radius)
                 ring.setVisible(True)
-                label.setVisible((len(frame.rings) - 1 - index) % every == 0)
+                label.setVisible(index in labelled)
             else:
                 ring.setVisible(False)
                 label.setVisible(False)
