@@ -52,6 +52,18 @@ def _log_axis(plot: pg.PlotItem) -> None:
     plot.getAxis("bottom").enableAutoSIPrefix(False)
 
 
+def _bode_pair(graphics: pg.GraphicsLayoutWidget, axis_width: int) -> tuple[pg.PlotItem, pg.PlotItem]:
+    """Magnitude above phase on log-frequency axes with a grid (rows 0 and 1 of ``graphics``)."""
+    magnitude = graphics.addPlot(row=0, col=0)
+    phase = graphics.addPlot(row=1, col=0)
+    for plot in (magnitude, phase):
+        _log_axis(plot)
+        plot.showGrid(x=True, y=True, alpha=0.25)
+        plot.getAxis("left").enableAutoSIPrefix(False)
+        plot.getAxis("left").setWidth(axis_width)
+    return magnitude, phase
+
+
 def result_for(outcome: Outcome | None, spec: TraceSpec, kind: str) -> Computed:
     """The result a trace shows for ``kind`` (``response``, ``step``, ``poles``).
 
@@ -324,17 +336,10 @@ class ResponseView(PlotView):
     def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
                  parent: QWidget | None = None) -> None:
         super().__init__(document, worker, overlays, parent)
-        self.magnitude = self.graphics.addPlot(row=0, col=0)
-        self.phase = self.graphics.addPlot(row=1, col=0)
-        for plot in (self.magnitude, self.phase):
-            _log_axis(plot)
-            plot.showGrid(x=True, y=True, alpha=0.25)
+        self.magnitude, self.phase = _bode_pair(self.graphics, 64)
         self.magnitude.setLabel("left", "Magnitude", units="dB")
         self.phase.setLabel("left", "Phase", units="°")
         self.phase.setLabel("bottom", "Frequency (Hz)")
-        for plot in (self.magnitude, self.phase):
-            plot.getAxis("left").enableAutoSIPrefix(False)
-            plot.getAxis("left").setWidth(64)
         self.phase.setXLink(self.magnitude)
         # The legend sits below the plots, outside the data area: it never covers a curve.
         self.legend = pg.LegendItem(labelTextSize="8pt", colCount=2, verSpacing=-6)
@@ -810,19 +815,14 @@ class SpreadView(PlotView):
 
 
 class LoopGainView(PlotView):
-    """Loop gain T = A·β of each op-amp of the selected stage, alone (solid) and in chain (dashed):
-    magnitude and phase on log-frequency axes, the crossover and the margins marked."""
+    """Loop gain T = A·β of each op-amp of the selected stage, alone and in chain (each trace its
+    own colour and line style, named in the legend): magnitude and phase on log-frequency axes,
+    the crossover and the margins marked."""
 
     def __init__(self, document: Document, worker: ComputeWorker, overlays: OverlaySelection,
                  parent: QWidget | None = None) -> None:
         super().__init__(document, worker, overlays, parent)
-        self.magnitude = self.graphics.addPlot(row=0, col=0)
-        self.phase = self.graphics.addPlot(row=1, col=0)
-        for plot in (self.magnitude, self.phase):
-            _log_axis(plot)
-            plot.showGrid(x=True, y=True, alpha=0.25)
-            plot.getAxis("left").enableAutoSIPrefix(False)
-            plot.getAxis("left").setWidth(56)
+        self.magnitude, self.phase = _bode_pair(self.graphics, 56)
         self.magnitude.setLabel("left", "|T| (dB)")
         self.phase.setLabel("left", "∠T (°)")
         self.phase.setLabel("bottom", "Frequency (Hz)")
