@@ -466,7 +466,7 @@ STAGE_ANALYSES: list[tuple[str, int, Any]] = [
     ("step", 1, isolated_step),
     ("review", 2, stage_review),
     ("peaking_reference", 2, peaking_reference),
-    ("loops", 2, stage_loops),
+    ("loops", 3, stage_loops),  # a view, not the review state: with the spread, after a pause
     ("in_chain_step", 2, in_chain_step),
     ("in_chain_poles", 2, in_chain_poles),
     ("in_chain_response", 1, in_chain_response),
