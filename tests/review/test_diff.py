@@ -146,3 +146,14 @@ def test_a_record_edited_in_place_is_listed_removed_and_added() -> None:
     resolved.stage("rc").comments[0].resolved = True  # type: ignore[union-attr]
     result = diff_projects(old, resolved)
     assert [r.kind for r in result.records_added] == ["resolution"] and result.records_removed == ()
+
+
+def test_removed_stage_counts_its_signoffs_in_good_english() -> None:
+    # Common practice, no source: one sign-off, two sign-offs (English plural rule).
+    old = base_project()
+    actions.sign(old, "buf", "Ana Ruiz", "analog lead", "accept", time=T)
+    new = copy.deepcopy(old)
+    new.stages = [stage for stage in new.stages if stage.id != "buf"]
+    assert "stage buf: removed (Buffer, 1 sign-off with it)" in [c.sentence() for c in diff_projects(old, new).changes]
+    actions.sign(old, "buf", "Ben Okafor", "quality", "accept", time=T)
+    assert "stage buf: removed (Buffer, 2 sign-offs with it)" in [c.sentence() for c in diff_projects(old, new).changes]

@@ -423,7 +423,8 @@ def diff_projects(old: Project, new: Project) -> ProjectDiff:
     new_ids = [stage.id for stage in new.stages]
     for stage in old.stages:
         if stage.id not in new_ids:
-            signed = f", {len(stage.signoffs)} sign-offs with it" if stage.signoffs else ""
+            count = len(stage.signoffs)
+            signed = f", {count} sign-off{'s' if count != 1 else ''} with it" if count else ""
             changes.append(Change("removed", stage.id, "stage", old=f"{stage.name}{signed}"))
     common_old = [sid for sid in old_ids if sid in new_ids]
     common_new = [sid for sid in new_ids if sid in old_ids]
