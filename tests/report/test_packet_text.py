@@ -56,6 +56,9 @@ def test_audit_events_read_as_words_not_json(hydrophone_packet: tuple[Path, str]
     assert '{"' not in trail and '[{' not in trail
     # A part change reads as a sentence: "buffer: part R1 value changed from 1M to 2M2".
     assert re.search(r"part R1 value changed from 1M to 2M2", trail)
+    # A model change belongs to no stage: no "None:" before it, and its field reads as words.
+    assert "None:" not in trail
+    assert "op-amp model low-noise-jfet-10M input offset voltage changed: 1m" in trail
 
 
 def test_internal_keys_and_plurals(hydrophone_packet: tuple[Path, str]) -> None:
@@ -76,3 +79,13 @@ def test_numbers_keep_their_units_with_a_space() -> None:
 def test_no_unit_glued_to_its_number_in_the_packet(hydrophone_packet: tuple[Path, str]) -> None:
     _, text = hydrophone_packet
     assert not re.search(r"\d(Ω|%)(?![A-Za-z])", text)
+
+
+def test_dc_notes_name_op_amp_figures_in_words(hydrophone_packet: tuple[Path, str]) -> None:
+    _, text = hydrophone_packet
+    # The demo's general-purpose model gives no DC figures; the note says so in the words of a
+    # data sheet (common practice, no source), not in the file's keys.
+    budget = text[text.index("DC accuracy budget"):]
+    assert "gives no input offset voltage, input bias current or input offset current" in budget
+    for key in ("vos_v", "ib_a", "ios_a", "psrr_db", "input_type", "supply_variation_v", "temp_range_c"):
+        assert key not in text, key

@@ -91,6 +91,7 @@ from stagewise.engine.metrics import put_with_why
 from stagewise.engine.mna import CircuitError, ElementStamp, OpampStates, StageSystem, assemble
 from stagewise.engine.sweep import drive
 from stagewise.model.project import Converter, Project, Stage
+from stagewise.review.words import FIELD_WORDS as WORDS
 
 __all__ = [
     "BudgetRow",
@@ -350,8 +351,8 @@ class _Collector:
         plus, minus = at(opamp.in_plus), at(opamp.in_minus)
         given = [key for key in ("vos_v", "ib_a", "ios_a") if getattr(model, key) is not None]
         if not given:
-            self.notes.append(f"{stage.id}/{opamp.ref}: model {opamp.model!r} gives no vos_v, ib_a or ios_a; "
-                              "its DC errors are not counted")
+            self.notes.append(f"{stage.id}/{opamp.ref}: model {opamp.model!r} gives no {WORDS['vos_v']}, "
+                              f"{WORDS['ib_a']} or {WORDS['ios_a']}; its DC errors are not counted")
         if model.vos_v is not None:
             self.add(f"{name} Vos", "vos", stage.id, opamp.ref, _unit(size, state, model.vos_v.si))
             if model.vos_drift_v_per_c is not None and self.delta_t is not None:
@@ -378,8 +379,9 @@ class _Collector:
         if model.psrr_db is not None:
             variation = self.project.settings.supply_variation_v
             if variation is None:
-                self.notes.append(f"{stage.id}/{opamp.ref}: psrr_db is given but settings.supply_variation_v is "
-                                  "not, so supply rejection is not counted")
+                self.notes.append(f"{stage.id}/{opamp.ref}: the model gives a {WORDS['psrr_db']} but the project "
+                                  f"settings give no {WORDS['supply_variation_v']}, so supply rejection is not "
+                                  "counted")
             elif variation.si > 0:
                 self.add(f"{name} PSRR", "psrr", stage.id, opamp.ref,
                          _unit(size, state, variation.si / 10.0 ** (model.psrr_db.si / 20.0)))
@@ -396,8 +398,9 @@ class _Collector:
         assert low is not None and high is not None
         factors = [bias_current_factor(input_type, end.si) for end in (low, high)]
         if factors[0] is None or factors[1] is None:
-            self.notes.append(f"{stage.id}/{opamp.ref}: the model gives no input_type (cmos, jfet or bipolar), so "
-                              "its bias current is held at the 25 °C value over the temperature range")
+            self.notes.append(f"{stage.id}/{opamp.ref}: the model gives no {WORDS['input_type']} (CMOS, JFET or "
+                              "bipolar), so its "
+                              "bias current is held at the 25 °C value over the temperature range")
             return None
         # The error Ib·R keeps its sign, so its worst case is where Ib is largest; an end where Ib
         # shrinks makes the error smaller, not larger (no drift is counted when both ends do).
@@ -595,8 +598,8 @@ def _budget(place: _Place, solved: _Solved, collector: _Collector, project: Proj
         totals = [wc25, rss25, wc, rss]
     drift: float | None = None
     if delta_t is None:
-        why["drift_out_v_per_c"] = "no operating temperature range is set in the project settings (temp_range_c), so the budget is at 25 °C only"
-        notes.append("no operating temperature range is set in the project settings (temp_range_c): the budget is at 25 °C only")
+        why["drift_out_v_per_c"] = f"no {WORDS['temp_range_c']} is set in the project settings, so the budget is at 25 °C only"
+        notes.append(f"no {WORDS['temp_range_c']} is set in the project settings: the budget is at 25 °C only")
     elif delta_t == 0:
         why["drift_out_v_per_c"] = "the temperature range does not leave 25 °C"
     elif any(item.out_v is None for item in hot):
@@ -607,8 +610,8 @@ def _budget(place: _Place, solved: _Solved, collector: _Collector, project: Proj
         why["signal_out_v"] = zero_gain if not gain_defined else str(place.level_why)
     span = project.settings.temp_range_c
     if not contributions:
-        notes.append("no DC error source is modelled here (no op-amp DC keys, tolerances, temperature "
-                     "coefficients or block errors)")
+        notes.append("no DC error source is modelled here (no op-amp offset or bias figures, tolerances, "
+                     "temperature coefficients or block errors)")
     notes.append("second-order terms (a part's tolerance or tempco acting on an offset path, products of two "
                  "errors) are not counted")
     return DcBudget(

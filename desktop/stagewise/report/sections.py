@@ -54,6 +54,7 @@ from stagewise.review.checks import FINDING_WORDS, CheckResult, CheckTotals, aut
 from stagewise.review.metrics import METRICS
 from stagewise.review.signoff import StageSignoffs
 from stagewise.review.words import (
+    FIELD_WORDS,
     REPLACED_WORD,
     SIGNOFF_STATE_MEANINGS,
     VERDICT_WORDS,
@@ -1018,8 +1019,9 @@ def _readable(key: str, value: Any) -> str:
         return f"{value:g}"
     if isinstance(value, dict):
         if "subject" in value and "kind" in value:  # one change of a part-change event
-            field = f" {value['field']}" if value.get("field") else ""
-            words = f"{value.get('stage', '')}: {value['subject']}{field} {value['kind']}".strip(": ")
+            field = f" {FIELD_WORDS.get(str(value['field']), value['field'])}" if value.get("field") else ""
+            # A change outside any stage (an op-amp model, a setting) has stage null: no prefix.
+            words = f"{value.get('stage') or ''}: {value['subject']}{field} {value['kind']}".strip(": ")
             if value.get("old") is not None and value.get("new") is not None:
                 words += f" from {value['old']} to {value['new']}"
             elif value.get("new") is not None:

@@ -12,6 +12,7 @@ from typing import Final
 __all__ = [
     "ANSWER_WORDS",
     "CHECK_STATE_MEANINGS",
+    "FIELD_WORDS",
     "FOUR_EYES_WORD",
     "PASSING_STATES",
     "OLDER_VERDICTS",
@@ -111,4 +112,34 @@ WHERE_WORDS: Final[dict[str, str]] = {
     "in_chain": "in chain",
     "from_input": "from the chain input",
     "chain": "whole chain",
+}
+
+
+# Op-amp model fields and project settings as a reader names them, for notes, reasons and the
+# audit trail's change lines (the file keys stay in the file and in its error messages, which
+# need the JSON path).
+FIELD_WORDS: Final[dict[str, str]] = {
+    "description": "description",
+    "a0_db": "open-loop gain",
+    "gbw_hz": "gain-bandwidth product",
+    "p2_hz": "second pole",
+    "rout_ohm": "output resistance",
+    "rin_ohm": "differential input resistance",
+    "cin_diff_f": "differential input capacitance",
+    "cin_cm_f": "common-mode input capacitance",
+    "en_v_rthz": "input voltage noise density",
+    "en_corner_hz": "voltage noise 1/f corner",
+    "in_a_rthz": "input current noise density",
+    "in_corner_hz": "current noise 1/f corner",
+    "swing_v": "output swing",
+    "slew_v_per_s": "slew rate",
+    "input_type": "input stage type",
+    "vos_v": "input offset voltage",
+    "vos_drift_v_per_c": "input offset voltage drift",
+    "ib_a": "input bias current",
+    "ios_a": "input offset current",
+    "cmrr_db": "common-mode rejection ratio",
+    "psrr_db": "power-supply rejection ratio",
+    "supply_variation_v": "supply variation",
+    "temp_range_c": "operating temperature range",
 }
