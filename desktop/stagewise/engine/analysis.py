@@ -512,16 +512,28 @@ class ProjectAnalysis:
         listed in ``not_evaluated`` with the reason. The yield is the share of samples that meet
         every counted check; ``limits`` says, per check, how many samples met it.
         """
-        from stagewise.engine.spread import monte_carlo, spread_to_json  # noqa: PLC0415
+        from stagewise.engine.spread import Readout, monte_carlo, spread_to_json  # noqa: PLC0415
 
         merged = self.merged
         if isinstance(merged, _Failure):
             return merged
         plan, skipped = self._yield_plan()
         chain_limits = plan.pop(("chain", ""), [])
+        # The places whose pencil is the merged chain's (every stage seen from the chain input,
+        # the first stage in chain when it takes the chain's drive) are read from the chain's
+        # own solves: other outputs of the same samples.
+        shared: dict[tuple[str, str], Any] = {}
+        failed: dict[tuple[str, str], _Failure] = {}
+        for (where, stage_id), limits in plan.items():
+            output = self._shared_output(where, stage_id)
+            if isinstance(output, _Failure):
+                failed[(where, stage_id)] = output
+            elif output is not None:
+                shared[(where, stage_id)] = Readout(output, tuple(limits))
         try:
             result = monte_carlo(merged.system, self.project, current_drive=merged.current_drive,
-                                 limits=chain_limits)
+                                 limits=chain_limits, readouts={f"{where}/{stage_id}": readout
+                                                                for (where, stage_id), readout in shared.items()})
         except (ValueError, np.linalg.LinAlgError) as error:
             return _Failure(f"the spread analysis failed: {error}")
         document = spread_to_json(result)
@@ -530,7 +542,13 @@ class ProjectAnalysis:
             self._count(limit, result.sample_values, counted, skipped)
         by_ref = dict(zip(result.parts, result.sample_values.multipliers.T, strict=True))
         for (where, stage_id), limits in plan.items():
-            place = self._place_samples(where, stage_id, by_ref, limits)
+            place: Any
+            if (where, stage_id) in failed:
+                place = failed[(where, stage_id)]
+            elif (where, stage_id) in shared:
+                place = result.readouts[f"{where}/{stage_id}"]
+            else:
+                place = self._place_samples(where, stage_id, by_ref, limits)
             if isinstance(place, _Failure):
                 skipped += [(limit.label, place.why) for limit in limits]
                 continue
@@ -563,9 +581,25 @@ class ProjectAnalysis:
         except KeyError as error:
             skipped.append((limit.label, str(error.args[0]) if error.args else "not sampled"))
 
+    def _shared_output(self, where: str, stage_id: str) -> int | _Failure | None:
+        """The output index in the merged chain of a place whose pencil is the chain's, else None."""
+        merged = self.merged
+        stage = self.project.stage(stage_id)
+        if isinstance(merged, _Failure) or stage is None or where not in ("from_input", "in_chain"):
+            return None
+        if stage.bypass:
+            return _Failure(f'stage "{stage_id}" is bypassed: its parts are not sampled with the chain')
+        position = merged.stage_ids.index(stage_id)
+        if where == "in_chain":
+            built = self._in_chain_system(stage_id)
+            if isinstance(built, _Failure) or built[1] != merged.current_drive or not _same_pencil(
+                    built[0], merged.system):
+                return None
+        return int(merged.interface_indices[position + 1])
+
     def _place_samples(self, where: str, stage_id: str, by_ref: dict[str, Any], limits: list[Any]) -> Any:
         """The per-sample metrics of a stage isolated or in chain, with the chain's part values."""
-        from stagewise.engine.spread import monte_carlo  # noqa: PLC0415
+        from stagewise.engine.spread import Readout, place_samples  # noqa: PLC0415
 
         stage = self.project.stage(stage_id)
         assert stage is not None
@@ -589,12 +623,11 @@ class ProjectAnalysis:
             system, current, prefix = built[0], built[1], ""
         mapped = {ref[len(prefix):]: values for ref, values in by_ref.items() if ref.startswith(prefix)}
         try:
-            result = monte_carlo(system, self.project, current_drive=current, limits=limits, worst_case=False,
-                                 phase_margins=any(limit.metric == "phase_margin_deg" for limit in limits),
-                                 multipliers_by_ref=mapped)
+            places = place_samples(system, self.project, current_drive=current, multipliers_by_ref=mapped,
+                                   readouts={"place": Readout(system.output_index, tuple(limits))})
         except (ValueError, np.linalg.LinAlgError) as error:
             return _Failure(f"the spread of stage \"{stage_id}\" {PLACE_WORDS[where]} failed: {error}")
-        return result.sample_values
+        return places["place"]
 
     def _yield_plan(self) -> tuple[dict[tuple[str, str], list[Any]], list[tuple[str, str]]]:
         """Every numeric check as a per-sample limit at its place, or the reason it cannot be one."""
@@ -1177,6 +1210,13 @@ class ProjectAnalysis:
                                     for item in self.measurements]
         ready: dict[str, Any] = _json_ready(document)
         return ready
+
+
+def _same_pencil(first: StageSystem, second: StageSystem) -> bool:
+    """Whether two assembled systems are the same circuit (unknowns, matrices and input)."""
+    return (first.unknowns == second.unknowns and first.input_index == second.input_index
+            and np.array_equal(first.g, second.g) and np.array_equal(first.c, second.c)
+            and first.elements == second.elements)
 
 
 def _sampled_attenuation(samples: Any, at_hz: float) -> NDArray[np.float64]:

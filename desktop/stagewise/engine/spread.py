@@ -67,7 +67,10 @@ from stagewise.model.project import Project
 __all__ = [
     "DEFAULT_PERCENTILES",
     "METRIC_KEYS",
+    "Meter",
     "MetricSpread",
+    "Readout",
+    "SpreadCancelled",
     "SpreadResult",
     "SpreadSamples",
     "ToleranceModel",
@@ -75,6 +78,7 @@ __all__ = [
     "YieldLimit",
     "corners_3db",
     "monte_carlo",
+    "place_samples",
     "sample_multipliers",
     "sampled_response",
     "spread_to_json",
@@ -95,21 +99,94 @@ PARALLEL_MATRICES = 512
 _pool: list[ThreadPoolExecutor] = []  # created on first use, shared by every analysis (stateless)
 
 
-def _in_chunks(count: int, chunk: int, solve_rows: Callable[[int, int], None], matrices_per_row: int = 1) -> None:
-    """Call ``solve_rows(start, stop)`` over ``range(count)`` in chunks, on up to WORKERS threads."""
+class SpreadCancelled(Exception):  # noqa: N818 - reads as "the spread was cancelled"
+    """The progress callback asked the Monte Carlo to stop; no result is made of the samples done.
+
+    ``done`` and ``total`` are the last figures the callback was given (units of work, see
+    :class:`Meter`).
+    """
+
+    def __init__(self, done: int, total: int) -> None:
+        super().__init__(f"cancelled after {done} of {total} units of work")
+        self.done = done
+        self.total = total
+
+
+Progress = Callable[[int, int], bool | None]
+
+
+class Meter:
+    """Counts the Monte Carlo's work for a progress callback ``progress(done, total) -> bool``.
+
+    The callback is called in the thread that runs the analysis (never from the pool's threads),
+    between chunks of samples, with ``done`` never decreasing and at most ``total``; returning
+    True cancels: the running call raises :class:`SpreadCancelled` at the next chunk boundary.
+    A unit is one sample carried through one pass (the sweep, the corners, the loop gains, the
+    stability); :meth:`plan` adds passes, so ``total`` grows only before the work is counted.
+    """
+
+    def __init__(self, progress: Progress | None) -> None:
+        self.progress = progress
+        self.done = 0
+        self.total = 0
+
+    def plan(self, units: int) -> None:
+        """Announce ``units`` more units of work (before they are done)."""
+        self.total += max(0, int(units))
+
+    def advance(self, units: int) -> None:
+        """Count ``units`` as done and ask the callback whether to go on."""
+        self.done = min(self.total, self.done + max(0, int(units)))
+        self.check()
+
+    def finish_pass(self, upto: int) -> None:
+        """Count the work up to ``upto`` units as done (the end of a pass counted as a whole)."""
+        self.advance(max(0, upto - self.done))
+
+    def check(self) -> None:
+        """Ask the callback; raise :class:`SpreadCancelled` when it says stop."""
+        if self.progress is not None and self.progress(self.done, self.total):
+            raise SpreadCancelled(self.done, self.total)
+
+
+def _in_chunks(count: int, chunk: int, solve_rows: Callable[[int, int], None], matrices_per_row: int = 1,
+               meter: Meter | None = None) -> None:
+    """Call ``solve_rows(start, stop)`` over ``range(count)`` in chunks, on up to WORKERS threads.
+
+    With a ``meter``, each chunk's rows are counted as done once it has finished (in this
+    thread); a cancel stops the chunks not yet started and waits for the running ones.
+    """
     parallel = WORKERS > 1 and count * matrices_per_row >= PARALLEL_MATRICES
     if parallel:
         chunk = min(chunk, -(-count // WORKERS))
+        if meter is not None:
+            # Small enough for a prompt progress and cancel, large enough to keep the threads fed.
+            chunk = min(chunk, max(1, -(-count // (4 * WORKERS))))
     chunk = max(1, chunk)
     bounds = [(start, min(start + chunk, count)) for start in range(0, count, chunk)]
     if not parallel or len(bounds) == 1:
         for start, stop in bounds:
             solve_rows(start, stop)
+            if meter is not None:
+                meter.advance(stop - start)
         return
     if not _pool:
         _pool.append(ThreadPoolExecutor(WORKERS, thread_name_prefix="stagewise-spread"))
-    for future in [_pool[0].submit(solve_rows, start, stop) for start, stop in bounds]:
-        future.result()  # re-raises a chunk's CircuitError here
+    futures = [_pool[0].submit(solve_rows, start, stop) for start, stop in bounds]
+    try:
+        for future, (start, stop) in zip(futures, bounds, strict=True):
+            future.result()  # re-raises a chunk's CircuitError here
+            if meter is not None:
+                meter.advance(stop - start)
+    except BaseException:
+        for future in futures:
+            future.cancel()
+        for future in futures:  # no chunk still writes when the caller goes on
+            if not future.cancelled():
+                future.exception()
+        raise
+
+
 REFINE_STEPS = 12
 # The Monte Carlo's cost bound. Each sample costs about one (terms × terms) solve per frequency
 # (and per loop, for the phase margins): work ≈ samples · frequencies · max(terms, 12)³ · (1 +
@@ -148,6 +225,8 @@ def _bounded_samples(model: ToleranceModel, asked: int, frequencies: int, phase_
 SENSITIVITY_STEP = 1e-4
 METRIC_KEYS = ("gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz", "phase_margin_deg")
 WORST_CASE_KEYS = ("gain_db", "f_low_3db_hz", "f_high_3db_hz")
+# The metrics read from the whole sweep (the others are point gains or loop figures).
+BAND_METRICS = ("peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz")
 HALF_POWER_DB = 10.0 * math.log10(2.0)  # the "−3 dB" corner is the half-power point, 3.0103 dB down
 
 
@@ -327,19 +406,24 @@ def _merged_terms(model: ToleranceModel) -> tuple[NDArray[np.float64], NDArray[n
 
 def _woodbury_output(
     model: ToleranceModel, g0: NDArray[np.float64], c0: NDArray[np.float64], rhs: NDArray[np.float64],
-    out_vector: NDArray[np.float64], multipliers: NDArray[np.float64], f_hz: NDArray[np.float64],
+    out_vectors: NDArray[np.float64], multipliers: NDArray[np.float64], f_hz: NDArray[np.float64],
+    meter: Meter | None = None,
 ) -> NDArray[np.complex128]:
     """``out_vectorᵀ·M(m, s)⁻¹·rhs`` for every sample and frequency, by a low-rank update.
 
     ``M(m, s) = M0(s) + L·D(m, s)·Rᵀ`` with one rank-one term per toleranced part (Woodbury):
     ``M⁻¹ = M0⁻¹ − M0⁻¹·L·(I + D·Rᵀ·M0⁻¹·L)⁻¹·D·Rᵀ·M0⁻¹``. The nominal solves are done once per
     frequency; each sample then costs a (parts × parts) solve instead of an (n × n) one.
+    ``out_vectors`` is one readout (n,), giving (samples, frequencies), or several (k, n),
+    giving (k, samples, frequencies): the solves are shared, only the readouts differ.
 
     References
     ----------
     M. A. Woodbury, "Inverting modified matrices", Memorandum Report 42, Statistical Research
     Group, Princeton University, 1950.
     """
+    single = out_vectors.ndim == 1
+    readers = np.atleast_2d(out_vectors)
     left, right, groups = _merged_terms(model)
     parts = left.shape[1]
     s = 1j * TWO_PI * f_hz
@@ -351,18 +435,21 @@ def _woodbury_output(
         raise CircuitError("the nominal circuit cannot be solved (singular matrix): a floating node "
                            "or a loop of voltage sources") from error
     x0, z = solved[:, :, 0], solved[:, :, 1:]
-    y0 = x0 @ out_vector  # (F,)
+    y0 = [x0 @ reader for reader in readers]  # (F,) each
+    count = multipliers.shape[0]
+    out = np.empty((len(readers), count, f_hz.size), dtype=complex)
     if parts == 0:
-        return np.asarray(np.broadcast_to(y0[None, :], (multipliers.shape[0], f_hz.size)), dtype=complex).copy()
-    h = np.einsum("n,fnp->fp", out_vector, z)
+        out[...] = np.array(y0)[:, None, :]
+        if meter is not None:
+            meter.advance(count)
+        return out[0] if single else out
+    h = [np.einsum("n,fnp->fp", reader, z) for reader in readers]
     kernel = np.einsum("nq,fnp->fqp", right, z)  # Rᵀ·M0⁻¹·L, (F, Q, Q)
     w = x0 @ right  # Rᵀ·M0⁻¹·rhs, (F, Q)
     # d_q(sample, s) = a_q + s·b_q: the G-parts and the C-parts of each term, per sample.
     weighted = (multipliers ** model.powers[None, :] - 1.0) * model.coefficients[None, :]  # (S, P)
     constant = (weighted * ~model.capacitive[None, :]) @ groups  # (S, Q)
     slope = (weighted * model.capacitive[None, :]) @ groups  # (S, Q)
-    count = multipliers.shape[0]
-    out = np.empty((count, f_hz.size), dtype=complex)
     chunk = max(1, int(CHUNK_BYTES // (f_hz.size * parts * parts * 16)))
     def solve_rows(start: int, stop: int) -> None:  # a chunk of many samples, bounded memory
         d = constant[start:stop, None, :] + s[None, :, None] * slope[start:stop, None, :]  # (S, F, Q)
@@ -373,23 +460,30 @@ def _woodbury_output(
         except np.linalg.LinAlgError as error:
             raise CircuitError("a sampled circuit cannot be solved (singular matrix): "
                                "a tolerance drives a part to zero or the circuit floats") from error
-        out[start:stop] = y0[None, :] - np.einsum("fp,sfp->sf", h, v)
+        for number in range(len(readers)):  # one readout each: the solve above is shared
+            out[number, start:stop] = y0[number][None, :] - np.einsum("fp,sfp->sf", h[number], v)
 
-    _in_chunks(count, chunk, solve_rows, f_hz.size)
-    return out
+    _in_chunks(count, chunk, solve_rows, f_hz.size, meter)
+    return out[0] if single else out
 
 
 def sampled_response(model: ToleranceModel, multipliers: NDArray[np.float64],
-                     f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+                     f_hz: NDArray[np.float64], outputs: Sequence[int] | None = None,
+                     meter: Meter | None = None) -> NDArray[np.complex128]:
     """Drive -> output transfer of every sample: shape (samples, frequencies).
 
     ``f_hz`` is shared (frequencies,): low-rank updates of the nominal solves; or per sample
-    (samples, k): dense solves of each sample's matrices.
+    (samples, k): dense solves of each sample's matrices. ``outputs`` (shared frequencies
+    only): read these unknowns instead of the model's output, from the same solves; the shape
+    is then (outputs, samples, frequencies).
     """
     f_hz = np.asarray(f_hz, dtype=float)
+    if outputs is not None:
+        readers = np.array([_unit(model.size, index) for index in outputs]).reshape(len(outputs), model.size)
+        return _woodbury_output(model, model.g0, model.c0, model.b, readers, multipliers, f_hz, meter)
     if f_hz.ndim == 1:
         return _woodbury_output(model, model.g0, model.c0, model.b, _unit(model.size, model.output),
-                                multipliers, f_hz)
+                                multipliers, f_hz, meter)
     g, c = model.matrices(multipliers)
     output = model.output
     return _solve_output(g, c, model.b, lambda x: x[..., output], f_hz)
@@ -593,6 +687,9 @@ class SpreadSamples:
     pass_gain_db: NDArray[np.float64] | None = None  # each sample's pass-band gain (corners' reference)
     # False for a sample with a pole right of the jω axis: it meets no limit (None: not decided).
     stable: NDArray[np.bool_] | None = None
+    # False when only point gains were evaluated (the checks of this place read no band figure):
+    # then ``response`` is empty and the band metrics are not available (``metric`` says so).
+    band: bool = True
 
     def metric(self, key: str, at_hz: float | None = None, opamp: str | None = None) -> NDArray[np.float64]:
         """The samples of a metric named by a DESIGN section 6 key (see ``METRIC_KEYS``).
@@ -616,6 +713,8 @@ class SpreadSamples:
             if not self.phase_margin_deg:
                 return np.full(self.gain_db.shape, np.nan)
             return np.asarray(np.min(np.vstack(list(self.phase_margin_deg.values())), axis=0), dtype=float)
+        if key in BAND_METRICS and not self.band:
+            raise KeyError(f"{key} was not evaluated at this place (only point gains were asked for)")
         if key in ("gain_db", "peak_gain_db", "peaking_db", "f_low_3db_hz", "f_high_3db_hz"):
             return np.asarray(getattr(self, key), dtype=float)
         raise KeyError(f'"{key}" is not a metric of the spread analysis')
@@ -719,6 +818,8 @@ class SpreadResult:
     limit_pass_count: tuple[tuple[str, int], ...] = ()
     not_evaluated: tuple[tuple[str, str], ...] = ()
     notes: tuple[str, ...] = field(default_factory=tuple)
+    # The per-sample values at the other outputs asked for (``monte_carlo(readouts=...)``).
+    readouts: dict[str, SpreadSamples] = field(default_factory=dict)
 
 
 @dataclass(frozen=True, slots=True)
@@ -756,30 +857,100 @@ def nominal_passband(system: StageSystem, project: Project, current_drive: bool,
     return Passband("at", float(reference.f_hz or f_hz[0]))
 
 
+@dataclass(frozen=True, slots=True)
+class _Readout:
+    """One output of a sampled system and where its metrics are read (see ``_evaluate_readouts``).
+
+    ``band``: the whole sweep and the band metrics (peak, peaking, corners) are wanted; when
+    False only the gains at ``ref_hz``, ``extra_f_hz`` and the pass band are solved.
+    """
+
+    output: int
+    ref_hz: float
+    extra_f_hz: NDArray[np.float64]
+    passband: Passband | None
+    band: bool = True
+
+
 def _evaluate_samples(
     model: ToleranceModel, multipliers: NDArray[np.float64], f_hz: NDArray[np.float64], ref_hz: float,
     extra_f_hz: NDArray[np.float64], loop_grids: dict[str, tuple[NDArray[np.float64], float]],
-    passband: Passband | None = None,
+    passband: Passband | None = None, meter: Meter | None = None,
 ) -> SpreadSamples:
-    """All metrics of all samples: one batched sweep, then batched corner and crossover refinement.
+    """All metrics of all samples at the model's output (see :func:`_evaluate_readouts`)."""
+    readout = _Readout(model.output, ref_hz, extra_f_hz, passband)
+    return _evaluate_readouts(model, multipliers, f_hz, [readout], loop_grids, meter)[0]
 
-    Corners and peaking are taken against each sample's pass-band gain where ``passband`` is
-    given (read where the nominal's reference is), else against the gain at ``ref_hz``.
+
+def _evaluate_readouts(
+    model: ToleranceModel, multipliers: NDArray[np.float64], f_hz: NDArray[np.float64],
+    readouts: Sequence[_Readout], loop_grids: dict[str, tuple[NDArray[np.float64], float]],
+    meter: Meter | None = None,
+) -> list[SpreadSamples]:
+    """The metrics of all samples at several outputs of one system: one batched sweep shared by
+    every output, then batched corner refinement per output; the phase margins (a property of
+    the system, not of the output) once.
+
+    Corners and peaking are taken against each sample's pass-band gain where the readout's
+    ``passband`` is given (read where the nominal's reference is), else against the gain at
+    ``ref_hz``. A meter counts :func:`_readout_units` (planned by the caller): one pass for the
+    sweep, one for the corners, one for the loops.
     """
     count = multipliers.shape[0]
-    pass_f = [] if passband is None else [passband.f_hz]
-    grid = np.concatenate([f_hz, [ref_hz], extra_f_hz, pass_f])
-    response_all = sampled_response(model, multipliers, grid)
-    response = response_all[:, : f_hz.size]
-    ref_response = response_all[:, f_hz.size]
-    extra = response_all[:, f_hz.size + 1: f_hz.size + 1 + extra_f_hz.size]
+    band = any(readout.band for readout in readouts)
+    pieces: list[NDArray[np.float64]] = [f_hz] if band else []
+    offsets: list[int] = []
+    for readout in readouts:  # each readout's point frequencies after the shared sweep
+        offsets.append(sum(piece.size for piece in pieces))
+        pass_f = [] if readout.passband is None else [readout.passband.f_hz]
+        pieces.append(np.concatenate([[readout.ref_hz], readout.extra_f_hz, pass_f]))
+    grid = np.concatenate(pieces)
+    base = 0 if meter is None else meter.done
+    swept = sampled_response(model, multipliers, grid, [readout.output for readout in readouts], meter)
+    dense = _DenseCache(model, multipliers)
+    results: list[SpreadSamples] = []
+    for readout, offset, response_all in zip(readouts, offsets, swept, strict=True):
+        extra_end = offset + 1 + readout.extra_f_hz.size
+        ref_response = response_all[:, offset]
+        extra = response_all[:, offset + 1: extra_end]
+        with np.errstate(divide="ignore"):
+            gain_db = 20.0 * np.log10(np.abs(ref_response))
+            pass_db = gain_db if readout.passband is None else 20.0 * np.log10(np.abs(response_all[:, extra_end]))
+        if readout.band:
+            response = response_all[:, : f_hz.size]
+            peak, corners = _band_metrics(replace(model, output=readout.output), dense, f_hz, response, pass_db,
+                                          readout, meter)
+        else:
+            response = np.zeros((count, 0), dtype=complex)
+            peak = np.full(count, np.nan)
+            corners = [np.full(count, np.nan), np.full(count, np.nan)]
+        results.append(SpreadSamples(
+            multipliers=multipliers, f_hz=f_hz if readout.band else np.zeros(0), response=response,
+            ref_hz=readout.ref_hz, gain_db=gain_db, peak_gain_db=peak, peaking_db=np.maximum(peak - pass_db, 0.0),
+            f_low_3db_hz=corners[0], f_high_3db_hz=corners[1], phase_margin_deg={},
+            extra_f_hz=readout.extra_f_hz, extra_response=extra, pass_gain_db=pass_db, band=readout.band,
+        ))
+    if meter is not None:  # the caller planned _readout_units of work for this call
+        meter.finish_pass(base + count * (1 + band))
+    margins = _sampled_phase_margins(model, multipliers, dense, loop_grids, meter)
+    if meter is not None:
+        meter.finish_pass(base + _readout_units(count, readouts, bool(loop_grids)))
+    return [replace(result, phase_margin_deg=margins) for result in results]
+
+
+def _band_metrics(
+    model: ToleranceModel, dense: _DenseCache, f_hz: NDArray[np.float64], response: NDArray[np.complex128],
+    pass_db: NDArray[np.float64], readout: _Readout, meter: Meter | None,
+) -> tuple[NDArray[np.float64], list[NDArray[np.float64]]]:
+    """Each sample's peak gain on the grid and its −3 dB corners, refined (both corners of every
+    sample together, one batched solve per step)."""
+    count = response.shape[0]
+    passband = readout.passband
     with np.errstate(divide="ignore"):
         mag_db = 20.0 * np.log10(np.abs(response))
-        gain_db = 20.0 * np.log10(np.abs(ref_response))
-        pass_db = gain_db if passband is None else 20.0 * np.log10(np.abs(response_all[:, -1]))
     peak = np.max(mag_db, axis=1)
     if passband is None or passband.kind == "at":
-        anchor = ref_hz if passband is None else passband.f_hz
+        anchor = readout.ref_hz if passband is None else passband.f_hz
         ref_index = int(np.argmin(np.abs(np.log(f_hz / anchor))))
     else:
         ref_index = 0 if passband.kind == "dc" else f_hz.size - 1
@@ -789,11 +960,9 @@ def _evaluate_samples(
     if passband is not None and passband.kind == "hf":
         hi_a = np.full_like(hi_a, np.nan)  # the pass band reaches infinity: no upper corner
 
-    dense = _DenseCache(model, multipliers)
     ln_f = np.log(f_hz)
     with np.errstate(invalid="ignore"):
         excess_grid = mag_db - (pass_db[:, None] - HALF_POWER_DB)
-    # Both corners of every sample refined together: one batched solve per step.
     low_rows, high_rows = np.flatnonzero(np.isfinite(lo_a)), np.flatnonzero(np.isfinite(hi_a))
     rows = np.concatenate([low_rows, high_rows])
     f_a, f_b = np.concatenate([lo_a[low_rows], hi_a[high_rows]]), np.concatenate([lo_b[low_rows], hi_b[high_rows]])
@@ -805,6 +974,8 @@ def _evaluate_samples(
         output = _unit(model.size, model.output)
 
         def excess(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
+            if meter is not None:
+                meter.check()
             values = _dense_readout(g, c, rows[subset], rows[subset], model.b, output, frequencies)
             with np.errstate(divide="ignore"):
                 result: NDArray[np.float64] = 20.0 * np.log10(np.abs(values)) - target[subset]
@@ -815,13 +986,7 @@ def _evaluate_samples(
     corners = [np.full(count, np.nan), np.full(count, np.nan)]
     corners[0][low_rows] = found[: low_rows.size]
     corners[1][high_rows] = found[low_rows.size:]
-    margins = _sampled_phase_margins(model, multipliers, dense, loop_grids)
-    return SpreadSamples(
-        multipliers=multipliers, f_hz=f_hz, response=response, ref_hz=ref_hz, gain_db=gain_db,
-        peak_gain_db=peak, peaking_db=np.maximum(peak - pass_db, 0.0),
-        f_low_3db_hz=corners[0], f_high_3db_hz=corners[1], phase_margin_deg=margins,
-        extra_f_hz=extra_f_hz, extra_response=extra, pass_gain_db=pass_db,
-    )
+    return peak, corners
 
 
 class _DenseCache:
@@ -871,7 +1036,8 @@ def _dense_readout(
 
 
 def _sampled_phase_margins(model: ToleranceModel, multipliers: NDArray[np.float64], dense: _DenseCache,
-                           loop_grids: dict[str, tuple[NDArray[np.float64], float]]) -> dict[str, NDArray[np.float64]]:
+                           loop_grids: dict[str, tuple[NDArray[np.float64], float]],
+                           meter: Meter | None = None) -> dict[str, NDArray[np.float64]]:
     """Phase margin of every op-amp in every sample: bracket |T| = 1 on the grid, refine, read ∠T.
 
     ``loop_grids`` maps op-amp ref -> (grid around its nominal crossover, nominal margin); the
@@ -885,6 +1051,8 @@ def _sampled_phase_margins(model: ToleranceModel, multipliers: NDArray[np.float6
     margins = {opamp.ref: np.full(count, np.nan) for opamp in opamps}
     samples, slots, f_a, f_b, v_a, v_b, guesses, slopes = ([] for _ in range(8))
     for slot, opamp in enumerate(opamps):
+        if meter is not None:
+            meter.check()
         loop_grid = loop_grids[opamp.ref][0]
         magnitude = np.abs(_loop_values(model, multipliers, opamp, loop_grid))
         above = magnitude >= 1.0
@@ -927,6 +1095,8 @@ def _sampled_phase_margins(model: ToleranceModel, multipliers: NDArray[np.float6
                               frequencies)
 
     def log_magnitude_at(subset: NDArray[np.intp], frequencies: NDArray[np.float64]) -> NDArray[np.float64]:
+        if meter is not None:
+            meter.check()
         loop = loop_at(subset, frequencies)
         last_loop[subset] = loop
         result: NDArray[np.float64] = np.log(np.abs(loop))
@@ -1051,6 +1221,68 @@ def _default_loop_grids(model: ToleranceModel) -> dict[str, tuple[NDArray[np.flo
     return grids
 
 
+@dataclass(frozen=True, slots=True)
+class Readout:
+    """Another output of the sampled system, read from the same solves and the same draws.
+
+    ``output`` is the index of the unknown read (a stage's output interface in the merged
+    chain); ``limits`` are the checks read there. Only what they need is evaluated there: point
+    gains alone need no sweep; the band metrics (peak, peaking, corners) need the whole sweep.
+    """
+
+    output: int
+    limits: tuple[YieldLimit, ...] = ()
+
+
+# Limits that read no more than gains at points (and the pass-band gain): no sweep needed.
+_POINT_METRICS = ("gain_db", "attenuation_db", "phase_margin_deg")
+
+
+def _readout_plans(
+    system: StageSystem, project: Project, model: ToleranceModel, current_drive: bool, f_hz: NDArray[np.float64],
+    readouts: Sequence[Readout], always_band: int | None = None,
+) -> list[_Readout]:
+    """Where each readout's metrics are read: its reference frequency (``settings.ref_hz``, else
+    its own nominal band maximum), the frequencies its limits name, and its pass band where a
+    limit reads it. ``always_band``: the position of a readout whose band is wanted anyway."""
+    settings = project.settings
+    if settings.ref_hz is not None:
+        references = [float(settings.ref_hz.si)] * len(readouts)
+    else:  # the nominal band maximum of each output, one nominal sweep for all of them
+        nominal = sampled_response(model, np.ones((1, len(model.refs))), f_hz,
+                                   [readout.output for readout in readouts])[:, 0, :]
+        references = [float(f_hz[int(np.argmax(np.abs(row)))]) for row in nominal]
+    plans = []
+    for number, (readout, ref_hz) in enumerate(zip(readouts, references, strict=True)):
+        limits = readout.limits
+        extra = np.array(sorted({float(limit.at_hz) for limit in limits if limit.at_hz is not None}), dtype=float)
+        band = number == always_band or any(limit.metric not in _POINT_METRICS for limit in limits)
+        needs_pass = band or any(limit.metric not in ("gain_db", "phase_margin_deg") for limit in limits)
+        passband = (nominal_passband(replace(system, output_index=readout.output), project, current_drive, f_hz)
+                    if needs_pass else None)
+        plans.append(_Readout(readout.output, ref_hz, extra, passband, band))
+    return plans
+
+
+def _given_multipliers(model: ToleranceModel, multipliers_by_ref: Mapping[str, NDArray[np.float64]],
+                       count: int) -> NDArray[np.float64]:
+    missing = [ref for ref in model.refs if ref not in multipliers_by_ref]
+    if missing:
+        raise ValueError(f"no sampled values for {', '.join(missing)}")
+    return np.column_stack([np.asarray(multipliers_by_ref[ref], dtype=float) for ref in model.refs]) \
+        if model.refs else np.ones((count, 0))
+
+
+def _readout_units(count: int, plans: Sequence[_Readout], loops: bool) -> int:
+    """The meter's units of one ``_evaluate_readouts`` call: the sweep, the corners, the loops."""
+    return count * (1 + any(plan.band for plan in plans) + loops)
+
+
+def _stability_bounded(model: ToleranceModel, count: int) -> bool:
+    """Whether the per-sample stability of ``count`` samples fits its share of the bound."""
+    return float(count) * STABILITY_WORK * float(model.size) ** 3 <= WORK_BOUND / 4
+
+
 def monte_carlo(
     system: StageSystem,
     project: Project,
@@ -1065,6 +1297,8 @@ def monte_carlo(
     phase_margins: bool = True,
     worst_case: bool = True,
     multipliers_by_ref: Mapping[str, NDArray[np.float64]] | None = None,
+    readouts: Mapping[str, Readout] | None = None,
+    progress: Progress | None = None,
 ) -> SpreadResult:
     """Monte Carlo spread over part tolerances, worst case and yield.
 
@@ -1094,11 +1328,23 @@ def monte_carlo(
         The samples' part multipliers by part ref (each of shape (samples,)), instead of drawing
         them: so a stage alone and the chain it sits in are sampled with the same part values.
         Every toleranced part of the system must be in it.
+    readouts : mapping of str to Readout, optional
+        Other outputs of the same system (a stage's output in the chain) with their limits:
+        read from the same solves, samples and stability; ``SpreadResult.readouts`` holds their
+        per-sample values under the same keys (the phase margins are the system's).
+    progress : callable, optional
+        ``progress(done, total) -> bool``, called between chunks of samples in the calling
+        thread (see :class:`Meter`); returning True stops the run with :class:`SpreadCancelled`.
 
     Returns
     -------
     SpreadResult
         Magnitudes in dB, phases in degrees (unwrapped per sample), frequencies in hertz.
+
+    Raises
+    ------
+    SpreadCancelled
+        The progress callback asked to stop; nothing of the samples done is returned.
     """
     settings = project.settings
     count = settings.mc_samples if samples is None else samples
@@ -1109,48 +1355,47 @@ def monte_carlo(
     if f_hz is None:
         f_hz = np.logspace(math.log10(settings.f_min_hz.si), math.log10(settings.f_max_hz.si), DEFAULT_POINTS)
     f_hz = np.asarray(f_hz, dtype=float)
+    meter = Meter(progress)
     model = tolerance_model(system, current_drive=current_drive)
     notes = list(model.notes)
     count = _bounded_samples(model, count, f_hz.size, phase_margins, notes)
     notes.append("op-amp model parameters are held at nominal")
     if not model.refs:
         notes.append("no part has a tolerance: every sample equals the nominal circuit")
-    extra = np.array(sorted({float(limit.at_hz) for limit in limits if limit.at_hz is not None}), dtype=float)
-    nominal_only = np.ones((1, len(model.refs)))
-    loop_grids = _default_loop_grids(model) if phase_margins else {}
-    # The reference: settings.ref_hz, else the nominal band maximum (fixed for every sample).
-    if settings.ref_hz is not None:
-        ref_hz = float(settings.ref_hz.si)
-    else:
-        nominal_sweep = sampled_response(model, nominal_only, f_hz)[0]
-        ref_hz = float(f_hz[int(np.argmax(np.abs(nominal_sweep)))])
-    passband = nominal_passband(system, project, current_drive, f_hz)
+    others = dict(readouts or {})
+    wanted = [Readout(model.output, tuple(limits)), *others.values()]
+    loop_grids = (_default_loop_grids(model) if phase_margins or any(
+        limit.metric == "phase_margin_deg" for readout in others.values() for limit in readout.limits) else {})
+    plans = _readout_plans(system, project, model, current_drive, f_hz, wanted, always_band=0)
     if multipliers_by_ref is None:
         multipliers = sample_multipliers(model.tol, count, seed_value, law)
     else:
-        missing = [ref for ref in model.refs if ref not in multipliers_by_ref]
-        if missing:
-            raise ValueError(f"no sampled values for {', '.join(missing)}")
-        multipliers = np.column_stack([np.asarray(multipliers_by_ref[ref], dtype=float) for ref in model.refs]) \
-            if model.refs else np.ones((count, 0))
+        multipliers = _given_multipliers(model, multipliers_by_ref, count)
         count = multipliers.shape[0]
-    everything = np.vstack([nominal_only, multipliers])
-    evaluated = _evaluate_samples(model, everything, f_hz, ref_hz, extra, loop_grids, passband)
-    nominal, sampled = _split(evaluated, 1)
-    stability_work = float(count) * STABILITY_WORK * float(model.size) ** 3
-    if limits and stability_work > WORK_BOUND / 4:
+    everything = np.vstack([np.ones((1, len(model.refs))), multipliers])
+    judged = bool(limits) or any(readout.limits for readout in others.values())
+    stability = judged and _stability_bounded(model, count)
+    meter.plan(_readout_units(everything.shape[0], plans, bool(loop_grids)) + (count if stability else 0)
+               + (1 if worst_case and model.refs else 0))
+    evaluated = [_split(values, 1) for values in
+                 _evaluate_readouts(model, everything, f_hz, plans, loop_grids, meter)]
+    nominal, sampled = evaluated[0]
+    placed = {key: values[1] for key, values in zip(others, evaluated[1:], strict=True)}
+    if judged and not stability:
         notes.append(f"the stability of each sample was not checked: {count} eigenproblems of size {model.size} "
-                     f"would take about {stability_work / WORK_BOUND * 8.0:.0f} s; a sample that goes unstable is "
-                     "judged by its response alone")
-    elif limits:
+                     f"would take about {count * STABILITY_WORK * float(model.size) ** 3 / WORK_BOUND * 8.0:.0f} s; "
+                     "a sample that goes unstable is judged by its response alone")
+    elif judged:
         # The yield: a sample that cannot settle meets no check (its H(jω) is no steady state).
         centre_hz = math.sqrt(float(f_hz[0]) * float(f_hz[-1]))
-        stable = sample_stability(model, multipliers, centre_hz)
+        stable = sample_stability(model, multipliers, centre_hz, meter)
         sampled = replace(sampled, stable=stable)
+        placed = {key: replace(values, stable=stable) for key, values in placed.items()}
         unstable = int(np.count_nonzero(~stable))
         if unstable:
             notes.append(f"{unstable} of {count} samples are unstable (a pole right of the jω axis): "
                          "they meet no check")
+    ref_hz, passband = plans[0].ref_hz, plans[0].passband
     mag_db = 20.0 * np.log10(np.abs(sampled.response))
     phase_deg = np.degrees(np.unwrap(np.angle(sampled.response), axis=1))
     nominal_phase = np.degrees(np.unwrap(np.angle(nominal.response[0])))
@@ -1168,7 +1413,9 @@ def monte_carlo(
             "phase_margin_deg", "deg", float(nominal.phase_margin_deg[ref][0]), values, levels)
     worst: dict[str, WorstCase] = {}
     if worst_case and model.refs:
+        meter.check()
         worst = _worst_cases(model, f_hz, ref_hz, nominal, sampled, passband)
+        meter.advance(1)
     yield_pct: float | None = None
     yield_why: str | None = "no check applies to the spread"
     passes: list[tuple[str, float]] = []
@@ -1199,8 +1446,43 @@ def monte_carlo(
         phase_deg_percentiles=np.percentile(phase_deg, levels, axis=0),
         metrics=metrics, worst_case=worst, yield_pct=yield_pct, yield_why=yield_why,
         limit_pass_pct=tuple(passes), sample_values=sampled, limit_pass_count=tuple(counts),
-        not_evaluated=tuple(skipped), notes=tuple(notes),
+        not_evaluated=tuple(skipped), notes=tuple(notes), readouts=placed,
     )
+
+
+def place_samples(
+    system: StageSystem,
+    project: Project,
+    *,
+    current_drive: bool,
+    readouts: Mapping[str, Readout],
+    multipliers_by_ref: Mapping[str, NDArray[np.float64]],
+    f_hz: NDArray[np.float64] | None = None,
+) -> dict[str, SpreadSamples]:
+    """The per-sample values at some outputs of a system, for the limits read there, with given draws.
+
+    What :func:`monte_carlo` gives in ``SpreadResult.readouts``, without the envelopes, metric
+    distributions and worst case of a main output: for a system of its own (a stage isolated or
+    in chain) sampled with the chain's part values. Every output shares one set of solves; only
+    the figures its limits read are evaluated (a gain check needs no sweep); the stability of
+    every sample is judged once for the system.
+    """
+    settings = project.settings
+    if f_hz is None:
+        f_hz = np.logspace(math.log10(settings.f_min_hz.si), math.log10(settings.f_max_hz.si), DEFAULT_POINTS)
+    f_hz = np.asarray(f_hz, dtype=float)
+    model = tolerance_model(system, current_drive=current_drive)
+    count = len(next(iter(multipliers_by_ref.values()))) if multipliers_by_ref else 0
+    multipliers = _given_multipliers(model, multipliers_by_ref, count)
+    wanted = list(readouts.values())
+    loop_grids = (_default_loop_grids(model) if any(limit.metric == "phase_margin_deg" for readout in wanted
+                                                      for limit in readout.limits) else {})
+    plans = _readout_plans(system, project, model, current_drive, f_hz, wanted)
+    evaluated = _evaluate_readouts(model, multipliers, f_hz, plans, loop_grids)
+    if any(readout.limits for readout in wanted) and _stability_bounded(model, multipliers.shape[0]):
+        stable = sample_stability(model, multipliers, math.sqrt(float(f_hz[0]) * float(f_hz[-1])))
+        evaluated = [replace(values, stable=stable) for values in evaluated]
+    return dict(zip(readouts, evaluated, strict=True))
 
 
 STABILITY_CHUNK = 256
@@ -1210,7 +1492,8 @@ STABILITY_CHUNK = 256
 STABILITY_WORK = 100.0
 
 
-def sample_stability(model: ToleranceModel, multipliers: NDArray[np.float64], centre_hz: float) -> NDArray[np.bool_]:
+def sample_stability(model: ToleranceModel, multipliers: NDArray[np.float64], centre_hz: float,
+                     meter: Meter | None = None) -> NDArray[np.bool_]:
     """Whether each sample's closed-loop poles all lie left of the jω axis (right-half-plane test).
 
     The poles of ``G(m) + s·C(m)`` are found for all samples at once from the batched standard
@@ -1218,18 +1501,22 @@ def sample_stability(model: ToleranceModel, multipliers: NDArray[np.float64], ce
     μ of M is a pole ``s = s0 − 1/μ`` (μ ≈ 0 are the infinite eigenvalues of a singular C and are
     left out). A sample is unstable when a pole has ``Re s > STABILITY_RTOL·|s|``; poles at s = 0
     (structural, as the charge behind a series capacitor) and on the axis are left to the
-    nominal verdict. No Python loop per sample: one batched solve and eigvals per chunk.
+    nominal verdict. No Python loop per sample: one batched solve and eigvals per chunk, the
+    chunks on the worker threads (LAPACK releases the interpreter lock).
     """
     from stagewise.engine.timeresp import STABILITY_RTOL  # noqa: PLC0415
 
     count = multipliers.shape[0]
     stable = np.ones(count, dtype=bool)
     if model.size == 0 or not np.any(model.c0) and not np.any(model.capacitive):
+        if meter is not None:
+            meter.advance(count)
         return stable
-    s0 = 1j * 2.0 * math.pi * centre_hz
-    for start in range(0, count, STABILITY_CHUNK):
-        rows = slice(start, min(start + STABILITY_CHUNK, count))
-        g, c = model.matrices(multipliers[rows])
+    centre = 1j * 2.0 * math.pi * centre_hz
+
+    def solve_rows(start: int, stop: int) -> None:
+        s0 = centre
+        g, c = model.matrices(multipliers[start:stop])
         try:
             shifted = np.linalg.solve(g + s0 * c, c.astype(complex))
         except np.linalg.LinAlgError:
@@ -1243,7 +1530,10 @@ def sample_stability(model: ToleranceModel, multipliers: NDArray[np.float64], ce
         poles = s0 - 1.0 / np.where(finite, mu, 1.0)
         magnitude = np.abs(poles)
         right = finite & (magnitude > 1e-9 * abs(s0)) & (poles.real > STABILITY_RTOL * magnitude)
-        stable[rows] = ~np.any(right, axis=1)
+        stable[start:stop] = ~np.any(right, axis=1)
+
+    # An eigenproblem costs far more than a small solve: a sample counts as n matrices.
+    _in_chunks(count, STABILITY_CHUNK, solve_rows, model.size, meter)
     return stable
 
 
@@ -1258,6 +1548,7 @@ def _split(evaluated: SpreadSamples, head: int) -> tuple[SpreadSamples, SpreadSa
             phase_margin_deg={ref: values[rows] for ref, values in evaluated.phase_margin_deg.items()},
             extra_f_hz=evaluated.extra_f_hz, extra_response=evaluated.extra_response[rows],
             pass_gain_db=None if evaluated.pass_gain_db is None else evaluated.pass_gain_db[rows],
+            stable=None if evaluated.stable is None else evaluated.stable[rows], band=evaluated.band,
         )
     return part(slice(0, head)), part(slice(head, None))
 
