@@ -64,6 +64,9 @@ class Context:
         # them: see ProjectAnalysis), and the steps drawn from in-chain analyses already seen.
         self.analysis_memo: dict[tuple[Any, ...], Any] = {}
         self.steps_of: dict[int, tuple[Any, Any]] = {}
+        # The Monte Carlo's progress callback (engine.spread.Meter): the worker sets it on the
+        # spread's context; ``progress(done, total) -> bool``, True to stop.
+        self.spread_progress: Any = None
 
     @property
     def engine(self) -> Any:
@@ -522,14 +525,24 @@ class SpreadTrace:
     summary: str
 
 
+SPREAD_CANCELLED = "not computed: cancelled by the user (the next edit runs it again)"
+
+
 def chain_spread(project: Project, context: Context) -> SpreadTrace:
-    """Monte Carlo over the tolerances of the whole chain (seeded by the project)."""
-    from stagewise.engine.spread import monte_carlo
+    """Monte Carlo over the tolerances of the whole chain (seeded by the project).
+
+    With ``context.spread_progress`` set, the run reports its progress and stops when asked:
+    then nothing of it is shown (:data:`SPREAD_CANCELLED` says why), never a part of the samples.
+    """
+    from stagewise.engine.spread import SpreadCancelled, monte_carlo
     from stagewise.model.values import format_value
 
     merged = _merged(project, context)
-    result = monte_carlo(merged.system, project, current_drive=merged.current_drive, worst_case=False,
-                         phase_margins=False)
+    try:
+        result = monte_carlo(merged.system, project, current_drive=merged.current_drive, worst_case=False,
+                             phase_margins=False, progress=context.spread_progress)
+    except SpreadCancelled as cancelled:
+        raise NotAvailable(SPREAD_CANCELLED) from cancelled
     levels = result.percentile_levels
     low_index, high_index = 0, len(levels) - 1
     words = [f"{result.samples} samples, seed {result.seed}, {result.distribution} within each tolerance."]

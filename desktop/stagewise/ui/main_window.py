@@ -46,6 +46,7 @@ from stagewise.ui.parts_table import FormulaView, PartsTable
 from stagewise.ui.plots import LoopGainView, NoiseView, PlotView, PoleZeroView, ResponseView, SpreadView, StepView
 from stagewise.ui.review_panel import ReviewPanel
 from stagewise.ui.settings import add_recent, app_settings, recent_files, remember_reviewer, reviewer_identity
+from stagewise.ui.spread_progress import SpreadProgress
 from stagewise.ui.worker import ComputeWorker
 
 __all__ = ["RECOVERY_SUFFIX", "MainWindow", "demo_path", "empty_project", "recovery_path"]
@@ -150,6 +151,9 @@ class MainWindow(QMainWindow):
         self._update_title()
         self._update_actions()
         self.statusBar().showMessage("Ready.", 3000)
+        # The running Monte Carlo's progress and its Cancel button (hidden while none runs).
+        self.spread_progress = SpreadProgress(self.worker, self)
+        self.statusBar().addPermanentWidget(self.spread_progress)
         # The first analysis starts once the window has painted (or shortly after, if it is not
         # shown), so that start-up paints first and computes second.
         self._first_request_done = False

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import copy
 import dataclasses
+import threading
 import time
 from dataclasses import dataclass, field
 from typing import Any
@@ -155,6 +156,8 @@ def compute_outcome(project: Project, baseline: Project | None, generation: int,
             check()
             outcome.chain[name] = _run(function, project, context)
             outcome.carried.discard(("chain", name))
+    if phase == 3:
+        check()  # a spread stopped early because a newer edit waits is dropped, not shown
     outcome.analysis = context.chain_state.get("project_analysis", outcome.analysis)
     outcome.elapsed_s = time.perf_counter() - start
     return outcome
@@ -187,12 +190,17 @@ class ComputeWorker(QObject):
     outcomeReady(Outcome) : new results (phase 1, 2, then 3) for the newest request.
     busyChanged(bool) : computing or waiting to compute; views mark their results stale.
     spreadBusyChanged(bool) : the Monte Carlo spread (phase 3) of the newest edit is running.
+    spreadProgress(int, int) : the running Monte Carlo's work done and its total (from the
+        engine's meter, between chunks of samples; ``done`` never decreases within one run).
+        :meth:`cancel_spread` stops it: the spread is then "not computed: cancelled by the
+        user", every other result stays, and the next edit starts afresh.
     formulaReady(str, object) : the symbolic formula of a stage (its fingerprint, the result).
     """
 
     outcomeReady = Signal(object)
     busyChanged = Signal(bool)
     spreadBusyChanged = Signal(bool)
+    spreadProgress = Signal(int, int)
     formulaReady = Signal(str, object)
 
     def __init__(self, document: Document, debounce_ms: int = 150, parent: QObject | None = None,
@@ -217,6 +225,8 @@ class ComputeWorker(QObject):
         self._completed_generation = 0
         self._spread_generation = 0
         self._spread_busy = False
+        # Set by cancel_spread; a new one for each run of the spread.
+        self._spread_cancel = threading.Event()
         self._running = False
         self._pending = False
         self._busy = False
@@ -385,6 +395,20 @@ class ComputeWorker(QObject):
     def _start_spread(self, second: Outcome, project: Project, baseline: Project | None) -> None:
         """Phase 3 on a thread of its own, so that the next edit's review state never waits for it."""
         spread_context = self._spread_context
+        cancel = self._spread_cancel = threading.Event()
+        generation = second.generation
+        shown = [-1]
+
+        def progress(done: int, total: int) -> bool:
+            # On the spread's thread: the signal is queued to the window's thread. Whole
+            # thousandths only, so a run of many small chunks does not flood the event queue.
+            step = 1000 * done // total if total > 0 else 0
+            if step != shown[0]:
+                shown[0] = step
+                self.spreadProgress.emit(done, total)
+            return cancel.is_set() or generation != self._generation
+
+        spread_context.spread_progress = progress
 
         def spread() -> Outcome | None:
             try:
@@ -394,6 +418,10 @@ class ComputeWorker(QObject):
                 return None
 
         self._submit(self._spread_pool, spread, self._slow_done)
+
+    def cancel_spread(self) -> None:
+        """Stop the running Monte Carlo at its next chunk of samples (the Cancel button)."""
+        self._spread_cancel.set()
 
     def analysis_of(self, project: Project) -> Any:
         """The engine's ProjectAnalysis of ``project`` as it is now, or ``None``.
