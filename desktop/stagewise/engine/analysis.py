@@ -340,28 +340,39 @@ class ProjectAnalysis:
         return analysis
 
     @cached_property
-    def isolated_loops(self) -> dict[str, list[dict[str, Any]]]:
-        result: dict[str, list[dict[str, Any]]] = {}
+    def isolated_loop_results(self) -> dict[str, tuple[loops_module.LoopResult, ...]]:
+        """Each stage's loops alone, with their loop-gain curves (the packet draws them)."""
+        result: dict[str, tuple[loops_module.LoopResult, ...]] = {}
         for stage in self.project.stages:
             system = self._systems[stage.id]
             if isinstance(system, _Failure) or stage.is_block:
-                result[stage.id] = []
+                result[stage.id] = ()
                 continue
             current = stage.drive == "current"
             result[stage.id] = self._memoized(
                 ("loops", stage.id, self._fingerprints[stage.id]),
-                lambda system=system, current=current, stage_id=stage.id: loops_module.loops_to_json(
-                    loops_module.loop_gains(system, current_drive=current,
-                                            stability=self.stability("isolated", stage_id))))
+                lambda system=system, current=current, stage_id=stage.id: loops_module.loop_gains(
+                    system, current_drive=current, stability=self.stability("isolated", stage_id)))
         return result
 
     @cached_property
-    def chain_loops(self) -> list[dict[str, Any]] | _Failure:
+    def isolated_loops(self) -> dict[str, list[dict[str, Any]]]:
+        return {stage_id: loops_module.loops_to_json(results)
+                for stage_id, results in self.isolated_loop_results.items()}
+
+    @cached_property
+    def chain_loop_results(self) -> tuple[loops_module.LoopResult, ...] | _Failure:
+        """Every op-amp's loop in the merged chain (refs ``stage_id:ref``), with its curve."""
         merged = self.merged
         if isinstance(merged, _Failure):
             return merged
-        return loops_module.loops_to_json(loops_module.loop_gains(merged.system, current_drive=merged.current_drive,
-                                                                  stability=self.stability("chain", "")))
+        return loops_module.loop_gains(merged.system, current_drive=merged.current_drive,
+                                       stability=self.stability("chain", ""))
+
+    @cached_property
+    def chain_loops(self) -> list[dict[str, Any]] | _Failure:
+        results = self.chain_loop_results
+        return results if isinstance(results, _Failure) else loops_module.loops_to_json(results)
 
     def stage_chain_loops(self, stage_id: str) -> list[dict[str, Any]]:
         loops = self.chain_loops

@@ -61,6 +61,8 @@ class StageCurves:
     from_input_unit: str = "V/V"
     step_isolated: Step = field(default_factory=lambda: Step(why=f"the step response is {NOT_IN_BUILD}"))
     step_in_chain: Step = field(default_factory=lambda: Step(why=f"the step response is {NOT_IN_BUILD}"))
+    # Loop gain of each finite op-amp, alone then in chain (engine/loops.py ``LoopResult``s).
+    loops: list[tuple[str, Any]] = field(default_factory=list)
 
 
 @dataclass
@@ -182,6 +184,19 @@ def _steps(analysis: Any, stage: Stage) -> tuple[Step, Step]:
     return isolated, _step(in_chain)
 
 
+def _loops(analysis: Any, stage: Stage) -> list[tuple[str, Any]]:
+    """``(label, LoopResult)`` of each finite op-amp of the stage: "U1 alone", then "U1 in chain"
+    (labels as the program's loop-gain view gives them). Ideal op-amps have no curve to draw."""
+    alone = getattr(analysis, "isolated_loop_results", {}).get(stage.id, ())
+    found = [(f"{result.ref} alone", result) for result in alone if len(result.loop_gain)]
+    chain = getattr(analysis, "chain_loop_results", ())
+    if not stage.bypass and isinstance(chain, tuple):
+        prefix = f"{stage.id}:"
+        found += [(f"{result.ref[len(prefix):]} in chain", result) for result in chain
+                  if str(result.ref).startswith(prefix) and len(result.loop_gain)]
+    return found
+
+
 def _isolated_curve(stage: Stage, project: Project, f_hz: NDArray[np.float64]) -> Curve:
     try:
         system = assemble(stage, project)
@@ -292,5 +307,6 @@ def gather(project: Project, path_or_sha: str | os.PathLike[str],
             return None
         if analysis is not None:
             stage_curves[stage.id].step_isolated, stage_curves[stage.id].step_in_chain = _steps(analysis, stage)
+            stage_curves[stage.id].loops = _loops(analysis, stage)
         symbolic[stage.id] = _symbolic(stage, project, formulas) if not stage.is_block else {}
     return PacketContent(project, sha, name, document, why, chain, stage_curves, symbolic, analysis)

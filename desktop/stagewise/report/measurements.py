@@ -141,18 +141,19 @@ def _one(comparison: Any, index: int, content: PacketContent, results: Sequence[
     blocks.append(table)
     style = measurement_style(index)
     if measurement.kind == "response" and comparison.predicted is not None:
-        blocks.append(_plot_figure(lambda: _overlay(comparison, index), 300.0,
+        blocks.append(_plot_figure(lambda _canvas: _overlay(comparison, index), 300.0,
                                    f"{measurement_label(comparison)}: {style.colour_name} {style.symbol_name} markers; "
                                    "the prediction at the same place: black line. The measured phase is drawn on "
                                    "the prediction's branch (known modulo 360°)."))
     if measurement.kind == "response" and comparison.dev_db is not None:
-        blocks.append(_plot_figure(lambda: _deviation(comparison, index), 250.0,
+        blocks.append(_plot_figure(lambda _canvas: _deviation(comparison, index), 250.0,
                                    "Measured minus predicted at each measured frequency. Shaded: the Monte Carlo "
                                    "envelope of the prediction (each sample relative to the nominal); a point inside "
                                    "the band lies within the predicted spread."))
     if measurement.kind == "step":
         t_s, v = np.asarray(comparison.t_s), np.asarray(comparison.v)
-        blocks.append(_plot_figure(lambda: step_plot([("capture", t_s, v)], "captured output (V)"), 210.0,
+        blocks.append(_plot_figure(lambda canvas: step_plot([("capture", t_s, v)], "captured output (V)",
+                                                                     canvas=canvas), 210.0,
                                    "The step capture as recorded; time zero at the input edge."))
         step = comparison.step
         if step is None:

@@ -29,6 +29,7 @@ from stagewise.files.atomic import remove_leftover_temporaries
 from stagewise.model.project import Project
 from stagewise.report.content import PacketContent, gather
 from stagewise.report.layout import LOGICAL_DPI, Page, PageFrame, paginate, paint_pages
+from stagewise.report.plots import using_canvas
 from stagewise.report.sections import build_blocks
 from stagewise.review.checks import CheckResult, MetricProvider, UnavailableProvider, evaluate_project
 
@@ -136,7 +137,8 @@ def _paint(device: QPagedPaintDevice, frame: PageFrame, pages: list[Page], steps
         painter.setRenderHint(QPainter.RenderHint.Antialiasing, True)
         painter.setRenderHint(QPainter.RenderHint.TextAntialiasing, True)
         steps.step("painting the pages")
-        return paint_pages(device, painter, pages, frame, steps.page)
+        with using_canvas():  # the plots share their frames from figure to figure
+            return paint_pages(device, painter, pages, frame, steps.page)
     finally:
         painter.end()
 

@@ -15,17 +15,22 @@ are friendly to colorblind people", 2008.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Hashable, Iterator, Sequence
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass
 
 import numpy as np
 import pyqtgraph as pg
+import shiboken6
 from numpy.typing import NDArray
 from PySide6.QtCore import QRectF, Qt
 from PySide6.QtGui import QColor, QFont, QFontMetricsF, QPainter, QPen, QPicture
 from PySide6.QtWidgets import QGraphicsRectItem
 
 from stagewise.model.values import format_value
+from stagewise.present.framing import PoleZeroFrame, pole_zero_frame
+from stagewise.present.limits import LimitShape
 from stagewise.ui.palette import LINE_STYLES as GUI_LINE_STYLES
 from stagewise.ui.palette import OKABE_ITO, limit_brush_colour, trace_style
 
@@ -33,17 +38,25 @@ __all__ = [
     "LINE_STYLES",
     "PALETTE",
     "FrequencyAxis",
+    "PlotCanvas",
     "PlotStyle",
     "ResponseTrace",
+    "active_canvas",
     "bars_plot",
     "legend_text",
+    "loop_gain_plot",
     "pole_zero_caption",
     "pole_zero_plot",
     "render_plot",
     "response_plot",
     "step_plot",
     "trace_from_complex",
+    "using_canvas",
 ]
+
+# Curves, symbols and text antialiased, on the program's colours (as ui/plots.py sets them): the
+# packet draws the same items as the program, and must not depend on whether the GUI was loaded.
+pg.setConfigOptions(antialias=True, background="w", foreground="#202020")
 
 # The GUI's trace styles (ui/palette.py), so a trace looks the same on screen and on paper.
 PALETTE = tuple(colour for _, colour in OKABE_ITO)
@@ -64,6 +77,9 @@ class PlotStyle:
 
 PRINT = PlotStyle()
 
+# The resolution pyqtgraph lays its axes out for (and the packet's logical resolution).
+LAYOUT_DPI = 96
+
 
 @dataclass
 class ResponseTrace:
@@ -73,6 +89,99 @@ class ResponseTrace:
     f_hz: NDArray[np.float64]
     mag_db: NDArray[np.float64]
     phase_deg: NDArray[np.float64]
+
+
+class PlotCanvas:
+    """Off-screen plot frames reused from figure to figure.
+
+    Building a pyqtgraph plot (axes, view box, their menus and signals) costs about 5 ms and a
+    packet draws some forty of them. A frame of each kind (response pair, pole-zero plane, step,
+    bars, loop gain) is built once per canvas; each figure clears it, sets its own labels, tick
+    spacing and ranges, and adds its data, so what is drawn is the same as from a new frame.
+    Close the canvas (or use it in a ``with``) to destroy the widgets: without an event loop
+    ``deleteLater()`` never runs, and Qt objects left for interpreter shutdown can crash it.
+    """
+
+    def __init__(self) -> None:
+        self._frames: dict[Hashable, pg.GraphicsLayoutWidget] = {}
+        self._scenery: dict[Hashable, set[int]] = {}
+        self.last: pg.GraphicsLayoutWidget | None = None  # the frame handed out last (tests read its plots)
+
+    def frame(self, key: Hashable, build: Callable[[], pg.GraphicsLayoutWidget]) -> pg.GraphicsLayoutWidget:
+        """The frame of kind ``key``, built by ``build`` the first time, cleared the next times.
+
+        What ``build`` put into its plots (a pole-zero plane's rings) is the frame's scenery and
+        stays; what a figure added (data, gates, labels) is removed. A frame with scenery keeps
+        its own ranges (they belong to the scenery); the others range on their data again.
+        """
+        widget = self.last = self._frames.get(key)
+        if widget is None:
+            widget = self.last = self._frames[key] = build()
+            self._scenery[key] = {id(item) for plot in _plots(widget) for item in plot.items}
+            return widget
+        scenery = self._scenery[key]
+        for plot in _plots(widget):
+            if scenery:
+                for item in [item for item in plot.items if id(item) not in scenery]:
+                    plot.removeItem(item)
+            else:
+                plot.clear()  # data, gates and labels (and their legend entries)
+                plot.enableAutoRange()
+            plot.getAxis("left").setTickSpacing()
+            plot.getAxis("left").setTicks(None)
+        return widget
+
+    def owns(self, widget: object) -> bool:
+        """Whether ``widget`` is one of this canvas's frames (its owner destroys it, not the caller)."""
+        return any(frame is widget for frame in self._frames.values())
+
+    def close(self) -> None:
+        for widget in self._frames.values():
+            shiboken6.delete(widget)
+        self._frames.clear()
+        self._scenery.clear()
+        self.last = None
+
+    def __enter__(self) -> PlotCanvas:
+        return self
+
+    def __exit__(self, *_: object) -> None:
+        self.close()
+
+
+_CANVAS: ContextVar[PlotCanvas | None] = ContextVar("stagewise_plot_canvas", default=None)
+
+
+@contextmanager
+def using_canvas() -> Iterator[PlotCanvas]:
+    """A canvas the figures painted inside the ``with`` share (closed at its end)."""
+    with PlotCanvas() as canvas:
+        token = _CANVAS.set(canvas)
+        try:
+            yield canvas
+        finally:
+            _CANVAS.reset(token)
+
+
+def active_canvas() -> PlotCanvas | None:
+    """The canvas of the enclosing :func:`using_canvas`, if any."""
+    return _CANVAS.get()
+
+
+def _plots(widget: pg.GraphicsLayoutWidget) -> list[pg.PlotItem]:
+    return [item for item in widget.ci.items if isinstance(item, pg.PlotItem)]
+
+
+def _frame(canvas: PlotCanvas | None, key: Hashable,
+           build: Callable[[], pg.GraphicsLayoutWidget]) -> pg.GraphicsLayoutWidget:
+    """A new frame (the caller owns it) without a canvas, else the canvas's reused one."""
+    return build() if canvas is None else canvas.frame(key, build)
+
+
+def _new_widget(style: PlotStyle) -> pg.GraphicsLayoutWidget:
+    widget = pg.GraphicsLayoutWidget()
+    widget.setBackground(style.background)
+    return widget
 
 
 def legend_text(labels: Sequence[str]) -> str:
@@ -134,51 +243,94 @@ def _legend(plot: pg.PlotItem, style: PlotStyle) -> pg.LegendItem:
     return legend
 
 
-Limit = tuple[str, str, tuple[float, float], tuple[float, float]]
-"""A check's limit as ``ui.plots.limit_shapes`` gives it: (plot, label, x range, y range), ±inf open."""
+Limit = LimitShape
+"""A check's limit as :mod:`stagewise.present.limits` gives it: (plot, label, x range, y range)."""
 
 
-def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (), style: PlotStyle = PRINT,
-                  show_phase: bool = True, magnitude_label: str = "magnitude (dB)",
-                  legend: bool = True) -> pg.GraphicsLayoutWidget:
-    """Magnitude (dB) above phase (degrees) on linked log-frequency axes, one style per trace.
-
-    ``limits`` are drawn as shaded gates: the band a trace must pass through for the check to
-    be met (the GUI's ``limit_shapes`` gives them).
-    """
-    widget = pg.GraphicsLayoutWidget()
-    widget.setBackground(style.background)
+def _bode_frame(style: PlotStyle, show_phase: bool, with_legend: bool) -> pg.GraphicsLayoutWidget:
+    """Magnitude above phase on linked log-frequency axes: what stays the same from plot to plot."""
+    widget = _new_widget(style)
     magnitude = widget.addPlot(row=0, col=0, axisItems={"bottom": FrequencyAxis("bottom")}, enableMenu=False)
     _style_axes(magnitude, style)
     magnitude.setLogMode(x=True, y=False)
-    _label(magnitude, "left", magnitude_label, style)
-    if legend and len(traces) > 1:
+    if with_legend:
         _legend(magnitude, style)
-    for index, trace in enumerate(traces):
-        finite = np.isfinite(trace.mag_db)
-        magnitude.plot(trace.f_hz[finite], trace.mag_db[finite], pen=_pen(index, style), name=trace.label)
-    _minimum_span(magnitude, [trace.mag_db for trace in traces], 2.0)
-    _tick_spacing(magnitude, [trace.mag_db for trace in traces], (1, 2, 5, 10, 20, 50, 100))
-    _add_limits(magnitude, [limit for limit in limits if limit[0] == "magnitude"], traces, "mag_db", style)
     magnitude.getAxis("left").setWidth(64)
     if show_phase:
         phase = widget.addPlot(row=1, col=0, axisItems={"bottom": FrequencyAxis("bottom")}, enableMenu=False)
         _style_axes(phase, style)
         phase.setLogMode(x=True, y=False)
         phase.setXLink(magnitude)
-        _label(phase, "left", "phase (°)", style)
         _label(phase, "bottom", "frequency (Hz)", style)
+        widget.ci.layout.setRowStretchFactor(0, 3)
+        widget.ci.layout.setRowStretchFactor(1, 2)
+        phase.getAxis("left").setWidth(64)
+    else:
+        _label(magnitude, "bottom", "frequency (Hz)", style)
+    return widget
+
+
+def _bode(canvas: PlotCanvas | None, style: PlotStyle, show_phase: bool,
+          with_legend: bool) -> tuple[pg.GraphicsLayoutWidget, pg.PlotItem, pg.PlotItem | None]:
+    widget = _frame(canvas, ("bode", style, show_phase, with_legend),
+                    lambda: _bode_frame(style, show_phase, with_legend))
+    return widget, widget.ci.getItem(0, 0), widget.ci.getItem(1, 0) if show_phase else None
+
+
+def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (), style: PlotStyle = PRINT,
+                  show_phase: bool = True, magnitude_label: str = "magnitude (dB)",
+                  legend: bool = True, canvas: PlotCanvas | None = None) -> pg.GraphicsLayoutWidget:
+    """Magnitude (dB) above phase (degrees) on linked log-frequency axes, one style per trace.
+
+    ``limits`` are drawn as shaded gates (the band a trace must pass through for the check to
+    be met) or, for a level such as a peaking limit, a dashed line the trace must stay below
+    (:mod:`stagewise.present.limits` gives them, as the program draws them). With ``canvas`` the
+    plot is drawn in the canvas's reused frame (the canvas owns it).
+    """
+    widget, magnitude, phase = _bode(canvas, style, show_phase, legend and len(traces) > 1)
+    _label(magnitude, "left", magnitude_label, style)
+    for index, trace in enumerate(traces):
+        finite = np.isfinite(trace.mag_db)
+        magnitude.plot(trace.f_hz[finite], trace.mag_db[finite], pen=_pen(index, style), name=trace.label)
+    _minimum_span(magnitude, [trace.mag_db for trace in traces], 2.0)
+    _tick_spacing(magnitude, [trace.mag_db for trace in traces], (1, 2, 5, 10, 20, 50, 100))
+    _add_limits(magnitude, [limit for limit in limits if limit[0] == "magnitude"], traces, "mag_db", style)
+    if phase is not None:
+        _label(phase, "left", "phase (°)", style)
         for index, trace in enumerate(traces):
             finite = np.isfinite(trace.phase_deg)
             phase.plot(trace.f_hz[finite], trace.phase_deg[finite], pen=_pen(index, style))
         _minimum_span(phase, [trace.phase_deg for trace in traces], 20.0)
         _tick_spacing(phase, [trace.phase_deg for trace in traces], (5, 10, 15, 30, 45, 90, 180, 360))
         _add_limits(phase, [limit for limit in limits if limit[0] == "phase"], traces, "phase_deg", style)
-        widget.ci.layout.setRowStretchFactor(0, 3)
-        widget.ci.layout.setRowStretchFactor(1, 2)
-        phase.getAxis("left").setWidth(64)
-    else:
-        _label(magnitude, "bottom", "frequency (Hz)", style)
+    return widget
+
+
+def loop_gain_plot(traces: Sequence[ResponseTrace], crossovers_hz: Sequence[float | None], style: PlotStyle = PRINT,
+                   canvas: PlotCanvas | None = None) -> pg.GraphicsLayoutWidget:
+    """Loop gains T = A·β, magnitude above phase, marked as the program's loop-gain view marks
+    them: a dashed 0 dB line, and a dotted line in each trace's colour at its crossover."""
+    widget, magnitude, phase = _bode(canvas, style, True, False)
+    assert phase is not None
+    _label(magnitude, "left", "|T| (dB)", style)
+    _label(phase, "left", "∠T (°)", style)
+    zero = pg.mkPen("#808080", width=1.0)
+    zero.setStyle(Qt.PenStyle.DashLine)
+    magnitude.addLine(y=0, pen=zero)
+    for index, (trace, crossover_hz) in enumerate(zip(traces, crossovers_hz, strict=True)):
+        for plot, values in ((magnitude, trace.mag_db), (phase, trace.phase_deg)):
+            finite = np.isfinite(values)
+            plot.plot(trace.f_hz[finite], values[finite], pen=_pen(index, style))
+            if crossover_hz is not None and crossover_hz > 0:
+                # The crossover: |T| = 1 (0 dB); the phase margin is read there (180° + ∠T).
+                marker = pg.mkPen(trace_style(index).colour, width=1.0)
+                marker.setStyle(Qt.PenStyle.DotLine)
+                plot.addItem(pg.InfiniteLine(math.log10(crossover_hz), angle=90, pen=marker), ignoreBounds=True)
+    for plot, field_name, steps in ((magnitude, "mag_db", (10, 20, 50, 100)),
+                                    (phase, "phase_deg", (30, 45, 90, 180, 360))):
+        series = [getattr(trace, field_name) for trace in traces]
+        _minimum_span(plot, series, 20.0)
+        _tick_spacing(plot, series, steps)
     return widget
 
 
@@ -226,6 +378,9 @@ def _add_limits(plot: pg.PlotItem, limits: Sequence[Limit], traces: Sequence[Res
     for _, label, (x_low, x_high), (y_low, y_high) in limits:
         x0 = math.log10(min(max(x_low, f_low), f_high)) if x_low > 0 else math.log10(f_low)
         x1 = math.log10(max(min(x_high, f_high), f_low)) if math.isfinite(x_high) else math.log10(f_high)
+        if y_low == y_high and math.isfinite(y_low):
+            _add_level(plot, label, (10.0 ** x0, 10.0 ** x1), y_low, style)
+            continue
         y0 = y_low if math.isfinite(y_low) else y_floor
         y1 = y_high if math.isfinite(y_high) else y_ceiling
         if x1 <= x0 or y1 <= y0:
@@ -241,28 +396,39 @@ def _add_limits(plot: pg.PlotItem, limits: Sequence[Limit], traces: Sequence[Res
         plot.addItem(text, ignoreBounds=True)
 
 
-def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex], f_top_hz: float,
-                   style: PlotStyle = PRINT) -> pg.GraphicsLayoutWidget:
-    """Poles (×, blue) and zeros (○, vermillion) on the program's signed logarithmic radius.
+def _add_level(plot: pg.PlotItem, label: str, f_range: tuple[float, float], level: float, style: PlotStyle) -> None:
+    """A limit the trace must stay below (a peaking limit): a dashed line across the band, labelled.
 
-    The frame is :func:`stagewise.present.framing.pole_zero_frame`, as in the program: every root
-    from the lowest to ``f_top_hz`` (the analysis band's top) in view, decade rings labelled in
-    hertz, roots above the top on a dashed edge ring (:func:`pole_zero_caption` says so).
+    The line counts in the plot's range, so a level above every trace is still on the plot. Its
+    label hangs below the line's high-frequency end, where a low-pass shape (the usual place of
+    peaking) has fallen away, and stays inside the plot when the level is its top.
     """
-    from stagewise.present.framing import pole_zero_frame
+    pen = pg.mkPen(limit_brush_colour(200), width=1.0)
+    pen.setStyle(Qt.PenStyle.DashLine)
+    plot.plot([f_range[0], f_range[1]], [level, level], pen=pen)
+    text = pg.TextItem(label, color=style.foreground, anchor=(1, 0))
+    text.setFont(_tick_font(style))
+    text.setPos(math.log10(f_range[1]), level)
+    plot.addItem(text, ignoreBounds=True)
 
-    widget = pg.GraphicsLayoutWidget()
-    widget.setBackground(style.background)
+
+def _plane_frame(style: PlotStyle, frame: PoleZeroFrame) -> pg.GraphicsLayoutWidget:
+    """The plane of ``frame``: decade rings labelled in hertz, the dashed edge ring, the axes."""
+    widget = _new_widget(style)
     plot = widget.addPlot(enableMenu=False)  # no context menu: nobody clicks on paper
     _style_axes(plot, style)
     plot.showGrid(x=False, y=False)
     plot.hideAxis("bottom")
     plot.hideAxis("left")
     plot.setAspectLocked(True)
-    frame = pole_zero_frame(list(poles_rad_s), list(zeros_rad_s), f_top_hz)
     angles = np.linspace(0.0, 2 * math.pi, 181)
+    if frame.rings:
+        # Every decade ring in one curve (NaN between rings): one plot item, not one per ring.
+        radii = np.array([radius for radius, _ in frame.rings])[:, None]
+        gap = np.full((len(frame.rings), 1), np.nan)
+        plot.plot(np.hstack([radii * np.cos(angles), gap]).ravel(), np.hstack([radii * np.sin(angles), gap]).ravel(),
+                  pen=pg.mkPen("#c8c8c8", width=0.6), connect="finite")
     for radius, f_hz in frame.rings:
-        plot.plot(radius * np.cos(angles), radius * np.sin(angles), pen=pg.mkPen("#c8c8c8", width=0.6))
         label = pg.TextItem(format_value(f_hz, "Hz", 3), color="#606060", anchor=(0.5, 1.0))
         label.setFont(_tick_font(style))
         label.setPos(0.0, radius)
@@ -271,6 +437,22 @@ def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex
               pen=pg.mkPen(style.foreground, width=0.6, style=Qt.PenStyle.DashLine))
     plot.plot([-frame.limit, frame.limit], [0, 0], pen=pg.mkPen(style.foreground, width=0.6))
     plot.plot([0, 0], [-frame.limit, frame.limit], pen=pg.mkPen(style.foreground, width=0.6))
+    plot.setRange(xRange=(-frame.limit, frame.limit), yRange=(-frame.limit, frame.limit), padding=0)
+    return widget
+
+
+def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex], f_top_hz: float,
+                   style: PlotStyle = PRINT, canvas: PlotCanvas | None = None) -> pg.GraphicsLayoutWidget:
+    """Poles (×, blue) and zeros (○, vermillion) on the program's signed logarithmic radius.
+
+    The frame is :func:`stagewise.present.framing.pole_zero_frame`, as in the program: every root
+    from the lowest to ``f_top_hz`` (the analysis band's top) in view, decade rings labelled in
+    hertz, roots above the top on a dashed edge ring (:func:`pole_zero_caption` says so). Stages
+    whose roots give the same frame share its drawn plane in a canvas.
+    """
+    frame = pole_zero_frame(list(poles_rad_s), list(zeros_rad_s), f_top_hz)
+    widget = _frame(canvas, ("plane", style, frame), lambda: _plane_frame(style, frame))
+    plot = widget.ci.getItem(0, 0)
     # useCache=False: pyqtgraph otherwise stamps symbols from a pixmap atlas, which would put
     # raster images into the PDF; drawn each time they stay vector paths.
     for kind, values, symbol, colour_index in (("poles", poles_rad_s, "x", 1), ("zeros", zeros_rad_s, "o", 2)):
@@ -280,14 +462,11 @@ def pole_zero_plot(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex
         plot.addItem(pg.ScatterPlotItem(x, y, symbol=symbol, size=11 if symbol == "x" else 10,
                                         pen=pg.mkPen(trace_style(colour_index).colour, width=1.8), brush=None,
                                         useCache=False, name=kind))
-    plot.setRange(xRange=(-frame.limit, frame.limit), yRange=(-frame.limit, frame.limit), padding=0)
     return widget
 
 
 def pole_zero_caption(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[complex], f_top_hz: float) -> str:
     """How to read :func:`pole_zero_plot`, and how many roots sit on its edge ring."""
-    from stagewise.present.framing import pole_zero_frame
-
     frame = pole_zero_frame(list(poles_rad_s), list(zeros_rad_s), f_top_hz)
     far = {kind: int(np.count_nonzero(frame.map(values)[2])) for kind, values in
            (("poles", poles_rad_s), ("zeros", zeros_rad_s))}
@@ -300,31 +479,42 @@ def pole_zero_caption(poles_rad_s: Sequence[complex], zeros_rad_s: Sequence[comp
     return caption
 
 
-def step_plot(traces: Sequence[tuple[str, NDArray[np.float64], NDArray[np.float64]]], y_label: str,
-              style: PlotStyle = PRINT) -> pg.GraphicsLayoutWidget:
-    """Unit-step responses ``(label, t_s, y)`` on a linear time axis in seconds (SI prefixes)."""
-    widget = pg.GraphicsLayoutWidget()
-    widget.setBackground(style.background)
+def _time_frame(style: PlotStyle) -> pg.GraphicsLayoutWidget:
+    widget = _new_widget(style)
     plot = widget.addPlot(enableMenu=False)  # no context menu: nobody clicks on paper
     _style_axes(plot, style)
     plot.getAxis("bottom").enableAutoSIPrefix(True)
     plot.getAxis("bottom").setLabel("time", units="s", **{"font-size": f"{style.label_px}px",
                                                          "color": style.foreground})
-    _label(plot, "left", y_label, style)
     plot.getAxis("left").setWidth(64)
+    return widget
+
+
+def step_plot(traces: Sequence[tuple[str, NDArray[np.float64], NDArray[np.float64]]], y_label: str,
+              style: PlotStyle = PRINT, canvas: PlotCanvas | None = None) -> pg.GraphicsLayoutWidget:
+    """Unit-step responses ``(label, t_s, y)`` on a linear time axis in seconds (SI prefixes)."""
+    widget = _frame(canvas, ("time", style), lambda: _time_frame(style))
+    plot = widget.ci.getItem(0, 0)
+    _label(plot, "left", y_label, style)
     for index, (_, t_s, y) in enumerate(traces):
         finite = np.isfinite(y)
         plot.plot(t_s[finite], y[finite], pen=_pen(index, style))
     return widget
 
 
-def bars_plot(labels: Sequence[str], values: Sequence[float], unit_label: str,
-              style: PlotStyle = PRINT) -> pg.GraphicsLayoutWidget:
-    """Horizontal bars, largest first from the top (a noise budget's contributors)."""
-    widget = pg.GraphicsLayoutWidget()
-    widget.setBackground(style.background)
+def _bars_frame(style: PlotStyle) -> pg.GraphicsLayoutWidget:
+    widget = _new_widget(style)
     plot = widget.addPlot(enableMenu=False)  # no context menu: nobody clicks on paper
     _style_axes(plot, style)
+    plot.showGrid(x=True, y=False, alpha=style.grid_alpha)
+    return widget
+
+
+def bars_plot(labels: Sequence[str], values: Sequence[float], unit_label: str,
+              style: PlotStyle = PRINT, canvas: PlotCanvas | None = None) -> pg.GraphicsLayoutWidget:
+    """Horizontal bars, largest first from the top (a noise budget's contributors)."""
+    widget = _frame(canvas, ("bars", style), lambda: _bars_frame(style))
+    plot = widget.ci.getItem(0, 0)
     count = len(values)
     positions = np.arange(count)[::-1].astype(float)
     bars = pg.BarGraphItem(x0=np.zeros(count), y=positions, height=0.6, width=np.asarray(values, dtype=float),
@@ -337,7 +527,6 @@ def bars_plot(labels: Sequence[str], values: Sequence[float], unit_label: str,
     _label(plot, "bottom", unit_label, style)
     plot.setYRange(-0.6, count - 0.4, padding=0)
     plot.setXRange(0, max(list(values) + [0.0]) * 1.05 or 1.0, padding=0)
-    plot.showGrid(x=True, y=False, alpha=style.grid_alpha)
     return widget
 
 
@@ -354,25 +543,36 @@ def render_plot(widget: pg.GraphicsLayoutWidget, painter: QPainter, rect: QRectF
     widget.resize(width, height)
     widget.ci.setGeometry(QRectF(0, 0, width, height))
     widget.ci.layout.activate()
-    picture = QPicture()
-    recorder = QPainter(picture)
-    try:
-        recorder.setRenderHint(QPainter.RenderHint.Antialiasing, True)
-        recorder.setClipRect(QRectF(0, 0, width, height))
-        widget.scene().render(recorder, QRectF(0, 0, width, height), QRectF(0, 0, width, height))
-    finally:
-        recorder.end()
+    # An axis places its label when it is resized; a reused frame of the same size keeps the
+    # previous figure's place (centred for the previous text), so every label is placed anew.
+    for plot in _plots(widget):
+        for name in ("left", "bottom", "right", "top"):
+            plot.getAxis(name).resizeEvent(None)
+    source = QRectF(0, 0, width, height)
     painter.save()
     painter.setClipRect(rect)
     painter.translate(rect.topLeft())
-    # drawPicture scales by (device dpi / picture dpi) by itself; the painter's transform already
-    # maps our 96-dpi units to the device, so that factor is taken back out here.
-    device_dpi = painter.device().logicalDpiX()
-    if device_dpi != picture.logicalDpiX():
-        factor = picture.logicalDpiX() / device_dpi
+    if painter.device().logicalDpiX() == LAYOUT_DPI:
+        # The device has the resolution the axes were laid out for (the PDF writer, 96 dpi):
+        # the scene is painted straight into it, with nothing recorded and replayed.
+        painter.setRenderHint(QPainter.RenderHint.Antialiasing, True)
+        widget.scene().render(painter, source, source)
+        painter.restore()
+    else:
+        picture = QPicture()
+        recorder = QPainter(picture)
+        try:
+            recorder.setRenderHint(QPainter.RenderHint.Antialiasing, True)
+            recorder.setClipRect(source)
+            widget.scene().render(recorder, source, source)
+        finally:
+            recorder.end()
+        # drawPicture scales by (device dpi / picture dpi) by itself; the painter's transform
+        # already maps our 96-dpi units to the device, so that factor is taken back out here.
+        factor = picture.logicalDpiX() / painter.device().logicalDpiX()
         painter.scale(factor, factor)
-    painter.drawPicture(0, 0, picture)
-    painter.restore()
+        painter.drawPicture(0, 0, picture)
+        painter.restore()
     frame = QPen(QColor("#9a9a9a"), 0.5)
     painter.setPen(frame)
     painter.setBrush(Qt.BrushStyle.NoBrush)

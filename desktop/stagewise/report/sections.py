@@ -24,6 +24,8 @@ from stagewise.engine.metrics import reference_words
 from stagewise.model.project import PART_TYPES, Project, Stage
 from stagewise.model.values import format_value
 from stagewise.present.formula import finite_gain_lines, polynomial, pretty
+from stagewise.present.limits import LimitShape, limit_shapes, peaking_level, peaking_reference_db
+from stagewise.present.loops import loop_summary
 from stagewise.report.content import NOT_IN_BUILD, Curve, PacketContent
 from stagewise.report.diagram import DiagramBox, diagram_height, draw_diagram
 from stagewise.report.layout import (
@@ -39,9 +41,12 @@ from stagewise.report.layout import (
 )
 from stagewise.report.measurements import measurement_blocks
 from stagewise.report.plots import (
+    PlotCanvas,
     ResponseTrace,
+    active_canvas,
     bars_plot,
     legend_text,
+    loop_gain_plot,
     pole_zero_caption,
     pole_zero_plot,
     render_plot,
@@ -152,17 +157,30 @@ def _key_values(rows: Sequence[tuple[str, str]], size_px: float = 11.5) -> Table
     return Table([Column("", wrap=False), Column("")], [list(row) for row in rows], size_px=size_px, header=False)
 
 
-def _plot_figure(build: Callable[[], Any], height: float, caption: str) -> Figure:
+def _plot_figure(build: Callable[[PlotCanvas | None], Any], height: float, caption: str) -> Figure:
+    """A figure painted by ``build(canvas)``: in the shared frames of the packet's canvas while the
+    pages are painted (:func:`stagewise.report.plots.using_canvas`), else in a canvas of its own."""
     def draw(painter: QPainter, rect: QRectF) -> None:
-        widget = build()
-        try:
-            render_plot(widget, painter, rect)
-        finally:
-            # Destroy the widget now: without an event loop deleteLater() never runs, and Qt
-            # objects left for interpreter shutdown can crash it.
-            shiboken6.delete(widget)
+        canvas = active_canvas()
+        if canvas is None:
+            with PlotCanvas() as own:
+                _render_built(build, own, painter, rect)
+        else:
+            _render_built(build, canvas, painter, rect)
 
     return Figure(draw, height, caption)
+
+
+def _render_built(build: Callable[[PlotCanvas | None], Any], canvas: PlotCanvas, painter: QPainter,
+                  rect: QRectF) -> None:
+    widget = build(canvas)
+    try:
+        render_plot(widget, painter, rect)
+    finally:
+        if not canvas.owns(widget):
+            # A plot built without the canvas: destroy it now, as without an event loop
+            # deleteLater() never runs, and Qt objects left for interpreter shutdown can crash it.
+            shiboken6.delete(widget)
 
 
 def _traces(curves: Sequence[tuple[str, Curve]]) -> list[ResponseTrace]:
@@ -377,11 +395,11 @@ def _chain(content: PacketContent) -> list[Block]:
     blocks.append(Heading("Response of the whole chain", 2))
     if content.chain.response is not None:
         traces = _traces([("chain", content.chain)])
-        limits = _limits(project, project.stages, ("chain",))
+        limits = _limits(content, project.stages, ("chain",))
         label = _magnitude_label("Ω" if project.input.drive == "current" else "V/V")
-        blocks.append(_plot_figure(lambda: response_plot(traces, limits, magnitude_label=label), 360.0,
-                                   "Drive to the last output, every stage loaded by the next. Shaded: limits of "
-                                   "checks on the whole chain."))
+        blocks.append(_plot_figure(lambda canvas: response_plot(traces, limits, magnitude_label=label, canvas=canvas),
+                                   360.0, "Drive to the last output, every stage loaded by the next. Shaded: limits "
+                                   f"of checks on the whole chain.{_level_words(limits)}"))
     else:
         blocks.append(_unavailable(f"Chain response plot: {content.chain.why}."))
     analysis = content.analysis
@@ -432,7 +450,8 @@ def _noise(chain: dict[str, Any], project: Project) -> list[Block]:
         blocks.append(Heading("Top contributors", 3))
         blocks.append(Table([Column("source"), Column("kind"), Column("output RMS", "right", wrap=False),
                              Column("share of output power", "right", wrap=False)], table_rows))
-        blocks.append(_plot_figure(lambda: bars_plot(names, values, "output noise RMS over the band (µV)"),
+        blocks.append(_plot_figure(lambda canvas: bars_plot(names, values, "output noise RMS over the band (µV)",
+                                                         canvas=canvas),
                                    max(130.0, 24.0 * len(names) + 70.0),
                                    "Largest contributors to the output noise over the noise band."))
     for note in noise.get("notes") or []:
@@ -486,8 +505,9 @@ def _dc_budget(chain: dict[str, Any], project: Project) -> list[Block]:
         names = [f"{row.stage}: {row.source}" for row in bars]
         values = [abs(row.value or 0.0) for row in bars]
         if bars:
-            blocks.append(_plot_figure(lambda: bars_plot(names, values, f"error at the converter input "
-                                                                         f"({table.unit}, magnitude)"),
+            blocks.append(_plot_figure(lambda canvas: bars_plot(names, values, f"error at the converter input "
+                                                                                f"({table.unit}, magnitude)",
+                                                                canvas=canvas),
                                        max(130.0, 24.0 * len(names) + 70.0),
                                        "Largest DC error contributions at the converter input; gain errors at "
                                        "the reference signal level, drifts at the end of the temperature range."))
@@ -784,21 +804,37 @@ def _poles_zeros(entry: dict[str, Any] | None, content: PacketContent) -> list[B
         zero_values = [complex(z.get("re", 0.0), z.get("im", 0.0)) for z in zeros]
         f_top = content.project.settings.f_max_hz.si
         caption = pole_zero_caption(pole_values, zero_values, f_top)
-        blocks.append(_plot_figure(lambda: pole_zero_plot(pole_values, zero_values, f_top), 250.0,
+        blocks.append(_plot_figure(lambda canvas: pole_zero_plot(pole_values, zero_values, f_top, canvas=canvas), 250.0,
                                    f"Poles × (blue), zeros ○ (vermillion). {caption}"))
     return blocks
 
 
-def _limits(project: Project, stages: Sequence[Stage], wheres: tuple[str, ...]) -> list[Any]:
-    """The gates the GUI shades for these checks (the GUI's own ``limit_shapes``)."""
-    from stagewise.ui.plots import limit_shapes
+def _limits(content: PacketContent, stages: Sequence[Stage], wheres: tuple[str, ...]) -> list[LimitShape]:
+    """The gates and levels the program draws for these checks (:mod:`stagewise.present.limits`).
 
-    shapes: list[Any] = []
+    A peaking limit is a level above the place's pass-band reference, read from the same
+    analysis document as the printed figures (peak gain − peaking). Waived checks are not drawn.
+    """
+    shapes: list[LimitShape] = []
     for stage in stages:
+        entry = content.stage_analysis(stage.id) or {}
         for check in stage.checks:
-            if check.where in wheres and check.waiver is None:
-                shapes.extend(limit_shapes(check, project))
+            if check.where not in wheres or check.waiver is not None:
+                continue
+            shapes.extend(limit_shapes(check, content.project))
+            metrics = (content.analysis or {}).get("chain") if check.where == "chain" else entry.get(check.where)
+            level = peaking_level(check, peaking_reference_db(metrics if isinstance(metrics, dict) else None))
+            if level is not None:
+                shapes.append(level)
     return shapes
+
+
+def _level_words(limits: Sequence[LimitShape]) -> str:
+    """What a dashed level on a response plot means, when there is one."""
+    if not any(y_low == y_high for _, _, _, (y_low, y_high) in limits):
+        return ""
+    return (" Dashed line: the highest level a peaking check allows (the pass-band reference plus the allowed "
+            "peaking); the trace must stay below it.")
 
 
 def _magnitude_label(unit: str) -> str:
@@ -818,16 +854,17 @@ def _response_blocks(stage: Stage, content: PacketContent) -> list[Block]:
     missing = [f"{label}: {curve.why}" for label, curve in places if curve.response is None]
     if available:
         traces = _traces(available)
-        limits = _limits(content.project, [stage], ("isolated", "in_chain", "from_input")
+        limits = _limits(content, [stage], ("isolated", "in_chain", "from_input")
                          if drawn_from_input else ("isolated", "in_chain"))
         label = _magnitude_label(unit)
         from_input_words = (" From chain input: the chain's drive to this stage's output, everything before and "
                             "after it in place." if drawn_from_input else "")
-        blocks.append(_plot_figure(lambda: response_plot(traces, limits, magnitude_label=label, legend=False), 300.0,
+        blocks.append(_plot_figure(lambda canvas: response_plot(traces, limits, magnitude_label=label, legend=False,
+                                                                 canvas=canvas), 300.0,
                                    f"Traces: {legend_text([trace.label for trace in traces])}. Isolated: ideal "
                                    "drive, unloaded. In chain: the stage where it sits (V_out/V_in, or V_out/I_in "
                                    f"for a current-driven stage).{from_input_words} Shaded: limits of the stage's "
-                                   "checks on gain or phase at a frequency."))
+                                   f"checks on gain or phase at a frequency.{_level_words(limits)}"))
     if not drawn_from_input and curves.from_input.response is not None:
         blocks.append(Paragraph(f"From the chain input the response is in {curves.from_input_unit} (the chain's "
                                 f"drive), not in this plot's {unit}: its figures are in the table below.", 10.5))
@@ -845,11 +882,28 @@ def _step_blocks(stage: Stage, content: PacketContent) -> list[Block]:
     blocks: list[Block] = [Heading("Step response: isolated and in chain", 3)]
     if traces:
         unit = "V per A" if stage.drive == "current" else "V"
-        blocks.append(_plot_figure(lambda: step_plot(traces, f"output ({unit}) for a unit step"), 210.0,
+        blocks.append(_plot_figure(lambda canvas: step_plot(traces, f"output ({unit}) for a unit step", canvas=canvas), 210.0,
                                    f"Traces: {legend_text([label for label, _, _ in traces])}. Response of the "
                                    "minimal pole/zero model to a unit step at the input."))
     blocks.extend(_unavailable(line) for line in missing)
     return blocks
+
+
+def _loop_blocks(stage: Stage, content: PacketContent) -> list[Block]:
+    """The loop gain of each finite op-amp, alone and in chain, with its margins in words."""
+    loops = content.stages[stage.id].loops
+    if not loops:
+        return []
+    traces = [trace_from_complex(label, result.f_hz, result.loop_gain) for label, result in loops]
+    crossovers = [result.crossover_hz for _, result in loops]
+    words = "; ".join(loop_summary(label, result.crossover_hz, result.phase_margin_deg, result.gain_margin_db,
+                                   result.phase_margin_why) for label, result in loops)
+    return [Heading("Loop gain", 3),
+            _plot_figure(lambda canvas: loop_gain_plot(traces, crossovers, canvas=canvas), 260.0,
+                         f"Traces: {legend_text([trace.label for trace in traces])}. Loop gain T = A·β of each "
+                         "finite op-amp with the drive zeroed, alone and where it sits in the chain. Dashed: 0 dB; "
+                         "dotted: the crossover (|T| = 1), where the phase margin is 180° + ∠T. "
+                         f"{words}.")]
 
 
 def _stage_metrics(entry: dict[str, Any] | None, content: PacketContent) -> list[Block]:
@@ -991,6 +1045,7 @@ def _stage(stage: Stage, number: int, content: PacketContent, results: list[Chec
     blocks.extend(_symbolic_blocks(stage, content))
     blocks.extend(_stage_metrics(entry, content))
     blocks.extend(_response_blocks(stage, content))
+    blocks.extend(_loop_blocks(stage, content))
     blocks.extend(_poles_zeros(entry, content))
     blocks.extend(_checks(stage, results))
     blocks.extend(_signoffs(stage, state))

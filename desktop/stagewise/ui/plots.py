@@ -19,8 +19,9 @@ from PySide6.QtCore import QPointF, QRectF, Qt, Signal
 from PySide6.QtGui import QBrush, QColor, QPen
 from PySide6.QtWidgets import QGraphicsRectItem, QLabel, QVBoxLayout, QWidget
 
-from stagewise.model.project import Check, Project
 from stagewise.model.values import format_value
+from stagewise.present.limits import limit_shapes, peaking_level
+from stagewise.present.loops import loop_summary
 from stagewise.ui.analyses import ResponseTrace, finite
 from stagewise.ui.document import Document
 from stagewise.ui.measured_plots import MeasuredOverlay, MeasuredSteps
@@ -248,35 +249,6 @@ class _TraceItems:
             self._legend_entries = wanted
 
 
-def limit_shapes(check: Check, project: Project) -> list[tuple[str, str, tuple[float, float], tuple[float, float]]]:
-    """Where a numeric check's limits are drawn: ``(plot, label, x_range, y_range)`` entries.
-
-    ``plot`` is ``"magnitude"``, ``"phase"`` or ``"step"``; ranges are in the plot's data units
-    (hertz, dB, degrees, seconds); an open side is ±inf. Metrics that are not a point or band on
-    one of those plots (noise totals, margins, yield, ...) are not drawn.
-    """
-    if check.metric is None or (check.min is None and check.max is None):
-        return []
-    low = -math.inf if check.min is None else check.min.si
-    high = math.inf if check.max is None else check.max.si
-    where = {"isolated": "alone", "in_chain": "in chain", "from_input": "from the chain input",
-             "chain": "whole chain"}.get(check.where, check.where)
-    at_hz = check.at_hz.si if check.at_hz is not None else (
-        project.settings.ref_hz.si if project.settings.ref_hz is not None else None)
-    label = f"{check.id} ({where})"
-    if check.metric in ("gain_db", "phase_deg") and at_hz is not None:
-        plot = "magnitude" if check.metric == "gain_db" else "phase"
-        # A narrow gate around the frequency: the trace must pass through it.
-        return [(plot, label, (at_hz / 1.12, at_hz * 1.12), (low, high))]
-    if check.metric in ("f_low_3db_hz", "f_high_3db_hz", "crossover_hz"):
-        return [("magnitude", label, (low, high), (-math.inf, math.inf))]
-    if check.metric == "peak_gain_db":
-        return [("magnitude", label, (-math.inf, math.inf), (low, high))]
-    if check.metric in ("rise_s", "settle_1pct_s", "settle_01pct_s"):
-        return [("step", label, (low if math.isfinite(low) else 0.0, high), (-math.inf, math.inf))]
-    return []
-
-
 class _LimitLayer:
     """Shaded check limits on one plot (items rebuilt when the checks change; few and cheap)."""
 
@@ -404,14 +376,11 @@ class ResponseView(PlotView):
                         magnitude.append((label, x_range, y_range))
                     elif plot == "phase":
                         phase.append((label, x_range, y_range))
-                if check.metric == "peaking_db" and check.max is not None and references is not None \
-                        and references.ok and check.where in references.value:
-                    # Peaking is the peak gain over the pass-band reference: its limit is the level
-                    # reference + max across the band, above which the trace must not rise.
-                    level = references.value[check.where] + check.max.si
-                    where = {"isolated": "alone", "in_chain": "in chain", "chain": "whole chain"}.get(check.where, "")
-                    magnitude.append((f"{check.id} ({where}): peak ≤ {level:.2f} dB", (-math.inf, math.inf),
-                                      (level, level)))
+                if references is not None and references.ok:
+                    # Peaking is the peak gain over the pass-band reference: its limit is a level.
+                    shape = peaking_level(check, references.value.get(check.where))
+                    if shape is not None:
+                        magnitude.append(shape[1:])
         self.magnitude_limits.set_shapes(magnitude)
         self.phase_limits.set_shapes(phase)
 
@@ -870,14 +839,8 @@ class LoopGainView(PlotView):
                                            pen=pg.mkPen(style.colour, width=1, style=Qt.PenStyle.DotLine))
                     plot.addItem(line, ignoreBounds=True)
                     self.markers.append((plot, line))
-                text = f"{trace.label}: crossover {format_value(trace.crossover_hz, 'Hz')}"
-                if trace.phase_margin_deg is not None:
-                    text += f", phase margin {trace.phase_margin_deg:.1f}°"
-                if trace.gain_margin_db is not None:
-                    text += f", gain margin {trace.gain_margin_db:.1f} dB"
-                words.append(text)
-            else:
-                words.append(f"{trace.label}: {trace.why or 'no crossover'}")
+            words.append(loop_summary(trace.label, trace.crossover_hz, trace.phase_margin_deg, trace.gain_margin_db,
+                                      trace.why))
         self.magnitude_traces.show(rows_magnitude)
         self.phase_traces.show(rows_phase)
         self.summary.setText("\n".join(words))
