@@ -3,16 +3,20 @@
 from __future__ import annotations
 
 import math
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pytest
 
 import stagewise.engine.spread as spread
+from stagewise.engine.analysis import ProjectAnalysis
 from stagewise.engine.mna import assemble
 from stagewise.engine.spread import Readout, SpreadCancelled, YieldLimit, monte_carlo, place_samples
 from stagewise.files.codec import decode
+from stagewise.files.project_file import load_project
 from stagewise.model.project import Project
+from stagewise.review.words import SPREAD_CANCELLED, SPREAD_FOLLOWS
 
 TWO_PI = 2 * math.pi
 R1, R2, R3, C3 = 3.3e3, 6.8e3, 12e3, 4.7e-9
@@ -126,3 +130,30 @@ def test_returning_true_cancels_the_run_between_chunks(monkeypatch: pytest.Monke
     # the callback said stop (the chunks already running on other threads may finish).
     assert raised.value.done == calls[-1][0] < raised.value.total
     assert sum(solved) < 4001  # the sweep of all samples (and the nominal) was not finished
+
+
+DEMO = Path(__file__).resolve().parents[2] / "projects" / "hydrophone.stagewise.json"
+
+
+def test_the_project_spread_reports_one_monotone_progress_over_every_place() -> None:
+    analysis = ProjectAnalysis(load_project(DEMO))
+    seen: list[tuple[int, int]] = []
+    analysis.spread_progress = lambda done, total: seen.append((done, total)) or False
+    document = analysis.spread
+    assert isinstance(document, dict) and document["yield_pct"] is not None
+    # Common practice, no source: one figure for the whole run, never going back, ending full.
+    done = [item[0] for item in seen]
+    assert len({item[1] for item in seen}) == 1
+    assert all(later >= earlier for earlier, later in zip(done, done[1:], strict=False))
+    assert done[-1] == seen[-1][1] and len(seen) > 10
+
+
+def test_a_cancelled_project_spread_has_no_yield_and_says_why() -> None:
+    analysis = ProjectAnalysis(load_project(DEMO))
+    analysis.spread_progress = lambda done, total: done > 0
+    # Common practice, no source: a cancelled computation gives no value, with the reason.
+    assert analysis.metric_value("yield_pct", "chain", "sensor", None) == (None, SPREAD_CANCELLED)
+    deferred = ProjectAnalysis(load_project(DEMO))
+    deferred.spread_deferred = SPREAD_FOLLOWS
+    assert deferred.metric_value("yield_pct", "chain", "sensor", None) == (None, SPREAD_FOLLOWS)
+    assert "spread" not in deferred.__dict__  # nothing of it was computed

@@ -12,8 +12,9 @@ import pytest
 from PySide6.QtCore import Qt
 
 import stagewise.engine.spread as spread
+import stagewise.ui.worker as worker_module
 from conftest import SAMPLE, make_window
-from stagewise.ui.analyses import SPREAD_CANCELLED
+from stagewise.review.words import SPREAD_CANCELLED, SPREAD_FOLLOWS
 
 CHUNK_DELAY_S = 0.02
 
@@ -42,13 +43,29 @@ def slow_spread(monkeypatch: pytest.MonkeyPatch) -> threading.Event:
     return slowing
 
 
-@pytest.fixture
-def many_samples(tmp_path: Path) -> Path:
+def with_yield_check(tmp_path: Path, samples: int) -> Path:
+    """The sample project with a yield check on the amplifier stage and ``samples`` samples."""
     document = json.loads(SAMPLE.read_text(encoding="utf-8"))
-    document["settings"]["mc_samples"] = 400
-    target = tmp_path / "many-samples.stagewise.json"
+    document["settings"]["mc_samples"] = samples
+    amp = next(stage for stage in document["stages"] if stage["id"] == "amp")
+    amp["checks"].append({"id": "yield", "text": "Most builds meet every check", "metric": "yield_pct",
+                          "where": "chain", "min": 90})
+    target = tmp_path / "with-yield.stagewise.json"
     target.write_text(json.dumps(document, indent=2) + "\n", encoding="utf-8")
     return target
+
+
+@pytest.fixture
+def many_samples(tmp_path: Path) -> Path:
+    return with_yield_check(tmp_path, 400)
+
+
+def check_row(window: Any, check_id: str) -> tuple[str, str, str]:  # state, value, detail as shown
+    table = window.review_panel.checks
+    for row in range(table.rowCount()):
+        if table.item(row, 0).text() == check_id:
+            return table.item(row, 1).text(), table.item(row, 2).text(), table.item(row, 4).text()
+    raise AssertionError(f"no row for check {check_id}")
 
 
 def test_progress_shows_advances_and_cancel_stops_the_spread(qtbot, many_samples: Path,  # type: ignore[no-untyped-def]
@@ -60,8 +77,8 @@ def test_progress_shows_advances_and_cancel_stops_the_spread(qtbot, many_samples
         assert not progress.isVisible()  # nothing runs: no bar
         assert window.spread_view.lines["nominal"].getData()[0] is not None
         slow_spread.set()
-        window.document.set_current_stage("rc")
-        window.parts_table.edit_cell("R1", "value", "4k7")
+        window.document.set_current_stage("amp")
+        window.parts_table.edit_cell("R3", "value", "15k")
         # Common practice, no source: long work shows its progress, which moves forward.
         qtbot.waitUntil(progress.isVisible, timeout=20000)
         first = progress.bar.value()
@@ -77,14 +94,59 @@ def test_progress_shows_advances_and_cancel_stops_the_spread(qtbot, many_samples
         assert f"Spread: {SPREAD_CANCELLED}" in window.spread_view.header.text()
         assert all(item.getData()[0] is None or len(item.getData()[0]) == 0
                    for item in window.spread_view.lines.values())
-        # Every other result of the edit is there: the response of the edited stage.
+        # The yield check has no value and says why; every other result of the edit is there.
+        state, value, detail = check_row(window, "yield")
+        assert state == "no value" and value == "—" and SPREAD_CANCELLED in detail
+        assert check_row(window, "gain")[0] in ("met", "not met")
         assert "Up to date." == window.response_view.header.text()
+        # The packet is not given the cancelled analysis: it would compute its own spread.
+        assert window.worker.analysis_of(window.document.project) is None
         # A later edit starts afresh and runs the spread to its end.
         slow_spread.clear()
-        window.parts_table.edit_cell("R1", "value", "3k9")
+        window.parts_table.edit_cell("R3", "value", "12k")
         assert window.wait_until_idle(60, formula=False)
         assert SPREAD_CANCELLED not in window.spread_view.header.text()
         assert len(window.spread_view.lines["nominal"].getData()[0]) > 0
+        assert check_row(window, "yield")[0] in ("met", "not met")
         assert not progress.isVisible()
     finally:
+        window.shutdown()
+
+
+def test_a_yield_check_follows_the_spread_without_holding_the_review_state(  # type: ignore[no-untyped-def]
+        qtbot, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    window = make_window(qtbot, with_yield_check(tmp_path, 200))
+    release = threading.Event()
+    release.set()
+    compute = worker_module.compute_outcome
+
+    def held(*args: Any, **kwargs: Any) -> Any:
+        if args[3] == 3:
+            release.wait(60)
+        return compute(*args, **kwargs)
+
+    monkeypatch.setattr(worker_module, "compute_outcome", held)
+    try:
+        window.document.set_current_stage("amp")
+        state, value, _detail = check_row(window, "yield")
+        # Source: non-inverting gain 1 + R3/R2; with both resistors within ±1 % it moves by at
+        # most about ±0.17 dB, inside the ±0.5 dB of the gain check, so every sample meets the
+        # only numeric check counted: a yield of 100 %, above the check's 90 %.
+        assert state == "met" and value.startswith("100")
+        assert "Yield 100.0 %" in window.spread_view.summary.text()
+        release.clear()  # hold the spread of the next edit
+        window.parts_table.edit_cell("R3", "value", "15k")
+        worker = window.worker
+        qtbot.waitUntil(lambda: worker.latest is not None and worker.latest.generation == worker._generation
+                        and worker.latest.phase == 2, timeout=30000)
+        # The review state is in without the spread; the yield check says it follows.
+        state, value, detail = check_row(window, "yield")
+        assert state == "no value" and SPREAD_FOLLOWS in detail
+        assert check_row(window, "gain")[0] in ("met", "not met")
+        release.set()
+        assert window.wait_until_idle(60, formula=False)
+        state, value, _detail = check_row(window, "yield")
+        assert state in ("met", "not met") and value.endswith("%")
+    finally:
+        release.set()
         window.shutdown()

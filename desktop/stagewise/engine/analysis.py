@@ -45,11 +45,15 @@ from stagewise.engine.stage import StageAnalysis, analyze_stage, analyze_system
 from stagewise.engine.sweep import TWO_PI, DrivenSystem, drive, frequency_grid, solve_batched
 from stagewise.model.project import Check, Project, Stage
 from stagewise.model.values import format_value
+from stagewise.review.words import SPREAD_CANCELLED
 
 __all__ = ["ProjectAnalysis", "analyze_project", "metric_provider", "response_points"]
 
 VOLTAGE_UNIT = "V/V"
 MEMO_ENTRIES = 400
+# The spread's progress: the chain's Monte Carlo counts as this many places (it costs about that
+# much more than one place of its own).
+CHAIN_SHARE = 4
 CURRENT_UNIT = "Ω"
 
 NO_OPAMP = "the stage has no finite-gain op-amp, so it has no loop to measure"
@@ -123,6 +127,13 @@ class ProjectAnalysis:
         self.engine = engine or ChainEngine()
         self.with_spread = spread
         self._memo = memo
+        # The program sets these before the spread is asked for: its progress callback
+        # (``progress(done, total) -> bool``, True cancels; see engine.spread.Meter), and, while
+        # the review state must come quickly, the reason the yield is not computed yet.
+        self.spread_progress: Any = None
+        self.spread_deferred: str | None = None
+        # The chain's Monte Carlo result behind ``spread`` (envelopes for the views), once run.
+        self.spread_result: Any = None
 
     def _memoized(self, key: tuple[Any, ...], compute: Any) -> Any:
         if self._memo is None:
@@ -523,6 +534,14 @@ class ProjectAnalysis:
         listed in ``not_evaluated`` with the reason. The yield is the share of samples that meet
         every counted check; ``limits`` says, per check, how many samples met it.
         """
+        from stagewise.engine.spread import SpreadCancelled  # noqa: PLC0415
+
+        try:
+            return self._spread()
+        except SpreadCancelled:
+            return _Failure(SPREAD_CANCELLED)
+
+    def _spread(self) -> Any:
         from stagewise.engine.spread import Readout, monte_carlo, spread_to_json  # noqa: PLC0415
 
         merged = self.merged
@@ -541,12 +560,17 @@ class ProjectAnalysis:
                 failed[(where, stage_id)] = output
             elif output is not None:
                 shared[(where, stage_id)] = Readout(output, tuple(limits))
+        # Progress in equal thousandths per run: the chain's (CHAIN_SHARE of them) and each other place's.
+        separate = [place for place in plan if place not in shared and place not in failed]
+        report = _Slots(self.spread_progress, CHAIN_SHARE + len(separate))
         try:
             result = monte_carlo(merged.system, self.project, current_drive=merged.current_drive,
                                  limits=chain_limits, readouts={f"{where}/{stage_id}": readout
-                                                                for (where, stage_id), readout in shared.items()})
+                                                                for (where, stage_id), readout in shared.items()},
+                                 progress=report.slot(0, CHAIN_SHARE))
         except (ValueError, np.linalg.LinAlgError) as error:
             return _Failure(f"the spread analysis failed: {error}")
+        self.spread_result = result
         document = spread_to_json(result)
         counted: list[tuple[str, Any]] = []
         for limit in chain_limits:
@@ -559,12 +583,14 @@ class ProjectAnalysis:
             elif (where, stage_id) in shared:
                 place = result.readouts[f"{where}/{stage_id}"]
             else:
-                place = self._place_samples(where, stage_id, by_ref, limits)
+                place = self._place_samples(where, stage_id, by_ref, limits,
+                                            report.slot(CHAIN_SHARE + separate.index((where, stage_id)), 1))
             if isinstance(place, _Failure):
                 skipped += [(limit.label, place.why) for limit in limits]
                 continue
             for limit in limits:
                 self._count(limit, place, counted, skipped)
+        report.finish()
         samples = result.samples
         all_met = np.ones(samples, dtype=bool)
         per_check: dict[str, Any] = {}
@@ -608,7 +634,8 @@ class ProjectAnalysis:
                 return None
         return int(merged.interface_indices[position + 1])
 
-    def _place_samples(self, where: str, stage_id: str, by_ref: dict[str, Any], limits: list[Any]) -> Any:
+    def _place_samples(self, where: str, stage_id: str, by_ref: dict[str, Any], limits: list[Any],
+                       progress: Any = None) -> Any:
         """The per-sample metrics of a stage isolated or in chain, with the chain's part values."""
         from stagewise.engine.spread import Readout, place_samples  # noqa: PLC0415
 
@@ -635,7 +662,7 @@ class ProjectAnalysis:
         mapped = {ref[len(prefix):]: values for ref, values in by_ref.items() if ref.startswith(prefix)}
         try:
             places = place_samples(system, self.project, current_drive=current, multipliers_by_ref=mapped,
-                                   readouts={"place": Readout(system.output_index, tuple(limits))})
+                                   readouts={"place": Readout(system.output_index, tuple(limits))}, progress=progress)
         except (ValueError, np.linalg.LinAlgError) as error:
             return _Failure(f"the spread of stage \"{stage_id}\" {PLACE_WORDS[where]} failed: {error}")
         return places["place"]
@@ -950,6 +977,8 @@ class ProjectAnalysis:
                 return None, why
             return _document_value(budget, DC_KEYS[metric])
         if metric == "yield_pct":
+            if self.spread_deferred is not None and "spread" not in self.__dict__:
+                return None, self.spread_deferred
             spread = self.spread
             if isinstance(spread, _Failure):
                 return None, spread.why
@@ -1221,6 +1250,32 @@ class ProjectAnalysis:
                                     for item in self.measurements]
         ready: dict[str, Any] = _json_ready(document)
         return ready
+
+
+class _Slots:
+    """One progress callback over several runs: run k reports within its own slots of the whole.
+
+    Each run's ``(done, total)`` is mapped into thousandths of its slots; the slots follow one
+    another, so the whole never goes back while each run's progress does not.
+    """
+
+    def __init__(self, progress: Any, slots: int) -> None:
+        self.progress = progress
+        self.total = 1000 * slots
+
+    def slot(self, first: int, count: int) -> Any:
+        if self.progress is None:
+            return None
+        progress, start, width, total = self.progress, 1000 * first, 1000 * count, self.total
+
+        def report(done: int, run_total: int) -> bool:
+            return bool(progress(start + (width * done // run_total if run_total > 0 else 0), total))
+
+        return report
+
+    def finish(self) -> None:
+        if self.progress is not None:
+            self.progress(self.total, self.total)
 
 
 def _same_pencil(first: StageSystem, second: StageSystem) -> bool:

@@ -1458,6 +1458,7 @@ def place_samples(
     readouts: Mapping[str, Readout],
     multipliers_by_ref: Mapping[str, NDArray[np.float64]],
     f_hz: NDArray[np.float64] | None = None,
+    progress: Progress | None = None,
 ) -> dict[str, SpreadSamples]:
     """The per-sample values at some outputs of a system, for the limits read there, with given draws.
 
@@ -1465,7 +1466,7 @@ def place_samples(
     distributions and worst case of a main output: for a system of its own (a stage isolated or
     in chain) sampled with the chain's part values. Every output shares one set of solves; only
     the figures its limits read are evaluated (a gain check needs no sweep); the stability of
-    every sample is judged once for the system.
+    every sample is judged once for the system. ``progress`` as in :func:`monte_carlo`.
     """
     settings = project.settings
     if f_hz is None:
@@ -1478,9 +1479,12 @@ def place_samples(
     loop_grids = (_default_loop_grids(model) if any(limit.metric == "phase_margin_deg" for readout in wanted
                                                       for limit in readout.limits) else {})
     plans = _readout_plans(system, project, model, current_drive, f_hz, wanted)
-    evaluated = _evaluate_readouts(model, multipliers, f_hz, plans, loop_grids)
-    if any(readout.limits for readout in wanted) and _stability_bounded(model, multipliers.shape[0]):
-        stable = sample_stability(model, multipliers, math.sqrt(float(f_hz[0]) * float(f_hz[-1])))
+    stability = any(readout.limits for readout in wanted) and _stability_bounded(model, multipliers.shape[0])
+    meter = Meter(progress)
+    meter.plan(_readout_units(multipliers.shape[0], plans, bool(loop_grids)) + (count if stability else 0))
+    evaluated = _evaluate_readouts(model, multipliers, f_hz, plans, loop_grids, meter)
+    if stability:
+        stable = sample_stability(model, multipliers, math.sqrt(float(f_hz[0]) * float(f_hz[-1])), meter)
         evaluated = [replace(values, stable=stable) for values in evaluated]
     return dict(zip(readouts, evaluated, strict=True))
 

@@ -143,3 +143,8 @@ FIELD_WORDS: Final[dict[str, str]] = {
     "supply_variation_v": "supply variation",
     "temp_range_c": "operating temperature range",
 }
+
+
+# The Monte Carlo spread in the program: stopped by the user, or still to come after an edit.
+SPREAD_CANCELLED: Final = "not computed: cancelled by the user (the next edit runs it again)"
+SPREAD_FOLLOWS: Final = "computed with the Monte Carlo spread, which follows in the background"

@@ -26,11 +26,16 @@ __all__ = [
     "STAGE_ANALYSES",
     "Context",
     "NotAvailable",
+    "Unchanged",
     "ResponseTrace",
     "explain",
     "stage_formula",
     "stage_key",
 ]
+
+
+class Unchanged(Exception):  # noqa: N818 - reads as "the result is unchanged"
+    """The analysis has nothing new in this phase: the result of an earlier phase stands."""
 
 
 class NotAvailable(Exception):  # noqa: N818 - it reads as "not available: why"
@@ -67,6 +72,9 @@ class Context:
         # The Monte Carlo's progress callback (engine.spread.Meter): the worker sets it on the
         # spread's context; ``progress(done, total) -> bool``, True to stop.
         self.spread_progress: Any = None
+        # The worker's phase this context computes (1 quick, 2 review state, 3 spread; 0 outside
+        # the worker): before phase 3 the yield is said to follow rather than computed.
+        self.phase = 0
 
     @property
     def engine(self) -> Any:
@@ -313,10 +321,13 @@ def _project_analysis(project: Project, context: Context) -> Any:
     """The engine's lazy whole-project analysis of this snapshot (engine/analysis.py), shared by
     the check evaluation and the in-chain step and poles, so nothing is computed twice."""
     from stagewise.engine.analysis import ProjectAnalysis
+    from stagewise.review.words import SPREAD_FOLLOWS
 
     if "project_analysis" not in context.chain_state:
-        context.chain_state["project_analysis"] = ProjectAnalysis(project, context.engine,
-                                                                  memo=context.analysis_memo)
+        analysis = ProjectAnalysis(project, context.engine, memo=context.analysis_memo)
+        analysis.spread_progress = context.spread_progress
+        analysis.spread_deferred = SPREAD_FOLLOWS if context.phase in (1, 2) else None
+        context.chain_state["project_analysis"] = analysis
     return context.chain_state["project_analysis"]
 
 
@@ -397,6 +408,14 @@ def stage_review(stage: Stage, project: Project, context: Context) -> ReviewSumm
                          counts.sentence() + found, findings)
 
 
+def stage_review_with_yield(stage: Stage, project: Project, context: Context) -> ReviewSummary:
+    """The stage's checks again once the spread is in (phase 3), for a stage with a yield check;
+    any other stage keeps its review state of phase 2 (:class:`Unchanged`)."""
+    if not any(check.metric == "yield_pct" for check in stage.checks):
+        raise Unchanged
+    return stage_review(stage, project, context)
+
+
 def peaking_reference(stage: Stage, project: Project, context: Context) -> dict[str, float]:
     """The pass-band reference gain (dB) where the stage's peaking checks are taken, so the view
     can draw their limit as a level: reference + the allowed peaking (peak gain − peaking)."""
@@ -468,6 +487,7 @@ STAGE_ANALYSES: list[tuple[str, int, Any]] = [
     ("poles", 1, isolated_roots),
     ("step", 1, isolated_step),
     ("review", 2, stage_review),
+    ("review", 3, stage_review_with_yield),  # a yield check follows the spread
     ("peaking_reference", 2, peaking_reference),
     ("loops", 3, stage_loops),  # a view, not the review state: with the spread, after a pause
     ("in_chain_step", 2, in_chain_step),
@@ -525,37 +545,40 @@ class SpreadTrace:
     summary: str
 
 
-SPREAD_CANCELLED = "not computed: cancelled by the user (the next edit runs it again)"
-
-
 def chain_spread(project: Project, context: Context) -> SpreadTrace:
-    """Monte Carlo over the tolerances of the whole chain (seeded by the project).
+    """Monte Carlo over the tolerances of the whole chain (seeded by the project): the project
+    analysis's spread, whose yield counts every numeric check (shared with the review state and
+    the packet, so it runs once).
 
     With ``context.spread_progress`` set, the run reports its progress and stops when asked:
-    then nothing of it is shown (:data:`SPREAD_CANCELLED` says why), never a part of the samples.
+    then nothing of it is shown (``review.words.SPREAD_CANCELLED`` says why), never a part of the
+    samples.
     """
-    from stagewise.engine.spread import SpreadCancelled, monte_carlo
     from stagewise.model.values import format_value
 
-    merged = _merged(project, context)
-    try:
-        result = monte_carlo(merged.system, project, current_drive=merged.current_drive, worst_case=False,
-                             phase_margins=False, progress=context.spread_progress)
-    except SpreadCancelled as cancelled:
-        raise NotAvailable(SPREAD_CANCELLED) from cancelled
+    analysis = _project_analysis(project, context)
+    document = analysis.spread
+    why = getattr(document, "why", None)
+    if why is not None:
+        raise NotAvailable(why)
+    result = analysis.spread_result
     levels = result.percentile_levels
     low_index, high_index = 0, len(levels) - 1
     words = [f"{result.samples} samples, seed {result.seed}, {result.distribution} within each tolerance."]
     corner = result.metrics.get("f_high_3db_hz")
     if corner is not None and getattr(corner, "minimum", None) is not None:
         # Each sample's corner is 3 dB below its own pass-band gain, read where the nominal's is.
-        reference = _project_analysis(project, context).metric_reference_words("f_high_3db_hz", "chain", "")
+        reference = analysis.metric_reference_words("f_high_3db_hz", "chain", "")
         against = f" (each sample against its own pass-band gain; nominal {reference})" if reference else ""
         words.append(f"Upper corner {format_value(corner.minimum, 'Hz')} to "
                       f"{format_value(corner.maximum, 'Hz')}{against}.")
-    if result.yield_pct is not None:
-        words.append(f"Yield {result.yield_pct:.1f} %.")
-    words.extend(result.notes)
+    if document.get("yield_pct") is not None:
+        counted = len(document.get("yield_basis", ()))
+        words.append(f"Yield {document['yield_pct']:.1f} % (samples meeting every one of the {counted} "
+                     "numeric checks counted).")
+    else:
+        words.append(f"No yield: {document.get('yield_pct_why')}.")
+    words.extend(document.get("notes", ()))
     return SpreadTrace(result.f_hz, result.nominal_mag_db, result.mag_db_min, result.mag_db_max,
                        result.mag_db_percentiles[low_index], result.mag_db_percentiles[high_index],
                        levels[low_index], levels[high_index], result.samples, " ".join(words))

@@ -30,6 +30,7 @@ from typing import Any
 from PySide6.QtCore import QElapsedTimer, QObject, QRunnable, QThreadPool, QTimer, Signal
 
 from stagewise.model.project import Project
+from stagewise.review.words import SPREAD_CANCELLED
 from stagewise.ui import analyses
 from stagewise.ui.document import Document
 
@@ -108,9 +109,15 @@ class Outcome:
                     self.carried.add((stage_id, name))
 
 
+# What _run gives for an analysis with nothing new in this phase (analyses.Unchanged).
+_UNCHANGED = Computed(None, "unchanged")
+
+
 def _run(function: Any, *arguments: Any) -> Computed:
     try:
         value = function(*arguments)
+    except analyses.Unchanged:
+        return _UNCHANGED
     except analyses.NotAvailable as reason:
         return Computed(None, str(reason))
     except Exception as error:  # noqa: BLE001 - an analysis failure is shown in its view, never crashes the GUI
@@ -140,6 +147,8 @@ def compute_outcome(project: Project, baseline: Project | None, generation: int,
         outcome.analysis = previous.analysis
         outcome.carried = set(previous.carried)
     context.begin(project, baseline)
+    context.phase = phase
+
     def check() -> None:
         if superseded is not None and superseded():
             raise Superseded
@@ -149,8 +158,10 @@ def compute_outcome(project: Project, baseline: Project | None, generation: int,
         for name, analysis_phase, function in analyses.STAGE_ANALYSES:
             if analysis_phase == phase:
                 check()
-                results[name] = _run(function, stage, project, context)
-                outcome.carried.discard((stage.id, name))
+                computed = _run(function, stage, project, context)
+                if computed is not _UNCHANGED:
+                    results[name] = computed
+                    outcome.carried.discard((stage.id, name))
     for name, analysis_phase, function in analyses.CHAIN_ANALYSES:
         if analysis_phase == phase:
             check()
@@ -433,6 +444,8 @@ class ComputeWorker(QObject):
         latest = self._latest
         if self.is_busy or self.spread_busy or latest is None or latest.phase < 3 or latest.analysis is None:
             return None
+        if latest.of_chain("spread").why == SPREAD_CANCELLED:
+            return None  # the packet computes its spread afresh rather than print a cancelled one
         analysed = getattr(latest.analysis, "project", None)
         if not isinstance(analysed, Project):
             return None
