@@ -31,7 +31,7 @@ def test_tree_counts_waived_checks_apart_from_met_ones(window, qtbot) -> None:  
     assert window.wait_until_idle(60, formula=False)
     shown = window.tree._stage_items["amp"].text(3)
     # Source: the waiver dialog's own rule, a waived check counts as waived, never as met.
-    assert "0/2 met" in shown and "1 waived" in shown
+    assert "0/2, 1 waived" in shown
 
 
 def _offered(window, monkeypatch: pytest.MonkeyPatch) -> Any:  # type: ignore[no-untyped-def]

@@ -12,7 +12,7 @@ from PySide6.QtGui import QAction, QBrush, QColor, QFont
 from PySide6.QtWidgets import QAbstractItemView, QHeaderView, QMenu, QTreeWidget, QTreeWidgetItem, QWidget
 
 from stagewise.model.project import PART_TYPES, Part, Stage
-from stagewise.review.words import WHERE_WORDS
+from stagewise.review.words import WHERE_WORDS, CheckState
 from stagewise.ui.document import Document, EditRefused
 from stagewise.ui.icons import icon
 from stagewise.ui.overlays import FROM_INPUT, IN_CHAIN, ISOLATED, OverlaySelection
@@ -56,6 +56,10 @@ class ChainTree(QTreeWidget):
         header.setSectionResizeMode(COLUMN_NAME, QHeaderView.ResizeMode.Stretch)
         header.setMinimumSectionSize(24)
         self.setIndentation(12)
+        # The project row heads the tree and stays open: no expander column before it, which
+        # gives every name that width back.
+        self.setRootIsDecorated(False)
+        self.itemCollapsed.connect(self._keep_project_open)
         # Tick columns as wide as their header word, the review column as wide as its longest
         # short state ("accepted ✓ 10/10 met"); names take the rest and are elided in the middle,
         # with the whole name as a tooltip, so the columns fit a 1280×720 screen.
@@ -64,12 +68,13 @@ class ChainTree(QTreeWidget):
             header.setSectionResizeMode(column, QHeaderView.ResizeMode.Fixed)
             header.resizeSection(column, metrics.horizontalAdvance(self.headerItem().text(column)) + 14)
         header.setSectionResizeMode(COLUMN_STATE, QHeaderView.ResizeMode.Fixed)
-        header.resizeSection(COLUMN_STATE, max(metrics.horizontalAdvance(f"{word} {glyph} 10/10 met")
+        header.resizeSection(COLUMN_STATE, max(metrics.horizontalAdvance(f"{word} {glyph} 10/10")
                                                for word, glyph, _ in STATE_MARKS.values()) + 12)
         self.setTextElideMode(Qt.TextElideMode.ElideMiddle)
         self.headerItem().setToolTip(COLUMN_ALONE, "Overlay the stage alone (ideal drive, unloaded)")
         self.headerItem().setToolTip(COLUMN_IN_CHAIN, "Overlay the stage where it sits in the chain")
-        self.headerItem().setToolTip(COLUMN_STATE, "Sign-off state, and checks passing of all")
+        self.headerItem().setToolTip(COLUMN_STATE, "Sign-off state, and checks met of all (3/4: three of four "
+                                     "checks met; waived ones counted apart)")
         self.headerItem().setToolTip(COLUMN_FROM_INPUT, "Overlay the chain's drive to this stage's output "
                                      "(everything before and after it in place)")
         self.setSelectionMode(QAbstractItemView.SelectionMode.SingleSelection)
@@ -93,6 +98,10 @@ class ChainTree(QTreeWidget):
             (worker.outcomeReady, self._on_outcome),
         ])
         self.rebuild()
+
+    def _keep_project_open(self, item: QTreeWidgetItem) -> None:
+        if item.data(0, ROLE_KIND) == "project":
+            item.setExpanded(True)
 
     def disconnect_all(self) -> None:
         """Stop listening to the document and the worker (the window calls this when it closes)."""
@@ -249,7 +258,10 @@ class ChainTree(QTreeWidget):
                 # The count of met checks and of waived ones; the whole sentence is the tooltip.
                 checks, _, findings = review.value.summary.partition("; ")
                 counts = checks.split(", ")
-                text = ", ".join([counts[0], *[part for part in counts[1:] if "waived" in part]])
+                # "3/4" (checks met of all, as the column's tooltip says), not "3/4 met": the
+                # names need the width more.
+                met = counts[0].removesuffix(f" {CheckState.MET}")
+                text = ", ".join([met, *[part for part in counts[1:] if "waived" in part]])
                 if findings and findings.split()[0].isdigit():
                     text += f" ⚑{findings.split()[0]}"  # automatic findings (the tooltip names them)
                 short.append(text)
