@@ -35,13 +35,20 @@ from stagewise.engine.chain import (
     StageInChain,
     load_admittance,
     merge_systems,
+    merged_size,
     merged_system,
 )
 from stagewise.engine.diagnostics import Finding
 from stagewise.engine.metrics import bandwidth, metric_at, put_with_why, reference_words, stage_metrics
 from stagewise.engine.mna import CircuitError, StageSystem
 from stagewise.engine.stability import Stability, stability_of_poles, stability_to_json
-from stagewise.engine.stage import StageAnalysis, analyze_stage, analyze_system
+from stagewise.engine.stage import (
+    MODEL_MAX_UNKNOWNS,
+    StageAnalysis,
+    analyze_stage,
+    analyze_system,
+    size_limit_why,
+)
 from stagewise.engine.sweep import TWO_PI, DrivenSystem, drive, frequency_grid, solve_batched
 from stagewise.model.project import Check, Project, Stage
 from stagewise.model.values import format_value
@@ -119,14 +126,18 @@ class ProjectAnalysis:
         and keyed here by what decides them: a stage alone by its id and fingerprint, a stage in
         chain by the ids and fingerprints of it and every stage after it and the load. After an
         edit only what the edit touches is computed again. Its size is bounded.
+    max_unknowns : int
+        The size limit of the pole/zero and step-response analysis of every place
+        (``stage.MODEL_MAX_UNKNOWNS``; see :func:`~stagewise.engine.stage.analyze_system`).
     """
 
     def __init__(self, project: Project, engine: ChainEngine | None = None, *, spread: bool = True,
-                 memo: dict[tuple[Any, ...], Any] | None = None) -> None:
+                 memo: dict[tuple[Any, ...], Any] | None = None, max_unknowns: int = MODEL_MAX_UNKNOWNS) -> None:
         self.project = project
         self.engine = engine or ChainEngine()
         self.with_spread = spread
         self._memo = memo
+        self.max_unknowns = max_unknowns
         # The program sets these before the spread is asked for: its progress callback
         # (``progress(done, total) -> bool``, True cancels; see engine.spread.Meter), and, while
         # the review state must come quickly, the reason the yield is not computed yet.
@@ -139,7 +150,7 @@ class ProjectAnalysis:
         if self._memo is None:
             return compute()
         settings = self.project.settings
-        full = (settings.f_min_hz.si, settings.f_max_hz.si, settings.points_per_decade, *key)
+        full = (settings.f_min_hz.si, settings.f_max_hz.si, settings.points_per_decade, self.max_unknowns, *key)
         if full not in self._memo:
             if len(self._memo) >= MEMO_ENTRIES:
                 self._memo.clear()
@@ -196,7 +207,7 @@ class ProjectAnalysis:
                 raise KeyError(stage_id)
             results[stage_id] = self._memoized(
                 ("isolated", stage_id, self._fingerprints[stage_id]),
-                lambda: analyze_stage(stage, self.project, self.f_hz))
+                lambda: analyze_stage(stage, self.project, self.f_hz, max_unknowns=self.max_unknowns))
         return results[stage_id]
 
     @cached_property
@@ -248,18 +259,36 @@ class ProjectAnalysis:
         reason = self._undefined_in_chain(stage.id)
         if reason is not None:
             return _Failure(reason)
+        size = merged_size([s for s in systems if isinstance(s, StageSystem)], current_drive=current)
+        if size > self.max_unknowns:
+            return self._large_in_chain(stage.id, unit, size)
+
         def compute() -> StageAnalysis | _Failure:
             merged = merge_systems([item.id for item in rest], [s for s in systems if isinstance(s, StageSystem)],
                                    current_drive=current, load_r_ohm=load_r, load_c_f=load_c)
             driven = drive(merged.system, current)
             driven = DrivenSystem(driven.g, driven.c, driven.b, merged.interface_indices[1], current)
-            analysis = analyze_system(driven, self.f_hz, unit, stage.id, "")
+            analysis = analyze_system(driven, self.f_hz, unit, stage.id, "", max_unknowns=self.max_unknowns)
             if analysis.why is not None:
                 return _Failure(f'stage "{stage.id}" in chain: {analysis.why}')
             return analysis
 
         key = self._in_chain_key(stage_id)
         return compute() if key is None else self._memoized(key, compute)
+
+    def _large_in_chain(self, stage_id: str, unit: str, size: int) -> StageAnalysis | _Failure:
+        """A stage in chain above the size limit: its response from the port-relation cascade
+        (exact, O(F) per stage), no poles, zeros or step response, so no stability verdict and
+        no response figure (each null with the reason)."""
+        entry = self._chain_entry(stage_id)
+        chain = self.chain
+        if entry is None or entry.in_chain is None:
+            why = (chain.why if isinstance(chain, _Failure) else
+                   f'stage "{stage_id}" in chain: {entry.in_chain_why if entry is not None else "not in the chain"}')
+            return _Failure(why)
+        return StageAnalysis(f_hz=self.f_hz, response=entry.in_chain, unit=unit, poles_rad_s=None,
+                             zeros_rad_s=None, gain_constant=None, label=stage_id,
+                             model_why=size_limit_why(size, self.max_unknowns, poles=True))
 
     def from_input(self, stage_id: str) -> StageAnalysis | _Failure:
         """The chain's drive to this stage's output, as it sits (V/V, or Ω for a current drive).
@@ -288,13 +317,17 @@ class ProjectAnalysis:
         position = merged.stage_ids.index(stage_id) + 1
         if position == len(merged.stage_ids):
             return self.whole_chain  # the same system and output
-        whole = merged.driven()
-        driven = DrivenSystem(whole.g, whole.c, whole.b, merged.interface_indices[position], whole.current_drive)
+        whole = self._whole_driven
+        output = merged.interface_indices[position]
+        driven = DrivenSystem(whole.g, whole.c, whole.b, output, whole.current_drive)
         unit = CURRENT_UNIT if merged.current_drive else VOLTAGE_UNIT
         whole_chain = self.whole_chain
-        known = None if isinstance(whole_chain, _Failure) or whole_chain.model is None else (
-            whole_chain.model.all_poles_rad_s)  # the same pencil: the same poles at every output
-        analysis = analyze_system(driven, self.f_hz, unit, stage_id, "", poles=known)
+        model = None if isinstance(whole_chain, _Failure) else whole_chain.model or whole_chain.poles_model
+        known = None if model is None else model.all_poles_rad_s  # the same pencil: the same poles at every output
+        states = self._chain_states
+        response = None if isinstance(states, _Failure) else states[:, output]
+        analysis = analyze_system(driven, self.f_hz, unit, stage_id, "", poles=known, response=response,
+                                  max_unknowns=self.max_unknowns)
         if analysis.why is not None:
             return _Failure(f'stage "{stage_id}" seen from the chain input: {analysis.why}')
         return analysis
@@ -339,13 +372,37 @@ class ProjectAnalysis:
         return None
 
     @cached_property
+    def _whole_driven(self) -> DrivenSystem:
+        """The merged chain with its drive: one set of arrays for the chain and every stage seen
+        from its input (so the sparse solver's caches serve them all)."""
+        merged = self.merged
+        assert not isinstance(merged, _Failure)
+        return merged.driven()
+
+    @cached_property
+    def _chain_states(self) -> NDArray[np.complex128] | _Failure:
+        """Every unknown of the driven merged chain on the grid, (F, N): one sweep gives the
+        response at every stage's output seen from the chain's input."""
+        whole = self._whole_driven
+        try:
+            points = np.asarray(1j * TWO_PI * self.f_hz, dtype=complex)
+            return solve_batched(whole.g, whole.c, whole.b.astype(complex), points)
+        except np.linalg.LinAlgError:
+            return _Failure("the chain's equations are singular at an analysis frequency")
+
+    @cached_property
     def whole_chain(self) -> StageAnalysis | _Failure:
-        """Drive → last output of the merged chain, with its pole/zero model."""
+        """Drive → last output of the merged chain, with its pole/zero model (above the size
+        limit, its poles only)."""
         merged = self.merged
         if isinstance(merged, _Failure):
             return merged
         unit = CURRENT_UNIT if merged.current_drive else VOLTAGE_UNIT
-        analysis = analyze_system(merged.driven(), self.f_hz, unit, "chain", "")
+        whole = self._whole_driven
+        states = self._chain_states
+        response = None if isinstance(states, _Failure) else states[:, whole.output]
+        analysis = analyze_system(whole, self.f_hz, unit, "chain", "", response=response,
+                                  max_unknowns=self.max_unknowns)
         if analysis.why is not None:
             return _Failure(f"the chain: {analysis.why}")
         return analysis
@@ -516,6 +573,10 @@ class ProjectAnalysis:
         budget = self.dc_budget(where, stage_id)
         if isinstance(budget, _Failure):
             return None, budget.why
+        if where == "in_chain":
+            analysis = self.in_chain(stage_id)
+            if isinstance(analysis, StageAnalysis) and analysis.poles_rad_s is None and analysis.model_why:
+                return None, analysis.model_why  # its stability is not decided: no operating point to budget
         # Seen from the chain's input a stage has the whole chain's poles: its verdict is the chain's.
         verdict = self.stability("chain", "") if where == "from_input" else self.stability(where, stage_id)
         if verdict is not None and not verdict.stable:
@@ -1082,7 +1143,17 @@ class ProjectAnalysis:
         key = (where, stage_id if where != "chain" else "")
         cache = self._documents
         if key not in cache:
-            document = stage_metrics(analysis, self.project.settings)
+            shared = None
+            if where == "from_input" and analysis.model is None:
+                # Listed once, under the chain: O(N) per stage would make the document quadratic.
+                shared = ("the same as the whole chain's poles (listed under chain): seen from the chain's input a "
+                          "stage has the chain's matrices, only the output differs")
+            document = stage_metrics(analysis, self.project.settings, shared_poles_why=shared)
+            if analysis.poles_rad_s is None:
+                # Above the size limit in chain: no poles, so no verdict (and no response figure).
+                document["stability"] = {"verdict": None, "why": analysis.model_why or analysis.why, "poles": []}
+                cache[key] = document
+                return document
             verdict = stability_of_poles(analysis.poles_rad_s, analysis.cancelled)
             document["stability"] = stability_to_json(verdict)
             if not verdict.stable:

@@ -82,6 +82,7 @@ __all__ = [
     "isolated_response",
     "load_admittance",
     "merge_systems",
+    "merged_size",
     "merged_system",
     "stage_port_relation",
 ]
@@ -195,21 +196,14 @@ def _find(parent: list[int], index: int) -> int:
     return index
 
 
-def merge_systems(
-    stage_ids: list[str],
-    systems: list[StageSystem],
-    *,
-    current_drive: bool,
-    load_r_ohm: float | None,
-    load_c_f: float | None,
-) -> MergedChain:
-    """Join already assembled stage systems output to input (see :func:`merged_system`)."""
-    if not systems:
-        raise CircuitError("the chain has no active stage")
+def _joined_unknowns(systems: list[StageSystem]) -> tuple[NDArray[np.int64], NDArray[np.int64], int]:
+    """(offsets of the stages' blocks, merged index of every block unknown, merged size).
+
+    Union-find over the block-diagonal unknowns: out(k) and in(k+1) are one node. A stage whose
+    input and output are the same node (a shunt model) lets a join run through it.
+    """
     offsets = np.cumsum([0] + [system.size for system in systems])
     total = int(offsets[-1])
-    # Union-find over the block-diagonal unknowns: out(k) and in(k+1) are one node. A stage
-    # whose input and output are the same node (a shunt model) lets a join run through it.
     parent = list(range(total))
     for k in range(len(systems) - 1):
         left = int(offsets[k]) + systems[k].output_index
@@ -221,20 +215,35 @@ def merge_systems(
     kept = sorted(set(roots))
     new_index = {old: new for new, old in enumerate(kept)}
     where = np.array([new_index[root] for root in roots], dtype=int)
-    size = len(kept)
+    return offsets, where, len(kept)
 
-    # Incidence matrix E (merged x block): G_merged = E·G_block·Eᵀ adds the rows and the
-    # columns of joined unknowns; with 0/1 entries the sums are exact.
-    incidence = np.zeros((size, total))
-    incidence[where, np.arange(total)] = 1.0
-    g_block = np.zeros((total, total))
-    c_block = np.zeros((total, total))
+
+def merged_size(systems: list[StageSystem], *, current_drive: bool) -> int:
+    """The number of unknowns of :func:`merge_systems`' pencil with its drive attached, without
+    building it (the drive adds one unknown for a voltage source)."""
+    return _joined_unknowns(systems)[2] + (0 if current_drive else 1)
+
+
+def merge_systems(
+    stage_ids: list[str],
+    systems: list[StageSystem],
+    *,
+    current_drive: bool,
+    load_r_ohm: float | None,
+    load_c_f: float | None,
+) -> MergedChain:
+    """Join already assembled stage systems output to input (see :func:`merged_system`)."""
+    if not systems:
+        raise CircuitError("the chain has no active stage")
+    offsets, where, size = _joined_unknowns(systems)
+    # G_merged adds the rows and the columns of joined unknowns (a scatter-add per stage block,
+    # O(n²) for the block-diagonal stages instead of an O(n³) incidence product; the same sums).
+    g = np.zeros((size, size))
+    c = np.zeros((size, size))
     for k, system in enumerate(systems):
-        start, stop = int(offsets[k]), int(offsets[k + 1])
-        g_block[start:stop, start:stop] = system.g
-        c_block[start:stop, start:stop] = system.c
-    g = incidence @ g_block @ incidence.T
-    c = incidence @ c_block @ incidence.T
+        block = where[int(offsets[k]):int(offsets[k + 1])]
+        np.add.at(g, (block[:, None], block[None, :]), system.g)
+        np.add.at(c, (block[:, None], block[None, :]), system.c)
 
     def remap(k: int, local: int) -> int:
         return -1 if local < 0 else int(where[int(offsets[k]) + local])
@@ -872,7 +881,7 @@ class ChainEngine:
 
         analysis = self.whole_chain(project)
         if analysis.model is None:
-            raise CircuitError(f"the chain has no pole/zero model: {analysis.why}")
+            raise CircuitError(f"the chain has no pole/zero model: {analysis.why or analysis.model_why}")
         return step_response(analysis.model)
 
     def analyze(self, project: Project, f_hz: NDArray[np.float64] | list[float] | float | None = None

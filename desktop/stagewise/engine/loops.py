@@ -50,7 +50,7 @@ from numpy.typing import NDArray
 from stagewise.engine.mna import CircuitError, OpampStates, StageSystem, assemble
 from stagewise.engine.poles import SingularPencilError, finite_eigenvalues
 from stagewise.engine.stability import Stability, stability_of_poles
-from stagewise.engine.sweep import drive, solve_batched
+from stagewise.engine.sweep import SOLVE_CHUNK_BYTES, drive, solve_batched
 from stagewise.model.project import Project, Stage
 
 __all__ = [
@@ -188,19 +188,24 @@ def _all_loop_gains(g: NDArray[np.float64], c: NDArray[np.float64], opamps: tupl
     rhs = np.zeros((g.shape[0], len(opamps)), dtype=complex)
     for column, opamp in enumerate(opamps):
         rhs[opamp.state_row, column] = 1.0
-    try:
-        y = solve_batched(g, c, rhs, s)
-    except np.linalg.LinAlgError:
-        return None
-    result = np.empty((len(opamps), s.size), dtype=complex)
-    for column, opamp in enumerate(opamps):
-        a = np.zeros(s.size, dtype=complex)
-        if opamp.in_plus >= 0:
-            a += y[:, opamp.in_plus, column]
-        if opamp.in_minus >= 0:
-            a -= y[:, opamp.in_minus, column]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            result[column] = -a / (1.0 + a)
+    columns = np.arange(len(opamps))
+    plus = np.array([max(opamp.in_plus, 0) for opamp in opamps])
+    minus = np.array([max(opamp.in_minus, 0) for opamp in opamps])
+    plus_used = np.array([opamp.in_plus >= 0 for opamp in opamps])
+    minus_used = np.array([opamp.in_minus >= 0 for opamp in opamps])
+    # Chunked over frequencies: the solutions of one chunk (n unknowns × one column per op-amp)
+    # stay near SOLVE_CHUNK_BYTES; only the two entries per column that make a are kept.
+    chunk = max(1, int(SOLVE_CHUNK_BYTES // (16 * g.shape[0] * len(opamps))))
+    a = np.empty((s.size, len(opamps)), dtype=complex)
+    for start in range(0, s.size, chunk):
+        try:
+            y = solve_batched(g, c, rhs, s[start:start + chunk])
+        except np.linalg.LinAlgError:
+            return None
+        a[start:start + chunk] = (np.where(plus_used, y[:, plus, columns], 0.0)
+                                  - np.where(minus_used, y[:, minus, columns], 0.0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        result = np.asarray((-a / (1.0 + a)).T, dtype=complex)
     if not np.all(np.isfinite(result)):
         return None
     return result

@@ -132,9 +132,14 @@ def _db(values: NDArray[np.complex128]) -> NDArray[np.float64]:
         return np.asarray(20.0 * np.log10(np.abs(values)), dtype=float)
 
 
+def _model(analysis: StageAnalysis) -> Any:
+    """The pole/zero model, or for a system above the size limit its poles alone (or None)."""
+    return analysis.model if analysis.model is not None else analysis.poles_model
+
+
 def _require(analysis: StageAnalysis) -> None:
-    if analysis.why is not None or analysis.response is None or analysis.model is None:
-        raise ValueError(analysis.why or "the analysis has no response")
+    if analysis.why is not None or analysis.response is None or _model(analysis) is None:
+        raise ValueError(analysis.why or analysis.model_why or "the analysis has no response")
 
 
 def _model_phase_rad(analysis: StageAnalysis, f_hz: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -170,9 +175,21 @@ def _model_phase_rad(analysis: StageAnalysis, f_hz: NDArray[np.float64]) -> NDAr
 
 def _anchored_phase_deg(analysis: StageAnalysis, f_hz: NDArray[np.float64],
                         values: NDArray[np.complex128]) -> NDArray[np.float64]:
-    """The exact angle of ``values`` on the 2π branch nearest the pole/zero phase."""
+    """The exact angle of ``values`` on the 2π branch nearest the pole/zero phase.
+
+    Without zeros (a system above the size limit) the branch is that of the exact phase
+    unwrapped along the analysis grid, started in (−180°, 180°] (read between grid points
+    in log frequency).
+    """
     exact = np.angle(values)
-    model_phase = _model_phase_rad(analysis, f_hz)
+    if analysis.model is None:
+        swept_values = getattr(analysis, "response", None)
+        grid = analysis.f_hz if swept_values is not None else np.asarray(f_hz, dtype=float)
+        swept = np.unwrap(np.angle(swept_values if swept_values is not None else values))
+        swept -= TWO_PI * np.round(swept[0] / TWO_PI)
+        model_phase = np.interp(np.log10(np.asarray(f_hz, dtype=float)), np.log10(grid), swept)
+    else:
+        model_phase = _model_phase_rad(analysis, f_hz)
     turns = np.round((model_phase - exact) / TWO_PI)
     return np.asarray(np.degrees(exact + TWO_PI * turns), dtype=float)
 
@@ -340,10 +357,10 @@ def _end_exponents(analysis: StageAnalysis) -> tuple[int, int, bool]:
     From the pole/zero model (roots at s = 0 are exact, so e0 = zeros at 0 − poles at 0, and
     e∞ = zeros − poles) when the model reproduces the exact response; otherwise from the slope
     of exact solves far below and far above every pole (a deep chain whose zeros are
-    ill-conditioned).
+    ill-conditioned, or a system above the size limit whose zeros are not computed).
     """
-    assert analysis.model is not None
-    model = analysis.model
+    model = _model(analysis)
+    assert model is not None
     if not (model.fit_error > FIT_TOLERANCE):
         e0 = int(np.sum(model.zeros_rad_s == 0)) - int(np.sum(model.poles_rad_s == 0))
         return e0, -model.relative_degree, True
@@ -367,12 +384,13 @@ def _end_exponents(analysis: StageAnalysis) -> tuple[int, int, bool]:
 
 def _dc_gain_db(analysis: StageAnalysis) -> float:
     """20·log10|H(0)| by an exact solve at s = 0 (the model where G alone is singular)."""
-    assert analysis.driven is not None and analysis.model is not None
+    model = _model(analysis)
+    assert analysis.driven is not None and model is not None
     driven = analysis.driven
     try:
         value = complex(transfer_at(driven.g, driven.c, driven.b, driven.output, 0j)[0])
     except np.linalg.LinAlgError:
-        value = complex(analysis.model.evaluate(0j)[0])
+        value = complex(model.evaluate(0j)[0])  # NaN without zeros: never a made-up gain
     return float(_db(np.array([value]))[0])
 
 
@@ -456,10 +474,10 @@ def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandR
     between the low- and high-frequency corners: A. S. Sedra and K. C. Smith, *Microelectronic
     Circuits*, chapter on frequency response (the mid-band gain A_M).
     """
-    if analysis.why is not None or analysis.model is None or analysis.response is None:
-        reason = analysis.why or "the analysis has no response"
+    model = _model(analysis)
+    if analysis.why is not None or model is None or analysis.response is None:
+        reason = analysis.why or analysis.model_why or "the analysis has no response"
         return PassbandReference(None, None, None, "unknown", "no reference: the response is not known", reason)
-    model = analysis.model
     ref_hz = None if settings.ref_hz is None else float(settings.ref_hz.si)
     e0, e_inf, from_model = _end_exponents(analysis)
     unused = "" if ref_hz is None else f"; ref_hz ({format_value(ref_hz, 'Hz')}) is not used for this shape"
@@ -533,8 +551,8 @@ def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandR
 
 def _hf_gain_db(analysis: StageAnalysis, from_model: bool) -> float:
     """20·log10|K|, the limit of |H| as s → ∞ for a relative degree of zero."""
-    assert analysis.model is not None
-    model = analysis.model
+    model = _model(analysis)
+    assert model is not None
     if from_model:
         return float(20.0 * model.log_gain / math.log(10.0))
     assert analysis.driven is not None
@@ -577,6 +595,8 @@ def metric_at(analysis: StageAnalysis, name: str, at_hz: float, settings: Settin
     """
     if analysis.why is not None:
         return MetricValue(None, analysis.why)
+    if _model(analysis) is None:
+        return MetricValue(None, analysis.model_why or "the analysis has no response")
     if name not in POINT_METRICS:
         return MetricValue(None, f'"{name}" is not a metric taken at a frequency; use one of {", ".join(POINT_METRICS)}')
     if not (at_hz > 0 and math.isfinite(at_hz)):
@@ -615,7 +635,17 @@ def _peak(analysis: StageAnalysis) -> tuple[float, float]:
     index = int(np.argmax(mag))
     f = analysis.f_hz
     best_f, best_db = float(f[index]), float(mag[index])
-    if 0 < index < len(f) - 1:
+    if 0 < index < len(f) - 1 and analysis.model is None:
+        # A system above the size limit (one sparse solve per point): Brent's bounded search.
+        from scipy.optimize import minimize_scalar  # noqa: PLC0415
+
+        evaluate = _gain_db_of_log_f(analysis)
+        found = minimize_scalar(lambda x: -float(evaluate(np.array([x]))[0]), method="bounded",
+                                bounds=(math.log10(f[index - 1]), math.log10(f[index + 1])),
+                                options={"xatol": 1e-10})
+        if np.isfinite(found.fun) and -float(found.fun) > best_db:
+            best_f, best_db = float(10.0 ** found.x), -float(found.fun)
+    elif 0 < index < len(f) - 1:
         evaluate = _gain_db_of_log_f(analysis)
         low, high = math.log10(f[index - 1]), math.log10(f[index + 1])
         for _ in range(4):
@@ -628,6 +658,30 @@ def _peak(analysis: StageAnalysis) -> tuple[float, float]:
     return best_f, best_db
 
 
+def _crossing(analysis: StageAnalysis, evaluate: Any, low: float, high: float, level: float) -> float:
+    """The first crossing of ``level`` in [low, high] (log10 f), exact.
+
+    The k-section search of :func:`~stagewise.engine.timeresp.refine_crossing` (about 200 exact
+    solves); for a system above the size limit, whose solves are sparse LUs one point at a
+    time, one 8-section round finds the first crossing's bracket and Brent's method
+    (``scipy.optimize.brentq``) closes it to 1e-13 in log f in about ten solves.
+    """
+    if analysis.model is not None:
+        return refine_crossing(evaluate, low, high, level)
+    from scipy.optimize import brentq  # noqa: PLC0415
+
+    grid = np.linspace(low, high, 9)
+    values = evaluate(grid) - level
+    beyond = np.nonzero(np.sign(values) != np.sign(values[0]))[0]
+    if len(beyond) == 0 or not np.all(np.isfinite(values)):
+        return refine_crossing(evaluate, low, high, level)
+    index = int(beyond[0])
+    if values[index] == 0:
+        return float(grid[index])
+    ends = sorted((float(grid[index - 1]), float(grid[index])))
+    return float(brentq(lambda x: float(evaluate(np.array([x]))[0]) - level, ends[0], ends[1], xtol=1e-13))
+
+
 def _band_text(f_hz: NDArray[np.float64]) -> str:
     return f"{format_value(float(f_hz[0]), 'Hz')}–{format_value(float(f_hz[-1]), 'Hz')}"
 
@@ -638,10 +692,10 @@ def _search_points(analysis: StageAnalysis) -> tuple[NDArray[np.float64], NDArra
     A corner is a property of the response, not of the plotted band: a low-pass whose corner
     lies below ``f_min_hz`` still has it there, found on the exact response.
     """
-    assert analysis.response is not None and analysis.model is not None
+    model = _model(analysis)
+    assert analysis.response is not None and model is not None
     f = analysis.f_hz
     mag = _db(analysis.response)
-    model = analysis.model
     roots = np.abs(np.concatenate([model.poles_rad_s, model.zeros_rad_s])) / TWO_PI
     roots = roots[roots > 0]
     if not len(roots) or len(f) < 2:
@@ -677,8 +731,8 @@ def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
     why: dict[str, str] = {}
     keys = ("gain_db", "peak_gain_db", "f_low_3db_hz", "f_high_3db_hz", "peaking_db")
     reference = passband_reference(analysis, settings)
-    if analysis.why is not None or analysis.response is None:
-        reason = analysis.why or "the analysis has no response"
+    if analysis.why is not None or analysis.response is None or _model(analysis) is None:
+        reason = analysis.why or analysis.model_why or "the analysis has no response"
         return Bandwidth(None, None, None, None, None, None, None, dict.fromkeys(keys, reason), reference)
     peak_hz, peak_db = _peak(analysis)
     if reference.gain_db is None or not math.isfinite(reference.gain_db):
@@ -703,7 +757,7 @@ def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
         index = int(above[0])
         start = float(f[index - 1]) if index > 0 and f[index - 1] > f_ref else f_ref
         if start > 0:
-            f_high = 10.0 ** refine_crossing(evaluate, math.log10(start), math.log10(float(f[index])), level)
+            f_high = 10.0 ** _crossing(analysis, evaluate, math.log10(start), math.log10(float(f[index])), level)
         else:
             why["f_high_3db_hz"] = (f"the gain is already 3 dB below its reference ({words}) at "
                                     f"{format_value(float(f[0]), 'Hz')}, the lowest frequency examined")
@@ -719,7 +773,7 @@ def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
         stop = float(f[index + 1]) if index + 1 < len(f) and f[index + 1] < f_ref else f_ref
         if math.isfinite(stop):
             # Search downward from the reference side: the bracket runs from the inside out.
-            f_low = 10.0 ** refine_crossing(evaluate, math.log10(stop), math.log10(float(f[index])), level)
+            f_low = 10.0 ** _crossing(analysis, evaluate, math.log10(stop), math.log10(float(f[index])), level)
         else:
             why["f_low_3db_hz"] = (f"the gain is still 3 dB below its reference ({words}) at "
                                    f"{format_value(float(f[-1]), 'Hz')}, the highest frequency examined")
@@ -749,8 +803,12 @@ def put_with_why(document: dict[str, Any], key: str, value: Any, why: str | None
         document[f"{key}_why"] = why or "not computed"
 
 
-def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]:
+def stage_metrics(analysis: StageAnalysis, settings: Settings, *, shared_poles_why: str | None = None) -> dict[str, Any]:
     """The DESIGN section 6 "M" fields of one analysis (isolated stage, or any driven system).
+
+    ``shared_poles_why``: for a system above the size limit whose poles are another place's
+    (a stage seen from the chain's input has the chain's), the poles are not listed again but
+    null with this sentence.
 
     Returns
     -------
@@ -783,6 +841,18 @@ def stage_metrics(analysis: StageAnalysis, settings: Settings) -> dict[str, Any]
     document["peak_hz"] = limits.peak_hz
     for key in ("f_low_3db_hz", "f_high_3db_hz", "peaking_db"):
         put_with_why(document, key, getattr(limits, key), limits.why.get(key))
+    if analysis.why is None and analysis.model is None and analysis.model_why is not None:
+        # Above the size limit: the poles when known, no zeros, gain constant or step response.
+        if analysis.poles_model is not None and shared_poles_why is not None:
+            put_with_why(document, "poles", None, shared_poles_why)
+        elif analysis.poles_model is not None:
+            document["poles"] = root_table(analysis.poles_model.poles_rad_s)
+        else:
+            put_with_why(document, "poles", None, analysis.model_why)
+        for key in ("gain_constant", "zeros", "step"):
+            put_with_why(document, key, None, analysis.model_why)
+        document["cancelled"] = []
+        return document
     if analysis.why is not None or analysis.model is None:
         for key in ("gain_constant", "poles", "zeros", "step"):
             put_with_why(document, key, None, analysis.why)

@@ -60,6 +60,7 @@ __all__ = [
     "index_one_state_space",
     "origin_multiplicity",
     "pole_zero_model",
+    "poles_only_model",
     "root_table",
     "transfer_at",
 ]
@@ -628,6 +629,31 @@ def pole_zero_model(
         beyond_horizon=far,
     )
     return replace(model, fit_error=_fit_error(model, g, c, b, output))
+
+
+def poles_only_model(
+    g: NDArray[np.float64], c: NDArray[np.float64], poles: NDArray[np.complex128] | None = None
+) -> PoleZeroModel:
+    """The poles of ``G + sC`` as a model without zeros or gain (a system too large for them).
+
+    The zeros and K are not computed (``zeros_rad_s`` is empty, ``gain`` NaN, so ``evaluate``
+    gives NaN, never a made-up value) and ``fit_error`` is infinite: every user of the model then
+    takes the response's end slopes and levels from exact solves, as for ill-conditioned zeros.
+
+    Parameters
+    ----------
+    poles : ndarray of complex, optional
+        The pencil's finite poles when already known (another output of the same pencil).
+    """
+    if poles is None:
+        poles = finite_eigenvalues(g, c)
+        poles = _settle_origin(poles, origin_multiplicity(g, c))
+    scale = _frequency_scale(np.asarray(g, dtype=float), np.asarray(c, dtype=float))
+    poles = np.asarray(poles, dtype=complex)
+    far = tuple(complex(p) for p in poles[np.abs(poles) > HORIZON * scale])
+    return PoleZeroModel(poles_rad_s=_tidy(poles[np.abs(poles) <= HORIZON * scale]),
+                         zeros_rad_s=np.zeros(0, dtype=complex), gain=math.nan, scale_rad_s=scale,
+                         beyond_horizon=far, fit_error=math.inf)
 
 
 def _fit_error(model: PoleZeroModel, g: NDArray[np.float64], c: NDArray[np.float64], b: NDArray[np.float64],

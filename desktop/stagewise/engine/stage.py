@@ -54,20 +54,35 @@ from numpy.typing import NDArray
 
 from stagewise.engine.diagnostics import diagnose
 from stagewise.engine.mna import CircuitError, StageSystem, assemble
-from stagewise.engine.poles import PoleZeroModel, SingularPencilError, pole_zero_model, transfer_at
+from stagewise.engine.poles import (
+    PoleZeroModel,
+    SingularPencilError,
+    pole_zero_model,
+    poles_only_model,
+    transfer_at,
+)
 from stagewise.engine.sweep import DrivenSystem, drive, frequency_grid
 from stagewise.model.project import Project, Stage
 
 __all__ = [
+    "MODEL_MAX_UNKNOWNS",
     "StageAnalysis",
     "analyze_stage",
     "analyze_system",
     "isolated_system",
     "response_at",
+    "size_limit_why",
     "stage_response",
 ]
 
 TWO_PI = 2.0 * math.pi
+# Above this many unknowns a system's zeros (a QZ of the (n + 1) Rosenbrock pencil) and step
+# response (O(n³ + n²·T)) are not computed, with the reason stated. Far above every demo and a
+# 100-section ladder (102 unknowns); a merged 40-stage buffered chain has 121. Every stage of a
+# chain has a from-input and an in-chain place as large as (the rest of) the chain, so without a
+# limit the whole analysis grows with the fourth power of the chain's length (DEVELOPERS.md, cost
+# table).
+MODEL_MAX_UNKNOWNS = 120
 VOLTAGE_UNIT = "V/V"
 CURRENT_UNIT = "Ω"
 
@@ -103,6 +118,15 @@ class StageAnalysis:
         The minimal pole/zero model (time responses use it).
     fingerprint : str
         The stage fingerprint it was computed from ("" for other systems); a cache key.
+    model_why : str or None
+        Why ``model`` is None although the response is known: the system has more unknowns than
+        ``MODEL_MAX_UNKNOWNS``, so its zeros, gain constant and step response are not computed
+        (the sentence says so, with the sizes). ``None`` when the model was computed.
+    poles_model : PoleZeroModel or None
+        With ``model_why``: the system's poles alone (``poles.poles_only_model``), when they are
+        known (the whole chain, and every stage seen from its input, which shares the chain's
+        pencil); the pass-band reference and the corner search read the roots' range from it.
+        ``None`` when the poles are not computed either (a stage in chain above the limit).
     """
 
     f_hz: NDArray[np.float64]
@@ -117,6 +141,8 @@ class StageAnalysis:
     driven: DrivenSystem | None = None
     model: PoleZeroModel | None = None
     fingerprint: str = ""
+    model_why: str | None = None
+    poles_model: PoleZeroModel | None = None
 
     @property
     def ok(self) -> bool:
@@ -149,6 +175,10 @@ def analyze_system(
     label: str = "",
     fingerprint: str = "",
     poles: NDArray[np.complex128] | None = None,
+    *,
+    response: NDArray[np.complex128] | None = None,
+    max_unknowns: int = MODEL_MAX_UNKNOWNS,
+    find_poles: bool = True,
 ) -> StageAnalysis:
     """Sweep a driven pencil and compute its minimal pole/zero model.
 
@@ -164,6 +194,14 @@ def analyze_system(
         Name carried into messages and results.
     poles : ndarray of complex, optional
         The pencil's finite poles when already known (the same G and C read at another output).
+    response : ndarray of complex, optional
+        The exact response on ``f_hz`` when the caller already has it (a shared sweep).
+    max_unknowns : int
+        Above this many unknowns the zeros, gain constant and step response are not computed:
+        ``model`` is None and ``model_why`` says why; the poles are still computed when
+        ``find_poles`` (else they are None too, and so is the stability they decide).
+    find_poles : bool
+        Whether to compute the poles of a system above ``max_unknowns`` (they cost O(n³)).
 
     Returns
     -------
@@ -172,19 +210,23 @@ def analyze_system(
         respond; never raises for those.
     """
     f_hz = np.asarray(f_hz, dtype=float)
+    size = int(driven.g.shape[0])
+    if size > max_unknowns:
+        return _analyze_large(driven, f_hz, unit, label, fingerprint, poles, response, max_unknowns, find_poles)
     try:
         model = pole_zero_model(driven.g, driven.c, driven.b, driven.output, poles=poles)
     except SingularPencilError as error:
         return _failed(f_hz, unit, str(error), label, fingerprint, driven)
     except (np.linalg.LinAlgError, ArithmeticError) as error:
         return _failed(f_hz, unit, f"the poles and zeros could not be computed ({error})", label, fingerprint, driven)
-    try:
-        response = transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * TWO_PI * f_hz)
-    except np.linalg.LinAlgError:
-        on_axis = [p for p in model.poles_rad_s if p.real == 0]
-        where = f" (a pole at {abs(on_axis[0]) / TWO_PI:.6g} Hz on the jω axis)" if on_axis else ""
-        return _failed(f_hz, unit, f"the response is infinite at an analysis frequency{where}", label,
-                       fingerprint, driven)
+    if response is None:
+        try:
+            response = transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * TWO_PI * f_hz)
+        except np.linalg.LinAlgError:
+            on_axis = [p for p in model.poles_rad_s if p.real == 0]
+            where = f" (a pole at {abs(on_axis[0]) / TWO_PI:.6g} Hz on the jω axis)" if on_axis else ""
+            return _failed(f_hz, unit, f"the response is infinite at an analysis frequency{where}", label,
+                           fingerprint, driven)
     return StageAnalysis(
         f_hz=f_hz,
         response=response,
@@ -200,7 +242,60 @@ def analyze_system(
     )
 
 
-def analyze_stage(stage: Stage, project: Project, f_hz: NDArray[np.float64] | None = None) -> StageAnalysis:
+def size_limit_why(size: int, max_unknowns: int = MODEL_MAX_UNKNOWNS, poles: bool = False) -> str:
+    """The sentence beside a value not computed because the system is above the size limit.
+
+    ``poles``: the poles are not computed either, so the stability is not decided and no
+    response figure is given.
+    """
+    if poles:
+        return (f"not computed: the system has {size} unknowns, above the {max_unknowns} of the pole, zero and "
+                "step-response analysis, so its stability is not decided and no response figure is given (their "
+                "cost grows with the cube of the size; see the cost table in DEVELOPERS.md)")
+    return (f"not computed: the system has {size} unknowns, above the {max_unknowns} of the zero and "
+            "step-response analysis (their cost grows with the cube of the size; see the cost table in "
+            "DEVELOPERS.md)")
+
+
+def _analyze_large(driven: DrivenSystem, f_hz: NDArray[np.float64], unit: str, label: str, fingerprint: str,
+                   poles: NDArray[np.complex128] | None, response: NDArray[np.complex128] | None,
+                   max_unknowns: int, find_poles: bool) -> StageAnalysis:
+    """A system above the size limit: the exact response, and the poles when known or asked for."""
+    size = int(driven.g.shape[0])
+    model = None
+    if poles is not None or find_poles:
+        try:
+            model = poles_only_model(driven.g, driven.c, poles)
+        except SingularPencilError as error:
+            return _failed(f_hz, unit, str(error), label, fingerprint, driven)
+        except (np.linalg.LinAlgError, ArithmeticError) as error:
+            return _failed(f_hz, unit, f"the poles could not be computed ({error})", label, fingerprint, driven)
+    if response is None:
+        try:
+            response = transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * TWO_PI * f_hz)
+        except np.linalg.LinAlgError:
+            return _failed(f_hz, unit, "the response is infinite at an analysis frequency (the system's matrix is "
+                           "singular there)", label, fingerprint, driven)
+    if not np.any(np.abs(response) > 0):
+        return _failed(f_hz, unit, "the output does not respond to the input (the response is zero at every "
+                       "analysed frequency)", label, fingerprint, driven)
+    return StageAnalysis(
+        f_hz=f_hz,
+        response=response,
+        unit=unit,
+        poles_rad_s=None if model is None else model.poles_rad_s,
+        zeros_rad_s=None,
+        gain_constant=None,
+        label=label,
+        driven=driven,
+        fingerprint=fingerprint,
+        model_why=size_limit_why(size, max_unknowns, poles=model is None),
+        poles_model=model,
+    )
+
+
+def analyze_stage(stage: Stage, project: Project, f_hz: NDArray[np.float64] | None = None, *,
+                  max_unknowns: int = MODEL_MAX_UNKNOWNS) -> StageAnalysis:
     """The isolated analysis of ``stage`` (DESIGN 3.3).
 
     Parameters
@@ -211,6 +306,8 @@ def analyze_stage(stage: Stage, project: Project, f_hz: NDArray[np.float64] | No
         Supplies op-amp models and the frequency grid.
     f_hz : ndarray, optional
         Frequencies in hertz; default: ``frequency_grid(project.settings)``.
+    max_unknowns : int
+        The size limit of the zero and step-response analysis (see :func:`analyze_system`).
 
     Returns
     -------
@@ -234,7 +331,8 @@ def analyze_stage(stage: Stage, project: Project, f_hz: NDArray[np.float64] | No
                        system.fingerprint)
     if diagnosis is not None:
         return _failed(grid, unit, f'stage "{stage.id}": {diagnosis.why}', stage.id, system.fingerprint)
-    analysis = analyze_system(drive(system, current), grid, unit, stage.id, system.fingerprint)
+    analysis = analyze_system(drive(system, current), grid, unit, stage.id, system.fingerprint,
+                              max_unknowns=max_unknowns)
     if analysis.why is not None:
         return _failed(grid, unit, f'stage "{stage.id}": {analysis.why}', stage.id, system.fingerprint,
                        analysis.driven)

@@ -10,7 +10,10 @@ whose cost grows with the number of unknowns, not with its cube.
 from __future__ import annotations
 
 import math
+import threading
+import weakref
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -74,12 +77,67 @@ SPARSE_MIN_UNKNOWNS = 64
 SPARSE_MAX_FILL = 0.1
 
 
-def _sparse_pattern(g: NDArray[np.float64], c: NDArray[np.float64]) -> bool:
+# Sparse patterns of recently solved pencils, and their solutions at single points, keyed by
+# the arrays' identity (checked through weak references, so a freed array's id reused by a new
+# one is never mistaken for it). Long chains solve the same pencil many times: the loop gain of
+# every op-amp bisects one frequency at a time, and every stage seen from the chain's input
+# reads the same merged pencil with the same drive at the same extra frequencies (the corner
+# search's extension, the end slopes, the DC point). The engine never changes an array in place.
+_PATTERNS: dict[tuple[int, int], _Pattern] = {}
+_LOCK = threading.Lock()  # the program analyses in a worker thread while the GUI may ask too
+PATTERN_ENTRIES = 8
+POINT_BYTES = 16 * 2**20  # solutions kept per pencil
+
+
+@dataclass
+class _Pattern:
+    g: Any  # weak references to the arrays the entry belongs to
+    c: Any
+    sparse: bool
+    rows: NDArray[np.int32] | None = None
+    indptr: NDArray[np.int32] | None = None
+    g_values: NDArray[np.complex128] | None = None
+    c_values: NDArray[np.complex128] | None = None
+    points: dict[tuple[complex, bytes], NDArray[np.complex128]] | None = None
+
+
+def _pattern(g: NDArray[np.float64], c: NDArray[np.float64]) -> _Pattern:
+    """The sparse pattern of a pencil from ``SPARSE_MIN_UNKNOWNS`` on (least recently used first out)."""
+    key = (id(g), id(c))
+    with _LOCK:
+        entry = _PATTERNS.pop(key, None)
+        if entry is not None and entry.g() is g and entry.c() is c:
+            _PATTERNS[key] = entry  # most recently used last
+            return entry
     n = g.shape[0]
     if n < SPARSE_MIN_UNKNOWNS:
-        return False
-    filled = int(np.count_nonzero((g != 0) | (c != 0)))
-    return bool(filled <= SPARSE_MAX_FILL * n * n)
+        return _Pattern(lambda: None, lambda: None, False)
+    sparse = int(np.count_nonzero((g != 0) | (c != 0))) <= SPARSE_MAX_FILL * n * n
+    try:
+        entry = _Pattern(weakref.ref(g), weakref.ref(c), sparse)
+    except TypeError:  # an array view that cannot be referenced weakly: not cached
+        entry = _Pattern(lambda: None, lambda: None, sparse)
+    if sparse:
+        import scipy.sparse  # noqa: PLC0415  (lazily: only long chains come here)
+
+        # One pattern (the union of G's and C's) built once; per frequency only its values change.
+        pattern = scipy.sparse.csc_matrix((g != 0) | (c != 0))
+        pattern.sort_indices()
+        columns = np.repeat(np.arange(g.shape[1]), np.diff(pattern.indptr))
+        entry.rows, entry.indptr = pattern.indices, pattern.indptr
+        entry.g_values = g[entry.rows, columns].astype(complex)
+        entry.c_values = c[entry.rows, columns].astype(complex)
+        entry.points = {}
+    if entry.g() is g:
+        with _LOCK:
+            while len(_PATTERNS) >= PATTERN_ENTRIES:
+                _PATTERNS.pop(next(iter(_PATTERNS)))
+            _PATTERNS[key] = entry
+    return entry
+
+
+def _sparse_pattern(g: NDArray[np.float64], c: NDArray[np.float64]) -> bool:
+    return _pattern(g, c).sparse
 
 
 def _solve_sparse(
@@ -89,25 +147,36 @@ def _solve_sparse(
 
     The loop over frequencies is in Python on purpose: each factorisation costs O(n) for the
     banded patterns of chains, far below the O(n³) of the stacked dense solve it replaces.
+    Solutions with one right-hand side are kept (``POINT_BYTES`` per pencil) for the next caller
+    asking for the same point and right-hand side.
     """
-    import scipy.sparse  # noqa: PLC0415  (lazily: only long chains come here)
+    import scipy.sparse  # noqa: PLC0415
     import scipy.sparse.linalg  # noqa: PLC0415
 
-    # One pattern (the union of G's and C's) built once; per frequency only its values change.
-    pattern = scipy.sparse.csc_matrix((g != 0) | (c != 0))
-    pattern.sort_indices()
-    rows = pattern.indices
-    columns = np.repeat(np.arange(g.shape[1]), np.diff(pattern.indptr))
-    g_values = g[rows, columns].astype(complex)
-    c_values = c[rows, columns].astype(complex)
+    entry = _pattern(g, c)
+    assert entry.rows is not None and entry.indptr is not None and entry.points is not None
+    assert entry.g_values is not None and entry.c_values is not None
+    right_key = right.tobytes()
     out = np.empty((len(s),) + right.shape, dtype=complex)
     for index, point in enumerate(s):
-        matrix = scipy.sparse.csc_matrix((g_values + point * c_values, rows, pattern.indptr), shape=g.shape)
+        key = (complex(point), right_key)
+        with _LOCK:
+            known = entry.points.get(key)
+        if known is not None:
+            out[index] = known
+            continue
+        matrix = scipy.sparse.csc_matrix((entry.g_values + point * entry.c_values, entry.rows, entry.indptr),
+                                         shape=g.shape)
         try:
             factor = scipy.sparse.linalg.splu(matrix)
         except RuntimeError as error:  # SuperLU: "Factor is exactly singular"
             raise np.linalg.LinAlgError(f"Singular matrix ({error})") from error
         out[index] = factor.solve(right)
+        if right.shape[1] == 1:
+            with _LOCK:
+                if 16 * g.shape[0] * (len(entry.points) + 1) > POINT_BYTES:
+                    entry.points.clear()
+                entry.points[key] = out[index].copy()
     return out
 
 

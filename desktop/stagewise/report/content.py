@@ -166,7 +166,8 @@ def _step(stage_analysis: Any) -> Step:
         return Step(why=f"the step response is {NOT_IN_BUILD}")
     model = getattr(stage_analysis, "model", None)
     if model is None:
-        return Step(why=getattr(stage_analysis, "why", None) or "no pole/zero model")
+        return Step(why=getattr(stage_analysis, "why", None) or getattr(stage_analysis, "model_why", None)
+                    or "no pole/zero model")
     try:
         result = respond(model)
     except (ValueError, ArithmeticError, np.linalg.LinAlgError) as error:
@@ -180,7 +181,8 @@ def _steps(analysis: Any, stage: Stage) -> tuple[Step, Step]:
         return isolated, Step(why="the stage is bypassed: it is not in the chain")
     in_chain = analysis.in_chain(stage.id)
     if getattr(in_chain, "model", None) is None:
-        return isolated, Step(why=getattr(in_chain, "why", None) or "no response in chain")
+        return isolated, Step(why=getattr(in_chain, "why", None) or getattr(in_chain, "model_why", None)
+                              or "no response in chain")
     return isolated, _step(in_chain)
 
 

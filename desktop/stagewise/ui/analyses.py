@@ -225,7 +225,7 @@ def _step(analysis: Any) -> StepTrace:
     from stagewise.present.framing import step_span_s
 
     if analysis.model is None:
-        raise NotAvailable(analysis.why or "no pole/zero model")
+        raise NotAvailable(analysis.why or getattr(analysis, "model_why", None) or "no pole/zero model")
     span = step_span_s(analysis.model.poles_rad_s, analysis.model.zeros_rad_s)
     # Computed on the window the view shows, so the edge is drawn from many points; the metrics
     # are refined on the exact response whatever the grid.
@@ -253,6 +253,8 @@ def isolated_step(stage: Stage, project: Project, context: Context) -> StepTrace
 def isolated_roots(stage: Stage, project: Project, context: Context) -> RootSet:
     """Poles and zeros of the stage alone (from the pencil, engine/poles.py)."""
     analysis = _usable(_stage_analysis(stage, project, context))
+    if analysis.model is None:
+        raise NotAvailable(analysis.model_why or "no pole/zero model")
     return RootSet(analysis.poles_rad_s, analysis.zeros_rad_s, analysis.cancelled)
 
 
@@ -342,7 +344,7 @@ def _placed_analysis(stage: Stage, project: Project, context: Context, place: st
     analysis = whole.in_chain(stage.id) if place == "in_chain" else whole.from_input(stage.id)
     why = getattr(analysis, "why", None)
     if why is not None or getattr(analysis, "model", None) is None:
-        raise NotAvailable(why or f"no pole/zero model {place.replace('_', ' ')}")
+        raise NotAvailable(why or getattr(analysis, "model_why", None) or f"no pole/zero model {place.replace('_', ' ')}")
     return analysis
 
 
@@ -505,9 +507,12 @@ STAGE_ANALYSES: list[tuple[str, int, Any]] = [
 def _chain_model(project: Project, context: Context) -> Any:
     """The pole/zero model of the whole chain (engine/poles.py on the merged pencil)."""
     from stagewise.engine.poles import pole_zero_model
+    from stagewise.engine.stage import MODEL_MAX_UNKNOWNS, size_limit_why
 
     def compute() -> Any:
         driven = _merged(project, context).driven()
+        if driven.g.shape[0] > MODEL_MAX_UNKNOWNS:  # the engine's size limit (DEVELOPERS.md cost table)
+            raise ValueError(size_limit_why(int(driven.g.shape[0])))
         return pole_zero_model(driven.g, driven.c, driven.b, driven.output)
 
     return _once_per_snapshot("model", project, context, compute)
@@ -517,7 +522,11 @@ def chain_response(project: Project, context: Context) -> ResponseTrace:
     """Drive → last output of the whole chain, with loading (the cascade shared with the in-chain
     responses; its phase follows the merged chain's pole/zero model)."""
     result = _chain_result(project, context)
-    return _mag_phase(_chain_model(project, context), context.f_hz, result.response, result.unit)
+    try:
+        model = _chain_model(project, context)
+    except NotAvailable:  # above the size limit: the phase is unwrapped along the sweep instead
+        model = None
+    return _mag_phase(model, context.f_hz, result.response, result.unit)
 
 
 def chain_step(project: Project, context: Context) -> StepTrace:
