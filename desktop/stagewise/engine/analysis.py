@@ -697,7 +697,8 @@ class ProjectAnalysis:
 
     def _place_samples(self, where: str, stage_id: str, by_ref: dict[str, Any], limits: list[Any],
                        progress: Any = None) -> Any:
-        """The per-sample metrics of a stage isolated or in chain, with the chain's part values."""
+        """The per-sample metrics of a stage isolated or in chain on its own system (a place whose
+        pencil is not the chain's), with the chain's part values."""
         from stagewise.engine.spread import Readout, place_samples  # noqa: PLC0415
 
         stage = self.project.stage(stage_id)
@@ -709,13 +710,7 @@ class ProjectAnalysis:
             if isinstance(system, _Failure):
                 return system
             current, prefix = stage.drive == "current", f"{stage_id}:"
-        elif where == "from_input":
-            merged = self.merged
-            if isinstance(merged, _Failure):
-                return merged
-            output = merged.interface_indices[merged.stage_ids.index(stage_id) + 1]
-            system, current, prefix = replace(merged.system, output_index=output), merged.current_drive, ""
-        else:
+        else:  # in chain (every place seen from the input is read from the chain's solves)
             built = self._in_chain_system(stage_id)
             if isinstance(built, _Failure):
                 return built
@@ -1038,7 +1033,7 @@ class ProjectAnalysis:
                 return None, why
             return _document_value(budget, DC_KEYS[metric])
         if metric == "yield_pct":
-            if self.spread_deferred is not None and "spread" not in self.__dict__:
+            if self.spread_deferred is not None and "spread" not in self.__dict__:  # not run yet: say it follows
                 return None, self.spread_deferred
             spread = self.spread
             if isinstance(spread, _Failure):
