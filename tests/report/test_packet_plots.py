@@ -24,7 +24,16 @@ from stagewise.files.project_file import load_project
 from stagewise.report.content import gather
 from stagewise.report.layout import Figure
 from stagewise.report.packet import _metric_provider, build_packet, ensure_application
-from stagewise.report.plots import PlotCanvas, pole_zero_plot, response_plot, trace_from_complex, using_canvas
+from stagewise.report.plots import (
+    PlotCanvas,
+    curve_data,
+    pole_zero_plot,
+    render_plot,
+    response_plot,
+    step_plot,
+    trace_from_complex,
+    using_canvas,
+)
 from stagewise.report.sections import build_blocks
 from stagewise.review.checks import evaluate_project
 from stagewise.review.signoff import signoff_states
@@ -78,10 +87,6 @@ def _figure(blocks: list[object], caption_start: str, after: str = "") -> Figure
     return found[0]
 
 
-def _curves(plot: pg.PlotItem) -> list[tuple[np.ndarray, np.ndarray]]:
-    return [item.getOriginalDataset() for item in plot.items if isinstance(item, pg.PlotDataItem)]
-
-
 def test_packet_draws_the_peaking_limit_as_the_program_does() -> None:
     blocks = _blocks(ROOT / "projects" / "hydrophone.stagewise.json")
     project = load_project(ROOT / "projects" / "hydrophone.stagewise.json")
@@ -92,7 +97,7 @@ def test_packet_draws_the_peaking_limit_as_the_program_does() -> None:
     assert len(figures) == 1
     with using_canvas() as canvas:
         magnitude = _drawn(figures[0], canvas).ci.getItem(0, 0)
-        curves = _curves(magnitude)
+        curves = curve_data(magnitude)
         isolated_f, isolated_db = curves[0]
         level = [y for x, y in curves if len(y) == 2 and y[0] == y[1]]
         assert len(level) == 1
@@ -114,8 +119,8 @@ def test_packet_loop_gain_plot_marks_the_crossover_and_phase_margin(tmp_path: Pa
         magnitude, phase = widget.ci.getItem(0, 0), widget.ci.getItem(1, 0)
         assert magnitude.getAxis("left").labelText == "|T| (dB)"
         assert phase.getAxis("left").labelText == "∠T (°)"
-        (f_hz, magnitude_db), *_ = _curves(magnitude)
-        (_, phase_deg), *_ = _curves(phase)
+        (f_hz, magnitude_db), *_ = curve_data(magnitude)
+        (_, phase_deg), *_ = curve_data(phase)
         markers = [item.value() for item in magnitude.items
                    if isinstance(item, pg.InfiniteLine) and item.angle == 90]
         assert markers
@@ -150,7 +155,7 @@ def test_reused_frames_draw_what_new_frames_draw() -> None:
         try:
             for row in (0, 1):
                 old, new = reused.ci.getItem(row, 0), fresh.ci.getItem(row, 0)
-                assert len(_curves(old)) == len(_curves(new)) == 1  # the first figure's curve is gone
+                assert len(curve_data(old)) == len(curve_data(new)) == 1  # the first figure's curve is gone
                 # Common practice, no source: the same data gives the same axes.
                 assert np.allclose(old.getViewBox().viewRange(), new.getViewBox().viewRange())
         finally:
@@ -159,3 +164,25 @@ def test_reused_frames_draw_what_new_frames_draw() -> None:
                   for _ in range(2)]
         scatters = [item for item in planes[1].ci.getItem(0, 0).items if isinstance(item, pg.ScatterPlotItem)]
         assert len(scatters) == 1  # the second figure's poles only
+
+
+def test_step_plot_of_a_transimpedance_shows_the_whole_step() -> None:
+    # A photodiode stage's step in V per A reaches 2e8: the plot's range holds it whole (a
+    # PlotDataItem clips data beyond 1e6 times its view height, and the trace vanished).
+    ensure_application()
+    t_s = np.linspace(0.0, 1.0, 400)
+    y = 2.0e8 * (1.0 - np.exp(-t_s / 0.1))
+    with PlotCanvas() as canvas:
+        widget = step_plot([("isolated", t_s, y)], "output (V per A) for a unit step", canvas=canvas)
+        image = QImage(700, 210, QImage.Format.Format_ARGB32)
+        painter = QPainter(image)
+        try:
+            render_plot(widget, painter, QRectF(0, 0, 700, 210))  # as the packet paints it
+        finally:
+            painter.end()
+        plot = widget.ci.getItem(0, 0)
+        (_, y_low), (_, y_high) = zip(*plot.getViewBox().viewRange(), strict=True)
+        # Common practice, no source: the axis spans the data it draws.
+        assert y_low <= 0.0 and y_high >= 2.0e8 * (1.0 - math.exp(-10.0))
+        (_, drawn), = curve_data(plot)
+        assert float(drawn.max()) == pytest.approx(float(y.max()))

@@ -43,6 +43,7 @@ __all__ = [
     "ResponseTrace",
     "active_canvas",
     "bars_plot",
+    "curve_data",
     "legend_text",
     "loop_gain_plot",
     "pole_zero_caption",
@@ -237,6 +238,33 @@ def _pen(index: int, style: PlotStyle) -> QPen:
     return pen
 
 
+def _curve(plot: pg.PlotItem, x: NDArray[np.float64], y: NDArray[np.float64], pen: QPen, name: str | None = None,
+           connect: str = "all") -> pg.PlotCurveItem:
+    """A line through (x, y) on ``plot``, x in data units (hertz on a log-frequency axis).
+
+    A bare ``PlotCurveItem`` (what a ``PlotDataItem`` draws with) costs a fifth of a
+    ``PlotDataItem``, which also builds a scatter item; the log mapping of x is done here.
+    ``curve_data`` gives the data back in data units.
+    """
+    x = np.asarray(x, dtype=float)
+    log_x = bool(plot.getAxis("bottom").logMode)
+    item = pg.PlotCurveItem(np.log10(x) if log_x else x, np.asarray(y, dtype=float), pen=pen, connect=connect,
+                            name=name)
+    item.log_x = log_x
+    plot.addItem(item)
+    return item
+
+
+def curve_data(plot: pg.PlotItem) -> list[tuple[NDArray[np.float64], NDArray[np.float64]]]:
+    """The lines drawn on ``plot`` as (x, y) in data units, in the order drawn (for tests and checks)."""
+    found = []
+    for item in plot.items:
+        if isinstance(item, pg.PlotCurveItem):
+            x, y = item.getData()
+            found.append((10.0 ** x if getattr(item, "log_x", False) else x, y))
+    return found
+
+
 def _legend(plot: pg.PlotItem, style: PlotStyle) -> pg.LegendItem:
     legend = plot.addLegend(offset=(-8, 8), labelTextColor=style.foreground, labelTextSize=f"{style.tick_px}px",
                             brush=pg.mkBrush(style.background), pen=pg.mkPen(style.foreground, width=0.5))
@@ -291,7 +319,7 @@ def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (),
     _label(magnitude, "left", magnitude_label, style)
     for index, trace in enumerate(traces):
         finite = np.isfinite(trace.mag_db)
-        magnitude.plot(trace.f_hz[finite], trace.mag_db[finite], pen=_pen(index, style), name=trace.label)
+        _curve(magnitude, trace.f_hz[finite], trace.mag_db[finite], _pen(index, style), name=trace.label)
     _minimum_span(magnitude, [trace.mag_db for trace in traces], 2.0)
     _tick_spacing(magnitude, [trace.mag_db for trace in traces], (1, 2, 5, 10, 20, 50, 100))
     _add_limits(magnitude, [limit for limit in limits if limit[0] == "magnitude"], traces, "mag_db", style)
@@ -299,7 +327,7 @@ def response_plot(traces: Sequence[ResponseTrace], limits: Sequence[Limit] = (),
         _label(phase, "left", "phase (°)", style)
         for index, trace in enumerate(traces):
             finite = np.isfinite(trace.phase_deg)
-            phase.plot(trace.f_hz[finite], trace.phase_deg[finite], pen=_pen(index, style))
+            _curve(phase, trace.f_hz[finite], trace.phase_deg[finite], _pen(index, style))
         _minimum_span(phase, [trace.phase_deg for trace in traces], 20.0)
         _tick_spacing(phase, [trace.phase_deg for trace in traces], (5, 10, 15, 30, 45, 90, 180, 360))
         _add_limits(phase, [limit for limit in limits if limit[0] == "phase"], traces, "phase_deg", style)
@@ -320,7 +348,7 @@ def loop_gain_plot(traces: Sequence[ResponseTrace], crossovers_hz: Sequence[floa
     for index, (trace, crossover_hz) in enumerate(zip(traces, crossovers_hz, strict=True)):
         for plot, values in ((magnitude, trace.mag_db), (phase, trace.phase_deg)):
             finite = np.isfinite(values)
-            plot.plot(trace.f_hz[finite], values[finite], pen=_pen(index, style))
+            _curve(plot, trace.f_hz[finite], values[finite], _pen(index, style))
             if crossover_hz is not None and crossover_hz > 0:
                 # The crossover: |T| = 1 (0 dB); the phase margin is read there (180° + ∠T).
                 marker = pg.mkPen(trace_style(index).colour, width=1.0)
@@ -405,7 +433,7 @@ def _add_level(plot: pg.PlotItem, label: str, f_range: tuple[float, float], leve
     """
     pen = pg.mkPen(limit_brush_colour(200), width=1.0)
     pen.setStyle(Qt.PenStyle.DashLine)
-    plot.plot([f_range[0], f_range[1]], [level, level], pen=pen)
+    _curve(plot, np.array(f_range), np.array([level, level]), pen)
     text = pg.TextItem(label, color=style.foreground, anchor=(1, 0))
     text.setFont(_tick_font(style))
     text.setPos(math.log10(f_range[1]), level)
@@ -426,17 +454,17 @@ def _plane_frame(style: PlotStyle, frame: PoleZeroFrame) -> pg.GraphicsLayoutWid
         # Every decade ring in one curve (NaN between rings): one plot item, not one per ring.
         radii = np.array([radius for radius, _ in frame.rings])[:, None]
         gap = np.full((len(frame.rings), 1), np.nan)
-        plot.plot(np.hstack([radii * np.cos(angles), gap]).ravel(), np.hstack([radii * np.sin(angles), gap]).ravel(),
-                  pen=pg.mkPen("#c8c8c8", width=0.6), connect="finite")
+        _curve(plot, np.hstack([radii * np.cos(angles), gap]).ravel(), np.hstack([radii * np.sin(angles), gap]).ravel(),
+               pg.mkPen("#c8c8c8", width=0.6), connect="finite")
     for radius, f_hz in frame.rings:
         label = pg.TextItem(format_value(f_hz, "Hz", 3), color="#606060", anchor=(0.5, 1.0))
         label.setFont(_tick_font(style))
         label.setPos(0.0, radius)
         plot.addItem(label, ignoreBounds=True)
-    plot.plot(frame.edge_radius * np.cos(angles), frame.edge_radius * np.sin(angles),
-              pen=pg.mkPen(style.foreground, width=0.6, style=Qt.PenStyle.DashLine))
-    plot.plot([-frame.limit, frame.limit], [0, 0], pen=pg.mkPen(style.foreground, width=0.6))
-    plot.plot([0, 0], [-frame.limit, frame.limit], pen=pg.mkPen(style.foreground, width=0.6))
+    _curve(plot, frame.edge_radius * np.cos(angles), frame.edge_radius * np.sin(angles),
+           pg.mkPen(style.foreground, width=0.6, style=Qt.PenStyle.DashLine))
+    _curve(plot, np.array([-frame.limit, frame.limit]), np.zeros(2), pg.mkPen(style.foreground, width=0.6))
+    _curve(plot, np.zeros(2), np.array([-frame.limit, frame.limit]), pg.mkPen(style.foreground, width=0.6))
     plot.setRange(xRange=(-frame.limit, frame.limit), yRange=(-frame.limit, frame.limit), padding=0)
     return widget
 
@@ -498,7 +526,7 @@ def step_plot(traces: Sequence[tuple[str, NDArray[np.float64], NDArray[np.float6
     _label(plot, "left", y_label, style)
     for index, (_, t_s, y) in enumerate(traces):
         finite = np.isfinite(y)
-        plot.plot(t_s[finite], y[finite], pen=_pen(index, style))
+        _curve(plot, t_s[finite], y[finite], _pen(index, style))
     return widget
 
 
