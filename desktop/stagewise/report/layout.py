@@ -49,8 +49,23 @@ SHADE = QColor("#eef0f2")
 
 
 def font(size_px: float, bold: bool = False, italic: bool = False, mono: bool = False) -> QFont:
-    """The packet's font: a clean sans-serif (or monospace for hashes and formulas), sized in pixels."""
-    return QFont(_font(max(int(round(size_px)), 1), bold, italic, mono))
+    """The packet's font: a clean sans-serif (or monospace for hashes and formulas), sized in pixels.
+
+    One shared object per size and style (a packet asks some ten thousand times while it lays out
+    its tables): set it on a painter, never change it.
+    """
+    return _font(max(int(round(size_px)), 1), bold, italic, mono)
+
+
+_METRICS: dict[int, tuple[QFont, QFontMetricsF]] = {}
+
+
+def metrics_of(shared: QFont) -> QFontMetricsF:
+    """The metrics of a font from :func:`font`, made once per font."""
+    found = _METRICS.get(id(shared))
+    if found is None or found[0] is not shared:
+        found = _METRICS[id(shared)] = (shared, QFontMetricsF(shared))
+    return found[1]
 
 
 @functools.lru_cache(maxsize=64)
@@ -174,6 +189,7 @@ class Paragraph(Block):
     space_after: float = 6.0
     indent: float = 0.0
     lines: list[str] | None = None  # pre-wrapped continuation of a split paragraph
+    _wrapped: tuple[float, list[str]] | None = field(default=None, repr=False)  # (width, lines) measured last
 
     def _font(self) -> QFont:
         return font(self.size_px, self.bold, self.italic, self.mono)
@@ -181,11 +197,14 @@ class Paragraph(Block):
     def _lines(self, width: float) -> list[str]:
         if self.lines is not None:
             return self.lines
-        # A number and its unit never end up on two lines.
-        return wrap_text(keep_units_together(self.text), QFontMetricsF(self._font()), width - self.indent)
+        if self._wrapped is None or self._wrapped[0] != width:
+            # A number and its unit never end up on two lines.
+            self._wrapped = (width, wrap_text(keep_units_together(self.text), metrics_of(self._font()),
+                                              width - self.indent))
+        return self._wrapped[1]
 
     def _line_height(self) -> float:
-        return QFontMetricsF(self._font()).lineSpacing()
+        return metrics_of(self._font()).lineSpacing()
 
     def height(self, width: float) -> float:
         return len(self._lines(width)) * self._line_height() + self.space_after
@@ -204,7 +223,7 @@ class Paragraph(Block):
     def paint(self, painter: QPainter, x: float, y: float, width: float) -> None:
         painter.setFont(self._font())
         painter.setPen(self.color)
-        metrics = QFontMetricsF(self._font())
+        metrics = metrics_of(self._font())
         step = metrics.lineSpacing()
         baseline = y + metrics.ascent()
         for line in self._lines(width):
@@ -224,14 +243,14 @@ class Heading(Block):
         return font({0: 24.0, 1: 18.0, 2: 14.5, 3: 12.5}.get(self.level, 12.5), bold=True)
 
     def height(self, width: float) -> float:
-        metrics = QFontMetricsF(self._font())
+        metrics = metrics_of(self._font())
         lines = wrap_text(self.text, metrics, width)
         above = {0: 0.0, 1: 4.0, 2: 10.0, 3: 8.0}.get(self.level, 6.0)
         rule = 6.0 if self.level == 1 else 0.0
         return above + len(lines) * metrics.lineSpacing() + rule + 6.0
 
     def paint(self, painter: QPainter, x: float, y: float, width: float) -> None:
-        metrics = QFontMetricsF(self._font())
+        metrics = metrics_of(self._font())
         painter.setFont(self._font())
         painter.setPen(INK)
         baseline = y + {0: 0.0, 1: 4.0, 2: 10.0, 3: 8.0}.get(self.level, 6.0) + metrics.ascent()
@@ -294,15 +313,15 @@ class Table(Block):
         minimum: list[float] = []
         marks = self._marks()
         for index, column in enumerate(self.columns):
-            measured = [(QFontMetricsF(self._cell_font(index, marks[row_index])), row[index])
+            measured = [(metrics_of(self._cell_font(index, marks[row_index])), row[index])
                         for row_index, row in enumerate(self.rows) if index < len(row)]
             widest = max([metrics.horizontalAdvance(line) for metrics, text in measured for line in text.split("\n")]
                          + [0.0])
-            head = QFontMetricsF(bold).horizontalAdvance(column.title) if self.header else 0.0
+            head = metrics_of(bold).horizontalAdvance(column.title) if self.header else 0.0
             natural.append(max(widest, head) + 2 * self.PAD_X + 1)
             if column.wrap:
                 longest_word = max([metrics.horizontalAdvance(word) for metrics, text in measured for word in text.split()]
-                                   + [QFontMetricsF(bold).horizontalAdvance(word) for word in column.title.split()]
+                                   + [metrics_of(bold).horizontalAdvance(word) for word in column.title.split()]
                                    + [0.0])
                 minimum.append(min(longest_word + 2 * self.PAD_X + 1, natural[-1]))
             else:
@@ -360,7 +379,7 @@ class Table(Block):
             for index, column in enumerate(self.columns):
                 text = row[index] if index < len(row) else ""
                 inner = widths[index] - 2 * self.PAD_X
-                metrics = QFontMetricsF(self._cell_font(index, mark))
+                metrics = metrics_of(self._cell_font(index, mark))
                 wrapped.append(wrap_text(keep_units_together(text), metrics, inner) if column.wrap
                                else keep_units_together(text).split("\n"))
             cells.append(wrapped)
@@ -368,14 +387,14 @@ class Table(Block):
         return widths, cells
 
     def _line(self) -> float:
-        return QFontMetricsF(font(self.size_px)).lineSpacing()
+        return metrics_of(font(self.size_px)).lineSpacing()
 
     def _header_height(self, width: float) -> float:
         if not self.header:
             return 0.0
         widths, _ = self._layout(width)
         _, bold = self._fonts()
-        metrics = QFontMetricsF(bold)
+        metrics = metrics_of(bold)
         lines = max(len(wrap_text(column.title, metrics, widths[i] - 2 * self.PAD_X))
                     for i, column in enumerate(self.columns))
         return lines * metrics.lineSpacing() + 2 * self.PAD_Y
@@ -403,6 +422,9 @@ class Table(Block):
                       self._column_widths(width))
         rest = Table(self.columns, self.rows[count:], self.size_px, self.header, marks[count:],
                      self.space_after, self._column_widths(width))
+        # The rows keep the lines they were wrapped into at this width.
+        widths, cells = self._layout(width)
+        first._cached, rest._cached = (width, widths, cells[:count]), (width, widths, cells[count:])
         return first, rest
 
     def paint(self, painter: QPainter, x: float, y: float, width: float) -> None:
@@ -415,7 +437,7 @@ class Table(Block):
             painter.fillRect(QRectF(x, y, total_width, head_height), SHADE)
             painter.setFont(bold)
             painter.setPen(INK)
-            metrics = QFontMetricsF(bold)
+            metrics = metrics_of(bold)
             left = x
             for index, column in enumerate(self.columns):
                 lines = wrap_text(column.title, metrics, widths[index] - 2 * self.PAD_X)
@@ -432,7 +454,7 @@ class Table(Block):
                 cell_font = self._cell_font(index, mark)
                 painter.setFont(cell_font)
                 painter.setPen(QColor("#8a1c00") if mark == "bad" else MUTED if mark == "muted" else INK)
-                self._draw_lines(painter, row[index], QFontMetricsF(cell_font), left, y + self.PAD_Y,
+                self._draw_lines(painter, row[index], metrics_of(cell_font), left, y + self.PAD_Y,
                                  widths[index], column.align)
                 left += widths[index]
             y += row_height
@@ -466,9 +488,12 @@ class Figure(Block):
     figure_height: float
     caption: str = ""
     space_after: float = 10.0
+    _caption_block: Paragraph | None = field(default=None, repr=False)
 
     def _caption(self) -> Paragraph:
-        return Paragraph(self.caption, 10.5, italic=True, color=QColor(MUTED), space_after=0.0)
+        if self._caption_block is None or self._caption_block.text != self.caption:
+            self._caption_block = Paragraph(self.caption, 10.5, italic=True, color=QColor(MUTED), space_after=0.0)
+        return self._caption_block
 
     def height(self, width: float) -> float:
         caption = self._caption().height(width) + 2.0 if self.caption else 0.0
@@ -581,7 +606,7 @@ def paint_pages(device: QPagedPaintDevice, painter: QPainter, pages: Sequence[Pa
 
 def _paint_header(painter: QPainter, frame: PageFrame) -> None:
     small = font(10.0)
-    metrics = QFontMetricsF(small)
+    metrics = metrics_of(small)
     left = frame.margin_left
     right = frame.width - frame.margin_right
     baseline = frame.margin_top - 9 * MM
@@ -598,7 +623,7 @@ def _paint_header(painter: QPainter, frame: PageFrame) -> None:
 
 def _paint_footer(painter: QPainter, frame: PageFrame, number: int, total: int) -> None:
     small = font(10.0)
-    metrics = QFontMetricsF(small)
+    metrics = metrics_of(small)
     left = frame.margin_left
     right = frame.width - frame.margin_right
     baseline = frame.height - frame.margin_bottom + 10 * MM
