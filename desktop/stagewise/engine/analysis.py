@@ -13,6 +13,13 @@ transimpedance stage) is seen as V_out/I_in, with an ideal current source instea
 port-relation cascade (:mod:`stagewise.engine.chain`) gives the same responses (a test holds
 them to 1e-9) and the loading errors and interface impedances.
 
+Cost against size (DEVELOPERS.md, cost table): every stage seen from the chain's input reads its
+response off one sweep of the merged chain (``_chain_states``) and shares the chain's poles; a
+stage in chain takes its response from the cascade where the sweep would be sparse. A place
+above ``max_unknowns`` (``stage.MODEL_MAX_UNKNOWNS``) has no zeros or step response (null with
+the reason); a stage in chain above it has no poles either, so its stability is not decided and
+its response figures are null with that reason.
+
 Every value that cannot be computed is ``None`` with a ``"<key>_why"`` sentence beside it.
 """
 
@@ -49,7 +56,7 @@ from stagewise.engine.stage import (
     analyze_system,
     size_limit_why,
 )
-from stagewise.engine.sweep import TWO_PI, DrivenSystem, drive, frequency_grid, solve_batched
+from stagewise.engine.sweep import SPARSE_MIN_UNKNOWNS, TWO_PI, DrivenSystem, drive, frequency_grid, solve_batched
 from stagewise.model.project import Check, Project, Stage
 from stagewise.model.values import format_value
 from stagewise.review.words import SPREAD_CANCELLED
@@ -268,7 +275,12 @@ class ProjectAnalysis:
                                    current_drive=current, load_r_ohm=load_r, load_c_f=load_c)
             driven = drive(merged.system, current)
             driven = DrivenSystem(driven.g, driven.c, driven.b, merged.interface_indices[1], current)
-            analysis = analyze_system(driven, self.f_hz, unit, stage.id, "", max_unknowns=self.max_unknowns)
+            # Where the sweep would take a sparse LU per frequency, the port-relation cascade has
+            # the same response already (exact; a test holds them to 1e-9).
+            entry = self._chain_entry(stage.id)
+            response = entry.in_chain if entry is not None and size >= SPARSE_MIN_UNKNOWNS else None
+            analysis = analyze_system(driven, self.f_hz, unit, stage.id, "", max_unknowns=self.max_unknowns,
+                                      response=response)
             if analysis.why is not None:
                 return _Failure(f'stage "{stage.id}" in chain: {analysis.why}')
             return analysis

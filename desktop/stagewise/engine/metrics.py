@@ -61,7 +61,7 @@ from numpy.typing import NDArray
 
 from stagewise.engine.poles import FIT_TOLERANCE, root_table, transfer_at
 from stagewise.engine.stage import StageAnalysis, response_at
-from stagewise.engine.sweep import solve_batched
+from stagewise.engine.sweep import SPARSE_MIN_UNKNOWNS, solve_batched
 from stagewise.engine.timeresp import StepResponse, refine_crossing, step_response, step_response_of_pencil
 from stagewise.model.project import Settings
 from stagewise.model.values import format_value
@@ -635,8 +635,8 @@ def _peak(analysis: StageAnalysis) -> tuple[float, float]:
     index = int(np.argmax(mag))
     f = analysis.f_hz
     best_f, best_db = float(f[index]), float(mag[index])
-    if 0 < index < len(f) - 1 and analysis.model is None:
-        # A system above the size limit (one sparse solve per point): Brent's bounded search.
+    if 0 < index < len(f) - 1 and _one_point_at_a_time(analysis):
+        # One sparse solve per point: Brent's bounded search instead of 132 points.
         from scipy.optimize import minimize_scalar  # noqa: PLC0415
 
         evaluate = _gain_db_of_log_f(analysis)
@@ -658,15 +658,23 @@ def _peak(analysis: StageAnalysis) -> tuple[float, float]:
     return best_f, best_db
 
 
+def _one_point_at_a_time(analysis: StageAnalysis) -> bool:
+    """Whether the system's exact solves cost a sparse LU per point (``sweep.solve_batched`` from
+    ``SPARSE_MIN_UNKNOWNS``), or it is above the size limit: few sequential solves beat many
+    batched ones there."""
+    driven = analysis.driven
+    return analysis.model is None or (driven is not None and driven.g.shape[0] >= SPARSE_MIN_UNKNOWNS)
+
+
 def _crossing(analysis: StageAnalysis, evaluate: Any, low: float, high: float, level: float) -> float:
     """The first crossing of ``level`` in [low, high] (log10 f), exact.
 
     The k-section search of :func:`~stagewise.engine.timeresp.refine_crossing` (about 200 exact
-    solves); for a system above the size limit, whose solves are sparse LUs one point at a
-    time, one 8-section round finds the first crossing's bracket and Brent's method
+    solves); where solves are sparse LUs one point at a time (:func:`_one_point_at_a_time`), one
+    8-section round finds the first crossing's bracket and Brent's method
     (``scipy.optimize.brentq``) closes it to 1e-13 in log f in about ten solves.
     """
-    if analysis.model is not None:
+    if not _one_point_at_a_time(analysis):
         return refine_crossing(evaluate, low, high, level)
     from scipy.optimize import brentq  # noqa: PLC0415
 
@@ -686,8 +694,10 @@ def _band_text(f_hz: NDArray[np.float64]) -> str:
     return f"{format_value(float(f_hz[0]), 'Hz')}–{format_value(float(f_hz[-1]), 'Hz')}"
 
 
-def _search_points(analysis: StageAnalysis) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """The analysis grid, extended by exact solves to three decades beyond the outermost roots.
+def _search_points(analysis: StageAnalysis, *, below: bool = True,
+                   above: bool = True) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The analysis grid, extended by exact solves to three decades beyond the outermost roots
+    (on the sides asked for).
 
     A corner is a property of the response, not of the plotted band: a low-pass whose corner
     lies below ``f_min_hz`` still has it there, found on the exact response.
@@ -703,20 +713,20 @@ def _search_points(analysis: StageAnalysis) -> tuple[NDArray[np.float64], NDArra
     low = max(float(np.min(roots)) * 1e-3, float(f[0]) * 1e-6)
     high = min(float(np.max(roots)) * 1e3, float(f[-1]) * 1e6)
     per_decade = max(20.0, (len(f) - 1) / max(math.log10(float(f[-1]) / float(f[0])), 1e-9))
-    below = np.zeros(0)
-    above = np.zeros(0)
-    if low < f[0]:
+    lower = np.zeros(0)
+    upper = np.zeros(0)
+    if below and low < f[0]:
         count = int(math.ceil(math.log10(float(f[0]) / low) * per_decade))
-        below = np.logspace(math.log10(low), math.log10(float(f[0])), count + 1)[:-1]
-    if high > f[-1]:
+        lower = np.logspace(math.log10(low), math.log10(float(f[0])), count + 1)[:-1]
+    if above and high > f[-1]:
         count = int(math.ceil(math.log10(high / float(f[-1])) * per_decade))
-        above = np.logspace(math.log10(float(f[-1])), math.log10(high), count + 1)[1:]
-    if not len(below) and not len(above):
+        upper = np.logspace(math.log10(float(f[-1])), math.log10(high), count + 1)[1:]
+    if not len(lower) and not len(upper):
         return f, mag
-    extra = np.concatenate([below, above])
+    extra = np.concatenate([lower, upper])
     extra_mag = _db(response_at(analysis, extra))
-    return (np.concatenate([below, f, above]),
-            np.concatenate([extra_mag[:len(below)], mag, extra_mag[len(below):]]))
+    return (np.concatenate([lower, f, upper]),
+            np.concatenate([extra_mag[:len(lower)], mag, extra_mag[len(lower):]]))
 
 
 def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
@@ -746,7 +756,17 @@ def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
         peak_hz, peak_db = f_ref, ref_db
     level = ref_db - HALF_POWER_DB
     evaluate = _gain_db_of_log_f(analysis)
-    f, mag = _search_points(analysis)
+    f, mag = analysis.f_hz, _db(analysis.response)
+    # The grid is extended (exact solves beyond it) on a side only where that can change a corner:
+    # the first crossing above the reference depends on the points below the grid when the
+    # reference lies below it (DC), and on those above only when the grid has no crossing; the
+    # last crossing below the reference the other way round.
+    high_on_grid = bool(np.any((f > f_ref) & (mag < level)))
+    low_on_grid = bool(np.any((f < f_ref) & (mag < level)))
+    below = (reference.kind != "hf" and f_ref < f[0]) or (reference.kind != "dc" and not low_on_grid)
+    above = (reference.kind != "dc" and f_ref > f[-1]) or (reference.kind != "hf" and not high_on_grid)
+    if below or above:
+        f, mag = _search_points(analysis, below=below, above=above)
     words = reference.words()
     # High corner: the first point above the reference whose gain is below the level.
     f_high: float | None = None

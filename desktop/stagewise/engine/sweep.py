@@ -158,6 +158,9 @@ def _solve_sparse(
     assert entry.g_values is not None and entry.c_values is not None
     right_key = right.tobytes()
     out = np.empty((len(s),) + right.shape, dtype=complex)
+    # One matrix object whose values are overwritten per frequency (each factor is used before the
+    # next overwrite): building a CSC matrix costs as much as factorising a chain's.
+    matrix = scipy.sparse.csc_matrix((entry.g_values.copy(), entry.rows, entry.indptr), shape=g.shape)
     for index, point in enumerate(s):
         key = (complex(point), right_key)
         with _LOCK:
@@ -165,8 +168,8 @@ def _solve_sparse(
         if known is not None:
             out[index] = known
             continue
-        matrix = scipy.sparse.csc_matrix((entry.g_values + point * entry.c_values, entry.rows, entry.indptr),
-                                         shape=g.shape)
+        np.multiply(entry.c_values, point, out=matrix.data)
+        matrix.data += entry.g_values
         try:
             factor = scipy.sparse.linalg.splu(matrix)
         except RuntimeError as error:  # SuperLU: "Factor is exactly singular"
