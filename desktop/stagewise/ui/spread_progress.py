@@ -16,7 +16,7 @@ from stagewise.ui.worker import ComputeWorker
 __all__ = ["SHOW_AFTER_MS", "SpreadProgress"]
 
 # How long the spread runs before its progress is shown (milliseconds).
-SHOW_AFTER_MS = 400
+SHOW_AFTER_MS = 1000
 # The bar counts thousandths of the run's work.
 STEPS = 1000
 
