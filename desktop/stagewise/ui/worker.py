@@ -451,6 +451,10 @@ class ComputeWorker(QObject):
             return None
         if dataclasses.replace(analysed, audit=[]) != dataclasses.replace(project, audit=[]):
             return None
+        # No thread uses it any more: from here on a yield is computed when asked, never deferred,
+        # and not reported to the status bar.
+        latest.analysis.spread_deferred = None
+        latest.analysis.spread_progress = None
         return latest.analysis
 
     # ----------------------------------------------------------------- formulas
