@@ -89,6 +89,6 @@ def benchmarks() -> list[Benchmark]:
             setup=_setup_with_analysis,
             repeats=3,
             note="the same packet from the GUI, which already holds the analysis: symbolic forms, layout, "
-                 "30 pages with vector plots",
+                 "45 pages with vector plots",
         ),
     ]
