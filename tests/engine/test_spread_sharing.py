@@ -72,7 +72,7 @@ def test_a_readout_with_a_corner_check_has_its_own_refined_corner() -> None:
     m = result.sample_values.multipliers
     by_ref = dict(zip(result.parts, m.T, strict=True))
     limit = YieldLimit("f_high_3db_hz", min=1.0, label="out corner")
-    places = place_samples(system, project, current_drive=False, multipliers_by_ref=by_ref,
+    places = place_samples(system, project, current_drive=False, multipliers_by_ref=by_ref, samples=200,
                            readouts={"out": Readout(system.output_index, (limit,))})
     corner = places["out"].f_high_3db_hz
     # Source: R1 + R2 feeding R3 ∥ C3 is a first-order low-pass with its pole at
@@ -157,3 +157,26 @@ def test_a_cancelled_project_spread_has_no_yield_and_says_why() -> None:
     deferred.spread_deferred = SPREAD_FOLLOWS
     assert deferred.metric_value("yield_pct", "chain", "sensor", None) == (None, SPREAD_FOLLOWS)
     assert "spread" not in deferred.__dict__  # nothing of it was computed
+
+
+def test_a_place_without_toleranced_parts_counts_every_sample() -> None:
+    # Source: voltage divider R2/(R1 + R2) (any circuits text): stage b, 10k over 10k, has no
+    # tolerance, so its isolated gain is -6.02 dB in every sample and its check is met by all.
+    project = decode({
+        "format": "stagewise-project", "version": 1, "title": "one stage without tolerances",
+        "settings": {"f_min_hz": 10, "f_max_hz": 1e5, "ref_hz": 100, "seed": 4, "mc_samples": 120},
+        "stages": [
+            {"id": "a", "name": "toleranced", "ports": {"in": "in", "out": "out"}, "parts": [
+                {"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": "2k2", "tol": "5%"},
+                {"ref": "R2", "type": "R", "nodes": ["out", "0"], "value": "47k", "tol": "5%"}]},
+            {"id": "b", "name": "exact", "ports": {"in": "in", "out": "out"}, "parts": [
+                {"ref": "R1", "type": "R", "nodes": ["in", "out"], "value": "10k"},
+                {"ref": "R2", "type": "R", "nodes": ["out", "0"], "value": "10k"}],
+             "checks": [{"id": "half", "text": "Halves its input", "metric": "gain_db", "where": "isolated",
+                         "min": -6.1, "max": -5.9}]},
+        ],
+    })
+    document = ProjectAnalysis(project).spread
+    assert isinstance(document, dict)
+    assert document["limits"] == [{"label": "b/half", "pass_count": 120, "pass_pct": 100.0}]
+    assert document["yield_pct"] == 100.0

@@ -656,7 +656,7 @@ class ProjectAnalysis:
             elif (where, stage_id) in shared:
                 place = result.readouts[f"{where}/{stage_id}"]
             else:
-                place = self._place_samples(where, stage_id, by_ref, limits,
+                place = self._place_samples(where, stage_id, by_ref, result.samples, limits,
                                             report.slot(CHAIN_SHARE + separate.index((where, stage_id)), 1))
             if isinstance(place, _Failure):
                 skipped += [(limit.label, place.why) for limit in limits]
@@ -707,7 +707,7 @@ class ProjectAnalysis:
                 return None
         return int(merged.interface_indices[position + 1])
 
-    def _place_samples(self, where: str, stage_id: str, by_ref: dict[str, Any], limits: list[Any],
+    def _place_samples(self, where: str, stage_id: str, by_ref: dict[str, Any], samples: int, limits: list[Any],
                        progress: Any = None) -> Any:
         """The per-sample metrics of a stage isolated or in chain on its own system (a place whose
         pencil is not the chain's), with the chain's part values."""
@@ -730,7 +730,8 @@ class ProjectAnalysis:
         mapped = {ref[len(prefix):]: values for ref, values in by_ref.items() if ref.startswith(prefix)}
         try:
             places = place_samples(system, self.project, current_drive=current, multipliers_by_ref=mapped,
-                                   readouts={"place": Readout(system.output_index, tuple(limits))}, progress=progress)
+                                   samples=samples, readouts={"place": Readout(system.output_index, tuple(limits))},
+                                   progress=progress)
         except (ValueError, np.linalg.LinAlgError) as error:
             return _Failure(f"the spread of stage \"{stage_id}\" {PLACE_WORDS[where]} failed: {error}")
         return places["place"]

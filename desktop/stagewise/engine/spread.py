@@ -1457,6 +1457,7 @@ def place_samples(
     current_drive: bool,
     readouts: Mapping[str, Readout],
     multipliers_by_ref: Mapping[str, NDArray[np.float64]],
+    samples: int,
     f_hz: NDArray[np.float64] | None = None,
     progress: Progress | None = None,
 ) -> dict[str, SpreadSamples]:
@@ -1466,15 +1467,17 @@ def place_samples(
     distributions and worst case of a main output: for a system of its own (a stage isolated or
     in chain) sampled with the chain's part values. Every output shares one set of solves; only
     the figures its limits read are evaluated (a gain check needs no sweep); the stability of
-    every sample is judged once for the system. ``progress`` as in :func:`monte_carlo`.
+    every sample is judged once for the system. ``samples`` is the number of samples (each
+    array of ``multipliers_by_ref`` has that length; a system without toleranced parts still
+    gives that many, all nominal). ``progress`` as in :func:`monte_carlo`.
     """
     settings = project.settings
     if f_hz is None:
         f_hz = np.logspace(math.log10(settings.f_min_hz.si), math.log10(settings.f_max_hz.si), DEFAULT_POINTS)
     f_hz = np.asarray(f_hz, dtype=float)
     model = tolerance_model(system, current_drive=current_drive)
-    count = len(next(iter(multipliers_by_ref.values()))) if multipliers_by_ref else 0
-    multipliers = _given_multipliers(model, multipliers_by_ref, count)
+    multipliers = _given_multipliers(model, multipliers_by_ref, samples)
+    count = multipliers.shape[0]
     wanted = list(readouts.values())
     loop_grids = (_default_loop_grids(model) if any(limit.metric == "phase_margin_deg" for readout in wanted
                                                       for limit in readout.limits) else {})
