@@ -268,6 +268,10 @@ class ProjectAnalysis:
             return _Failure(reason)
         size = merged_size([s for s in systems if isinstance(s, StageSystem)], current_drive=current)
         if size > self.max_unknowns:
+            if position == 0 and current == (self.project.input.drive == "current"):
+                # The first stage with the chain's own drive: the merged chain's pencil read at
+                # this stage's output, which is the stage seen from the input (the chain's poles).
+                return self.from_input(stage.id)
             return self._large_in_chain(stage.id, unit, size)
 
         def compute() -> StageAnalysis | _Failure:
@@ -291,7 +295,8 @@ class ProjectAnalysis:
     def _large_in_chain(self, stage_id: str, unit: str, size: int) -> StageAnalysis | _Failure:
         """A stage in chain above the size limit: its response from the port-relation cascade
         (exact, O(F) per stage), no poles, zeros or step response, so no stability verdict and
-        no response figure (each null with the reason)."""
+        no response figure (each null with the reason). The first stage, driven as the chain is,
+        is the exception: it is the stage seen from the input (see ``_compute_in_chain``)."""
         entry = self._chain_entry(stage_id)
         chain = self.chain
         if entry is None or entry.in_chain is None:
