@@ -89,3 +89,20 @@ def test_dc_notes_name_op_amp_figures_in_words(hydrophone_packet: tuple[Path, st
     assert "gives no input offset voltage, input bias current or input offset current" in budget
     for key in ("vos_v", "ib_a", "ios_a", "psrr_db", "input_type", "supply_variation_v", "temp_range_c"):
         assert key not in text, key
+
+
+def test_no_metric_key_in_the_greenhouse_packet(tmp_path: Path) -> None:
+    # The greenhouse chain has no lower corner in any Monte Carlo sample: the spread table says
+    # so in words beside the metric's name, not with its key (common practice, no source).
+    from stagewise.review.metrics import METRICS
+
+    ensure_application()
+    source = tmp_path / "greenhouse.stagewise.json"
+    shutil.copyfile(ROOT / "projects" / "greenhouse.stagewise.json", source)
+    output = tmp_path / "greenhouse.pdf"
+    build_packet(load_project(source), source, output, printed_utc="2026-12-03T12:00:00Z")
+    text = " ".join(" ".join(page.extract_text() for page in pypdf.PdfReader(str(output)).pages).split())
+    assert "no sample has it" in text
+    for key in METRICS:
+        if "_" in key:
+            assert key not in text, key

@@ -1122,10 +1122,11 @@ def _metric_spread(key: str, unit: str, nominal: float, values: NDArray[np.float
     nominal_value = nominal if math.isfinite(nominal) else None
     if defined.size == 0:
         return MetricSpread(key, unit, nominal_value, None, None, None, None, {}, 0,
-                            f"{key} does not exist in any sample (no such corner or crossover on the grid)")
+                            "no sample has it (no such corner or crossover on the grid)")
     why = None
     if defined.size < values.size:
-        why = f"{values.size - defined.size} of {values.size} samples have no {key}; left out"
+        # The reason stands beside the metric's own name (its row), so it needs no key.
+        why = f"{values.size - defined.size} of {values.size} samples have none; left out"
     return MetricSpread(
         key=key, unit=unit, nominal=nominal_value,
         mean=float(np.mean(defined)), std=float(np.std(defined, ddof=1)) if defined.size > 1 else 0.0,
