@@ -186,3 +186,15 @@ def test_step_plot_of_a_transimpedance_shows_the_whole_step() -> None:
         assert y_low <= 0.0 and y_high >= 2.0e8 * (1.0 - math.exp(-10.0))
         (_, drawn), = curve_data(plot)
         assert float(drawn.max()) == pytest.approx(float(y.max()))
+
+
+def test_a_canvas_keeps_a_bounded_number_of_frames() -> None:
+    # A 200-stage chain has as many pole-zero planes: the canvas keeps the recent ones only.
+    ensure_application()
+    with PlotCanvas() as canvas:
+        for decade in range(PlotCanvas.MAX_FRAMES + 5):
+            pole = complex(-(10.0 ** (decade % 9)), 0.0)
+            pole_zero_plot([pole], [], 10.0 ** (10 + decade), canvas=canvas)
+        assert len(canvas) == PlotCanvas.MAX_FRAMES
+        scatters = [item for item in canvas.last.ci.getItem(0, 0).items if isinstance(item, pg.ScatterPlotItem)]
+        assert len(scatters) == 1

@@ -103,6 +103,8 @@ class PlotCanvas:
     ``deleteLater()`` never runs, and Qt objects left for interpreter shutdown can crash it.
     """
 
+    MAX_FRAMES = 12  # frames kept at once (each a widget with its plots)
+
     def __init__(self) -> None:
         self._frames: dict[Hashable, pg.GraphicsLayoutWidget] = {}
         self._scenery: dict[Hashable, set[int]] = {}
@@ -115,11 +117,17 @@ class PlotCanvas:
         stays; what a figure added (data, gates, labels) is removed. A frame with scenery keeps
         its own ranges (they belong to the scenery); the others range on their data again.
         """
-        widget = self.last = self._frames.get(key)
+        widget = self.last = self._frames.pop(key, None)
         if widget is None:
+            if len(self._frames) >= self.MAX_FRAMES:
+                # A long chain has many pole-zero planes: the frame used longest ago goes.
+                oldest = next(iter(self._frames))
+                shiboken6.delete(self._frames.pop(oldest))
+                del self._scenery[oldest]
             widget = self.last = self._frames[key] = build()
             self._scenery[key] = {id(item) for plot in _plots(widget) for item in plot.items}
             return widget
+        self._frames[key] = widget  # now the most recently used
         scenery = self._scenery[key]
         for plot in _plots(widget):
             if scenery:
@@ -131,6 +139,10 @@ class PlotCanvas:
             plot.getAxis("left").setTickSpacing()
             plot.getAxis("left").setTicks(None)
         return widget
+
+    def __len__(self) -> int:
+        """How many frames the canvas holds now."""
+        return len(self._frames)
 
     def owns(self, widget: object) -> bool:
         """Whether ``widget`` is one of this canvas's frames (its owner destroys it, not the caller)."""
