@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import shutil
 import threading
 import time
 from pathlib import Path
@@ -17,6 +18,7 @@ from conftest import SAMPLE, make_window
 from stagewise.review.words import SPREAD_CANCELLED, SPREAD_FOLLOWS
 
 CHUNK_DELAY_S = 0.02
+ROOT = Path(__file__).resolve().parents[2]
 
 
 @pytest.fixture
@@ -147,6 +149,46 @@ def test_a_yield_check_follows_the_spread_without_holding_the_review_state(  # t
         assert window.wait_until_idle(60, formula=False)
         state, value, _detail = check_row(window, "yield")
         assert state in ("met", "not met") and value.endswith("%")
+    finally:
+        release.set()
+        window.shutdown()
+
+
+def test_the_measurement_envelope_follows_the_spread(qtbot, tmp_path: Path,  # type: ignore[no-untyped-def]
+                                                     monkeypatch: pytest.MonkeyPatch) -> None:
+    path = tmp_path / "hydrophone.stagewise.json"
+    shutil.copyfile(ROOT / "projects" / "hydrophone.stagewise.json", path)
+    window = make_window(qtbot, path)
+    release = threading.Event()
+    release.set()
+    compute = worker_module.compute_outcome
+
+    def held(*args: Any, **kwargs: Any) -> Any:
+        if args[3] == 3:
+            release.wait(60)
+        return compute(*args, **kwargs)
+
+    monkeypatch.setattr(worker_module, "compute_outcome", held)
+    try:
+        window.document.set_current_stage("adc")
+        state, value, _detail = check_row(window, "bench")
+        assert state in ("met", "not met") and value.endswith("%")
+        assert window.measurement_view.shown[0].envelope_db is not None
+        release.clear()
+        worker = window.worker
+        worker.request()  # the same circuit analysed again (as after a sign-off): the board stays current
+        qtbot.waitUntil(lambda: worker.latest is not None and worker.latest.generation == worker._generation
+                        and worker.latest.phase == 2, timeout=30000)
+        # Common practice, no source: the review state comes without waiting for a Monte Carlo;
+        # the check read from the envelope says it follows, the view draws no stale envelope.
+        state, value, detail = check_row(window, "bench")
+        assert state == "no value" and SPREAD_FOLLOWS in detail
+        assert window.measurement_view.shown[0].envelope_db is None
+        release.set()
+        assert window.wait_until_idle(60, formula=False)
+        state, value, _detail = check_row(window, "bench")
+        assert state in ("met", "not met") and value.endswith("%")
+        assert window.measurement_view.shown[0].envelope_db is not None
     finally:
         release.set()
         window.shutdown()

@@ -147,7 +147,8 @@ class ProjectAnalysis:
         self.max_unknowns = max_unknowns
         # The program sets these before the spread is asked for: its progress callback
         # (``progress(done, total) -> bool``, True cancels; see engine.spread.Meter), and, while
-        # the review state must come quickly, the reason the yield is not computed yet.
+        # the review state must come quickly, the reason the yield and the measurements' Monte
+        # Carlo envelopes are not computed yet.
         self.spread_progress: Any = None
         self.spread_deferred: str | None = None
         # The chain's Monte Carlo result behind ``spread`` (envelopes for the views), once run.
@@ -1065,7 +1066,8 @@ class ProjectAnalysis:
         (:class:`~stagewise.engine.measured.MeasurementComparison`, in file order)."""
         from stagewise.engine.measured import compare_measurement  # noqa: PLC0415
 
-        return [compare_measurement(self.project, item, self.engine) for item in self.project.measurements]
+        return [compare_measurement(self.project, item, self.engine, envelope_why=self.spread_deferred)
+                for item in self.project.measurements]
 
     def _measurement_document(self, comparison: Any, entry: dict[str, Any]) -> dict[str, Any]:
         """A step capture's entry gains the predicted step at the same place, measured by the same code."""

@@ -134,8 +134,12 @@ def _relative(values: NDArray[np.complex128], nominal: NDArray[np.complex128]
 
 
 def compare_measurement(project: Project, measurement: Measurement,
-                        engine: ChainEngine | None = None) -> MeasurementComparison:
-    """Compare one measurement with the prediction at its place; never raises for a bad circuit."""
+                        engine: ChainEngine | None = None, *, envelope_why: str | None = None) -> MeasurementComparison:
+    """Compare one measurement with the prediction at its place; never raises for a bad circuit.
+
+    ``envelope_why``: leave out the Monte Carlo envelope (and ``inside_spread_pct``) for this
+    reason (the program computes it with the spread, after the review state).
+    """
     why: dict[str, str] = {}
     try:
         current = measurement_fingerprint(project, measurement.where, measurement.stage)
@@ -172,7 +176,9 @@ def compare_measurement(project: Project, measurement: Measurement,
     envelope_db = envelope_deg = None
     inside = None
     inside_pct: float | None = None
-    if model.refs:
+    if envelope_why is not None:
+        why["inside_spread_pct"] = envelope_why
+    elif model.refs:
         multipliers = sample_multipliers(model.tol, settings.mc_samples, settings.seed, settings.mc_distribution)
         try:
             samples = sampled_response(model, multipliers, f_hz)

@@ -410,10 +410,15 @@ def stage_review(stage: Stage, project: Project, context: Context) -> ReviewSumm
                          counts.sentence() + found, findings)
 
 
-def stage_review_with_yield(stage: Stage, project: Project, context: Context) -> ReviewSummary:
-    """The stage's checks again once the spread is in (phase 3), for a stage with a yield check;
-    any other stage keeps its review state of phase 2 (:class:`Unchanged`)."""
-    if not any(check.metric == "yield_pct" for check in stage.checks):
+# Check metrics computed with the Monte Carlo, after the review state (phase 3 in the program).
+AFTER_SPREAD_METRICS = frozenset({"yield_pct", "measured_inside_spread_pct"})
+
+
+def stage_review_after_spread(stage: Stage, project: Project, context: Context) -> ReviewSummary:
+    """The stage's checks again once the spread is in (phase 3), for a stage with a check of
+    :data:`AFTER_SPREAD_METRICS`; any other stage keeps its review state of phase 2
+    (:class:`Unchanged`)."""
+    if not any(check.metric in AFTER_SPREAD_METRICS for check in stage.checks):
         raise Unchanged
     return stage_review(stage, project, context)
 
@@ -489,7 +494,7 @@ STAGE_ANALYSES: list[tuple[str, int, Any]] = [
     ("poles", 1, isolated_roots),
     ("step", 1, isolated_step),
     ("review", 2, stage_review),
-    ("review", 3, stage_review_with_yield),  # a yield check follows the spread
+    ("review", 3, stage_review_after_spread),  # a yield or envelope check follows the spread
     ("peaking_reference", 2, peaking_reference),
     ("loops", 3, stage_loops),  # a view, not the review state: with the spread, after a pause
     ("in_chain_step", 2, in_chain_step),
@@ -701,8 +706,17 @@ def chain_dc(project: Project, context: Context) -> DcTrace:
 
 
 def measurements(project: Project, context: Context) -> list[Any]:
-    """Every bench measurement against the prediction at its place (engine/measured.py)."""
+    """Every bench measurement against the prediction at its place (engine/measured.py); before
+    phase 3 without the Monte Carlo envelope of a frequency response, which follows."""
     return list(_project_analysis(project, context).measurements)
+
+
+def measurements_with_envelope(project: Project, context: Context) -> list[Any]:
+    """The measurements again in phase 3, with their envelopes (when any frequency response is
+    attached; else the phase-2 result stands)."""
+    if not any(item.kind == "response" for item in project.measurements):
+        raise Unchanged
+    return measurements(project, context)
 
 
 CHAIN_ANALYSES: list[tuple[str, int, Any]] = [
@@ -714,6 +728,7 @@ CHAIN_ANALYSES: list[tuple[str, int, Any]] = [
     ("dc", 2, chain_dc),
     ("spread", 3, chain_spread),
     ("measurements", 2, measurements),
+    ("measurements", 3, measurements_with_envelope),
 ]
 
 

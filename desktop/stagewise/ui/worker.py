@@ -165,8 +165,10 @@ def compute_outcome(project: Project, baseline: Project | None, generation: int,
     for name, analysis_phase, function in analyses.CHAIN_ANALYSES:
         if analysis_phase == phase:
             check()
-            outcome.chain[name] = _run(function, project, context)
-            outcome.carried.discard(("chain", name))
+            computed = _run(function, project, context)
+            if computed is not _UNCHANGED:
+                outcome.chain[name] = computed
+                outcome.carried.discard(("chain", name))
     if phase == 3:
         check()  # a spread stopped early because a newer edit waits is dropped, not shown
     outcome.analysis = context.chain_state.get("project_analysis", outcome.analysis)
