@@ -844,9 +844,10 @@ def nominal_passband(system: StageSystem, project: Project, current_drive: bool,
 
     analysis = analyze_system(drive(system, current_drive), f_hz)
     reference = passband_reference(analysis, project.settings)
-    if reference.kind is None or analysis.model is None:
+    model = analysis.model or analysis.poles_model  # above the size limit: the poles alone
+    if reference.kind is None or model is None:
         return None
-    roots = np.abs(np.concatenate([analysis.model.poles_rad_s, analysis.model.zeros_rad_s])) / (2.0 * math.pi)
+    roots = np.abs(np.concatenate([model.poles_rad_s, model.zeros_rad_s])) / (2.0 * math.pi)
     roots = roots[roots > 0]
     if reference.kind == "dc":
         low = min(float(np.min(roots)) if roots.size else float(f_hz[0]), float(f_hz[0]))
