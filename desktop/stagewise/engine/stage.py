@@ -220,13 +220,10 @@ def analyze_system(
     except (np.linalg.LinAlgError, ArithmeticError) as error:
         return _failed(f_hz, unit, f"the poles and zeros could not be computed ({error})", label, fingerprint, driven)
     if response is None:
-        try:
-            response = transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * TWO_PI * f_hz)
-        except np.linalg.LinAlgError:
-            on_axis = [p for p in model.poles_rad_s if p.real == 0]
-            where = f" (a pole at {abs(on_axis[0]) / TWO_PI:.6g} Hz on the jω axis)" if on_axis else ""
-            return _failed(f_hz, unit, f"the response is infinite at an analysis frequency{where}", label,
-                           fingerprint, driven)
+        swept = _sweep(driven, f_hz, model.poles_rad_s)
+        if isinstance(swept, str):
+            return _failed(f_hz, unit, swept, label, fingerprint, driven)
+        response = swept
     return StageAnalysis(
         f_hz=f_hz,
         response=response,
@@ -240,6 +237,17 @@ def analyze_system(
         model=model,
         fingerprint=fingerprint,
     )
+
+
+def _sweep(driven: DrivenSystem, f_hz: NDArray[np.float64],
+           poles: NDArray[np.complex128] | None) -> NDArray[np.complex128] | str:
+    """The exact response on ``f_hz``, or why it is infinite there (naming a pole on the jω axis)."""
+    try:
+        return transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * TWO_PI * f_hz)
+    except np.linalg.LinAlgError:
+        on_axis = [p for p in (() if poles is None else poles) if p.real == 0]
+        where = f" (a pole at {abs(on_axis[0]) / TWO_PI:.6g} Hz on the jω axis)" if on_axis else ""
+        return f"the response is infinite at an analysis frequency{where}"
 
 
 def size_limit_why(size: int, max_unknowns: int = MODEL_MAX_UNKNOWNS, poles: bool = False) -> str:
@@ -271,11 +279,10 @@ def _analyze_large(driven: DrivenSystem, f_hz: NDArray[np.float64], unit: str, l
         except (np.linalg.LinAlgError, ArithmeticError) as error:
             return _failed(f_hz, unit, f"the poles could not be computed ({error})", label, fingerprint, driven)
     if response is None:
-        try:
-            response = transfer_at(driven.g, driven.c, driven.b, driven.output, 1j * TWO_PI * f_hz)
-        except np.linalg.LinAlgError:
-            return _failed(f_hz, unit, "the response is infinite at an analysis frequency (the system's matrix is "
-                           "singular there)", label, fingerprint, driven)
+        swept = _sweep(driven, f_hz, None if model is None else model.poles_rad_s)
+        if isinstance(swept, str):
+            return _failed(f_hz, unit, swept, label, fingerprint, driven)
+        response = swept
     if not np.any(np.abs(response) > 0):
         return _failed(f_hz, unit, "the output does not respond to the input (the response is zero at every "
                        "analysed frequency)", label, fingerprint, driven)
