@@ -49,7 +49,8 @@ class ChainTree(QTreeWidget):
         self.outcome: Outcome | None = worker.latest
         self.context_actions: list[QAction] = []
         self.setColumnCount(5)
-        self.setHeaderLabels(["Chain", "Alone", "In chain", "Review", "Input"])
+        # "In chain" on two lines: the tick column is as wide as its longest word, not the phrase.
+        self.setHeaderLabels(["Chain", "Alone", "In\nchain", "Review", "Input"])
         self.setHeaderHidden(False)
         header = self.header()
         header.setStretchLastSection(False)
@@ -66,7 +67,8 @@ class ChainTree(QTreeWidget):
         metrics = self.fontMetrics()
         for column in (COLUMN_ALONE, COLUMN_IN_CHAIN, COLUMN_FROM_INPUT):
             header.setSectionResizeMode(column, QHeaderView.ResizeMode.Fixed)
-            header.resizeSection(column, metrics.horizontalAdvance(self.headerItem().text(column)) + 14)
+            header.resizeSection(column, max(metrics.horizontalAdvance(line)
+                                             for line in self.headerItem().text(column).split("\n")) + 14)
         header.setSectionResizeMode(COLUMN_STATE, QHeaderView.ResizeMode.Fixed)
         header.resizeSection(COLUMN_STATE, max(metrics.horizontalAdvance(f"{word} {glyph} 10/10")
                                                for word, glyph, _ in STATE_MARKS.values()) + 12)
