@@ -50,3 +50,24 @@ def test_a_singular_sparse_matrix_raises_as_the_dense_solve_does() -> None:
     with pytest.raises(np.linalg.LinAlgError):
         sweep.solve_batched(g, c, np.ones(n, dtype=complex), np.array([1j, 2j]))
 
+
+
+def test_points_solved_again_come_from_the_kept_solutions_and_leave_with_the_pencil() -> None:
+    import gc  # noqa: PLC0415
+
+    driven = merged_system(_chain(30)).driven()
+    g, c = driven.g.copy(), driven.c.copy()
+    s = 1j * sweep.TWO_PI * np.array([3e3, 1e4, 3e4])
+    first = sweep.solve_batched(g, c, driven.b.astype(complex), s)
+    again = sweep.solve_batched(g, c, driven.b.astype(complex), s[::-1])[::-1]
+    # Reference library: numpy linalg.solve (LAPACK gesv) at each point.
+    dense = np.array([np.linalg.solve(g + point * c, driven.b.astype(complex)) for point in s])
+    assert np.max(np.abs(first - dense)) < 1e-10 * np.max(np.abs(dense))
+    assert np.array_equal(first, again)
+    other = driven.b.astype(complex) * 2.0  # another right-hand side is solved, not looked up
+    assert np.allclose(sweep.solve_batched(g, c, other, s), 2.0 * dense, rtol=1e-12, atol=0)
+    key = (id(g), id(c))
+    assert key in sweep._PATTERNS
+    del g, c
+    gc.collect()
+    assert key not in sweep._PATTERNS

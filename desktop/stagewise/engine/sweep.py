@@ -86,7 +86,7 @@ SPARSE_MAX_FILL = 0.1
 _PATTERNS: dict[tuple[int, int], _Pattern] = {}
 _LOCK = threading.Lock()  # the program analyses in a worker thread while the GUI may ask too
 PATTERN_ENTRIES = 8
-POINT_BYTES = 16 * 2**20  # solutions kept per pencil
+POINT_BYTES = 8 * 2**20  # solutions kept per pencil
 
 
 @dataclass
@@ -113,8 +113,13 @@ def _pattern(g: NDArray[np.float64], c: NDArray[np.float64]) -> _Pattern:
     if n < SPARSE_MIN_UNKNOWNS:
         return _Pattern(lambda: None, lambda: None, False)
     sparse = int(np.count_nonzero((g != 0) | (c != 0))) <= SPARSE_MAX_FILL * n * n
+    def forget(_: Any) -> None:
+        # Runs while G or C is freed, before its id can be reused: the entry (and the solutions
+        # it keeps) goes with the pencil. dict.pop is atomic.
+        _PATTERNS.pop(key, None)
+
     try:
-        entry = _Pattern(weakref.ref(g), weakref.ref(c), sparse)
+        entry = _Pattern(weakref.ref(g, forget), weakref.ref(c, forget), sparse)
     except TypeError:  # an array view that cannot be referenced weakly: not cached
         entry = _Pattern(lambda: None, lambda: None, sparse)
     if sparse:
