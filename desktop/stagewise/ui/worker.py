@@ -453,10 +453,9 @@ class ComputeWorker(QObject):
             return None
         if dataclasses.replace(analysed, audit=[]) != dataclasses.replace(project, audit=[]):
             return None
-        # No thread uses it any more: from here on a yield is computed when asked, never deferred,
-        # and not reported to the status bar.
-        latest.analysis.spread_deferred = None
-        latest.analysis.spread_progress = None
+        if getattr(latest.analysis, "spread_deferred", None) is not None:
+            return None  # made before the spread's phase: its yield and envelopes were left out
+        latest.analysis.spread_progress = None  # no thread uses it any more: nothing to report
         return latest.analysis
 
     # ----------------------------------------------------------------- formulas
