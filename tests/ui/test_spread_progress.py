@@ -115,9 +115,9 @@ def test_progress_shows_advances_and_cancel_stops_the_spread(qtbot, many_samples
         window.shutdown()
 
 
-def test_a_yield_check_follows_the_spread_without_holding_the_review_state(  # type: ignore[no-untyped-def]
-        qtbot, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    window = make_window(qtbot, with_yield_check(tmp_path, 200))
+@pytest.fixture
+def spread_phase(monkeypatch: pytest.MonkeyPatch) -> threading.Event:
+    """While cleared, the spread's phase (3) of the worker waits; set, it runs."""
     release = threading.Event()
     release.set()
     compute = worker_module.compute_outcome
@@ -128,6 +128,19 @@ def test_a_yield_check_follows_the_spread_without_holding_the_review_state(  # t
         return compute(*args, **kwargs)
 
     monkeypatch.setattr(worker_module, "compute_outcome", held)
+    return release
+
+
+def next_review_state(qtbot: Any, worker: Any) -> None:
+    """Wait until the review state (phase 2) of the newest request is shown."""
+    qtbot.waitUntil(lambda: worker.latest is not None and worker.latest.generation == worker._generation
+                    and worker.latest.phase == 2, timeout=30000)
+
+
+def test_a_yield_check_follows_the_spread_without_holding_the_review_state(  # type: ignore[no-untyped-def]
+        qtbot, tmp_path: Path, spread_phase: threading.Event) -> None:
+    window = make_window(qtbot, with_yield_check(tmp_path, 200))
+    release = spread_phase
     try:
         window.document.set_current_stage("amp")
         state, value, _detail = check_row(window, "yield")
@@ -139,8 +152,7 @@ def test_a_yield_check_follows_the_spread_without_holding_the_review_state(  # t
         release.clear()  # hold the spread of the next edit
         window.parts_table.edit_cell("R3", "value", "15k")
         worker = window.worker
-        qtbot.waitUntil(lambda: worker.latest is not None and worker.latest.generation == worker._generation
-                        and worker.latest.phase == 2, timeout=30000)
+        next_review_state(qtbot, worker)
         # The review state is in without the spread; the yield check says it follows.
         state, value, detail = check_row(window, "yield")
         assert state == "no value" and SPREAD_FOLLOWS in detail
@@ -155,20 +167,11 @@ def test_a_yield_check_follows_the_spread_without_holding_the_review_state(  # t
 
 
 def test_the_measurement_envelope_follows_the_spread(qtbot, tmp_path: Path,  # type: ignore[no-untyped-def]
-                                                     monkeypatch: pytest.MonkeyPatch) -> None:
+                                                     spread_phase: threading.Event) -> None:
     path = tmp_path / "hydrophone.stagewise.json"
     shutil.copyfile(ROOT / "projects" / "hydrophone.stagewise.json", path)
     window = make_window(qtbot, path)
-    release = threading.Event()
-    release.set()
-    compute = worker_module.compute_outcome
-
-    def held(*args: Any, **kwargs: Any) -> Any:
-        if args[3] == 3:
-            release.wait(60)
-        return compute(*args, **kwargs)
-
-    monkeypatch.setattr(worker_module, "compute_outcome", held)
+    release = spread_phase
     try:
         window.document.set_current_stage("adc")
         state, value, _detail = check_row(window, "bench")
@@ -177,8 +180,7 @@ def test_the_measurement_envelope_follows_the_spread(qtbot, tmp_path: Path,  # t
         release.clear()
         worker = window.worker
         worker.request()  # the same circuit analysed again (as after a sign-off): the board stays current
-        qtbot.waitUntil(lambda: worker.latest is not None and worker.latest.generation == worker._generation
-                        and worker.latest.phase == 2, timeout=30000)
+        next_review_state(qtbot, worker)
         # Common practice, no source: the review state comes without waiting for a Monte Carlo;
         # the check read from the envelope says it follows, the view draws no stale envelope.
         state, value, detail = check_row(window, "bench")
