@@ -54,6 +54,8 @@ class SpreadProgress(QWidget):
         self.hide()
 
     def _progress(self, done: int, total: int) -> None:
+        if not self.worker.spread_running:
+            return  # a late report of a run that has ended
         self.bar.setValue(STEPS * done // total if total > 0 else 0)
         if not self._running:
             self._running = True
@@ -62,7 +64,7 @@ class SpreadProgress(QWidget):
             self._reveal.start(SHOW_AFTER_MS)
 
     def _show_if_running(self) -> None:
-        if self._running and self.worker.spread_busy:
+        if self._running and self.worker.spread_running:
             self.show()
 
     def _spread_busy(self, busy: bool) -> None:

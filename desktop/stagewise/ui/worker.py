@@ -240,6 +240,7 @@ class ComputeWorker(QObject):
         self._spread_busy = False
         # Set by cancel_spread; a new one for each run of the spread.
         self._spread_cancel = threading.Event()
+        self._spread_running = False
         self._running = False
         self._pending = False
         self._busy = False
@@ -414,14 +415,18 @@ class ComputeWorker(QObject):
 
         def progress(done: int, total: int) -> bool:
             # On the spread's thread: the signal is queued to the window's thread. Whole
-            # thousandths only, so a run of many small chunks does not flood the event queue.
+            # thousandths only, so a run of many small chunks does not flood the event queue;
+            # nothing once the run is to stop (cancelled, or a newer edit waits).
+            if cancel.is_set() or generation != self._generation:
+                return True
             step = 1000 * done // total if total > 0 else 0
             if step != shown[0]:
                 shown[0] = step
                 self.spreadProgress.emit(done, total)
-            return cancel.is_set() or generation != self._generation
+            return False
 
         spread_context.spread_progress = progress
+        self._spread_running = True
 
         def spread() -> Outcome | None:
             try:
@@ -430,7 +435,16 @@ class ComputeWorker(QObject):
             except Superseded:
                 return None
 
-        self._submit(self._spread_pool, spread, self._slow_done)
+        def done(outcome: Outcome | None) -> None:
+            self._spread_running = False
+            self._slow_done(outcome)
+
+        self._submit(self._spread_pool, spread, done)
+
+    @property
+    def spread_running(self) -> bool:
+        """A run of the spread's phase is on its thread now (not merely waiting for a pause)."""
+        return self._spread_running
 
     def cancel_spread(self) -> None:
         """Stop the running Monte Carlo at its next chunk of samples (the Cancel button)."""
