@@ -168,7 +168,7 @@ def test_step_traces_in_different_units_are_each_over_their_own_final_value(qtbo
         window.wait_until_idle(60, formula=False)
         view = window.step_view
         assert view.normalized
-        assert "own final value" in view.plot.getAxis("left").labelText  # noqa: SIM300
+        assert "÷ final" in view.plot.getAxis("left").labelText  # noqa: SIM300
         for key in (f"{current.id}:isolated", f"{voltage.id}:isolated"):
             item = view.traces.items[key]
             t_s, y = item.getOriginalDataset()
@@ -257,6 +257,31 @@ def test_tree_columns_fit_at_1280_by_720(qtbot, demo: str) -> None:  # type: ign
         assert not tree.rootIsDecorated()
         tree.collapseItem(root)
         assert root.isExpanded()
+    finally:
+        window.shutdown()
+
+
+@pytest.mark.parametrize("demo", DEMOS)
+def test_axis_labels_are_whole_at_1280_by_720(qtbot, demo: str) -> None:  # type: ignore[no-untyped-def]
+    window = _window(qtbot, demo)
+    try:
+        qtbot.wait(50)
+        views = {"step": window.step_view.plot, "noise": window.noise_view.plot}
+        for name, plot in views.items():
+            for side in ("left", "bottom"):
+                axis = plot.getAxis(side)
+                if not axis.label.isVisible() or not axis.labelText:
+                    continue
+                # Common practice, no source: a label is never longer than its axis (pyqtgraph
+                # clips it), so its text along the axis fits the axis's length.
+                along = axis.label.boundingRect().width()
+                length = axis.size().height() if side == "left" else axis.size().width()
+                assert along <= length, (name, side, axis.labelText, along, length)
+            # The plot (and so its bottom label) is not pushed past the view's right edge.
+            graphics = window.step_view.graphics if name == "step" else window.noise_view.graphics
+            assert plot.sceneBoundingRect().right() <= graphics.viewport().width() + 1, name
+        # The small step view still names what its axis holds.
+        assert "Output" in views["step"].getAxis("left").labelText or "÷" in views["step"].getAxis("left").labelText
     finally:
         window.shutdown()
 

@@ -392,8 +392,8 @@ class MainWindow(QMainWindow):
         d = self.docks
         width, height = max(self.width(), 1280), max(self.height(), 800)
         self.resizeDocks([d["chain"], d["response"], d["review"]],
-                         [int(width * 0.33), int(width * 0.43), int(width * 0.24)], Qt.Orientation.Horizontal)
-        third = int(width * 0.43 / 3)
+                         [int(width * 0.37), int(width * 0.41), int(width * 0.22)], Qt.Orientation.Horizontal)
+        third = int(width * 0.41 / 3)
         self.resizeDocks([d["step"], d["poles"], d["noise"]], [third, third, third], Qt.Orientation.Horizontal)
         self.resizeDocks([d["chain"], d["parts"]], [int(height * 0.5), int(height * 0.4)], Qt.Orientation.Vertical)
         self.resizeDocks([d["response"], d["step"]], [int(height * 0.56), int(height * 0.34)], Qt.Orientation.Vertical)

@@ -481,10 +481,10 @@ class StepView(PlotView):
         self.normalized = len(units) > 1 or (len(finals) > 1 and max(finals) > 10 * min(finals))
         if self.normalized:
             rows = [(spec, t, y / _own_scale(trace)) for (spec, t, y), (_, trace) in zip(rows, steps, strict=True)]
-            self.plot.setLabel("left", "Output ÷ own final value")
+            fitted_label(self.plot, "left", "Output ÷ own final value", "Output ÷ final value", "÷ final value", "÷ final")
         else:
             unit = next(iter(units)) if units else "V/V"
-            self.plot.setLabel("left", f"Output ({_step_unit(unit)})")
+            fitted_label(self.plot, "left", f"Output ({_step_unit(unit)})", f"({_step_unit(unit)})")
         if self.span_s is not None:
             self.plot.setXRange(0.0, self.span_s, padding=0.02)
         self.traces.show(rows)
@@ -654,6 +654,35 @@ def _root_tip(label: str, kind: str, value: complex, off_scale: bool = False, f_
     return text
 
 
+def fitted_label(plot: pg.PlotItem, side: str, *forms: str) -> None:
+    """Label an axis with the longest of ``forms`` (longest first) that fits its length, whole.
+
+    A dock at 1280×720 can be a few hundred pixels tall and pyqtgraph clips a label that is
+    longer than its axis; the label is chosen again whenever the plot is resized, so a reader
+    sees "Output noise (V/√Hz)" where there is room and "Noise (V/√Hz)" where there is not.
+    """
+    chosen: dict[str, tuple[str, ...]] = plot.__dict__.setdefault("_fitted_labels", {})
+    first = side not in chosen
+    chosen[side] = forms
+
+    def fit() -> None:
+        from PySide6.QtGui import QFontMetricsF
+
+        for name, texts in chosen.items():
+            axis = plot.getAxis(name)
+            length = axis.size().height() if name in ("left", "right") else axis.size().width()
+            metrics = QFontMetricsF(axis.label.font())
+            # The label is a text item: its document margin lies on both sides of the text.
+            room = length - 2.0 * axis.label.document().documentMargin() - 2.0
+            text = next((form for form in texts if metrics.horizontalAdvance(form) <= room), texts[-1])
+            if axis.labelText != text or not axis.label.isVisible():
+                axis.setLabel(text)
+
+    if first:  # the axis's own length changes after the view box's (a legend reflowed, a dock resized)
+        plot.getAxis(side).geometryChanged.connect(fit)
+    fit()
+
+
 def _no_stock_menu(plot: pg.PlotItem) -> None:
     """No pyqtgraph right-click menu: its axis and range commands would change the views under
     the program (the framing is ours; the mouse wheel and drag still zoom and pan)."""
@@ -672,8 +701,8 @@ class NoiseView(PlotView):
         self.plot.getAxis("bottom").enableAutoSIPrefix(False)
         self.plot.getAxis("left").enableAutoSIPrefix(False)
         self.plot.showGrid(x=True, y=True, alpha=0.25)
-        self.plot.setLabel("bottom", "Frequency (Hz)")
-        self.plot.setLabel("left", "Output noise (V/√Hz)")
+        fitted_label(self.plot, "bottom", "Frequency (Hz)", "f (Hz)")
+        fitted_label(self.plot, "left", "Output noise (V/√Hz)", "Noise (V/√Hz)", "V/√Hz")
         # The legend sits below the plot: the sources are many and the plot is small.
         self.legend = pg.LegendItem(labelTextSize="8pt", colCount=2, verSpacing=-6)
         self.graphics.addItem(self.legend, row=1, col=0)
@@ -697,13 +726,33 @@ class NoiseView(PlotView):
             for name, density in noise.contributions:
                 rows.append((TraceSpec(f"source:{name}", name, CHAIN, "", trace_style(self._style_of(name, shown), 1.5)),
                              noise.f_hz, density))
-            self.summary.setText(noise.summary)
+            self._set_summary(noise.summary)
         else:
             if self.outcome is not None:
                 self.note("Chain noise", computed)
             self.summary.setText("")
         self.traces.show(rows)
 
+
+    def _set_summary(self, text: str) -> None:
+        """The noise figures under the plot; in a short view only the first sentence (the output
+        noise over the band), the rest in the label's tooltip, so the plot keeps its height."""
+        self._summary_text = text
+        first = text.split("; ")[0].split(". ")[0]
+        short = self.height() < 320 and first != text
+        self.summary.setText(first + (" …" if short else "") if short else text)
+        self.summary.setToolTip(text if short else "")
+
+    def resizeEvent(self, event: Any) -> None:  # noqa: N802 - Qt's name
+        super().resizeEvent(event)
+        # Two legend columns are wider than a narrow view and would push the plot's right edge
+        # (and its axis label) out of sight; one column then.
+        columns = 2 if self.width() >= 300 else 1
+        if self.legend.columnCount != columns:
+            self.legend.setColumnCount(columns)
+        text = getattr(self, "_summary_text", "")
+        if text:
+            self._set_summary(text)
 
     def _style_of(self, name: str, shown: list[str]) -> int:
         """A noise source keeps its colour and line style while it stays in the view, whatever its
