@@ -192,7 +192,26 @@ class PlotView(QWidget):
         finally:
             self._read = outcome.end_reading() if outcome is not None else set()
         self._show_header()
+        self._fit_legends()
         self.updated.emit()
+
+    def resizeEvent(self, event: Any) -> None:  # noqa: N802 - Qt's name
+        super().resizeEvent(event)
+        self._fit_legends()
+
+    def _fit_legends(self) -> None:
+        """Fewer legend columns when the entries side by side would be wider than the view: a
+        legend wider than its view pushes the plots' right edge (and their labels) out of sight."""
+        width = self.graphics.viewport().width() - 16.0
+        for item in list(self.graphics.ci.items):
+            if not isinstance(item, pg.LegendItem):
+                continue
+            most = item.__dict__.setdefault("_most_columns", item.columnCount)
+            widest = max((sample.boundingRect().width() + label.boundingRect().width() + 12.0
+                          for sample, label in item.items), default=0.0)
+            columns = max(1, min(most, int(width // widest))) if widest > 0 else most
+            if item.columnCount != columns:
+                item.setColumnCount(columns)
 
     def draw(self) -> None:  # pragma: no cover - every view overrides it
         raise NotImplementedError
@@ -745,11 +764,6 @@ class NoiseView(PlotView):
 
     def resizeEvent(self, event: Any) -> None:  # noqa: N802 - Qt's name
         super().resizeEvent(event)
-        # Two legend columns are wider than a narrow view and would push the plot's right edge
-        # (and its axis label) out of sight; one column then.
-        columns = 2 if self.width() >= 300 else 1
-        if self.legend.columnCount != columns:
-            self.legend.setColumnCount(columns)
         text = getattr(self, "_summary_text", "")
         if text:
             self._set_summary(text)
