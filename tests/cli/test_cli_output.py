@@ -135,3 +135,34 @@ def test_import_cards_reads_the_netlist_convention_and_places_the_stage(project_
     assert cli.main(["import-cards", str(project_file), str(cards), "--name", "X", "--after", "nope"]) == 2
     assert 'there is no stage "nope"' in capsys.readouterr().err
     assert project_file.read_bytes() == before
+
+
+def test_response_in_chain_above_the_size_limit_says_why_its_stability_is_unknown(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from stagewise.engine.stage import MODEL_MAX_UNKNOWNS
+    from stagewise.files.project_file import save_project
+    from stagewise.model.project import OpampModel, Part, Project, Stage
+    from stagewise.model.values import Quantity
+
+    # Our own chain: RC sections (2k2, 1n) each buffered by a finite op-amp, long enough that a
+    # stage in chain (with the rest of the chain as its load) is above the pole analysis's limit.
+    model = OpampModel(a0_db=Quantity.of(100), gbw_hz=Quantity.of("8M"), rout_ohm=Quantity.of(50))
+    count = MODEL_MAX_UNKNOWNS // 3 + 6
+    stages = [Stage(f"s{index}", f"Section {index}", parts=[
+        Part("R1", "R", ["in", "mid"], Quantity.of("2k2")),
+        Part("C1", "C", ["mid", "0"], Quantity.of("1n")),
+        Part("U1", "opamp", ["mid", "out", "out"], model="buffer"),
+    ]) for index in range(count)]
+    path = tmp_path / "long.stagewise.json"
+    save_project(path, Project("Long chain", opamp_models={"buffer": model}, stages=stages))
+    status = cli.main(["response", str(path), "--stage", "s1", "--in-chain", "--freqs", "1k", "--json"])
+    document = json.loads(capsys.readouterr().out)
+    assert status == 0 and len(document["points"]) == 1
+    stability = document["stability"]
+    # Common practice, no source: a verdict that was not computed is null with the reason (here the
+    # size limit, named with the sizes), never a guess.
+    assert stability["verdict"] is None
+    assert "unknowns" in stability["why"] and str(MODEL_MAX_UNKNOWNS) in stability["why"]
+    status = cli.main(["response", str(path), "--stage", "s1", "--in-chain", "--freqs", "1k"])
+    table = capsys.readouterr().out
+    assert status == 0 and "stability is not known" in table and "unknowns" in table

@@ -83,6 +83,8 @@ def run(args: argparse.Namespace) -> int:
         if stability["verdict"] == "unstable":
             warning = (f"warning: {what} is unstable: {stability['why']}; these points are the formula's H(jω), "
                        "not what a measurement shows (an unstable system has no steady state)")
+        elif stability["verdict"] is None:
+            warning = f"note: {stability['why']}; a steady state is assumed, not shown"
         _print_table(str(args.file), what, unit, points, warning)
     return 0
 
@@ -92,10 +94,12 @@ def _stability(project: Project, stage_id: str | None, place: str) -> dict[str, 
     from stagewise.engine.analysis import ProjectAnalysis  # noqa: PLC0415
     from stagewise.engine.stability import stability_to_json  # noqa: PLC0415
 
-    verdict = ProjectAnalysis(project, spread=False).stability(
-        "chain" if stage_id is None else place, stage_id or "")
+    analysis = ProjectAnalysis(project, spread=False)
+    where = "chain" if stage_id is None else place
+    verdict = analysis.stability(where, stage_id or "")
     if verdict is None:
-        return {"verdict": None, "why": "its poles could not be computed, so its stability is not known", "poles": []}
+        why = analysis.stability_unknown_why(where, stage_id or "")
+        return {"verdict": None, "why": f"its stability is not known: {why}", "poles": []}
     return stability_to_json(verdict)
 
 

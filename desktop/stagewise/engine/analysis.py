@@ -861,6 +861,14 @@ class ProjectAnalysis:
             return None
         return stability_of_poles(analysis.poles_rad_s, analysis.cancelled)
 
+    def stability_unknown_why(self, where: str, stage_id: str) -> str:
+        """Why a place has no verdict (:meth:`stability` gave ``None``): its analysis failed, or it is
+        above the size limit of the pole analysis (the sentence names the sizes)."""
+        analysis = self._analysis_for(where, stage_id)
+        if isinstance(analysis, _Failure):
+            return analysis.why
+        return analysis.model_why or analysis.why or "its poles could not be computed"
+
     def unstable_why(self, where: str, stage_id: str) -> str | None:
         """One sentence when the place is unstable (its response metrics have no value), else ``None``."""
         verdict = self.stability(where, stage_id)
