@@ -89,9 +89,12 @@ def test_progress_shows_advances_and_cancel_stops_the_spread(qtbot, many_samples
         assert progress.cancel_button.isEnabled() and progress.cancel_button.text() == "Cancel"
         clicked = time.monotonic()
         qtbot.mouseClick(progress.cancel_button, Qt.MouseButton.LeftButton)
-        qtbot.waitUntil(lambda: not progress.isVisible(), timeout=5000)
+        qtbot.waitUntil(lambda: not progress.bar.isVisible(), timeout=5000)
         assert time.monotonic() - clicked < 2.0  # stopped at the next chunks, not at the end
         assert window.wait_until_idle(30, formula=False)
+        # The status bar says so and offers to run it again.
+        assert progress.isVisible() and progress.label.text() == "Spread cancelled"
+        assert progress.cancel_button.text() == "Run again" and progress.cancel_button.isEnabled()
         # The spread view says it was cancelled and draws none of the samples done.
         assert f"Spread: {SPREAD_CANCELLED}" in window.spread_view.header.text()
         assert all(item.getData()[0] is None or len(item.getData()[0]) == 0
@@ -103,12 +106,21 @@ def test_progress_shows_advances_and_cancel_stops_the_spread(qtbot, many_samples
         assert "Up to date." == window.response_view.header.text()
         # The packet is not given the cancelled analysis: it would compute its own spread.
         assert window.worker.analysis_of(window.document.project) is None
-        # A later edit starts afresh and runs the spread to its end.
+        # "Run again" runs the spread of the same project to its end, with no edit.
         slow_spread.clear()
+        before = window.document.project
+        qtbot.mouseClick(progress.cancel_button, Qt.MouseButton.LeftButton)
+        qtbot.waitUntil(lambda: not window.worker.spread_busy and SPREAD_CANCELLED not in
+                        window.spread_view.header.text(), timeout=60000)
+        assert window.wait_until_idle(60, formula=False)
+        assert window.document.project == before
+        assert len(window.spread_view.lines["nominal"].getData()[0]) > 0
+        assert check_row(window, "yield")[0] in ("met", "not met")
+        assert not progress.isVisible()
+        # A later edit starts afresh and runs the spread to its end too.
         window.parts_table.edit_cell("R3", "value", "12k")
         assert window.wait_until_idle(60, formula=False)
         assert SPREAD_CANCELLED not in window.spread_view.header.text()
-        assert len(window.spread_view.lines["nominal"].getData()[0]) > 0
         assert check_row(window, "yield")[0] in ("met", "not met")
         assert not progress.isVisible()
     finally:
