@@ -188,3 +188,54 @@ def test_memo_shares_a_formula_between_equal_topologies_but_not_their_values() -
         (section,) = form.as_dict()["sections"]
         assert section["omega0_rad_s_value"] == pytest.approx(1 / (r * c), rel=1e-12)
     assert [form.sections[0].kind for form in forms] == ["low-pass", "low-pass", "high-pass"]
+
+
+def rc_ladder_stage(sections: int) -> Stage:
+    """``sections`` series-R (3k9), shunt-C (1n5) sections, our own values."""
+    parts = []
+    for index in range(sections):
+        a = "in" if index == 0 else f"n{index}"
+        b = "out" if index == sections - 1 else f"n{index + 1}"
+        parts += [part(f"R{index + 1}", "R", [a, b], 3.9e3), part(f"C{index + 1}", "C", [b, "0"], 1.5e-9)]
+    return Stage("ladder", "ladder", parts=parts)
+
+
+def ladder_by_chain_matrices(sections: int, f_hz: np.ndarray) -> np.ndarray:
+    # Source: two-port transmission (ABCD) matrices, any network-theory text: a series impedance
+    # Z is [[1, Z], [0, 1]], a shunt admittance Y is [[1, 0], [Y, 1]]; cascaded by multiplication,
+    # and an unloaded output gives H = 1/A.
+    s = 2j * np.pi * f_hz
+    total = np.broadcast_to(np.eye(2, dtype=complex), (len(f_hz), 2, 2)).copy()
+    for _ in range(sections):
+        series = np.zeros_like(total)
+        series[:, 0, 0] = series[:, 1, 1] = 1.0
+        series[:, 0, 1] = 3.9e3
+        shunt = np.zeros_like(total)
+        shunt[:, 0, 0] = shunt[:, 1, 1] = 1.0
+        shunt[:, 1, 0] = s * 1.5e-9
+        total = total @ series @ shunt
+    return 1.0 / total[:, 0, 0]
+
+
+def test_a_formula_too_long_to_read_is_given_numerically_and_says_why() -> None:
+    # A 9-section ladder's determinant in part symbols has thousands of terms (it grows like a
+    # Fibonacci number): the form stops at the bound instead of running for minutes, and its
+    # numeric coefficients still give the ladder's response.
+    stage = rc_ladder_stage(9)
+    form = symbolic_form(stage, project_with(stage))
+    assert form.ok and form.numeric
+    assert form.why is not None and "400 of a formula one can read" in form.why
+    f_hz = np.logspace(1, 5, 9)
+    expected = ladder_by_chain_matrices(9, f_hz)
+    np.testing.assert_allclose(evaluate_symbolic(form, f_hz), expected, rtol=1e-6)
+
+
+def test_a_hundredth_order_stage_prints_no_coefficients_and_says_why() -> None:
+    # The product of a 100-section ladder's poles leaves a double's range: its coefficients would
+    # print as infinity. The form has none, and says where the roots are.
+    stage = rc_ladder_stage(100)
+    form = symbolic_form(stage, project_with(stage))
+    assert not form.ok and form.numerator == () and form.transfer is None
+    assert form.why is not None and "order 100" in form.why and "pole/zero view" in form.why
+    text = json.dumps(form.as_dict())
+    assert "oo" not in text and "inf" not in text.lower()

@@ -18,6 +18,15 @@ SI floats, never text from a file.
 Time limit: the elimination checks the clock between steps; past ``time_limit_s`` (5 s by
 default) the form falls back to numeric coefficients from the pole/zero model and says so.
 
+Size limit: a formula of more than ``SYMBOLIC_MAX_TERMS`` terms is not a formula anyone reads,
+and the steps after the elimination (cofactors, factoring) grow much faster than it (an 8-section
+RC ladder, 1597 terms, took 18 s; a 10-section one 165 s past its 5 s limit, because one step
+is not interrupted). The elimination stops as soon as one of its entries (each a minor of the matrix) passes four
+times that bound, and a determinant past it is not expanded further: the form is numeric, saying so. A
+numeric form whose polynomial is above order ``NUMERIC_MAX_ORDER`` or whose coefficients leave a
+double's range (a 100-section ladder's product of poles) prints no coefficients ("no formula",
+with the reason); its roots are in the pole/zero view.
+
 Public API
 ----------
 ``symbolic_form(stage, project, time_limit_s=5.0) -> SymbolicForm``
@@ -52,11 +61,21 @@ from stagewise.model.project import GROUND, IDEAL_OPAMP, Project, Stage
 __all__ = ["Section", "SymbolicForm", "evaluate_symbolic", "symbolic_form"]
 
 DEFAULT_TIME_LIMIT_S = 5.0
+SYMBOLIC_MAX_TERMS = 400
+NUMERIC_MAX_ORDER = 12
 TWO_PI = 2.0 * math.pi
 
 
 class _Timeout(Exception):
     """The time limit passed."""
+
+
+class _TooLong(Exception):  # noqa: N818 - reads as "the formula is too long"
+    """The symbolic form has more terms than SYMBOLIC_MAX_TERMS (``terms``: the count seen)."""
+
+    def __init__(self, terms: int) -> None:
+        super().__init__(terms)
+        self.terms = terms
 
 
 @dataclass(frozen=True, slots=True)
@@ -379,10 +398,13 @@ def _bareiss_det(matrix: list[list[Any]], zero: Any, one: Any, deadline: float) 
             m[k], m[pivot] = m[pivot], m[k]
             sign = -sign
         for i in range(k + 1, n):
-            if time.monotonic() > deadline:
-                raise _Timeout
             for j in range(k + 1, n):
-                m[i][j] = (m[i][j] * m[k][k] - m[i][k] * m[k][j]).exquo(previous)
+                if time.monotonic() > deadline:
+                    raise _Timeout
+                entry = (m[i][j] * m[k][k] - m[i][k] * m[k][j]).exquo(previous)
+                if len(entry) > 4 * SYMBOLIC_MAX_TERMS:  # a minor of the matrix, past any readable formula
+                    raise _TooLong(len(entry))
+                m[i][j] = entry
             m[i][k] = zero
         previous = m[k][k]
     return m[n - 1][n - 1] if sign > 0 else -m[n - 1][n - 1]
@@ -494,14 +516,31 @@ def _numeric_form(model: PoleZeroModel, unit: str, why: str | None) -> SymbolicF
     import sympy
 
     s = sympy.Symbol("s")
-    numerator = [sympy.Float(float(c)) for c in model.gain * np.atleast_1d(np.real(np.poly(model.zeros_rad_s)))]
-    denominator = [sympy.Float(float(c)) for c in np.atleast_1d(np.real(np.poly(model.poles_rad_s)))]
+    order = len(model.poles_rad_s)
+    with np.errstate(over="ignore", invalid="ignore"):
+        numerator_values = model.gain * np.atleast_1d(np.real(np.poly(model.zeros_rad_s)))
+        denominator_values = np.atleast_1d(np.real(np.poly(model.poles_rad_s)))
+    if order > NUMERIC_MAX_ORDER or not (np.all(np.isfinite(numerator_values))
+                                         and np.all(np.isfinite(denominator_values))):
+        reason = ("its coefficients leave a double's range" if order <= NUMERIC_MAX_ORDER
+                  else f"a polynomial of order {order} is past the {NUMERIC_MAX_ORDER} whose coefficients one can read")
+        lead = f"{why}; but " if why else ""
+        return _empty(f"{lead}{reason}, so none are printed; the pole/zero view lists its {order} poles "
+                      f"and {len(model.zeros_rad_s)} zeros", unit)
+    numerator = [sympy.Float(float(c)) for c in numerator_values]
+    denominator = [sympy.Float(float(c)) for c in denominator_values]
     transfer = sympy.Poly(numerator, s).as_expr() / sympy.Poly(denominator, s).as_expr()
     if len(denominator) - 1 <= 2:
         sections = _sections_from_coefficients(numerator, denominator)
     else:
         sections = _numeric_sections(model)
     return SymbolicForm(tuple(numerator), tuple(denominator), transfer, tuple(sections), {}, True, why, unit)
+
+
+def _too_long(model: PoleZeroModel, unit: str, terms: int) -> SymbolicForm:
+    return _numeric_form(model, unit, f"deriving the transfer function in part symbols reached {terms} terms, "
+                                      f"beyond the {SYMBOLIC_MAX_TERMS} of a formula one can read; "
+                                      "numeric coefficients are shown instead")
 
 
 def _empty(why: str, unit: str) -> SymbolicForm:
@@ -581,6 +620,8 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
         for row_index, row in enumerate(replaced):
             row[output] = rhs[row_index]
         numerator_poly = _bareiss_det(replaced, zero, one, deadline)
+        if len(numerator_poly) + len(denominator_poly) > SYMBOLIC_MAX_TERMS:
+            return _too_long(model, unit, len(numerator_poly) + len(denominator_poly))
         if denominator_poly == zero or numerator_poly == zero:
             return _empty(f'stage "{stage.id}" has no transfer function (its symbolic determinant vanishes)', unit)
         positions = [poly_ring.symbols.index(dummy) for dummy in conductance_of.values()]
@@ -619,6 +660,8 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
     except _Timeout:
         return _numeric_form(model, unit, f"the symbolic form took longer than {time_limit_s:g} s; "
                                           "numeric coefficients are shown instead")
+    except _TooLong as long:
+        return _too_long(model, unit, long.terms)
     except (BasePolynomialError, ArithmeticError, ValueError, TypeError) as error:
         # sympy refusing an expression is a limit of the formula view, never of the analysis.
         return _numeric_form(model, unit, f"the symbolic form could not be derived ({type(error).__name__}); "
