@@ -159,6 +159,17 @@ def test_a_cancelled_project_spread_has_no_yield_and_says_why() -> None:
     assert "spread" not in deferred.__dict__  # nothing of it was computed
 
 
+def test_a_spread_cancelled_among_the_places_keeps_no_result_of_the_chain() -> None:
+    from stagewise.engine.analysis import CHAIN_SHARE
+
+    analysis = ProjectAnalysis(load_project(DEMO))
+    # Stop once the chain's run is done and a place of its own is being sampled.
+    analysis.spread_progress = lambda done, total: 1000 * CHAIN_SHARE < done < total
+    # Common practice, no source: a cancelled computation leaves no part of its result behind.
+    assert getattr(analysis.spread, "why", None) == SPREAD_CANCELLED
+    assert analysis.spread_result is None
+
+
 def test_a_place_without_toleranced_parts_counts_every_sample() -> None:
     # Source: voltage divider R2/(R1 + R2) (any circuits text): stage b, 10k over 10k, has no
     # tolerance, so its isolated gain is -6.02 dB in every sample and its check is met by all.

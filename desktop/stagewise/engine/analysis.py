@@ -649,7 +649,6 @@ class ProjectAnalysis:
                                  progress=report.slot(0, CHAIN_SHARE))
         except (ValueError, np.linalg.LinAlgError) as error:
             return _Failure(f"the spread analysis failed: {error}")
-        self.spread_result = result
         document = spread_to_json(result)
         counted: list[tuple[str, Any]] = []
         for limit in chain_limits:
@@ -688,6 +687,9 @@ class ProjectAnalysis:
             document["yield_pct"] = None
             document["yield_pct_why"] = ("no numeric check of the project can be evaluated per sample"
                                          + ("" if not skipped else f" ({len(skipped)} listed under not_evaluated)"))
+        # Only a run that went to its end is kept: a cancel while the places were sampled leaves
+        # ``spread_result`` None beside the cancelled ``spread``, never the chain's half of a run.
+        self.spread_result = result
         return document
 
     @staticmethod
