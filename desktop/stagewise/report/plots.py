@@ -574,10 +574,10 @@ def render_plot(widget: pg.GraphicsLayoutWidget, painter: QPainter, rect: QRectF
     """Paint a plot widget into ``rect`` as vectors (the widget need not be shown).
 
     The widget's layout is set to the rectangle's size first, so fonts and line widths keep
-    their size instead of being scaled. The scene is recorded into a ``QPicture`` (96 dpi, the
-    resolution pyqtgraph lays its axes out for) and replayed through ``painter``: on a device of
-    another resolution (a 600-dpi printer) the tick labels would otherwise be misplaced. The
-    picture holds painting commands, so the result stays vector.
+    their size instead of being scaled. On a device of the resolution pyqtgraph lays its axes out
+    for (96 dpi, the PDF writer) the scene is painted straight into it; on another (a 600-dpi
+    printer) the tick labels would be misplaced, so the scene is recorded into a ``QPicture`` at
+    96 dpi and replayed through ``painter``. Either way the result stays vector.
     """
     width, height = int(round(rect.width())), int(round(rect.height()))
     widget.resize(width, height)
@@ -590,28 +590,27 @@ def render_plot(widget: pg.GraphicsLayoutWidget, painter: QPainter, rect: QRectF
             plot.getAxis(name).resizeEvent(None)
     source = QRectF(0, 0, width, height)
     painter.save()
-    painter.setClipRect(rect)
-    painter.translate(rect.topLeft())
-    if painter.device().logicalDpiX() == LAYOUT_DPI:
-        # The device has the resolution the axes were laid out for (the PDF writer, 96 dpi):
-        # the scene is painted straight into it, with nothing recorded and replayed.
-        painter.setRenderHint(QPainter.RenderHint.Antialiasing, True)
-        widget.scene().render(painter, source, source)
-        painter.restore()
-    else:
-        picture = QPicture()
-        recorder = QPainter(picture)
-        try:
-            recorder.setRenderHint(QPainter.RenderHint.Antialiasing, True)
-            recorder.setClipRect(source)
-            widget.scene().render(recorder, source, source)
-        finally:
-            recorder.end()
-        # drawPicture scales by (device dpi / picture dpi) by itself; the painter's transform
-        # already maps our 96-dpi units to the device, so that factor is taken back out here.
-        factor = picture.logicalDpiX() / painter.device().logicalDpiX()
-        painter.scale(factor, factor)
-        painter.drawPicture(0, 0, picture)
+    try:  # the painter's clip and offset never outlive this figure, even when painting fails
+        painter.setClipRect(rect)
+        painter.translate(rect.topLeft())
+        if painter.device().logicalDpiX() == LAYOUT_DPI:
+            painter.setRenderHint(QPainter.RenderHint.Antialiasing, True)
+            widget.scene().render(painter, source, source)
+        else:
+            picture = QPicture()
+            recorder = QPainter(picture)
+            try:
+                recorder.setRenderHint(QPainter.RenderHint.Antialiasing, True)
+                recorder.setClipRect(source)
+                widget.scene().render(recorder, source, source)
+            finally:
+                recorder.end()
+            # drawPicture scales by (device dpi / picture dpi) by itself; the painter's transform
+            # already maps our 96-dpi units to the device, so that factor is taken back out here.
+            factor = picture.logicalDpiX() / painter.device().logicalDpiX()
+            painter.scale(factor, factor)
+            painter.drawPicture(0, 0, picture)
+    finally:
         painter.restore()
     frame = QPen(QColor("#9a9a9a"), 0.5)
     painter.setPen(frame)
