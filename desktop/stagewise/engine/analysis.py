@@ -340,7 +340,7 @@ class ProjectAnalysis:
         driven = DrivenSystem(whole.g, whole.c, whole.b, output, whole.current_drive)
         unit = CURRENT_UNIT if merged.current_drive else VOLTAGE_UNIT
         whole_chain = self.whole_chain
-        model = None if isinstance(whole_chain, _Failure) else whole_chain.model or whole_chain.poles_model
+        model = None if isinstance(whole_chain, _Failure) else whole_chain.roots_model
         known = None if model is None else model.all_poles_rad_s  # the same pencil: the same poles at every output
         states = self._chain_states
         response = None if isinstance(states, _Failure) else states[:, output]

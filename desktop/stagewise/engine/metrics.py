@@ -132,13 +132,8 @@ def _db(values: NDArray[np.complex128]) -> NDArray[np.float64]:
         return np.asarray(20.0 * np.log10(np.abs(values)), dtype=float)
 
 
-def _model(analysis: StageAnalysis) -> Any:
-    """The pole/zero model, or for a system above the size limit its poles alone (or None)."""
-    return analysis.model if analysis.model is not None else analysis.poles_model
-
-
 def _require(analysis: StageAnalysis) -> None:
-    if analysis.why is not None or analysis.response is None or _model(analysis) is None:
+    if analysis.why is not None or analysis.response is None or analysis.roots_model is None:
         raise ValueError(analysis.why or analysis.model_why or "the analysis has no response")
 
 
@@ -183,7 +178,7 @@ def _anchored_phase_deg(analysis: StageAnalysis, f_hz: NDArray[np.float64],
     """
     exact = np.angle(values)
     if analysis.model is None:
-        swept_values = getattr(analysis, "response", None)
+        swept_values = analysis.response
         grid = analysis.f_hz if swept_values is not None else np.asarray(f_hz, dtype=float)
         swept = np.unwrap(np.angle(swept_values if swept_values is not None else values))
         swept -= TWO_PI * np.round(swept[0] / TWO_PI)
@@ -359,7 +354,7 @@ def _end_exponents(analysis: StageAnalysis) -> tuple[int, int, bool]:
     of exact solves far below and far above every pole (a deep chain whose zeros are
     ill-conditioned, or a system above the size limit whose zeros are not computed).
     """
-    model = _model(analysis)
+    model = analysis.roots_model
     assert model is not None
     if not (model.fit_error > FIT_TOLERANCE):
         e0 = int(np.sum(model.zeros_rad_s == 0)) - int(np.sum(model.poles_rad_s == 0))
@@ -384,7 +379,7 @@ def _end_exponents(analysis: StageAnalysis) -> tuple[int, int, bool]:
 
 def _dc_gain_db(analysis: StageAnalysis) -> float:
     """20·log10|H(0)| by an exact solve at s = 0 (the model where G alone is singular)."""
-    model = _model(analysis)
+    model = analysis.roots_model
     assert analysis.driven is not None and model is not None
     driven = analysis.driven
     try:
@@ -474,7 +469,7 @@ def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandR
     between the low- and high-frequency corners: A. S. Sedra and K. C. Smith, *Microelectronic
     Circuits*, chapter on frequency response (the mid-band gain A_M).
     """
-    model = _model(analysis)
+    model = analysis.roots_model
     if analysis.why is not None or model is None or analysis.response is None:
         reason = analysis.why or analysis.model_why or "the analysis has no response"
         return PassbandReference(None, None, None, "unknown", "no reference: the response is not known", reason)
@@ -551,7 +546,7 @@ def passband_reference(analysis: StageAnalysis, settings: Settings) -> PassbandR
 
 def _hf_gain_db(analysis: StageAnalysis, from_model: bool) -> float:
     """20·log10|K|, the limit of |H| as s → ∞ for a relative degree of zero."""
-    model = _model(analysis)
+    model = analysis.roots_model
     assert model is not None
     if from_model:
         return float(20.0 * model.log_gain / math.log(10.0))
@@ -595,7 +590,7 @@ def metric_at(analysis: StageAnalysis, name: str, at_hz: float, settings: Settin
     """
     if analysis.why is not None:
         return MetricValue(None, analysis.why)
-    if _model(analysis) is None:
+    if analysis.roots_model is None:
         return MetricValue(None, analysis.model_why or "the analysis has no response")
     if name not in POINT_METRICS:
         return MetricValue(None, f'"{name}" is not a metric taken at a frequency; use one of {", ".join(POINT_METRICS)}')
@@ -702,7 +697,7 @@ def _search_points(analysis: StageAnalysis, *, below: bool = True,
     A corner is a property of the response, not of the plotted band: a low-pass whose corner
     lies below ``f_min_hz`` still has it there, found on the exact response.
     """
-    model = _model(analysis)
+    model = analysis.roots_model
     assert analysis.response is not None and model is not None
     f = analysis.f_hz
     mag = _db(analysis.response)
@@ -741,7 +736,7 @@ def bandwidth(analysis: StageAnalysis, settings: Settings) -> Bandwidth:
     why: dict[str, str] = {}
     keys = ("gain_db", "peak_gain_db", "f_low_3db_hz", "f_high_3db_hz", "peaking_db")
     reference = passband_reference(analysis, settings)
-    if analysis.why is not None or analysis.response is None or _model(analysis) is None:
+    if analysis.why is not None or analysis.response is None or analysis.roots_model is None:
         reason = analysis.why or analysis.model_why or "the analysis has no response"
         return Bandwidth(None, None, None, None, None, None, None, dict.fromkeys(keys, reason), reference)
     peak_hz, peak_db = _peak(analysis)

@@ -844,7 +844,7 @@ def nominal_passband(system: StageSystem, project: Project, current_drive: bool,
 
     analysis = analyze_system(drive(system, current_drive), f_hz)
     reference = passband_reference(analysis, project.settings)
-    model = analysis.model or analysis.poles_model  # above the size limit: the poles alone
+    model = analysis.roots_model  # above the size limit: the poles alone
     if reference.kind is None or model is None:
         return None
     roots = np.abs(np.concatenate([model.poles_rad_s, model.zeros_rad_s])) / (2.0 * math.pi)

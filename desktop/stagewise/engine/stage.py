@@ -149,6 +149,12 @@ class StageAnalysis:
         """True when the analysis has values (``why`` is ``None``)."""
         return self.why is None
 
+    @property
+    def roots_model(self) -> PoleZeroModel | None:
+        """``model``, or above the size limit ``poles_model`` (the poles alone), else ``None``:
+        what the pass-band reference, the corner search and the end slopes read the roots from."""
+        return self.model if self.model is not None else self.poles_model
+
 
 def _failed(f_hz: NDArray[np.float64], unit: str, why: str, label: str, fingerprint: str = "",
             driven: DrivenSystem | None = None) -> StageAnalysis:
