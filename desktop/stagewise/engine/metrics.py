@@ -178,7 +178,7 @@ def _anchored_phase_deg(analysis: StageAnalysis, f_hz: NDArray[np.float64],
     """
     exact = np.angle(values)
     if analysis.model is None:
-        swept_values = analysis.response
+        swept_values = getattr(analysis, "response", None)  # the program passes a namespace without one
         grid = analysis.f_hz if swept_values is not None else np.asarray(f_hz, dtype=float)
         swept = np.unwrap(np.angle(swept_values if swept_values is not None else values))
         swept -= TWO_PI * np.round(swept[0] / TWO_PI)
