@@ -75,8 +75,42 @@ def _one_page(context: object) -> object:
     return None
 
 
+def _wrap_setup() -> dict[str, object]:
+    from stagewise.report.layout import font, metrics_of
+    from stagewise.report.packet import ensure_application
+
+    ensure_application()
+    word = "0123456789abcdef" * 6250  # 100,000 characters, no space (a pasted hash or path)
+    prose = " ".join(["signal", "chain", "review", "of", "the", "converter", "input"] * 2000)[:100_000]
+    return {"metrics": metrics_of(font(10.0)), "word": word, "prose": prose}
+
+
+def _wrap_word(context: object) -> object:
+    from stagewise.report.layout import wrap_text
+
+    assert isinstance(context, dict)
+    return wrap_text(str(context["word"]), context["metrics"], 480.0)  # type: ignore[arg-type]
+
+
+def _wrap_prose(context: object) -> object:
+    from stagewise.report.layout import wrap_text
+
+    assert isinstance(context, dict)
+    return wrap_text(str(context["prose"]), context["metrics"], 480.0)  # type: ignore[arg-type]
+
+
 def benchmarks() -> list[Benchmark]:
     return [
+        Benchmark(
+            name="wrap_100k_word",
+            ours=_wrap_word,
+            baseline=_wrap_prose,
+            setup=_wrap_setup,
+            goal_ratio=3.0,
+            repeats=3,
+            note="the packet's line wrapper on one unbroken 100,000-character word vs 100,000 characters "
+                 "of ordinary words (it was quadratic: 5,000 characters took 47 s)",
+        ),
         Benchmark(
             name="packet_demo",
             ours=_packet,

@@ -281,3 +281,27 @@ def test_checks_on_a_step_capture_read_its_rise_overshoot_and_settling() -> None
     stage.parts[0].value = Quantity.of(R_OHM * 2)
     result = evaluate_check(checks[0], stage, project, ProjectAnalysis(project, spread=False))
     assert result.value is None and "out of date" in str(result.why)
+
+
+def test_a_million_samples_asked_are_bounded_for_the_envelope_too(monkeypatch: pytest.MonkeyPatch) -> None:
+    import dataclasses
+
+    import stagewise.engine.spread as spread
+
+    project = _project()
+    project = dataclasses.replace(project, settings=dataclasses.replace(project.settings, mc_samples=1_000_000))
+    board = _lowpass(F_HZ, R_OHM * C_F * 1.02)  # C 2 % high: inside its 5 % tolerance
+    measurement = _attach(project, F_HZ, board)
+    # A bound this small lets about 300 samples of this RC at 61 frequencies through, so the test is
+    # quick; the program's bound is the same code with about 8 s of work.
+    per_sample = F_HZ.size * 12.0 ** 3
+    monkeypatch.setattr(spread, "WORK_BOUND", 300 * per_sample)
+    comparison = compare_measurement(project, measurement)
+    assert comparison.notes and "300 of the 1000000 samples asked" in comparison.notes[0]
+    # Source: first-order RC low-pass, as above: 300 samples of R ±1 % and C ±5 % still reach past
+    # +2 % on the product, so every point lies inside the envelope.
+    assert comparison.inside_spread_pct == 100.0
+    # Below the bound's minimum of samples the envelope is not computed, with the reason.
+    monkeypatch.setattr(spread, "WORK_BOUND", 50 * per_sample)
+    comparison = compare_measurement(project, measurement)
+    assert comparison.inside_spread_pct is None and "fewer than 100 samples fit" in comparison.why["inside_spread_pct"]

@@ -38,7 +38,7 @@ from numpy.typing import NDArray
 
 from stagewise.engine.chain import ChainEngine, load_admittance, merge_systems, merged_system
 from stagewise.engine.mna import CircuitError, StageSystem
-from stagewise.engine.spread import sample_multipliers, sampled_response, tolerance_model
+from stagewise.engine.spread import bounded_samples, sample_multipliers, sampled_response, tolerance_model
 from stagewise.engine.sweep import TWO_PI, solve_batched
 from stagewise.engine.timeresp import StepResponse, step_metrics
 from stagewise.model.fingerprint import measurement_fingerprint
@@ -85,6 +85,7 @@ class MeasurementComparison:
     v: NDArray[np.float64] = field(default_factory=lambda: np.zeros(0))
     step: StepResponse | None = None
     why: dict[str, str] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
 
     @property
     def measured_mag_db(self) -> NDArray[np.float64]:
@@ -174,17 +175,32 @@ def compare_measurement(project: Project, measurement: Measurement,
     dev_db, dev_deg = _relative(measured, predicted)
     settings = project.settings
     envelope_db = envelope_deg = None
+    notes: list[str] = []
     inside = None
     inside_pct: float | None = None
     if envelope_why is not None:
         why["inside_spread_pct"] = envelope_why
     elif model.refs:
-        multipliers = sample_multipliers(model.tol, settings.mc_samples, settings.seed, settings.mc_distribution)
+        # The same cost bound as the spread's (a million samples asked took minutes and gigabytes
+        # here): fewer samples with a note, none below the bound's minimum, saying why. Counted
+        # with the place's loops, as the spread counts its own samples: the estimate leaves out
+        # the per-sample work beside the solves, which dominates a small place (the hydrophone
+        # bench place: 60,000 samples counted without loops took 12 s, not 8).
+        samples = None
         try:
-            samples = sampled_response(model, multipliers, f_hz)
-        except np.linalg.LinAlgError:
-            samples = None
-            why["inside_spread_pct"] = "a Monte Carlo sample is singular at a measured frequency"
+            count = bounded_samples(model, settings.mc_samples, f_hz.size, True, [])
+        except ValueError as error:
+            why["inside_spread_pct"] = str(error)
+        else:
+            if count < settings.mc_samples:
+                notes.append(f"the spread envelope is from {count} of the {settings.mc_samples} samples asked "
+                             "(settings.mc_samples): all of them would take past the Monte Carlo's bound of "
+                             "about 8 s")
+            multipliers = sample_multipliers(model.tol, count, settings.seed, settings.mc_distribution)
+            try:
+                samples = sampled_response(model, multipliers, f_hz)
+            except np.linalg.LinAlgError:
+                why["inside_spread_pct"] = "a Monte Carlo sample is singular at a measured frequency"
         if samples is not None:
             relative_db, relative_deg = _relative(samples, predicted[None, :])
             envelope_db = (relative_db.min(axis=0), relative_db.max(axis=0))
@@ -201,7 +217,7 @@ def compare_measurement(project: Project, measurement: Measurement,
         envelope_deg=envelope_deg, inside=inside,
         dev_db_max=float(np.max(np.abs(dev_db))), dev_deg_max=float(np.max(np.abs(dev_deg))),
         dev_db_rms=float(np.sqrt(np.mean(dev_db ** 2))), dev_deg_rms=float(np.sqrt(np.mean(dev_deg ** 2))),
-        inside_spread_pct=inside_pct, why=why,
+        inside_spread_pct=inside_pct, why=why, notes=tuple(notes),
     )
 
 
@@ -240,6 +256,8 @@ def comparison_to_json(comparison: MeasurementComparison) -> dict[str, Any]:
     }
     if comparison.why.get("stale"):
         document["stale_why"] = comparison.why["stale"]
+    if comparison.notes:
+        document["notes"] = list(comparison.notes)
     response_keys = ("dev_db_max", "dev_deg_max", "dev_db_rms", "dev_deg_rms", "inside_spread_pct")
     if measurement.kind == "step":
         reason = "a step capture has no frequency response to compare"

@@ -76,6 +76,7 @@ __all__ = [
     "ToleranceModel",
     "WorstCase",
     "YieldLimit",
+    "bounded_samples",
     "corners_3db",
     "monte_carlo",
     "place_samples",
@@ -197,7 +198,7 @@ WORK_BOUND = 2.5e10
 MIN_BOUNDED_SAMPLES = 100
 
 
-def _bounded_samples(model: ToleranceModel, asked: int, frequencies: int, phase_margins: bool,
+def bounded_samples(model: ToleranceModel, asked: int, frequencies: int, phase_margins: bool,
                      notes: list[str]) -> int:
     """The number of samples within :data:`WORK_BOUND` (``asked`` when it fits; a note when not).
 
@@ -1360,7 +1361,7 @@ def monte_carlo(
     meter = Meter(progress)
     model = tolerance_model(system, current_drive=current_drive)
     notes = list(model.notes)
-    count = _bounded_samples(model, count, f_hz.size, phase_margins, notes)
+    count = bounded_samples(model, count, f_hz.size, phase_margins, notes)
     notes.append("op-amp model parameters are held at nominal")
     if not model.refs:
         notes.append("no part has a tolerance: every sample equals the nominal circuit")
