@@ -63,6 +63,7 @@ __all__ = ["Section", "SymbolicForm", "evaluate_symbolic", "symbolic_form"]
 DEFAULT_TIME_LIMIT_S = 5.0
 SYMBOLIC_MAX_TERMS = 400
 NUMERIC_MAX_ORDER = 12
+NUMERIC_INSTEAD = "numeric coefficients are shown instead"  # said after why a form is numeric
 TWO_PI = 2.0 * math.pi
 
 
@@ -524,8 +525,9 @@ def _numeric_form(model: PoleZeroModel, unit: str, why: str | None) -> SymbolicF
                                          and np.all(np.isfinite(denominator_values))):
         reason = ("its coefficients leave a double's range" if order <= NUMERIC_MAX_ORDER
                   else f"a polynomial of order {order} is past the {NUMERIC_MAX_ORDER} whose coefficients one can read")
-        lead = f"{why}; but " if why else ""
-        return _empty(f"{lead}{reason}, so none are printed; the pole/zero view lists its {order} poles "
+        cause = why.removesuffix(f"; {NUMERIC_INSTEAD}") if why else ""
+        lead = f"{cause}; and " if cause else ""
+        return _empty(f"{lead}{reason}, so no coefficients are printed; the pole/zero view lists its {order} poles "
                       f"and {len(model.zeros_rad_s)} zeros", unit)
     numerator = [sympy.Float(float(c)) for c in numerator_values]
     denominator = [sympy.Float(float(c)) for c in denominator_values]
@@ -539,8 +541,7 @@ def _numeric_form(model: PoleZeroModel, unit: str, why: str | None) -> SymbolicF
 
 def _too_long(model: PoleZeroModel, unit: str, terms: int) -> SymbolicForm:
     return _numeric_form(model, unit, f"deriving the transfer function in part symbols reached {terms} terms, "
-                                      f"beyond the {SYMBOLIC_MAX_TERMS} of a formula one can read; "
-                                      "numeric coefficients are shown instead")
+                                      f"beyond the {SYMBOLIC_MAX_TERMS} of a formula one can read; {NUMERIC_INSTEAD}")
 
 
 def _empty(why: str, unit: str) -> SymbolicForm:
@@ -658,14 +659,13 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
                              None if numeric_sections else tuple(sections), why)
         return SymbolicForm(tuple(numerator), tuple(denominator), transfer, tuple(sections), values, False, why, unit)
     except _Timeout:
-        return _numeric_form(model, unit, f"the symbolic form took longer than {time_limit_s:g} s; "
-                                          "numeric coefficients are shown instead")
+        return _numeric_form(model, unit, f"the symbolic form took longer than {time_limit_s:g} s; {NUMERIC_INSTEAD}")
     except _TooLong as long:
         return _too_long(model, unit, long.terms)
     except (BasePolynomialError, ArithmeticError, ValueError, TypeError) as error:
         # sympy refusing an expression is a limit of the formula view, never of the analysis.
         return _numeric_form(model, unit, f"the symbolic form could not be derived ({type(error).__name__}); "
-                                          "numeric coefficients are shown instead")
+                                          f"{NUMERIC_INSTEAD}")
 
 
 def evaluate_symbolic(form: SymbolicForm, f_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
