@@ -1281,9 +1281,14 @@ def _readout_units(count: int, plans: Sequence[_Readout], loops: bool) -> int:
     return count * (1 + any(plan.band for plan in plans) + loops)
 
 
+def _stability_work(model: ToleranceModel, count: int) -> float:
+    """The per-sample stability's work for ``count`` samples, in the units of ``WORK_BOUND``."""
+    return float(count) * STABILITY_WORK * float(model.size) ** 3
+
+
 def _stability_bounded(model: ToleranceModel, count: int) -> bool:
     """Whether the per-sample stability of ``count`` samples fits its share of the bound."""
-    return float(count) * STABILITY_WORK * float(model.size) ** 3 <= WORK_BOUND / 4
+    return _stability_work(model, count) <= WORK_BOUND / 4
 
 
 def monte_carlo(
@@ -1386,7 +1391,7 @@ def monte_carlo(
     placed = {key: values[1] for key, values in zip(others, evaluated[1:], strict=True)}
     if judged and not stability:
         notes.append(f"the stability of each sample was not checked: {count} eigenproblems of size {model.size} "
-                     f"would take about {count * STABILITY_WORK * float(model.size) ** 3 / WORK_BOUND * 8.0:.0f} s; "
+                     f"would take about {_stability_work(model, count) / WORK_BOUND * 8.0:.0f} s; "
                      "a sample that goes unstable is judged by its response alone")
     elif judged:
         # The yield: a sample that cannot settle meets no check (its H(jω) is no steady state).
