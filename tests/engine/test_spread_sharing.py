@@ -82,6 +82,22 @@ def test_a_readout_with_a_corner_check_has_its_own_refined_corner() -> None:
     assert places["out"].band
 
 
+def test_a_second_readout_of_the_same_output_finds_the_same_corner_from_the_shared_poles() -> None:
+    # The pass band of every readout after the first is found with the first one's poles (one
+    # pencil): the corner read there must still be the circuit's.
+    project = ladder(mc_samples=150)
+    system = assemble(project.stages[0], project)
+    limit = YieldLimit("f_high_3db_hz", min=1.0, label="out corner")
+    result = monte_carlo(system, project, current_drive=False, worst_case=False, phase_margins=False,
+                         readouts={"again": Readout(system.output_index, (limit,))})
+    m = result.sample_values.multipliers
+    corner = result.readouts["again"].f_high_3db_hz
+    # Source: R1 + R2 feeding R3 ∥ C3 is a first-order low-pass with its pole at
+    # (R1 + R2 + R3) / (2π·(R1 + R2)·R3·C3); its −3 dB corner (against the DC gain) is there.
+    r12, r3, c3 = (R1 * m[:, 0] + R2 * m[:, 1]), R3 * m[:, 2], C3 * m[:, 3]
+    assert np.allclose(corner, (r12 + r3) / (TWO_PI * r12 * r3 * c3), rtol=1e-8)
+
+
 def test_progress_is_monotone_and_reaches_its_total() -> None:
     project = ladder(mc_samples=600)
     system = assemble(project.stages[0], project)

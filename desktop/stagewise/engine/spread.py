@@ -55,7 +55,7 @@ import os
 from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -63,6 +63,9 @@ from numpy.typing import NDArray
 from stagewise.engine.mna import CircuitError, OpampStates, StageSystem
 from stagewise.engine.sweep import drive
 from stagewise.model.project import Project
+
+if TYPE_CHECKING:
+    from stagewise.engine.poles import PoleZeroModel
 
 __all__ = [
     "DEFAULT_PERCENTILES",
@@ -840,23 +843,39 @@ class Passband:
 def nominal_passband(system: StageSystem, project: Project, current_drive: bool,
                      f_hz: NDArray[np.float64]) -> Passband | None:
     """The nominal circuit's pass-band reference as a :class:`Passband` (None when it has none)."""
+    return _nominal_passband(system, project, current_drive, f_hz, None)[0]
+
+
+def _nominal_passband(system: StageSystem, project: Project, current_drive: bool, f_hz: NDArray[np.float64],
+                      poles: NDArray[np.complex128] | None) -> tuple[Passband | None, NDArray[np.complex128] | None]:
+    """:func:`nominal_passband`, and the pencil's poles for another output of the same system.
+
+    ``poles``: the pencil's poles when already known (another output's), so they are not
+    computed again; the second value gives them back (None when they are not known).
+    """
     from stagewise.engine.metrics import passband_reference  # noqa: PLC0415
     from stagewise.engine.stage import analyze_system  # noqa: PLC0415
 
-    analysis = analyze_system(drive(system, current_drive), f_hz)
+    analysis = analyze_system(drive(system, current_drive), f_hz, poles=poles)
     reference = passband_reference(analysis, project.settings)
     model = analysis.roots_model  # above the size limit: the poles alone
+    known = None if model is None else model.all_poles_rad_s
     if reference.kind is None or model is None:
-        return None
+        return None, known
+    return _passband_of(reference.kind, reference.f_hz, model, f_hz), known
+
+
+def _passband_of(kind: str, reference_hz: float | None, model: PoleZeroModel, f_hz: NDArray[np.float64]) -> Passband:
+    """Where each sample's pass-band gain is read, for a nominal reference of ``kind``."""
     roots = np.abs(np.concatenate([model.poles_rad_s, model.zeros_rad_s])) / (2.0 * math.pi)
     roots = roots[roots > 0]
-    if reference.kind == "dc":
+    if kind == "dc":
         low = min(float(np.min(roots)) if roots.size else float(f_hz[0]), float(f_hz[0]))
         return Passband("dc", low * 1e-6)
-    if reference.kind == "hf":
+    if kind == "hf":
         high = max(float(np.max(roots)) if roots.size else float(f_hz[-1]), float(f_hz[-1]))
         return Passband("hf", high * 1e6)
-    return Passband("at", float(reference.f_hz or f_hz[0]))
+    return Passband("at", float(reference_hz or f_hz[0]))
 
 
 @dataclass(frozen=True, slots=True)
@@ -1256,13 +1275,16 @@ def _readout_plans(
                                    [readout.output for readout in readouts])[:, 0, :]
         references = [float(f_hz[int(np.argmax(np.abs(row)))]) for row in nominal]
     plans = []
+    poles: NDArray[np.complex128] | None = None  # every readout's pencil is the system's: its poles once
     for number, (readout, ref_hz) in enumerate(zip(readouts, references, strict=True)):
         limits = readout.limits
         extra = np.array(sorted({float(limit.at_hz) for limit in limits if limit.at_hz is not None}), dtype=float)
         band = number == always_band or any(limit.metric not in _POINT_METRICS for limit in limits)
         needs_pass = band or any(limit.metric not in ("gain_db", "phase_margin_deg") for limit in limits)
-        passband = (nominal_passband(replace(system, output_index=readout.output), project, current_drive, f_hz)
-                    if needs_pass else None)
+        passband = None
+        if needs_pass:
+            passband, poles = _nominal_passband(replace(system, output_index=readout.output), project, current_drive,
+                                                f_hz, poles)
         plans.append(_Readout(readout.output, ref_hz, extra, passband, band))
     return plans
 
