@@ -429,13 +429,15 @@ def peaking_reference(stage: Stage, project: Project, context: Context) -> dict[
     wheres = sorted({check.where for check in stage.checks if check.metric == "peaking_db" and check.where})
     if not wheres:
         raise NotAvailable("the stage has no peaking check")
+    from stagewise.present.limits import peaking_reference_db
+
     analysis = _project_analysis(project, context)
     found: dict[str, float] = {}
     for where in wheres:
-        peak, _ = analysis.metric_value("peak_gain_db", where, stage.id, None)
-        peaking, _ = analysis.metric_value("peaking_db", where, stage.id, None)
-        if peak is not None and peaking is not None:
-            found[where] = float(peak) - float(peaking)
+        reference = peaking_reference_db({key: analysis.metric_value(key, where, stage.id, None)[0]
+                                          for key in ("peak_gain_db", "peaking_db")})
+        if reference is not None:
+            found[where] = reference
     return found
 
 
