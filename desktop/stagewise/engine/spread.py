@@ -840,15 +840,10 @@ class Passband:
     f_hz: float
 
 
-def nominal_passband(system: StageSystem, project: Project, current_drive: bool,
-                     f_hz: NDArray[np.float64]) -> Passband | None:
-    """The nominal circuit's pass-band reference as a :class:`Passband` (None when it has none)."""
-    return _nominal_passband(system, project, current_drive, f_hz, None)[0]
-
-
 def _nominal_passband(system: StageSystem, project: Project, current_drive: bool, f_hz: NDArray[np.float64],
                       poles: NDArray[np.complex128] | None) -> tuple[Passband | None, NDArray[np.complex128] | None]:
-    """:func:`nominal_passband`, and the pencil's poles for another output of the same system.
+    """The nominal circuit's pass-band reference as a :class:`Passband` (None when it has none),
+    and the pencil's poles for another output of the same system.
 
     ``poles``: the pencil's poles when already known (another output's), so they are not
     computed again; the second value gives them back (None when they are not known).
