@@ -32,7 +32,7 @@ from stagewise.model.values import format_value
 from stagewise.present.framing import PoleZeroFrame, pole_zero_frame
 from stagewise.present.limits import LimitShape
 from stagewise.ui.palette import LINE_STYLES as GUI_LINE_STYLES
-from stagewise.ui.palette import OKABE_ITO, limit_brush_colour, trace_style
+from stagewise.ui.palette import OKABE_ITO, PLOT_OPTIONS, limit_brush_colour, trace_style
 
 __all__ = [
     "LINE_STYLES",
@@ -55,9 +55,9 @@ __all__ = [
     "using_canvas",
 ]
 
-# Curves, symbols and text antialiased, on the program's colours (as ui/plots.py sets them): the
-# packet draws the same items as the program, and must not depend on whether the GUI was loaded.
-pg.setConfigOptions(antialias=True, background="w", foreground="#202020")
+# The program's plot options (ui/palette.py): the packet draws the same items as the program, and
+# must not depend on whether the GUI was loaded.
+pg.setConfigOptions(**PLOT_OPTIONS)
 
 # The GUI's trace styles (ui/palette.py), so a trace looks the same on screen and on paper.
 PALETTE = tuple(colour for _, colour in OKABE_ITO)

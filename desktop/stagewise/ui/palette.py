@@ -20,6 +20,7 @@ __all__ = [
     "LINE_STYLES",
     "MEASUREMENT_MARKERS",
     "OKABE_ITO",
+    "PLOT_OPTIONS",
     "MarkerStyle",
     "TraceStyle",
     "limit_brush_colour",
@@ -71,6 +72,12 @@ def trace_style(index: int, width: float = 2.0) -> TraceStyle:
     colour_name, colour = OKABE_ITO[index % len(OKABE_ITO)]
     line_name, line = LINE_STYLES[(index + index // len(OKABE_ITO)) % len(LINE_STYLES)]
     return TraceStyle(colour, colour_name, line, line_name, width)
+
+
+# pyqtgraph's global options for every plot, in the program and in the packet (both set them, so a
+# packet made without the GUI loaded draws as the program does): curves, symbols and text
+# antialiased, dark ink on white.
+PLOT_OPTIONS: dict[str, object] = {"antialias": True, "background": "w", "foreground": "#202020"}
 
 
 def limit_brush_colour(alpha: int = 50) -> QColor:

@@ -26,13 +26,13 @@ from stagewise.ui.analyses import ResponseTrace, finite
 from stagewise.ui.document import Document
 from stagewise.ui.measured_plots import MeasuredOverlay, MeasuredSteps
 from stagewise.ui.overlays import BASELINE, CHAIN, FROM_INPUT, IN_CHAIN, ISOLATED, OverlaySelection, TraceSpec
-from stagewise.ui.palette import OKABE_ITO, limit_brush_colour
+from stagewise.ui.palette import OKABE_ITO, PLOT_OPTIONS, limit_brush_colour
 from stagewise.ui.subscriptions import Subscriptions
 from stagewise.ui.worker import Computed, ComputeWorker, Outcome
 
 __all__ = ["LoopGainView", "NoiseView", "PlotView", "PoleZeroView", "ResponseView", "SpreadView", "StepView", "limit_shapes"]
 
-pg.setConfigOptions(antialias=True, background="w", foreground="#202020")
+pg.setConfigOptions(**PLOT_OPTIONS)
 
 # Step traces whose windows differ by more than this factor are framed by the fastest one.
 SPAN_RATIO_SHOWN = 20.0
