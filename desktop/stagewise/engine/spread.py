@@ -1278,8 +1278,9 @@ def _readout_plans(
         needs_pass = band or any(limit.metric not in ("gain_db", "phase_margin_deg") for limit in limits)
         passband = None
         if needs_pass:
-            passband, poles = _nominal_passband(replace(system, output_index=readout.output), project, current_drive,
-                                                f_hz, poles)
+            passband, known = _nominal_passband(replace(system, output_index=readout.output), project,
+                                                current_drive, f_hz, poles)
+            poles = poles if poles is not None else known  # an output without a model keeps them
         plans.append(_Readout(readout.output, ref_hz, extra, passband, band))
     return plans
 
