@@ -238,6 +238,8 @@ def test_a_hundredth_order_stage_prints_no_coefficients_and_says_why() -> None:
     form = symbolic_form(stage, project_with(stage))
     assert not form.ok and form.numerator == () and form.transfer is None
     assert form.why is not None and "order 100" in form.why and "pole/zero view" in form.why
+    # 101 node voltages and the drive's branch current: past the unknowns a formula is tried for.
+    assert "102 unknowns" in form.why
     text = json.dumps(form.as_dict())
     # sympy prints an infinity as the token oo (zoo when complex): matched as a word, so the
     # reason's prose ("took longer ...", when the clock stops the elimination first) is no match.

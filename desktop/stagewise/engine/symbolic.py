@@ -18,7 +18,8 @@ SI floats, never text from a file.
 Time limit: the elimination checks the clock between steps; past ``time_limit_s`` (5 s by
 default) the form falls back to numeric coefficients from the pole/zero model and says so.
 
-Size limit: a formula of more than ``SYMBOLIC_MAX_TERMS`` terms is not a formula anyone reads,
+Size limit: a stage of more than ``SYMBOLIC_MAX_UNKNOWNS`` unknowns is not eliminated at all, and
+a formula of more than ``SYMBOLIC_MAX_TERMS`` terms is not a formula anyone reads,
 and the steps after the elimination (cofactors, factoring) grow much faster than it (an 8-section
 RC ladder, 1597 terms, took 18 s; a 10-section one 165 s past its 5 s limit, because one step
 is not interrupted). The elimination stops as soon as one of its entries (each a minor of the matrix) passes four
@@ -62,6 +63,10 @@ __all__ = ["Section", "SymbolicForm", "evaluate_symbolic", "symbolic_form"]
 
 DEFAULT_TIME_LIMIT_S = 5.0
 SYMBOLIC_MAX_TERMS = 400
+# Past this many unknowns the elimination is not tried: its row operations alone (n³/3 of them on
+# polynomials) take seconds before the term bound can stop it, and no stage that large has a
+# formula of 400 terms (the demos' largest stage has 7 unknowns).
+SYMBOLIC_MAX_UNKNOWNS = 30
 NUMERIC_MAX_ORDER = 12
 NUMERIC_INSTEAD = "numeric coefficients are shown instead"  # said after why a form is numeric
 TWO_PI = 2.0 * math.pi
@@ -606,6 +611,9 @@ def symbolic_form(stage: Stage, project: Project, time_limit_s: float = DEFAULT_
         return _empty(f'stage "{stage.id}" has no transfer function: {error}', unit)
     if stage.is_block:
         return _numeric_form(model, unit, "a behavioural block is given by numbers; its coefficients are numeric")
+    if driven.g.shape[0] > SYMBOLIC_MAX_UNKNOWNS:
+        return _numeric_form(model, unit, f"the stage has {driven.g.shape[0]} unknowns, beyond the "
+                                          f"{SYMBOLIC_MAX_UNKNOWNS} of a formula in part symbols; {NUMERIC_INSTEAD}")
     try:
         poly_ring, matrix, rhs, output, conductance_of, part_symbols, values, s_symbol = _build(stage, project)
         key = None
