@@ -450,9 +450,7 @@ def _noise(chain: dict[str, Any], project: Project) -> list[Block]:
         blocks.append(Heading("Top contributors", 3))
         blocks.append(Table([Column("source"), Column("kind"), Column("output RMS", "right", wrap=False),
                              Column("share of output power", "right", wrap=False)], table_rows))
-        blocks.append(_plot_figure(lambda canvas: bars_plot(names, values, "output noise RMS over the band (µV)",
-                                                         canvas=canvas),
-                                   max(130.0, 24.0 * len(names) + 70.0),
+        blocks.append(_bars_figure(names, values, "output noise RMS over the band (µV)",
                                    "Largest contributors to the output noise over the noise band."))
     for note in noise.get("notes") or []:
         blocks.append(Paragraph(f"Note: {note}", 10.5, color=QColor(MUTED)))
@@ -460,6 +458,12 @@ def _noise(chain: dict[str, Any], project: Project) -> list[Block]:
 
 
 DC_TABLE_ROWS = 15
+
+
+def _bars_figure(names: list[str], values: list[float], axis_label: str, caption: str) -> Figure:
+    """A horizontal bar figure of contributions, tall enough for one bar per name."""
+    return _plot_figure(lambda canvas: bars_plot(names, values, axis_label, canvas=canvas),
+                        max(130.0, 24.0 * len(names) + 70.0), caption)
 
 
 def _dc_budget(chain: dict[str, Any], project: Project) -> list[Block]:
@@ -505,10 +509,7 @@ def _dc_budget(chain: dict[str, Any], project: Project) -> list[Block]:
         names = [f"{row.stage}: {row.source}" for row in bars]
         values = [abs(row.value or 0.0) for row in bars]
         if bars:
-            blocks.append(_plot_figure(lambda canvas: bars_plot(names, values, f"error at the converter input "
-                                                                                f"({table.unit}, magnitude)",
-                                                                canvas=canvas),
-                                       max(130.0, 24.0 * len(names) + 70.0),
+            blocks.append(_bars_figure(names, values, f"error at the converter input ({table.unit}, magnitude)",
                                        "Largest DC error contributions at the converter input; gain errors at "
                                        "the reference signal level, drifts at the end of the temperature range."))
         if len(table.rows) > DC_TABLE_ROWS:
