@@ -727,6 +727,7 @@ class NoiseView(PlotView):
         self.graphics.addItem(self.legend, row=1, col=0)
         self.traces = _TraceItems(self.plot, self.legend)
         self._source_styles: dict[str, int] = {}
+        self._summary_text = ""
         self.summary = QLabel(self)
         self.summary.setTextFormat(Qt.TextFormat.PlainText)
         self.summary.setWordWrap(True)
@@ -764,9 +765,8 @@ class NoiseView(PlotView):
 
     def resizeEvent(self, event: Any) -> None:  # noqa: N802 - Qt's name
         super().resizeEvent(event)
-        text = getattr(self, "_summary_text", "")
-        if text:
-            self._set_summary(text)
+        if self._summary_text:
+            self._set_summary(self._summary_text)
 
     def _style_of(self, name: str, shown: list[str]) -> int:
         """A noise source keeps its colour and line style while it stays in the view, whatever its
